@@ -1,0 +1,63 @@
+"""The ``chipflow`` command line: thin commands that parse, call one library function, print.
+
+Bad input never shows a traceback: any :class:`~chipflow.errors.ChipflowError` and any usage
+mistake becomes one line on stderr and exit status 2.
+"""
+
+from __future__ import annotations
+
+import sys
+
+import click
+
+from chipflow import __version__
+from chipflow.errors import ChipflowError
+
+__all__ = ["main"]
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+class _Group(click.Group):
+    """A command group that reports bad input in one line and exits with status 2."""
+
+    def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
+        try:
+            result = super().main(
+                args=args, prog_name=prog_name or "chipflow", standalone_mode=False, **extra
+            )
+        except click.exceptions.Abort:
+            click.echo("chipflow: aborted", err=True)
+            sys.exit(130)
+        except click.ClickException as exc:
+            click.echo(f"chipflow: error: {_one_line(exc.format_message())}", err=True)
+            sys.exit(2)
+        except ChipflowError as exc:
+            click.echo(f"chipflow: error: {_one_line(exc)}", err=True)
+            sys.exit(2)
+        if not standalone_mode:
+            return result
+        sys.exit(result if isinstance(result, int) else 0)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, "--version", prog_name="chipflow", message="%(prog)s %(version)s")
+def main() -> None:
+    """Design, check and draw branching perfusion networks for organ-on-chip devices.
+
+    \b
+    Example:
+      chipflow channel --width 200um --depth 50um --length 10mm --flow 5uL/min
+    """
+
+
+def _register() -> None:
+    from chipflow.cli import channel
+
+    for module in (channel,):
+        main.add_command(module.command)
+
+
+_register()

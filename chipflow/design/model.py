@@ -1,0 +1,95 @@
+"""The sized design: per-generation geometry of a branching tree, inlet to outlet.
+
+This is the contract between sizing (``chipflow.design``) and drawing (``chipflow.layout``):
+pure numbers, no geometry.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from chipflow.physics.fluid import Fluid
+
+__all__ = ["Level", "TreeDesign", "ROLES"]
+
+#: Channel roles along the path from inlet to outlet.
+ROLES = ("distribution", "bed", "collection")
+
+
+@dataclass(frozen=True)
+class Level:
+    """One generation of the tree; all its channels are alike.
+
+    Attributes
+    ----------
+    generation : int
+        0 for the trunk at the inlet, ``n`` for the bed of a tree with ``n`` bifurcating
+        generations; collecting levels mirror the distributing ones (``n - 1`` down to 0).
+    role : str
+        One of :data:`ROLES`.
+    count : int
+        Number of parallel channels in this level (``2**generation`` for a bifurcating tree).
+    width, depth : float
+        Channel cross-section [m].
+    length : float
+        Sizing length of each channel [m]. For the bed this is the designed length (from the
+        residence-time target or given); for the trees it is nominal - the layout replaces it
+        with the drawn length.
+    flow : float
+        Design flow rate per channel [m^3/s].
+    """
+
+    generation: int
+    role: str
+    count: int
+    width: float
+    depth: float
+    length: float
+    flow: float
+
+
+@dataclass(frozen=True)
+class TreeDesign:
+    """A sized, mirrored bifurcating tree.
+
+    Attributes
+    ----------
+    name : str
+        Design name.
+    fluid : Fluid
+        The perfusion fluid.
+    total_flow : float
+        Flow through the trunk [m^3/s].
+    levels : tuple of Level
+        Every level on the path from inlet to outlet: distribution generations 0..n-1, the
+        bed (generation n), then collection generations n-1..0.
+    warnings : tuple of str
+        Soft misses found while sizing (e.g. a target met only within tolerance after snapping
+        to the mask grid).
+    """
+
+    name: str
+    fluid: Fluid
+    total_flow: float
+    levels: tuple[Level, ...]
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def generations(self) -> int:
+        """Number of bifurcating generations ``n`` (the bed has ``2**n`` channels)."""
+        return self.bed.generation
+
+    @property
+    def bed(self) -> Level:
+        """The capillary bed level."""
+        return next(level for level in self.levels if level.role == "bed")
+
+    @property
+    def distribution(self) -> tuple[Level, ...]:
+        """Distribution levels, trunk first."""
+        return tuple(level for level in self.levels if level.role == "distribution")
+
+    @property
+    def collection(self) -> tuple[Level, ...]:
+        """Collection levels, from the bed towards the outlet."""
+        return tuple(level for level in self.levels if level.role == "collection")

@@ -1,0 +1,194 @@
+"""Units at the boundary: one pint registry, text in, SI floats out.
+
+Everything inside chipflow is a plain SI float (or a numpy array of them). Quantities typed by
+a person - in a design file, on the command line - pass through :func:`to_si` exactly once, and
+numbers shown to a person pass through :func:`from_si`.
+
+Examples
+--------
+>>> to_si("50 um", "length")
+5e-05
+>>> round(to_si("5 uL/min", "flow"), 15)
+8.3e-11
+>>> to_si("37 degC", "temperature")
+310.15
+>>> to_si("1.2 dyn/cm^2", "pressure")
+0.12
+>>> from_si(5e-05, "um")
+50.0
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import re
+from dataclasses import dataclass
+from numbers import Real
+
+import numpy as np
+import pint
+
+from chipflow.errors import UnitError
+
+__all__ = ["ureg", "KINDS", "Kind", "to_si", "from_si", "format_quantity"]
+
+#: The one unit registry of chipflow. Offset temperatures ("37 degC") convert on their own.
+ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+ureg.define("cell = [] = cells")
+
+
+@dataclass(frozen=True)
+class Kind:
+    """A kind of physical quantity that chipflow accepts from people.
+
+    Attributes
+    ----------
+    label : str
+        What the quantity is called in messages ("length", "flow rate", ...).
+    si_unit : str
+        The SI unit values are converted to.
+    example : str
+        A valid input shown in error messages.
+    """
+
+    label: str
+    si_unit: str
+    example: str
+
+    @property
+    def dimensionality(self) -> pint.util.UnitsContainer:
+        return ureg.Unit(self.si_unit).dimensionality
+
+
+KINDS: dict[str, Kind] = {
+    "length": Kind("length", "m", "50 um"),
+    "area": Kind("area", "m**2", "0.01 mm^2"),
+    "flow": Kind("flow rate", "m**3/s", "5 uL/min"),
+    "pressure": Kind("pressure", "Pa", "3 kPa"),
+    "viscosity": Kind("dynamic viscosity", "Pa*s", "0.9 mPa*s"),
+    "density": Kind("density", "kg/m**3", "1000 kg/m^3"),
+    "temperature": Kind("temperature", "K", "37 degC"),
+    "time": Kind("time", "s", "2 s"),
+    "velocity": Kind("velocity", "m/s", "1 mm/s"),
+    "diffusivity": Kind("diffusivity", "m**2/s", "3e-9 m^2/s"),
+    "concentration": Kind("molar concentration", "mol/m**3", "0.2 mol/m^3"),
+    "molar_rate": Kind("molar rate per cell", "mol/s", "4.8e-17 mol/s"),
+    "areal_density": Kind("cells per area", "1/m**2", "1e5 cell/cm^2"),
+    "frequency": Kind("frequency", "1/s", "1 Hz"),
+    "dimensionless": Kind("plain number", "dimensionless", "0.5"),
+}
+
+_NUMBER_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+def _fail(kind: Kind, value: object, where: str, why: str) -> UnitError:
+    place = f" at {where}" if where else ""
+    return UnitError(
+        f"{why}{place}: expected a {kind.label} such as '{kind.example}', got {value!r}"
+    )
+
+
+def to_si(value: object, kind: str, *, where: str = "") -> float:
+    """Convert a quantity given by a person to an SI float.
+
+    Parameters
+    ----------
+    value : str, pint.Quantity or number
+        Text such as ``"50 um"`` or ``"5 uL/min"``, a pint quantity of the registry, or a bare
+        number. A bare number is accepted only for the ``"dimensionless"`` kind.
+    kind : str
+        One of the keys of :data:`KINDS`.
+    where : str, optional
+        Where the value came from (file and key), quoted in error messages.
+
+    Returns
+    -------
+    float
+        The value in the SI unit of ``kind`` (``KINDS[kind].si_unit``).
+
+    Raises
+    ------
+    UnitError
+        On a missing or wrong unit, text that is not a quantity, NaN or infinity.
+
+    Examples
+    --------
+    >>> to_si("0.9 mPa*s", "viscosity")
+    0.0009
+    >>> to_si("3 kPa", "pressure")
+    3000.0
+    >>> to_si("12 um", "flow")
+    Traceback (most recent call last):
+    ...
+    chipflow.errors.UnitError: wrong kind of unit: expected a flow rate such as '5 uL/min', got '12 um'
+    """
+    spec = KINDS[kind]
+    if isinstance(value, bool):
+        raise _fail(spec, value, where, "not a quantity")
+    if isinstance(value, pint.Quantity):
+        quantity = value
+    elif isinstance(value, Real):
+        if kind != "dimensionless":
+            raise _fail(spec, value, where, "missing unit")
+        quantity = ureg.Quantity(float(value), "")
+    elif isinstance(value, str):
+        match = _NUMBER_UNIT.match(value)
+        if match is None:
+            raise _fail(spec, value, where, "not a quantity")
+        number, unit = match.groups()
+        if not unit and kind != "dimensionless":
+            raise _fail(spec, value, where, "missing unit")
+        try:
+            quantity = ureg.Quantity(float(number), unit.replace("^", "**"))
+        except (pint.PintError, ValueError, TypeError, AttributeError, SyntaxError):
+            raise _fail(spec, value, where, "unknown unit") from None
+    else:
+        raise _fail(spec, value, where, "not a quantity")
+    try:
+        magnitude = float(quantity.to(spec.si_unit).magnitude)
+    except pint.DimensionalityError:
+        raise _fail(spec, value, where, "wrong kind of unit") from None
+    except (pint.PintError, TypeError, ValueError):
+        raise _fail(spec, value, where, "not a quantity") from None
+    if not math.isfinite(magnitude):
+        raise _fail(spec, value, where, "not a finite number")
+    return magnitude
+
+
+@functools.lru_cache(maxsize=64)
+def _si_size(unit: str) -> float:
+    """How many SI base units one ``unit`` is (offset units such as degC are not allowed)."""
+    return float(ureg.Quantity(1.0, unit.replace("^", "**")).to_base_units().magnitude)
+
+
+def from_si(value: float | np.ndarray, unit: str) -> float | np.ndarray:
+    """Express an SI value (scalar or array) in a unit for display.
+
+    Parameters
+    ----------
+    value : float or numpy.ndarray
+        Value in the SI unit of the same dimension as ``unit``.
+    unit : str
+        Target unit (not an offset unit such as degC), e.g. ``"um"``, ``"uL/min"``, ``"kPa"``, ``"mm/s"``.
+
+    Examples
+    --------
+    >>> from_si(1e-3, "mm/s")
+    1.0
+    """
+    scale = 1.0 / _si_size(unit)
+    if isinstance(value, np.ndarray):
+        return np.asarray(value, dtype=float) * scale
+    return float(value) * scale
+
+
+def format_quantity(value: float, unit: str, digits: int = 4) -> str:
+    """Format an SI value in ``unit`` with ``digits`` significant figures.
+
+    Examples
+    --------
+    >>> format_quantity(8.333e-11, "uL/min")
+    '5 uL/min'
+    """
+    return f"{from_si(value, unit):.{digits}g} {unit}"
