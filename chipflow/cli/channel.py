@@ -1,0 +1,127 @@
+"""``chipflow channel``: the flow in one straight channel or tube."""
+
+from __future__ import annotations
+
+import json
+
+import click
+
+from chipflow.cli.common import QUANTITY, echo_table
+from chipflow.errors import SpecError
+from chipflow.physics.duct import DuctFlow, flow_state, resistance
+from chipflow.physics.fluid import Fluid, fluid_preset
+
+__all__ = ["command", "channel_report", "SI_UNITS"]
+
+#: Keys of ``chipflow channel --json`` and their SI units.
+SI_UNITS = {
+    "hydraulic_resistance": "Pa*s/m^3",
+    "flow": "m^3/s",
+    "pressure_drop": "Pa",
+    "mean_velocity": "m/s",
+    "max_velocity": "m/s",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "reynolds": "1",
+    "hydraulic_diameter": "m",
+    "residence_time": "s",
+    "entrance_length": "m",
+    "viscosity": "Pa*s",
+    "density": "kg/m^3",
+}
+
+
+def channel_report(
+    width: float,
+    depth: float,
+    length: float,
+    fluid: Fluid,
+    flow: float | None = None,
+    pressure: float | None = None,
+    round: bool = False,
+) -> dict[str, float]:
+    """SI values for one channel driven by a flow [m^3/s] or a pressure drop [Pa].
+
+    Parameters
+    ----------
+    width, depth, length : float
+        Channel geometry [m] (a round tube: ``width == depth ==`` inner diameter).
+    fluid : Fluid
+        The liquid.
+    flow : float, optional
+        Imposed flow rate [m^3/s].
+    pressure : float, optional
+        Imposed pressure drop [Pa]; exactly one of ``flow`` and ``pressure`` is given.
+
+    Returns
+    -------
+    dict
+        The keys of :data:`SI_UNITS` plus ``wall_shear_floor`` [Pa], in SI units.
+    """
+    if (flow is None) == (pressure is None):
+        raise SpecError("give exactly one of --flow and --pressure")
+    if flow is None:
+        flow = pressure / resistance(width, depth, length, fluid.viscosity, round)
+    state: DuctFlow = flow_state(width, depth, length, flow, fluid.viscosity, fluid.density, round)
+    values = {key: float(getattr(state, key)) for key in SI_UNITS if hasattr(state, key)}
+    values["hydraulic_resistance"] = float(state.resistance)
+    values["viscosity"] = fluid.viscosity
+    values["density"] = fluid.density
+    values["wall_shear_floor"] = float(state.wall_shear_floor)
+    return values
+
+
+_LAB_ROWS = (
+    ("hydraulic_resistance", "hydraulic resistance", "Pa*s/uL", 1e-9),
+    ("flow", "flow rate", "uL/min", 1e9 * 60),
+    ("pressure_drop", "pressure drop", "Pa", 1.0),
+    ("mean_velocity", "mean velocity", "mm/s", 1e3),
+    ("max_velocity", "peak velocity", "mm/s", 1e3),
+    ("wall_shear_floor", "wall shear, floor centre", "Pa", 1.0),
+    ("wall_shear_mean", "wall shear, mean", "Pa", 1.0),
+    ("wall_shear_max", "wall shear, peak", "Pa", 1.0),
+    ("reynolds", "Reynolds number", "", 1.0),
+    ("hydraulic_diameter", "hydraulic diameter", "um", 1e6),
+    ("residence_time", "residence time", "s", 1.0),
+    ("entrance_length", "entrance length", "um", 1e6),
+    ("viscosity", "viscosity", "mPa*s", 1e3),
+    ("density", "density", "kg/m^3", 1.0),
+)
+
+
+@click.command("channel")
+@click.option("--width", type=QUANTITY("length"), required=True, help="Channel width, e.g. 200um.")
+@click.option("--depth", type=QUANTITY("length"), help="Channel depth, e.g. 50um.")
+@click.option("--diameter", type=QUANTITY("length"), help="Round tube: inner diameter.")
+@click.option("--length", type=QUANTITY("length"), required=True, help="Length, e.g. 10mm.")
+@click.option("--flow", type=QUANTITY("flow"), help="Imposed flow rate, e.g. 5uL/min.")
+@click.option("--pressure", type=QUANTITY("pressure"), help="Imposed pressure drop, e.g. 2kPa.")
+@click.option(
+    "--fluid", type=click.Choice(["medium", "water"]), default="medium", show_default=True
+)
+@click.option("--temperature", type=QUANTITY("temperature"), help="Default 37degC (20 for water).")
+@click.option("--viscosity", type=QUANTITY("viscosity"), help="Override, e.g. 0.95mPa*s.")
+@click.option("--json", "as_json", is_flag=True, help="Print SI values as one JSON object.")
+def command(width, depth, diameter, length, flow, pressure, fluid, temperature, viscosity, as_json):
+    """Flow, pressure, velocity and wall shear in one straight channel.
+
+    \b
+    Example:
+      chipflow channel --width 200um --depth 50um --length 10mm --flow 5uL/min
+    """
+    if (depth is None) == (diameter is None):
+        raise SpecError("give --depth for a rectangular channel, or --diameter for a tube")
+    round_tube = diameter is not None
+    if round_tube:
+        width = depth = diameter
+    values = channel_report(
+        width, depth, length, fluid_preset(fluid, temperature, viscosity), flow, pressure,
+        round_tube,
+    )
+    if as_json:
+        out = {key: values[key] for key in SI_UNITS}
+        click.echo(json.dumps({**out, "units": SI_UNITS}, indent=2))
+        return
+    rows = [(label, f"{values[key] * scale:.4g}", unit) for key, label, unit, scale in _LAB_ROWS]
+    rows.insert(6, ("", f"{values['wall_shear_floor'] * 10:.4g}", "dyn/cm^2"))
+    echo_table(rows)
