@@ -16,20 +16,25 @@ class QUANTITY(click.ParamType):
     """A click option type that reads a quantity with units into an SI float.
 
     ``QUANTITY("length")`` accepts ``200um``, ``0.2 mm``, ... and rejects ``200`` (no unit)
-    or ``5uL/min`` (wrong kind) with one clear line.
+    or ``5uL/min`` (wrong kind) with one clear line. Values must be greater than zero unless
+    ``positive=False``.
     """
 
-    def __init__(self, kind: str) -> None:
+    def __init__(self, kind: str, positive: bool = True) -> None:
         self.kind = kind
+        self.positive = positive
         self.name = KINDS[kind].label
 
     def convert(self, value, param, ctx):
         if isinstance(value, float):
             return value
         try:
-            return to_si(value, self.kind, where=f"--{param.name}" if param else "")
+            si = to_si(value, self.kind, where=f"--{param.name}" if param else "")
         except UnitError as exc:
             self.fail(str(exc), param, ctx)
+        if self.positive and not si > 0:
+            self.fail(f"must be greater than zero, got {value!r}", param, ctx)
+        return si
 
 
 def format_table(rows: Sequence[Sequence[str]], header: Sequence[str] | None = None) -> str:

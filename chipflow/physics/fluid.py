@@ -182,7 +182,7 @@ def culture_medium(
     """
     _check_liquid_range(temperature, "culture medium")
     if viscosity is None:
-        viscosity = MEDIUM_VISCOSITY_37C * water(temperature).viscosity / water(310.15).viscosity
+        viscosity = MEDIUM_VISCOSITY_37C * (water(temperature).viscosity / water(310.15).viscosity)
     if density is None:
         density = MEDIUM_DENSITY_37C + water_density(temperature) - water_density(310.15)
     return Fluid("culture medium", float(viscosity), float(density), temperature)
