@@ -1,0 +1,200 @@
+"""The table of cell types and their floor wall-shear windows (``chipflow/data/cell_types.toml``).
+
+Every row carries the citation of its window; rows taken from memory say so in their
+``confidence`` field, which the report repeats. A design can override the window of its cell
+type (``[culture] shear_min`` / ``shear_max``, see :mod:`chipflow.spec.culture`).
+
+Examples
+--------
+>>> cell = cell_type("endothelial")
+>>> cell.window().min, cell.window().max
+(0.5, 1.0)
+>>> cell_type("hepatocite")  # doctest: +ELLIPSIS
+Traceback (most recent call last):
+...
+chipflow.errors.SpecError: unknown cell type 'hepatocite'; did you mean 'hepatocyte'? (known: ...)
+"""
+
+from __future__ import annotations
+
+import difflib
+import functools
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass
+from importlib import resources
+from typing import Any
+
+from chipflow.errors import SpecError
+from chipflow.spec.reader import Table
+
+__all__ = [
+    "CellType",
+    "ShearWindow",
+    "cell_types",
+    "cell_type",
+    "parse_cell_types",
+    "DEFAULT_O2_CONSUMPTION",
+    "DEFAULT_O2_SOURCE",
+]
+
+#: Oxygen uptake per cell used when the cell type has none of its own [mol/s]: the hepatocyte
+#: value of Sci Rep 2017;7:42113, Table 1. Hepatocytes are among the hungriest cultured cells
+#: (uptake spans < 1 to > 350 amol/s per cell, Wagner, Venkataraman & Buettner 2011), so this is
+#: an assumption on the cautious side for most other cells.
+DEFAULT_O2_CONSUMPTION = 4.8e-17
+DEFAULT_O2_SOURCE = (
+    "assumption: hepatocyte uptake 4.8e-17 mol/cell/s, Sci Rep 2017;7:42113 Table 1 "
+    "(cultured cells span < 1 to > 350 amol/s, Wagner, Venkataraman & Buettner 2011)"
+)
+
+_ROW_KEYS = (
+    "label",
+    "shear_min",
+    "shear_max",
+    "source",
+    "confidence",
+    "o2_consumption",
+    "o2_source",
+)
+
+
+@dataclass(frozen=True)
+class ShearWindow:
+    """The floor wall-shear window a culture should see.
+
+    Attributes
+    ----------
+    cell_type : str
+        Cell type name (or a description of an override).
+    min, max : float
+        Lower and upper bound of the floor wall shear stress [Pa].
+    source : str
+        Citation of the window (or "design file" for an override).
+    """
+
+    cell_type: str
+    min: float
+    max: float
+    source: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "cell_type": self.cell_type,
+            "min": self.min,
+            "max": self.max,
+            "source": self.source,
+        }
+
+
+@dataclass(frozen=True)
+class CellType:
+    """One row of the cell-type table.
+
+    Attributes
+    ----------
+    name : str
+        Key used in design files ("endothelial", "hepatocyte", ...).
+    label : str
+        Readable name for reports.
+    shear_min, shear_max : float
+        Floor wall-shear window [Pa].
+    source : str
+        Citation of the window.
+    confidence : str
+        How sure the table is of the window ("published range", "from memory, ...").
+    o2_consumption : float or None
+        Oxygen uptake per cell [mol/s], when known.
+    o2_source : str
+        Citation of ``o2_consumption`` ("" when unknown).
+    """
+
+    name: str
+    label: str
+    shear_min: float
+    shear_max: float
+    source: str
+    confidence: str = ""
+    o2_consumption: float | None = None
+    o2_source: str = ""
+
+    def window(self) -> ShearWindow:
+        """The cited shear window of this cell type."""
+        source = self.source
+        if self.confidence and self.confidence != "published range":
+            source = f"{source}; {self.confidence}"
+        return ShearWindow(self.name, self.shear_min, self.shear_max, source)
+
+
+def parse_cell_types(
+    data: Mapping[str, Any], source: str = "cell_types.toml"
+) -> dict[str, CellType]:
+    """Validate a parsed cell-type table: units on every window, a citation on every row.
+
+    Raises
+    ------
+    SpecError
+        On a row without a ``source``, a window without units, ``shear_min >= shear_max``, or an
+        unknown key.
+
+    Examples
+    --------
+    >>> parse_cell_types({"x": {"label": "x", "shear_min": "0.1 Pa", "shear_max": "1 Pa"}})
+    Traceback (most recent call last):
+    ...
+    chipflow.errors.SpecError: cell_types.toml: x.source: missing required key
+    """
+    top = Table(data, source, "")
+    rows: dict[str, CellType] = {}
+    for name in data:
+        row = top.table(name)
+        row.only(_ROW_KEYS)
+        cited = row.string("source")
+        if not cited.strip():
+            raise row.error("source", "every cell type needs the citation of its shear window")
+        low = row.quantity("shear_min", "pressure")
+        high = row.quantity("shear_max", "pressure")
+        if not low < high:
+            raise row.error("shear_max", f"must be greater than shear_min ({low:g} Pa)")
+        o2 = row.quantity("o2_consumption", "molar_rate", None)
+        o2_source = row.string("o2_source", "")
+        if o2 is not None and not o2_source.strip():
+            raise row.error("o2_source", "an oxygen uptake needs its citation")
+        rows[name] = CellType(
+            name,
+            row.string("label", name),
+            low,
+            high,
+            cited,
+            row.string("confidence", ""),
+            o2,
+            o2_source,
+        )
+    return rows
+
+
+@functools.lru_cache(maxsize=1)
+def cell_types() -> dict[str, CellType]:
+    """The bundled cell-type table, by name (read once)."""
+    text = resources.files("chipflow").joinpath("data/cell_types.toml").read_text("utf-8")
+    return parse_cell_types(tomllib.loads(text), "chipflow/data/cell_types.toml")
+
+
+def cell_type(name: str, *, where: str = "") -> CellType:
+    """Look a cell type up by name, suggesting the nearest name on a miss.
+
+    Parameters
+    ----------
+    name : str
+        Cell type name as written in a design file.
+    where : str, optional
+        File and key the name came from, quoted in the error message.
+    """
+    table = cell_types()
+    if name in table:
+        return table[name]
+    near = difflib.get_close_matches(name, list(table), n=1, cutoff=0.6)
+    hint = f"; did you mean '{near[0]}'?" if near else ""
+    place = f"{where}: " if where else ""
+    known = ", ".join(sorted(table))
+    raise SpecError(f"{place}unknown cell type {name!r}{hint} (known: {known})")

@@ -1,0 +1,96 @@
+"""The result of one check: pass, warn or fail, with the value, the limit and its source."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from dataclasses import asdict, dataclass
+
+__all__ = ["CheckResult", "STATUSES", "worst_status", "grade_upper"]
+
+#: Check outcomes, best first.
+STATUSES = ("pass", "warn", "fail")
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """The outcome of one check.
+
+    Attributes
+    ----------
+    name : str
+        Short label of what was checked ("floor shear: bed (generation 4)").
+    status : str
+        "pass", "warn" or "fail".
+    value : float or None
+        The checked value in SI units (``unit``); None when there is no single number.
+    limit : float or None
+        The bound beyond which the check no longer passes, in SI units (``unit``); the
+        message names the fail bound where it differs.
+    unit : str
+        SI unit of ``value`` and ``limit`` ("Pa", "s", "" for plain numbers and fractions).
+    source : str
+        Where the limit comes from (a citation, "common practice" or "chipflow default").
+    message : str
+        One sentence for the designer: what was found and what to do about it.
+
+    Examples
+    --------
+    >>> CheckResult("Reynolds number", "pass", 0.3, 100.0, "", "common practice", "laminar")
+    ... # doctest: +ELLIPSIS
+    CheckResult(name='Reynolds number', status='pass', value=0.3, ...)
+    >>> CheckResult("x", "ok", None, None, "", "", "")
+    Traceback (most recent call last):
+    ...
+    ValueError: check 'x': status must be one of pass, warn, fail, got 'ok'
+    """
+
+    name: str
+    status: str
+    value: float | None
+    limit: float | None
+    unit: str
+    source: str
+    message: str
+
+    def __post_init__(self) -> None:
+        if self.status not in STATUSES:
+            raise ValueError(
+                f"check {self.name!r}: status must be one of {', '.join(STATUSES)}, "
+                f"got {self.status!r}"
+            )
+        for field in ("value", "limit"):
+            number = getattr(self, field)
+            if number is not None:
+                object.__setattr__(self, field, float(number))
+
+    def to_dict(self) -> dict:
+        """A plain dict for results JSON (non-finite numbers become None)."""
+        out = asdict(self)
+        for field in ("value", "limit"):
+            if out[field] is not None and not math.isfinite(out[field]):
+                out[field] = None
+        return out
+
+
+def worst_status(results: Iterable[CheckResult]) -> str:
+    """The worst status among ``results`` ("pass" when there are none).
+
+    >>> worst_status([CheckResult("a", "pass", None, None, "", "", ""),
+    ...               CheckResult("b", "warn", None, None, "", "", "")])
+    'warn'
+    """
+    rank = max((STATUSES.index(r.status) for r in results), default=0)
+    return STATUSES[rank]
+
+
+def grade_upper(value: float, warn_above: float, fail_above: float) -> str:
+    """Status of a value that should stay low: pass up to ``warn_above``, warn up to
+    ``fail_above`` (inclusive), fail beyond. NaN fails.
+
+    >>> [grade_upper(v, 1.0, 2.0) for v in (1.0, 1.5, 2.0, 2.01)]
+    ['pass', 'warn', 'warn', 'fail']
+    """
+    if not value <= fail_above:
+        return "fail"
+    return "pass" if value <= warn_above else "warn"
