@@ -1,0 +1,204 @@
+"""The ``[culture]`` and ``[limits]`` sections of a design file.
+
+.. code-block:: toml
+
+    [culture]
+    cell_type = "endothelial"        # a row of chipflow/data/cell_types.toml
+    shear_min = "0.4 Pa"             # optional: override the cell type's window (either side)
+    shear_max = "1.2 Pa"
+    seeded = "bed"                   # where cells grow: "bed" (default) or "all" generations
+    cell_density = "1e5 cell/cm^2"   # cells per floor area (default 1e5 cell/cm^2, assumed)
+    o2_consumption = "4.8e-17 mol/s" # oxygen uptake per cell (default: the cell type's value)
+    o2_inlet = "0.2 mol/m^3"         # oxygen in the inflowing medium (default: air-equilibrated)
+    o2_diffusivity = "3e-9 m^2/s"    # oxygen diffusivity in the medium (default: 37 C water)
+    residence_time = "2 s"           # optional target for the bed residence time
+
+    [limits]
+    bond_pressure = "200 kPa"        # burst pressure of the bond (default: PDMS-glass plasma)
+    safety_factor = 2                # the inlet pressure passes up to bond_pressure / this
+    pump_pressure = "100 kPa"        # optional: the pump's rated pressure
+
+Examples
+--------
+>>> from chipflow.spec.reader import parse_design_text
+>>> text = '[culture]\\ncell_type = "hepatocyte"\\nshear_max = "0.05 Pa"'
+>>> top = parse_design_text(text, "a.toml")
+>>> culture = read_culture(top)
+>>> culture.window.min, culture.window.max, culture.o2_consumption
+(0.001, 0.05, 4.8e-17)
+>>> read_limits(top).bond_pressure
+200000.0
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from chipflow.checks.cell_types import (
+    DEFAULT_O2_CONSUMPTION,
+    DEFAULT_O2_SOURCE,
+    ShearWindow,
+    cell_type,
+)
+from chipflow.checks.pressure import BOND_LIMIT_DEFAULT, BOND_SAFETY_FACTOR, BOND_SOURCE
+from chipflow.checks.transport import (
+    CELL_DENSITY_DEFAULT,
+    O2_DIFFUSIVITY_37C,
+    O2_INLET_CONCENTRATION,
+)
+from chipflow.spec.reader import Table
+
+__all__ = [
+    "Culture",
+    "Limits",
+    "read_culture",
+    "read_limits",
+    "CULTURE_KEYS",
+    "LIMITS_KEYS",
+    "SEEDED",
+]
+
+CULTURE_KEYS = (
+    "cell_type",
+    "shear_min",
+    "shear_max",
+    "seeded",
+    "cell_density",
+    "o2_consumption",
+    "o2_inlet",
+    "o2_diffusivity",
+    "residence_time",
+)
+LIMITS_KEYS = ("bond_pressure", "safety_factor", "pump_pressure")
+#: Where the cells grow: only the bed, or every generation.
+SEEDED = ("bed", "all")
+
+
+@dataclass(frozen=True)
+class Culture:
+    """What grows in the chip and what it needs.
+
+    Attributes
+    ----------
+    cell_type : str or None
+        Name of the cell type (a row of the cell-type table), or None.
+    window : ShearWindow or None
+        Floor wall-shear window [Pa] with its source; None when the design names neither a cell
+        type nor a window (then there is no shear check).
+    seeded : str
+        "bed" or "all": the generations whose floor shear is checked against the window.
+    cell_density : float
+        Cells per floor area [1/m^2].
+    cell_density_source : str
+        "design file" or the assumption used.
+    o2_consumption : float
+        Oxygen uptake per cell [mol/s].
+    o2_consumption_source : str
+        Citation of the uptake.
+    o2_inlet : float
+        Oxygen concentration of the inflowing medium [mol/m^3].
+    o2_diffusivity : float
+        Oxygen diffusivity in the medium [m^2/s].
+    residence_time : float or None
+        Target bed residence time [s], if the design sets one here.
+    """
+
+    cell_type: str | None = None
+    window: ShearWindow | None = None
+    seeded: str = "bed"
+    cell_density: float = CELL_DENSITY_DEFAULT
+    cell_density_source: str = "assumption: 1e5 cells/cm^2"
+    o2_consumption: float = DEFAULT_O2_CONSUMPTION
+    o2_consumption_source: str = DEFAULT_O2_SOURCE
+    o2_inlet: float = O2_INLET_CONCENTRATION
+    o2_diffusivity: float = O2_DIFFUSIVITY_37C
+    residence_time: float | None = None
+
+
+@dataclass(frozen=True)
+class Limits:
+    """What the chip and the pump can take.
+
+    Attributes
+    ----------
+    bond_pressure : float
+        Burst pressure of the bonded chip [Pa].
+    bond_source : str
+        "design file" or the cited default.
+    safety_factor : float
+        The inlet pressure passes up to ``bond_pressure / safety_factor`` [-].
+    pump_pressure : float or None
+        Rated pressure of the pump [Pa]; None when not given (no pump check).
+    """
+
+    bond_pressure: float = BOND_LIMIT_DEFAULT
+    bond_source: str = BOND_SOURCE
+    safety_factor: float = BOND_SAFETY_FACTOR
+    pump_pressure: float | None = None
+
+
+def read_culture(top: Table) -> Culture:
+    """Read ``[culture]`` from the top-level table (defaults, and no shear window, when absent)."""
+    table = top.table("culture", None)
+    if table is None:
+        return Culture()
+    table.only(CULTURE_KEYS)
+    name = table.string("cell_type", None)
+    cell = cell_type(name, where=table.where("cell_type")) if name is not None else None
+    low = table.quantity("shear_min", "pressure", None)
+    high = table.quantity("shear_max", "pressure", None)
+    window = None
+    if cell is not None:
+        window = cell.window()
+        if low is not None or high is not None:
+            low = window.min if low is None else low
+            high = window.max if high is None else high
+            window = ShearWindow(
+                cell.name, low, high, f"design file {top.source} (overrides: {window.source})"
+            )
+    elif low is not None or high is not None:
+        if low is None or high is None:
+            key = "shear_min" if low is None else "shear_max"
+            raise table.error(key, "without a cell_type, give both shear_min and shear_max")
+        window = ShearWindow("design window", low, high, f"design file {top.source}")
+    if window is not None and not window.min < window.max:
+        raise table.error("shear_max", f"must be greater than shear_min ({window.min:g} Pa)")
+
+    density = table.quantity("cell_density", "areal_density", None)
+    uptake = table.quantity("o2_consumption", "molar_rate", None)
+    if uptake is not None:
+        uptake_source = f"design file {top.source}"
+    elif cell is not None and cell.o2_consumption is not None:
+        uptake, uptake_source = cell.o2_consumption, cell.o2_source
+    else:
+        uptake, uptake_source = DEFAULT_O2_CONSUMPTION, DEFAULT_O2_SOURCE
+    inlet = table.quantity("o2_inlet", "concentration", None)
+    return Culture(
+        cell_type=name,
+        window=window,
+        seeded=table.choice("seeded", SEEDED, "bed"),
+        cell_density=CELL_DENSITY_DEFAULT if density is None else density,
+        cell_density_source=(
+            "assumption: 1e5 cells/cm^2" if density is None else f"design file {top.source}"
+        ),
+        o2_consumption=uptake,
+        o2_consumption_source=uptake_source,
+        o2_inlet=O2_INLET_CONCENTRATION if inlet is None else inlet,
+        o2_diffusivity=table.quantity("o2_diffusivity", "diffusivity", O2_DIFFUSIVITY_37C),
+        residence_time=table.quantity("residence_time", "time", None),
+    )
+
+
+def read_limits(top: Table) -> Limits:
+    """Read ``[limits]`` from the top-level table (cited defaults when absent)."""
+    table = top.table("limits", None)
+    if table is None:
+        return Limits()
+    table.only(LIMITS_KEYS)
+    bond = table.quantity("bond_pressure", "pressure", None)
+    return Limits(
+        bond_pressure=BOND_LIMIT_DEFAULT if bond is None else bond,
+        bond_source=BOND_SOURCE if bond is None else f"design file {top.source}",
+        safety_factor=table.number("safety_factor", BOND_SAFETY_FACTOR, minimum=1.0),
+        pump_pressure=table.quantity("pump_pressure", "pressure", None),
+    )
