@@ -9,6 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from chipflow.physics.fluid import Fluid
+from chipflow.spec.tree import Fabrication
 
 __all__ = ["Level", "TreeDesign", "ROLES"]
 
@@ -37,6 +38,13 @@ class Level:
         with the drawn length.
     flow : float
         Design flow rate per channel [m^3/s].
+    round : bool
+        True for a round tube (``width == depth ==`` diameter); used to compare with Murray's
+        law, not drawable by soft lithography.
+    shear_target : float or None
+        The wall shear this level was sized for [Pa] (kind: ``TreeDesign.shear_kind``).
+    shear_min, shear_max : float or None
+        The tolerated wall shear window of this level [Pa], when one applies.
     """
 
     generation: int
@@ -46,6 +54,10 @@ class Level:
     depth: float
     length: float
     flow: float
+    round: bool = False
+    shear_target: float | None = None
+    shear_min: float | None = None
+    shear_max: float | None = None
 
 
 @dataclass(frozen=True)
@@ -66,6 +78,15 @@ class TreeDesign:
     warnings : tuple of str
         Soft misses found while sizing (e.g. a target met only within tolerance after snapping
         to the mask grid).
+    shear_kind : str
+        Which wall shear the levels' targets mean: "floor" (centre of the floor), "mean" or
+        "max".
+    max_straight_length : float or None
+        Longest straight run of a bed channel [m]; the layout folds longer bed channels.
+    bed_gap : float or None
+        Wall between neighbouring bed channels [m].
+    fabrication : Fabrication or None
+        The fabrication limits the design was sized for (``chipflow.spec.tree.Fabrication``).
     """
 
     name: str
@@ -73,6 +94,10 @@ class TreeDesign:
     total_flow: float
     levels: tuple[Level, ...]
     warnings: tuple[str, ...] = ()
+    shear_kind: str = "floor"
+    max_straight_length: float | None = None
+    bed_gap: float | None = None
+    fabrication: Fabrication | None = None
 
     @property
     def generations(self) -> int:

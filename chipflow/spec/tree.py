@@ -1,0 +1,507 @@
+"""Tree design files: the ``[tree]``, ``[bed]``, ``[targets]`` and ``[fabrication]`` sections.
+
+A tree design file describes a mirrored bifurcating perfusion tree: one inlet, ``n``
+distributing generations, a bed of ``2**n`` parallel channels, and ``n`` collecting generations
+back to one outlet. :func:`load_tree_spec` reads it into a frozen :class:`TreeSpec` (SI floats
+only); :func:`chipflow.design.sizing.size_tree` turns that into a sized
+:class:`~chipflow.design.model.TreeDesign`.
+
+.. code-block:: toml
+
+    name = "endothelial-tree"
+    description = "free text"
+
+    [fluid]                      # see chipflow.spec.fluid (culture medium at 37 C by default)
+    kind = "medium"
+
+    [tree]
+    flow = "10 uL/min"           # total design flow through the trunk
+    generations = 4              # bifurcating generations n (or: bed_channels = 16, a power of 2)
+    rule = "equal-shear"         # "equal-shear" | "shear-target" | "area-growth" | "table"
+    shape = "rectangular"        # or "round" (tubes for comparison with Murray's law; not drawable)
+    trunk_width = "400 um"       # optional start of equal-shear / area-growth (else [targets])
+    trunk_depth = "100 um"       # depth of that trunk (one of fabrication.depths)
+    growth = 1.5                 # area-growth: total cross-section factor per generation
+    velocity_ratio = 20          # area-growth instead of growth: trunk / bed mean velocity
+    widths = ["400 um", ...]     # table: one width per generation 0..n (bed last)
+    depths = ["100 um", ...]     # table: one depth per generation 0..n
+    length = "3 mm"              # nominal length of distribution/collection channels
+    lengths = ["4 mm", ...]      # or one per distribution generation 0..n-1
+
+    [bed]
+    residence_time = "1 s"       # bed length = residence_time * mean velocity ...
+    length = "800 um"            # ... or the bed channel length directly (exactly one of them)
+    max_straight_length = "5 mm" # longer bed channels are folded by the layout
+    gap = "100 um"               # wall between neighbouring bed channels (default min_gap)
+
+    [targets]
+    shear_kind = "floor"         # "floor" (centre of the floor, default), "mean" or "max"
+    shear = "0.75 Pa"            # one target, or a list per generation 0..n
+    shear_min = "0.5 Pa"         # window; a missing target is the middle of the window
+    shear_max = "1.0 Pa"
+    levels = "all"               # the window applies to "all" levels or only to the "bed"
+    tolerance = 0.02             # relative miss after grid snapping that is only a warning
+    cell = "endothelial cells"   # label of the cell type the window comes from
+
+    [fabrication]
+    depths = ["50 um", "100 um"] # mould depths available (one per mask level)
+    grid = "1 um"                # mask grid widths are snapped to
+    min_feature = "25 um"        # smallest feature the mask resolves
+    min_width = "25 um"          # narrowest channel (default min_feature)
+    max_width = "5 mm"           # widest channel
+    max_width_to_depth = 10      # roof-sag limit on width / depth
+    max_depth_to_width = 2       # tall-wall limit on depth / width (Delamarche et al. 1997)
+    min_gap = "100 um"           # wall between unconnected channels
+    bend_radius = 2              # bend centreline radius, as a multiple of the channel width
+    alignment_margin = "10 um"   # overlap of channels where the depth steps between levels
+
+Defaults and their sources: ``max_depth_to_width = 2`` from Delamarche et al., Adv. Mater.
+9 (1997) 741 (PDMS stamps with depth/width above 2 were unusable); ``max_width_to_depth = 10``
+from common practice (roofs sag beyond 10-20, from memory); ``min_feature = 25 um`` about the
+limit of a 16k dpi film mask (mask vendors' guidance, common practice); ``min_gap = 100 um``,
+``bend_radius = 2``, ``alignment_margin = 10 um``, ``max_width = 5 mm`` and the single default
+depth of 50 um are common practice for single-layer SU-8 moulds, not measured values.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from chipflow.physics.fluid import Fluid
+from chipflow.spec.fluid import read_fluid
+from chipflow.spec.reader import Table
+
+__all__ = [
+    "Fabrication",
+    "BedSpec",
+    "Targets",
+    "TreeSpec",
+    "RULES",
+    "SHAPES",
+    "SHEAR_KINDS",
+    "read_fabrication",
+    "load_tree_spec",
+]
+
+RULES = ("equal-shear", "shear-target", "area-growth", "table")
+SHAPES = ("rectangular", "round")
+SHEAR_KINDS = ("floor", "mean", "max")
+
+TOP_KEYS = ("name", "description", "fluid", "tree", "bed", "targets", "fabrication")
+TREE_KEYS = (
+    "flow",
+    "generations",
+    "bed_channels",
+    "rule",
+    "shape",
+    "trunk_width",
+    "trunk_depth",
+    "growth",
+    "velocity_ratio",
+    "widths",
+    "depths",
+    "length",
+    "lengths",
+)
+BED_KEYS = ("residence_time", "length", "max_straight_length", "gap")
+TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance", "cell")
+FABRICATION_KEYS = (
+    "depths",
+    "grid",
+    "min_feature",
+    "min_width",
+    "max_width",
+    "max_width_to_depth",
+    "max_depth_to_width",
+    "min_gap",
+    "bend_radius",
+    "alignment_margin",
+)
+
+
+@dataclass(frozen=True)
+class Fabrication:
+    """What the mould and mask can make.
+
+    Attributes
+    ----------
+    depths : tuple of float
+        Allowed mould depths [m], shallowest first, no repeats.
+    grid : float
+        Mask grid [m].
+    min_feature : float
+        Smallest feature the mask resolves [m].
+    min_width, max_width : float
+        Narrowest and widest channel [m].
+    max_width_to_depth : float
+        Roof-sag limit on width/depth [-].
+    max_depth_to_width : float
+        Tall-wall limit on depth/width [-].
+    min_gap : float
+        Smallest wall between unconnected channels [m].
+    bend_radius : float
+        Bend centreline radius as a multiple of the channel width [-].
+    alignment_margin : float
+        Overlap of channels at a depth step between mask levels [m].
+    """
+
+    depths: tuple[float, ...] = (50e-6,)
+    grid: float = 1e-6
+    min_feature: float = 25e-6
+    min_width: float = 25e-6
+    max_width: float = 5e-3
+    max_width_to_depth: float = 10.0
+    max_depth_to_width: float = 2.0
+    min_gap: float = 100e-6
+    bend_radius: float = 2.0
+    alignment_margin: float = 10e-6
+
+    def width_limits(self, depth: float) -> tuple[float, str, float, str]:
+        """Drawable widths at ``depth`` [m]: ``(lowest, its rule, highest, its rule)`` [m].
+
+        The rules are named as in messages ("minimum width", "mask minimum feature",
+        "tall-wall limit depth/width", "maximum width", "roof-sag limit width/depth").
+
+        >>> Fabrication().width_limits(100e-6)[1:]
+        ('tall-wall limit depth/width <= 2', 0.001, 'roof-sag limit width/depth <= 10')
+        """
+        lows = (
+            (self.min_width, "minimum width"),
+            (self.min_feature, "mask minimum feature"),
+            (
+                depth / self.max_depth_to_width,
+                f"tall-wall limit depth/width <= {self.max_depth_to_width:g}",
+            ),
+        )
+        highs = (
+            (self.max_width, "maximum width"),
+            (
+                depth * self.max_width_to_depth,
+                f"roof-sag limit width/depth <= {self.max_width_to_depth:g}",
+            ),
+        )
+        lo = max(lows, key=lambda item: item[0])
+        hi = min(highs, key=lambda item: item[0])
+        return lo[0], lo[1], hi[0], hi[1]
+
+
+@dataclass(frozen=True)
+class BedSpec:
+    """The bed of parallel channels.
+
+    Attributes
+    ----------
+    residence_time : float or None
+        Target transit time through a bed channel [s].
+    length : float or None
+        Bed channel length [m] (exactly one of ``length`` and ``residence_time`` is set).
+    max_straight_length : float or None
+        Longest straight run [m]; longer channels are folded by the layout.
+    gap : float or None
+        Wall between neighbouring bed channels [m] (None: ``Fabrication.min_gap``).
+    """
+
+    residence_time: float | None = None
+    length: float | None = None
+    max_straight_length: float | None = None
+    gap: float | None = None
+
+
+@dataclass(frozen=True)
+class Targets:
+    """Wall shear targets.
+
+    Attributes
+    ----------
+    kind : str
+        Which wall shear the targets mean: "floor", "mean" or "max".
+    values : tuple of float or None
+        One target per generation 0..n [Pa], or a single value for all, or None.
+    minimum, maximum : float or None
+        Tolerated window [Pa].
+    levels : str
+        "all" or "bed": where the window applies.
+    tolerance : float
+        Relative miss after grid snapping reported as a warning [-].
+    cell : str or None
+        The cell type the window belongs to (a label).
+    """
+
+    kind: str = "floor"
+    values: tuple[float, ...] | None = None
+    minimum: float | None = None
+    maximum: float | None = None
+    levels: str = "all"
+    tolerance: float = 0.02
+    cell: str | None = None
+
+    def target(self, generation: int) -> float | None:
+        """The target [Pa] for ``generation``: given value, else the middle of the window."""
+        if self.values is not None:
+            return self.values[0] if len(self.values) == 1 else self.values[generation]
+        if self.minimum is not None and self.maximum is not None:
+            return 0.5 * (self.minimum + self.maximum)
+        return self.minimum if self.minimum is not None else self.maximum
+
+    def window(self, generation: int, bed_generation: int) -> tuple[float | None, float | None]:
+        """The window ``(min, max)`` [Pa] for a level (``(None, None)`` when none applies)."""
+        if self.levels == "bed" and generation != bed_generation:
+            return None, None
+        return self.minimum, self.maximum
+
+
+@dataclass(frozen=True)
+class TreeSpec:
+    """A validated tree design file (SI floats).
+
+    Attributes
+    ----------
+    name, description : str
+    fluid : Fluid
+    flow : float
+        Total design flow [m^3/s].
+    generations : int
+        Bifurcating generations ``n`` (the bed has ``2**n`` channels).
+    rule, shape : str
+        See :data:`RULES`, :data:`SHAPES`.
+    trunk_width, trunk_depth : float or None
+        Given trunk geometry [m].
+    growth : float or None
+        Area-growth factor of the total cross-section per generation [-].
+    widths, depths : tuple of float or None
+        Table rule: geometry per generation 0..n [m].
+    lengths : tuple of float
+        Nominal length per distribution generation 0..n-1 [m].
+    bed : BedSpec
+    targets : Targets
+    fabrication : Fabrication
+    source : str
+        File name for messages.
+    """
+
+    name: str
+    description: str
+    fluid: Fluid
+    flow: float
+    generations: int
+    rule: str
+    shape: str
+    trunk_width: float | None
+    trunk_depth: float | None
+    growth: float | None
+    widths: tuple[float, ...] | None
+    depths: tuple[float, ...] | None
+    lengths: tuple[float, ...]
+    bed: BedSpec
+    targets: Targets
+    fabrication: Fabrication
+    source: str = "<design>"
+
+
+def read_fabrication(top: Table) -> Fabrication:
+    """Read ``[fabrication]`` from the top-level table (defaults when absent).
+
+    >>> from chipflow.spec.reader import parse_design_text
+    >>> fab = read_fabrication(parse_design_text('[fabrication]\\ndepths = ["100 um", "50 um"]'))
+    >>> fab.depths, fab.max_width_to_depth
+    ((5e-05, 0.0001), 10.0)
+    """
+    table = top.table("fabrication", None)
+    if table is None:
+        return Fabrication()
+    table.only(FABRICATION_KEYS)
+    base = Fabrication()
+    depths = table.quantities("depths", "length", list(base.depths))
+    if len(set(depths)) != len(depths):
+        raise table.error("depths", "a depth is listed twice")
+    min_feature = table.quantity("min_feature", "length", base.min_feature)
+    fab = Fabrication(
+        depths=tuple(sorted(depths)),
+        grid=table.quantity("grid", "length", base.grid),
+        min_feature=min_feature,
+        min_width=table.quantity("min_width", "length", min_feature),
+        max_width=table.quantity("max_width", "length", base.max_width),
+        max_width_to_depth=float(
+            table.number("max_width_to_depth", base.max_width_to_depth, minimum=1e-9)
+        ),
+        max_depth_to_width=float(
+            table.number("max_depth_to_width", base.max_depth_to_width, minimum=1e-9)
+        ),
+        min_gap=table.quantity("min_gap", "length", base.min_gap),
+        bend_radius=float(table.number("bend_radius", base.bend_radius, minimum=0.5)),
+        alignment_margin=table.quantity(
+            "alignment_margin", "length", base.alignment_margin, positive=False, minimum=0.0
+        ),
+    )
+    if fab.min_width > fab.max_width:
+        raise table.error("min_width", "is larger than max_width")
+    if fab.grid > fab.min_feature:
+        raise table.error("grid", "is coarser than min_feature")
+    return fab
+
+
+def _read_targets(top: Table, n: int) -> Targets:
+    table = top.table("targets", None)
+    if table is None:
+        return Targets()
+    table.only(TARGET_KEYS)
+    values = table.quantities("shear", "pressure", None)
+    if values is not None and len(values) not in (1, n + 1):
+        raise table.error(
+            "shear",
+            f"give one target or one per generation 0..{n} ({n + 1} values), got {len(values)}",
+        )
+    minimum = table.quantity("shear_min", "pressure", None)
+    maximum = table.quantity("shear_max", "pressure", None)
+    if minimum is not None and maximum is not None and minimum > maximum:
+        raise table.error("shear_min", "is larger than shear_max")
+    return Targets(
+        kind=table.choice("shear_kind", SHEAR_KINDS, "floor"),
+        values=None if values is None else tuple(values),
+        minimum=minimum,
+        maximum=maximum,
+        levels=table.choice("levels", ("all", "bed"), "all"),
+        tolerance=float(table.number("tolerance", 0.02, minimum=0.0, maximum=1.0)),
+        cell=table.string("cell", None),
+    )
+
+
+def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
+    table = top.table("bed", None)
+    if table is None:
+        raise top.error("bed", "missing section [bed]: give residence_time or length")
+    table.only(BED_KEYS)
+    residence = table.quantity("residence_time", "time", None)
+    length = table.quantity("length", "length", None)
+    if (residence is None) == (length is None):
+        raise table.error(None, "give exactly one of residence_time and length")
+    return BedSpec(
+        residence_time=residence,
+        length=length,
+        max_straight_length=table.quantity("max_straight_length", "length", None),
+        gap=table.quantity("gap", "length", fab.min_gap),
+    )
+
+
+def _generations(tree: Table) -> int:
+    if ("generations" in tree) == ("bed_channels" in tree):
+        raise tree.error(None, "give exactly one of generations and bed_channels")
+    if "generations" in tree:
+        return int(tree.number("generations", integer=True, minimum=0, maximum=20))
+    count = int(tree.number("bed_channels", integer=True, minimum=1, maximum=2**20))
+    n = count.bit_length() - 1
+    if 2**n != count:
+        raise tree.error(
+            "bed_channels",
+            f"a bifurcating tree has a power of two bed channels; {count} is not "
+            f"(nearest: {2**n} or {2 ** (n + 1)})",
+        )
+    return n
+
+
+def load_tree_spec(top: Table) -> TreeSpec:
+    """Read a tree design from the top-level table of a design file.
+
+    Parameters
+    ----------
+    top : Table
+        The parsed file (see :func:`chipflow.spec.reader.read_design_file`).
+
+    Returns
+    -------
+    TreeSpec
+
+    Raises
+    ------
+    SpecError
+        On a missing, unknown or malformed key, with file and key path.
+    """
+    top.only(TOP_KEYS)
+    tree = top.table("tree")
+    tree.only(TREE_KEYS)
+    fab = read_fabrication(top)
+    n = _generations(tree)
+    rule = tree.choice("rule", RULES)
+    shape = tree.choice("shape", SHAPES, "rectangular")
+    targets = _read_targets(top, n)
+    trunk_width = tree.quantity("trunk_width", "length", None)
+    trunk_depth = tree.quantity("trunk_depth", "length", None)
+    if shape == "round":
+        if trunk_depth is not None:
+            raise tree.error("trunk_depth", "a round tube has only a diameter: use trunk_width")
+        if rule not in ("equal-shear", "shear-target"):
+            raise tree.error("shape", "round tubes support the rules equal-shear and shear-target")
+    elif trunk_width is not None and trunk_depth is None:
+        if len(fab.depths) != 1:
+            raise tree.error(
+                "trunk_depth",
+                "missing: with several fabrication depths, say which one the given trunk_width has",
+            )
+        trunk_depth = fab.depths[0]
+    if trunk_depth is not None and trunk_depth not in fab.depths:
+        raise tree.error("trunk_depth", "must be one of fabrication.depths")
+
+    growth = tree.number("growth", None, minimum=1e-6)
+    ratio = tree.number("velocity_ratio", None, minimum=1e-6)
+    if rule == "area-growth":
+        if (growth is None) == (ratio is None):
+            raise tree.error(None, "area-growth needs exactly one of growth and velocity_ratio")
+        if ratio is not None:
+            if n == 0:
+                raise tree.error("velocity_ratio", "needs at least one generation")
+            growth = float(ratio) ** (1.0 / n)
+    elif growth is not None or ratio is not None:
+        key = "growth" if growth is not None else "velocity_ratio"
+        raise tree.error(key, 'only used by rule = "area-growth"')
+
+    widths = depths = None
+    if rule == "table":
+        widths = tuple(tree.quantities("widths", "length"))
+        depths = tuple(tree.quantities("depths", "length"))
+        for key, values in (("widths", widths), ("depths", depths)):
+            if len(values) != n + 1:
+                raise tree.error(
+                    key, f"give one value per generation 0..{n} ({n + 1} values), got {len(values)}"
+                )
+    needs_target = rule == "shear-target" or (
+        rule in ("equal-shear", "area-growth") and trunk_width is None
+    )
+    if needs_target and targets.target(0) is None:
+        raise top.error(
+            "targets",
+            f"rule {rule!r} without trunk_width needs a shear target: "
+            "give targets.shear or targets.shear_min/shear_max",
+        )
+    if rule == "equal-shear" and trunk_width is None and targets.values and len(targets.values) > 1:
+        raise top.error(
+            "targets.shear", "equal-shear takes one target; use shear-target for a list"
+        )
+
+    if "lengths" in tree and "length" in tree:
+        raise tree.error("lengths", "give either length or lengths")
+    if "lengths" in tree:
+        lengths = tuple(tree.quantities("lengths", "length"))
+        if len(lengths) != n:
+            raise tree.error("lengths", f"give one length per distribution generation 0..{n - 1}")
+    else:
+        lengths = (tree.quantity("length", "length", 3e-3),) * n
+    fluid = read_fluid(top)
+    return TreeSpec(
+        name=top.string("name", "tree"),
+        description=top.string("description", ""),
+        fluid=fluid,
+        flow=tree.quantity("flow", "flow"),
+        generations=n,
+        rule=rule,
+        shape=shape,
+        trunk_width=trunk_width,
+        trunk_depth=trunk_depth,
+        growth=None if growth is None else float(growth),
+        widths=widths,
+        depths=depths,
+        lengths=lengths,
+        bed=_read_bed(top, fab),
+        targets=targets,
+        fabrication=fab,
+        source=top.source,
+    )
