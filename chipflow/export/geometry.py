@@ -1,0 +1,394 @@
+"""Mask geometry prepared for writing: on the grid, mirrored, inverted, holes resolved.
+
+The exporters share this step so that the DXF and the GDSII file carry the same shapes. All
+work happens in whole grid units (integers stored as floats), which keeps every vertex exactly
+on the mask grid and makes the result independent of floating-point noise.
+
+Holes (the walls between neighbouring bed channels are holes in the merged channel outline)
+are resolved in one of two ways:
+
+``"split"``
+    Each polygon is cut by vertical lines through its holes into hole-free pieces that meet
+    along the cut lines and never overlap. Every piece is a simple polygon.
+``"keyhole"``
+    Each hole is joined to the outline by a zero-width bridge, giving one re-entrant outline per
+    connected shape (its edges touch along the bridges but never cross).
+
+Examples
+--------
+>>> import shapely
+>>> ring = shapely.Polygon([(0, 0), (10, 0), (10, 10), (0, 10)], [[(4, 4), (6, 4), (6, 6), (4, 6)]])
+>>> pieces = resolve_holes(ring, "split")
+>>> len(pieces), sum(abs(ring_area(p)) for p in pieces)
+(2, 96.0)
+>>> (keyhole,) = resolve_holes(ring, "keyhole")
+>>> len(keyhole), ring_area(keyhole)
+(10, 96.0)
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from chipflow.errors import ExportError
+from chipflow.layout.model import Layout
+
+__all__ = [
+    "HOLES",
+    "POLARITIES",
+    "PreparedLayer",
+    "PreparedLayout",
+    "grid_nanometres",
+    "prepare_layout",
+    "resolve_holes",
+    "ring_area",
+    "circle_ring",
+    "depth_layer_name",
+]
+
+HOLES = ("split", "keyhole")
+POLARITIES = ("channels", "inverse")
+
+
+@dataclass(frozen=True)
+class PreparedLayer:
+    """One mask level ready to write.
+
+    Attributes
+    ----------
+    name : str
+        Our layer name, derived from the level number and depth (see :func:`depth_layer_name`).
+    depth : float
+        Feature depth [m].
+    rings : tuple of numpy.ndarray
+        Closed outlines as (n, 2) arrays of whole grid units, counter-clockwise, without the
+        closing vertex and without repeated consecutive vertices.
+    area : float
+        Mask area of this level after polarity, in grid units squared.
+    """
+
+    name: str
+    depth: float
+    rings: tuple[np.ndarray, ...]
+    area: float
+
+
+@dataclass(frozen=True)
+class PreparedLayout:
+    """The whole chip in grid units, ready for an exporter.
+
+    Attributes
+    ----------
+    grid_nm : int
+        Mask grid [nm].
+    layers : tuple of PreparedLayer
+    outline : numpy.ndarray
+        Chip outline ring in grid units.
+    ports : tuple of (str, numpy.ndarray)
+        Port name and its circle ring in grid units (chord error at most one grid step).
+    port_centres : numpy.ndarray
+        (n_ports, 2) port centres in grid units (after mirroring).
+    mirror : bool
+    polarity : str
+    """
+
+    grid_nm: int
+    layers: tuple[PreparedLayer, ...]
+    outline: np.ndarray
+    ports: tuple[tuple[str, np.ndarray], ...]
+    port_centres: np.ndarray
+    mirror: bool
+    polarity: str
+
+
+def grid_nanometres(grid: float) -> int:
+    """The mask grid as a whole number of nanometres.
+
+    Parameters
+    ----------
+    grid : float
+        Mask grid [m].
+
+    Examples
+    --------
+    >>> grid_nanometres(1e-7)
+    100
+    """
+    if not (math.isfinite(grid) and grid > 0):
+        raise ExportError(f"mask grid must be a positive length, got {grid!r} m")
+    nm = round(grid * 1e9)
+    if nm < 1 or abs(nm - grid * 1e9) > 1e-6 * max(nm, 1):
+        raise ExportError(
+            f"mask grid {grid * 1e6:g} um is not a whole number of nanometres; "
+            "use a grid such as 0.1 um or 1 um"
+        )
+    return nm
+
+
+def depth_layer_name(level: int, depth: float) -> str:
+    """Our DXF layer name for a mask level: level number and depth in micrometres.
+
+    Only letters, digits and underscores, so that every DXF version accepts it.
+
+    Parameters
+    ----------
+    level : int
+        Level number, 1 for the shallowest.
+    depth : float
+        Feature depth [m].
+
+    Examples
+    --------
+    >>> depth_layer_name(1, 50e-6)
+    'MASK1_DEPTH_50UM'
+    >>> depth_layer_name(2, 12.5e-6)
+    'MASK2_DEPTH_12P5UM'
+    """
+    text = f"{depth * 1e6:.3f}".rstrip("0").rstrip(".")
+    return f"MASK{level}_DEPTH_{text.replace('.', 'P')}UM"
+
+
+def ring_area(ring: np.ndarray) -> float:
+    """Signed (shoelace) area of a ring without its closing vertex; positive when CCW."""
+    x, y = ring[:, 0], ring[:, 1]
+    return float(0.5 * (np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+
+
+def circle_ring(cx: float, cy: float, radius: float) -> np.ndarray:
+    """A circle as a grid-snapped polygon whose distance from the true circle is below 1 grid.
+
+    The chord sagitta is kept at a quarter grid step, and snapping moves a vertex by at most
+    0.71 grid steps, so every point of the outline lies within 0.96 grid steps of the circle.
+
+    Parameters
+    ----------
+    cx, cy, radius : float
+        Centre and radius in grid units.
+    """
+    if radius <= 1:
+        n = 4
+    else:
+        n = max(8, math.ceil(math.pi / math.acos(1.0 - 0.25 / radius)))
+    t = 2 * np.pi * np.arange(n) / n
+    pts = np.rint(np.column_stack([cx + radius * np.cos(t), cy + radius * np.sin(t)]))
+    return _clean_ring(pts)
+
+
+def _clean_ring(coords: np.ndarray) -> np.ndarray:
+    """Drop the closing vertex and repeated consecutive vertices."""
+    pts = np.asarray(coords, dtype=float)
+    if len(pts) > 1 and np.array_equal(pts[0], pts[-1]):
+        pts = pts[:-1]
+    keep = np.any(pts != np.roll(pts, 1, axis=0), axis=1)
+    if not keep.any():
+        keep[0] = True
+    return pts[keep]
+
+
+def _canonical(ring: np.ndarray) -> np.ndarray:
+    """Start the ring at its lowest-leftmost vertex (a stable order for files)."""
+    start = np.lexsort((ring[:, 0], ring[:, 1]))[0]
+    return np.roll(ring, -start, axis=0)
+
+
+def _polygons(geom: shapely.Geometry) -> list[shapely.Polygon]:
+    parts = shapely.get_parts(geom)
+    polys = [p for p in parts if isinstance(p, shapely.Polygon) and not p.is_empty]
+    out = []
+    for p in polys:
+        if p.area > 0:
+            out.append(shapely.orient_polygons(p))
+    return out
+
+
+def _cut(poly: shapely.Polygon, axis: int, cuts: list[float]) -> list[shapely.Polygon]:
+    """Intersect ``poly`` with the strips between cut lines across ``axis`` (0: x, 1: y)."""
+    if not cuts:
+        return [poly]
+    minx, miny, maxx, maxy = poly.bounds
+    lo, hi = (minx, maxx) if axis == 0 else (miny, maxy)
+    edges = [lo - 1, *sorted(set(cuts)), hi + 1]
+    pairs = zip(edges[:-1], edges[1:], strict=True)
+    if axis == 0:
+        boxes = [shapely.box(a, miny - 1, b, maxy + 1) for a, b in pairs]
+    else:
+        boxes = [shapely.box(minx - 1, a, maxx + 1, b) for a, b in pairs]
+    out: list[shapely.Polygon] = []
+    for geom in shapely.intersection(poly, np.array(boxes, dtype=object)):
+        out.extend(_polygons(geom))
+    return out
+
+
+def _split_polygon(poly: shapely.Polygon) -> list[np.ndarray]:
+    """Cut a polygon with holes into hole-free pieces along lines through the holes.
+
+    A vertical line through the middle of a hole (on the grid, strictly between its left and
+    right ends) leaves part of the hole on either side, so no piece can enclose it. Holes less
+    than two grid steps wide are cut horizontally instead.
+    """
+    if not poly.interiors:
+        return [_clean_ring(poly.exterior.coords)]
+    bounds = np.array([h.bounds for h in poly.interiors])
+    wide = bounds[:, 2] - bounds[:, 0] >= 2
+    xcuts = np.floor((bounds[wide, 0] + bounds[wide, 2]) / 2).tolist()
+    pieces = _cut(poly, 0, xcuts)
+    rest = []
+    for piece in pieces:
+        hb = np.array([h.bounds for h in piece.interiors]).reshape(-1, 4)
+        mid = (hb[:, 1] + hb[:, 3]) / 2
+        ycuts = np.where(hb[:, 3] - hb[:, 1] >= 2, np.floor(mid), mid).tolist()
+        rest.extend(_cut(piece, 1, ycuts))
+    rings = []
+    for piece in rest:
+        for part in _polygons(shapely.set_precision(piece, 1.0)):
+            if part.interiors:
+                raise ExportError(
+                    "a hole smaller than one grid step could not be cut open near "
+                    f"x={part.interiors[0].coords[0][0]:g}, y={part.interiors[0].coords[0][1]:g} "
+                    "(grid units); check the layout for features below the mask grid"
+                )
+            rings.append(_clean_ring(part.exterior.coords))
+    return rings
+
+
+def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
+    """Join every hole of ``poly`` to its outline by a zero-width bridge between two vertices.
+
+    Holes are taken rightmost first; each is bridged from one of its vertices to the nearest
+    vertex of the outline built so far (outline plus the holes already joined) such that the
+    bridge runs through the inside of the shape and meets no other bridge.
+    """
+    shell = _clean_ring(poly.exterior.coords)
+    holes = [_clean_ring(h.coords) for h in poly.interiors]
+    if not holes:
+        return shell
+    shapely.prepare(poly)
+    ring = [tuple(p) for p in shell]
+    order = sorted(range(len(holes)), key=lambda i: (-holes[i][:, 0].max(), -holes[i][:, 1].max()))
+    bridges: list[shapely.LineString] = []
+    for i in order:
+        hole = holes[i]
+        cand = np.array(ring)
+        d2 = ((hole[:, None, :] - cand[None, :, :]) ** 2).sum(axis=2)
+        flat = np.argsort(d2, axis=None, kind="stable")
+        joined = False
+        for k in flat[: min(flat.size, 4000)]:
+            hj, ci = divmod(int(k), cand.shape[0])
+            seg = shapely.LineString([hole[hj], cand[ci]])
+            if not shapely.relate_pattern(seg, poly, "TFF**F***"):
+                continue
+            if bridges and shapely.intersects(seg, shapely.MultiLineString(bridges)):
+                continue
+            q = tuple(cand[ci])
+            if ring.count(q) != 1:
+                continue
+            at = ring.index(q)
+            loop = [tuple(p) for p in np.roll(hole, -hj, axis=0)]
+            ring = ring[: at + 1] + loop + [loop[0]] + ring[at:]
+            bridges.append(seg)
+            joined = True
+            break
+        if not joined:
+            x, y = hole[0]
+            raise ExportError(
+                f"cannot join the hole near x={x:g}, y={y:g} (grid units) to its outline by a "
+                "keyhole bridge; write the mask with holes = 'split' instead"
+            )
+    return np.array(ring, dtype=float)
+
+
+def resolve_holes(geom: shapely.Geometry, holes: str) -> list[np.ndarray]:
+    """Turn a (multi)polygon in grid units into closed hole-free outlines.
+
+    Parameters
+    ----------
+    geom : shapely.Polygon or shapely.MultiPolygon
+        Geometry in whole grid units.
+    holes : {"split", "keyhole"}
+
+    Returns
+    -------
+    list of numpy.ndarray
+        Counter-clockwise rings without closing vertex, in a stable order.
+    """
+    if holes not in HOLES:
+        raise ExportError(f"unknown hole handling {holes!r} (valid: {', '.join(HOLES)})")
+    rings: list[np.ndarray] = []
+    for poly in _polygons(geom):
+        if holes == "split":
+            rings.extend(_split_polygon(poly))
+        else:
+            rings.append(_keyhole_polygon(poly))
+    rings = [_canonical(r) for r in rings if len(r) >= 3 and ring_area(r) > 0]
+    rings.sort(key=lambda r: (r[0, 1], r[0, 0], len(r), r.tobytes()))
+    return rings
+
+
+def _to_grid(geom: shapely.Geometry, grid: float) -> shapely.Geometry:
+    scaled = shapely.transform(geom, lambda c: c / grid)
+    return shapely.set_precision(scaled, 1.0)
+
+
+def prepare_layout(
+    layout: Layout, *, polarity: str = "channels", mirror: bool = False, holes: str = "split"
+) -> PreparedLayout:
+    """Snap, mirror, invert and resolve holes for every mask level of a layout.
+
+    Parameters
+    ----------
+    layout : Layout
+        The drawn chip (coordinates [m]).
+    polarity : {"channels", "inverse"}
+        ``"channels"``: the written shapes are the channels. ``"inverse"``: the written shapes
+        are everything inside the chip outline except the channels.
+    mirror : bool
+        Mirror left to right about the vertical centre line of the chip outline (the chip as seen
+        from the chrome side of the mask).
+    holes : {"split", "keyhole"}
+        How islands inside a shape are written (see the module notes).
+    """
+    if polarity not in POLARITIES:
+        raise ExportError(f"unknown polarity {polarity!r} (valid: {', '.join(POLARITIES)})")
+    grid = layout.grid
+    nm = grid_nanometres(grid)
+    outline = _to_grid(layout.outline, grid)
+    if outline.is_empty or outline.area <= 0:
+        raise ExportError(f"design {layout.name!r}: the chip outline is empty")
+    minx, _, maxx, _ = outline.bounds
+    axis2 = minx + maxx
+
+    def flip(g: shapely.Geometry) -> shapely.Geometry:
+        if not mirror:
+            return g
+        return shapely.transform(g, lambda c: np.column_stack([axis2 - c[:, 0], c[:, 1]]))
+
+    outline = flip(outline)
+    layers = []
+    for level, mask in enumerate(layout.layers, start=1):
+        geom = mask.geometry
+        if not shapely.is_valid(geom):
+            raise ExportError(
+                f"design {layout.name!r}, mask level {mask.name!r}: the channel outline is not a "
+                f"valid polygon ({shapely.is_valid_reason(geom)})"
+            )
+        geom = flip(_to_grid(geom, grid))
+        if polarity == "inverse":
+            geom = shapely.set_precision(shapely.difference(outline, geom), 1.0)
+        rings = resolve_holes(geom, holes)
+        layers.append(
+            PreparedLayer(depth_layer_name(level, mask.depth), mask.depth, tuple(rings), geom.area)
+        )
+    outline_ring = _canonical(_clean_ring(shapely.orient_polygons(outline).exterior.coords))
+    centres = np.array([[p.x, p.y] for p in layout.ports], dtype=float).reshape(-1, 2) / grid
+    centres = np.rint(centres)
+    if mirror:
+        centres[:, 0] = axis2 - centres[:, 0]
+    ports = tuple(
+        (p.name, circle_ring(c[0], c[1], p.diameter / 2 / grid))
+        for p, c in zip(layout.ports, centres, strict=True)
+    )
+    return PreparedLayout(nm, tuple(layers), outline_ring, ports, centres, mirror, polarity)

@@ -1,0 +1,241 @@
+"""Previews of the chip: mask levels in colour, ports, a scale bar; optionally channels coloured
+by a solved quantity (floor wall shear, ...) with a colour bar.
+
+matplotlib is imported inside the functions, and figures are made without pyplot (no global
+state, Agg rendering). :func:`write_preview` writes SVG or PNG with fixed metadata so that the
+same layout gives the same bytes.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import shapely
+
+from chipflow.errors import ExportError
+from chipflow.export._files import atomic_write
+from chipflow.layout.model import Layout
+
+__all__ = ["LayoutPlot", "plot_layout", "write_preview", "LAYER_COLOURS"]
+
+#: Fill colours of the mask levels, shallowest first (our own palette), then cycling.
+LAYER_COLOURS = ("#3a7ca5", "#e07a2f", "#5c9e52", "#9a5fb0", "#c8455b", "#8a8a3c")
+_OUTLINE_COLOUR = "#4d4d4d"
+_PORT_COLOUR = "#222222"
+
+
+@dataclass(frozen=True)
+class LayoutPlot:
+    """What :func:`plot_layout` drew.
+
+    Attributes
+    ----------
+    ax : matplotlib.axes.Axes
+        The axes holding the chip (coordinates in mm).
+    colorbar : matplotlib.colorbar.Colorbar or None
+        The colour bar of the channel values, when values were given.
+    layer_patches : tuple
+        One patch per mask level.
+    channel_collection : matplotlib.collections.PolyCollection or None
+        The channels coloured by value, when values were given.
+    scale_bar_length : float
+        Length of the scale bar [m].
+    """
+
+    ax: Any
+    colorbar: Any
+    layer_patches: tuple
+    channel_collection: Any
+    scale_bar_length: float
+
+
+def _nice_length(span: float) -> float:
+    """A 1-2-5 length near a fifth of ``span`` [m].
+
+    Examples
+    --------
+    >>> _nice_length(20e-3)
+    0.005
+    >>> _nice_length(3e-3)
+    0.0005
+    """
+    target = span / 5
+    exp = math.floor(math.log10(target))
+    for step in (5, 2, 1):
+        if step * 10.0**exp <= target:
+            return step * 10.0**exp
+    return 10.0**exp  # pragma: no cover
+
+
+def _path_of(geom: shapely.Geometry, scale: float):
+    """One compound matplotlib Path of all rings of ``geom`` (holes wind the other way)."""
+    from matplotlib.path import Path as MplPath
+
+    polys = shapely.get_parts(geom)
+    polys = polys[shapely.get_type_id(polys) == 3]
+    if polys.size == 0:
+        return None
+    polys = shapely.orient_polygons(polys)
+    rings = shapely.get_rings(polys)
+    xy, idx = shapely.get_coordinates(rings, return_index=True)
+    codes = np.full(len(xy), MplPath.LINETO, dtype=np.uint8)
+    starts = np.r_[0, np.flatnonzero(np.diff(idx)) + 1]
+    ends = np.r_[starts[1:] - 1, len(xy) - 1]
+    codes[starts] = MplPath.MOVETO
+    codes[ends] = MplPath.CLOSEPOLY
+    return MplPath(xy * scale, codes)
+
+
+def plot_layout(
+    layout: Layout,
+    ax: Any = None,
+    values: np.ndarray | None = None,
+    value_label: str = "floor wall shear [Pa]",
+) -> LayoutPlot:
+    """Draw the chip: mask levels, outline, ports with names, a scale bar.
+
+    Parameters
+    ----------
+    layout : Layout
+        The drawn chip [m].
+    ax : matplotlib.axes.Axes, optional
+        Where to draw; a new figure (without pyplot) when omitted.
+    values : numpy.ndarray, optional
+        One value per drawn channel (same order as ``layout.channels``), e.g. floor wall shear
+        [Pa]; the channels are then filled by value, with a colour bar.
+    value_label : str
+        Colour-bar label, with its unit.
+
+    Returns
+    -------
+    LayoutPlot
+    """
+    from matplotlib.collections import PolyCollection
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Circle, PathPatch, Rectangle
+
+    mm = 1e3
+    if ax is None:
+        minx, miny, maxx, maxy = layout.outline.bounds
+        aspect = (maxy - miny) / max(maxx - minx, 1e-12)
+        fig = Figure(figsize=(8.0, max(2.5, 8.0 * aspect + 1.2)), dpi=100)
+        ax = fig.add_subplot()
+    ax.set_aspect("equal")
+    ox, oy = layout.outline.exterior.xy
+    ax.add_line(Line2D(np.asarray(ox) * mm, np.asarray(oy) * mm, color=_OUTLINE_COLOUR, lw=1.0))
+
+    faded = values is not None
+    patches = []
+    for i, mask in enumerate(layout.layers):
+        path = _path_of(mask.geometry, mm)
+        if path is None:
+            continue
+        colour = LAYER_COLOURS[i % len(LAYER_COLOURS)]
+        patch = PathPatch(
+            path,
+            facecolor=colour,
+            edgecolor="none",
+            alpha=0.25 if faded else 0.85,
+            label=f"{mask.name} ({mask.depth * 1e6:g} um deep)",
+        )
+        ax.add_patch(patch)
+        patches.append(patch)
+
+    collection = colorbar = None
+    if values is not None:
+        ch = layout.channels
+        vals = np.asarray(values, dtype=float)
+        if vals.shape != (len(ch.width),):
+            raise ExportError(
+                f"preview of {layout.name!r}: got {vals.size} values for "
+                f"{len(ch.width)} channels; give one value per channel"
+            )
+        shapes = shapely.buffer(np.asarray(ch.centreline), ch.width / 2, cap_style="flat")
+        parts, owner = shapely.get_parts(shapes, return_index=True)
+        rings = shapely.get_exterior_ring(parts)
+        xy, idx = shapely.get_coordinates(rings, return_index=True)
+        cuts = np.flatnonzero(np.diff(idx)) + 1
+        collection = PolyCollection(np.split(xy * mm, cuts), cmap="viridis", edgecolors="none")
+        collection.set_array(vals[owner])
+        ax.add_collection(collection)
+        colorbar = ax.figure.colorbar(collection, ax=ax, shrink=0.8)
+        colorbar.set_label(value_label)
+
+    for port in layout.ports:
+        ax.add_patch(
+            Circle(
+                (port.x * mm, port.y * mm),
+                port.diameter / 2 * mm,
+                fill=False,
+                edgecolor=_PORT_COLOUR,
+                lw=1.0,
+            )
+        )
+        ax.text(
+            port.x * mm,
+            (port.y + 0.6 * port.diameter) * mm,
+            port.name,
+            ha="center",
+            va="bottom",
+            fontsize=9,
+        )
+
+    minx, miny, maxx, maxy = layout.outline.bounds
+    pad = 0.05 * max(maxx - minx, maxy - miny)
+    ax.set_xlim((minx - pad) * mm, (maxx + pad) * mm)
+    ax.set_ylim((miny - 2 * pad) * mm, (maxy + pad) * mm)
+    bar = _nice_length(maxx - minx)
+    x0, y0 = minx * mm, (miny - 1.2 * pad) * mm
+    ax.add_patch(Rectangle((x0, y0), bar * mm, 0.15 * pad * mm, color="black"))
+    label = f"{bar * 1e3:g} mm" if bar >= 1e-3 else f"{bar * 1e6:g} um"
+    ax.text(x0 + bar * mm / 2, y0 + 0.3 * pad * mm, label, ha="center", va="bottom", fontsize=8)
+    ax.set_xlabel("x [mm]")
+    ax.set_ylabel("y [mm]")
+    ax.set_title(layout.name)
+    if patches:
+        ax.legend(handles=patches, loc="upper right", fontsize=7, framealpha=0.8)
+    return LayoutPlot(ax, colorbar, tuple(patches), collection, bar)
+
+
+def write_preview(
+    layout: Layout,
+    path: str | os.PathLike,
+    values: np.ndarray | None = None,
+    value_label: str = "floor wall shear [Pa]",
+) -> Path:
+    """Write an SVG or PNG preview of the chip (chosen by the file suffix).
+
+    The files carry fixed metadata (no date, no library version) and, for SVG, fixed element
+    identifiers, so the same layout gives the same bytes.
+
+    Parameters
+    ----------
+    layout : Layout
+    path : str or path-like
+        ``.svg`` or ``.png``; written atomically.
+    values : numpy.ndarray, optional
+        One value per channel for colouring (see :func:`plot_layout`).
+    value_label : str
+        Colour-bar label, with its unit.
+    """
+    import matplotlib
+
+    path = Path(path)
+    fmt = path.suffix.lower().lstrip(".")
+    if fmt not in ("svg", "png"):
+        raise ExportError(f"{path}: a preview is written as .svg or .png, not {path.suffix!r}")
+    metadata = {"Date": None, "Creator": "chipflow"} if fmt == "svg" else {"Software": "chipflow"}
+    with matplotlib.rc_context({"svg.hashsalt": "chipflow", "svg.fonttype": "path"}):
+        plot = plot_layout(layout, values=values, value_label=value_label)
+        fig = plot.ax.figure
+
+        def save(tmp: Path) -> None:
+            fig.savefig(tmp, format=fmt, metadata=metadata, dpi=150)
+
+        return atomic_write(path, save, f"{fmt.upper()} preview")
