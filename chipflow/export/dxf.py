@@ -109,7 +109,7 @@ def design_hash(data: bytes | str) -> str:
     Examples
     --------
     >>> design_hash("[tree]\\n")
-    'sha256:6ec4fbf7d2f4c8c8'
+    'sha256:247f3db159e99118'
     """
     raw = data.encode("utf-8") if isinstance(data, str) else data
     return "sha256:" + hashlib.sha256(raw).hexdigest()[:16]

@@ -55,12 +55,12 @@ class LayoutPlot:
 
 
 def _nice_length(span: float) -> float:
-    """A 1-2-5 length near a fifth of ``span`` [m].
+    """The largest 1-2-5 length not above a fifth of ``span`` [m].
 
     Examples
     --------
     >>> _nice_length(20e-3)
-    0.005
+    0.002
     >>> _nice_length(3e-3)
     0.0005
     """
