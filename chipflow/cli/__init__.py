@@ -54,9 +54,9 @@ def main() -> None:
 
 
 def _register() -> None:
-    from chipflow.cli import channel
+    from chipflow.cli import channel, size
 
-    for module in (channel,):
+    for module in (channel, size):
         main.add_command(module.command)
 
 

@@ -51,10 +51,18 @@ from scipy.optimize import brentq
 from chipflow.design.model import Level, TreeDesign
 from chipflow.errors import DesignError
 from chipflow.physics import duct
+from chipflow.physics.fluid import Fluid
 from chipflow.spec.tree import Fabrication, TreeSpec
 from chipflow.units import format_quantity
 
-__all__ = ["wall_shear", "width_for_shear", "size_tree", "Candidate", "candidates"]
+__all__ = [
+    "wall_shear",
+    "width_for_shear",
+    "size_channel",
+    "size_tree",
+    "Candidate",
+    "candidates",
+]
 
 _EXACT, _COMPROMISE, _INFEASIBLE = 0, 1, 2
 _RATIO_SPAN = 1e4  # widths searched from depth/1e4 to depth*1e4
@@ -127,6 +135,74 @@ def width_for_shear(
     if f_lo * f_hi > 0:
         return float("nan")
     return math.exp(brentq(miss, lo, hi, xtol=1e-14, rtol=1e-13))
+
+
+def size_channel(
+    flow: float,
+    depth: float,
+    shear: float,
+    fluid: Fluid,
+    kind: str = "floor",
+    grid: float | None = None,
+) -> dict[str, float]:
+    """One channel sized for a wall shear target, with its resulting flow state.
+
+    Parameters
+    ----------
+    flow : float
+        Flow rate [m^3/s].
+    depth : float
+        Depth [m].
+    shear : float
+        Target wall shear [Pa] of ``kind`` ("floor", "mean" or "max").
+    fluid : Fluid
+    grid : float, optional
+        Mask grid [m] the width is rounded to (the shears are those of the rounded width).
+
+    Returns
+    -------
+    dict
+        SI values: ``width``, ``depth``, ``flow``, ``target_shear``, ``wall_shear_floor``,
+        ``wall_shear_mean``, ``wall_shear_max``, ``mean_velocity``, ``max_velocity``,
+        ``reynolds``, ``aspect_ratio`` (width/depth), ``viscosity``, ``density``.
+
+    Raises
+    ------
+    DesignError
+        When no width between depth/1e4 and depth*1e4 gives the target.
+
+    Examples
+    --------
+    >>> from chipflow.physics.fluid import water
+    >>> v = size_channel(2e-9 / 60, 50e-6, 0.75, water(310.15))
+    >>> round(v["width"] * 1e6, 1), round(v["wall_shear_floor"], 6)
+    (100.0, 0.75)
+    """
+    width = width_for_shear(flow, depth, shear, fluid.viscosity, kind)
+    if math.isnan(width):
+        raise DesignError(
+            f"no channel {format_quantity(depth, 'um')} deep gives {kind} shear "
+            f"{format_quantity(shear, 'Pa')} at {format_quantity(flow, 'uL/min')}: the width would "
+            "be over 10000 times the depth or under 1/10000 of it; change the depth or the flow"
+        )
+    if grid is not None:
+        width = max(round(width / grid), 1) * grid
+    state = duct.flow_state(width, depth, 1.0, flow, fluid.viscosity, fluid.density)
+    return {
+        "width": float(width),
+        "depth": float(depth),
+        "flow": float(flow),
+        "target_shear": float(shear),
+        "wall_shear_floor": float(state.wall_shear_floor),
+        "wall_shear_mean": float(state.wall_shear_mean),
+        "wall_shear_max": float(state.wall_shear_max),
+        "mean_velocity": float(state.mean_velocity),
+        "max_velocity": float(state.max_velocity),
+        "reynolds": float(state.reynolds),
+        "aspect_ratio": float(width / depth),
+        "viscosity": fluid.viscosity,
+        "density": fluid.density,
+    }
 
 
 def _diameter_for_shear(flow: float, shear: float, viscosity: float) -> float:

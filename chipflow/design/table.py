@@ -1,0 +1,186 @@
+"""The per-generation table of a sized tree: geometry, flow, shear and the target window.
+
+:func:`generation_table` gives one row per level (inlet to outlet) in SI units;
+:func:`generation_table_dict` a JSON-able form and :func:`generation_table_text` the table in
+lab units that ``chipflow check`` prints for tree designs.
+
+Values come from a solved network (:func:`chipflow.design.tree_network.solve_tree` by default,
+or a solution of the drawn layout whose channels carry the same roles and generations):
+per level the mean over its channels, and the pass/fail check uses the smallest and largest
+shear of the level's channels against the window.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from chipflow.design.model import TreeDesign
+from chipflow.network import Solution
+
+__all__ = ["generation_table", "generation_table_dict", "generation_table_text", "SI_UNITS"]
+
+#: SI unit of every numeric column.
+SI_UNITS = {
+    "count": "1",
+    "width": "m",
+    "depth": "m",
+    "length": "m",
+    "flow": "m^3/s",
+    "area_total": "m^2",
+    "mean_velocity": "m/s",
+    "wall_shear_floor": "Pa",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "reynolds": "1",
+    "residence_time": "s",
+    "pressure_drop": "Pa",
+    "shear_target": "Pa",
+    "shear_min": "Pa",
+    "shear_max": "Pa",
+}
+
+_KIND_FIELD = {"floor": "wall_shear_floor", "mean": "wall_shear_mean", "max": "wall_shear_max"}
+
+
+def generation_table(design: TreeDesign, solution: Solution | None = None) -> list[dict]:
+    """One row per level, inlet to outlet, in SI units (see :data:`SI_UNITS`).
+
+    Parameters
+    ----------
+    design : TreeDesign
+    solution : Solution, optional
+        A solved network whose channels carry ``role`` and ``generation``; by default the
+        design's own tree with nominal lengths, fed with the design flow.
+
+    Returns
+    -------
+    list of dict
+        Keys: ``generation``, ``role``, the keys of :data:`SI_UNITS`, ``shear_kind`` and
+        ``status`` ("pass", "fail" or "" when no window applies).
+    """
+    if solution is None:
+        from chipflow.design.tree_network import solve_tree
+
+        solution = solve_tree(design)
+    net = solution.network
+    field = _KIND_FIELD[design.shear_kind]
+    rows = []
+    for level in design.levels:
+        mask = (net.role == level.role) & (net.generation == level.generation)
+        if not mask.any():
+            continue
+        shear = getattr(solution, field)[mask]
+        area = np.where(
+            net.round[mask], np.pi / 4 * net.width[mask] ** 2, net.width[mask] * net.depth[mask]
+        )
+        low, high = level.shear_min, level.shear_max
+        status = ""
+        if low is not None or high is not None:
+            ok = (low is None or shear.min() >= low * (1 - 1e-9)) and (
+                high is None or shear.max() <= high * (1 + 1e-9)
+            )
+            status = "pass" if ok else "fail"
+        rows.append(
+            {
+                "generation": level.generation,
+                "role": level.role,
+                "count": int(mask.sum()),
+                "width": float(net.width[mask].mean()),
+                "depth": float(net.depth[mask].mean()),
+                "length": float(net.length[mask].mean()),
+                "flow": float(np.abs(solution.flow[mask]).mean()),
+                "area_total": float(area.sum()),
+                "mean_velocity": float(np.abs(solution.mean_velocity[mask]).mean()),
+                "wall_shear_floor": float(solution.wall_shear_floor[mask].mean()),
+                "wall_shear_mean": float(solution.wall_shear_mean[mask].mean()),
+                "wall_shear_max": float(solution.wall_shear_max[mask].mean()),
+                "reynolds": float(solution.reynolds[mask].max()),
+                "residence_time": float(solution.residence_time[mask].mean()),
+                "pressure_drop": float(np.abs(solution.pressure_drop[mask]).mean()),
+                "shear_target": level.shear_target,
+                "shear_min": low,
+                "shear_max": high,
+                "shear_kind": design.shear_kind,
+                "status": status,
+            }
+        )
+    return rows
+
+
+def generation_table_dict(design: TreeDesign, solution: Solution | None = None) -> dict:
+    """JSON-able form: name, flow, fluid, rows, warnings, units and the overall status."""
+    rows = generation_table(design, solution)
+    return {
+        "name": design.name,
+        "total_flow": design.total_flow,
+        "fluid": {
+            "name": design.fluid.name,
+            "viscosity": design.fluid.viscosity,
+            "density": design.fluid.density,
+        },
+        "shear_kind": design.shear_kind,
+        "levels": rows,
+        "warnings": list(design.warnings),
+        "status": "fail" if any(r["status"] == "fail" for r in rows) else "pass",
+        "units": SI_UNITS,
+    }
+
+
+_COLUMNS = (
+    ("gen", "generation", "", None),
+    ("role", "role", "", None),
+    ("n", "count", "", None),
+    ("width", "width", "um", 1e6),
+    ("depth", "depth", "um", 1e6),
+    ("flow/ch", "flow", "uL/min", 6e10),
+    ("area", "area_total", "mm^2", 1e6),
+    ("u_mean", "mean_velocity", "mm/s", 1e3),
+    ("floor", "wall_shear_floor", "Pa", 1.0),
+    ("mean", "wall_shear_mean", "Pa", 1.0),
+    ("max", "wall_shear_max", "Pa", 1.0),
+    ("Re", "reynolds", "", 1.0),
+)
+
+
+def generation_table_text(design: TreeDesign, solution: Solution | None = None) -> str:
+    """The table in lab units (um, uL/min, mm^2, mm/s, Pa), with window and pass/fail.
+
+    Examples
+    --------
+    >>> from chipflow.design.model import Level, TreeDesign
+    >>> from chipflow.physics.fluid import water
+    >>> lv = [Level(0, "bed", 1, 2e-4, 5e-5, 1e-2, 5e-9 / 60, shear_min=1.0, shear_max=2.0)]
+    >>> text = generation_table_text(TreeDesign("t", water(), 5e-9 / 60, tuple(lv)))
+    >>> text.splitlines()[2].split()[8:]  # floor, mean, max shear, Re, window, shear, check
+    ['1.185', '0.9511', '1.185', '0.6644', '1', '-', '2', 'floor', 'pass']
+    """
+    rows = generation_table(design, solution)
+    header = [c[0] for c in _COLUMNS] + ["window [Pa]", "shear", "check"]
+    units = ["", "", "", "um", "um", "uL/min", "mm^2", "mm/s", "Pa", "Pa", "Pa", "", "", "", ""]
+    body = []
+    for r in rows:
+        cells = []
+        for _, key, _, scale in _COLUMNS:
+            value = r[key]
+            cells.append(str(value) if scale is None else f"{value * scale:.4g}")
+        low, high = r["shear_min"], r["shear_max"]
+        if low is None and high is None:
+            window = ""
+        elif low is None:
+            window = f"<= {high:.3g}"
+        elif high is None:
+            window = f">= {low:.3g}"
+        else:
+            window = f"{low:.3g} - {high:.3g}"
+        cells += [window, r["shear_kind"] if window else "", r["status"]]
+        body.append(cells)
+    table = [header, units] + body
+    widths = [max(len(row[i]) for row in table) for i in range(len(header))]
+    lines = []
+    for row in table:
+        cells = [row[0].rjust(widths[0]), row[1].ljust(widths[1])]
+        cells += [c.rjust(widths[i + 2]) for i, c in enumerate(row[2:])]
+        lines.append("  ".join(cells).rstrip())
+    for warning in design.warnings:
+        lines.append(f"warning: {warning}")
+    return "\n".join(lines)
