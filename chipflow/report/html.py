@@ -1,0 +1,447 @@
+"""The build report: one self-contained HTML file, readable offline.
+
+Everything comes from the results dict (the content of results.json, SI floats) and the SVG
+figures the caller passes in; nothing is recomputed. The page has no scripts, no external
+resources and no timestamps: the same results give the same bytes.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+import os
+import re
+import tempfile
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+from chipflow.errors import ExportError
+from chipflow.report.figures import generation_labels
+
+__all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS", "atomic_write"]
+
+#: The Cautions section, one paragraph each (title, text).
+CAUTIONS = (
+    (
+        "Pressure and bond failure",
+        "A pressurised chip can delaminate or burst and spray medium. Keep the inlet pressure "
+        "below the bond limit in the checks above (with its safety margin), put a pressure "
+        "relief or a pressure-limited pump in the line, start at a low flow and raise it "
+        "stepwise, and wear eye protection while priming and running the chip.",
+    ),
+    (
+        "Sterile and biosafety handling",
+        "Cells, medium and anything that touched them are biological material. Prime, seed and "
+        "perfuse the chip with sterile technique in a biosafety cabinet, treat spills and "
+        "waste by the rules for the biosafety level of your cells, and decontaminate the chip, "
+        "tubing and pump before disposal.",
+    ),
+    (
+        "Model values must be confirmed on the bench",
+        "The numbers in this report come from a model of fully developed laminar flow in "
+        "channels of the drawn size. Moulded depths, bond squeeze, bubbles, cell layers and "
+        "tubing change them. Measure the flow and the pressure on the real chip (for example "
+        "by bead velocimetry in the bed and a pressure sensor at the inlet) before relying on "
+        "the shear and residence times shown here.",
+    ),
+    (
+        "Local rules prevail",
+        "Local codes, your institution's biosafety rules and the fabrication facility's design "
+        "rules take precedence over this report and over chipflow's defaults.",
+    ),
+)
+
+_MARK = {"pass": "&#10003; pass", "warn": "! warn", "fail": "&#10007; fail"}
+
+_CSS = """
+:root { --ink: #24313d; --muted: #5c6b78; --rule: #d5dce2; --pass: #1f6f43;
+  --warn: #8a5a00; --fail: #a3262a; --pass-bg: #e3f2e8; --warn-bg: #fbefd5;
+  --fail-bg: #f8dede; --band: #f5f7f9; }
+body { font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
+  color: var(--ink); max-width: 60rem; margin: 2rem auto; padding: 0 1.2rem; }
+h1 { font-size: 1.6rem; margin-bottom: 0.2rem; }
+h2 { font-size: 1.15rem; border-bottom: 2px solid var(--rule); padding-bottom: 0.2rem;
+  margin-top: 2.2rem; }
+.meta { color: var(--muted); font-size: 0.85rem; word-break: break-all; }
+.verdict { display: inline-block; padding: 0.3rem 0.8rem; border-radius: 0.3rem;
+  font-weight: 600; margin: 0.6rem 0; }
+table { border-collapse: collapse; font-size: 0.85rem; margin: 0.6rem 0; }
+th, td { padding: 0.25rem 0.55rem; border-bottom: 1px solid var(--rule); text-align: right;
+  vertical-align: top; }
+th { background: var(--band); font-weight: 600; }
+td.text, th.text { text-align: left; }
+tr.bed td { background: #fbf5e8; }
+.status { white-space: nowrap; font-weight: 600; border-radius: 0.2rem; padding: 0 0.3rem; }
+.pass { color: var(--pass); background: var(--pass-bg); }
+.warn { color: var(--warn); background: var(--warn-bg); }
+.fail { color: var(--fail); background: var(--fail-bg); }
+.source { color: var(--muted); font-size: 0.78rem; }
+figure { margin: 1rem 0; }
+figure svg { max-width: 100%; height: auto; }
+figcaption { color: var(--muted); font-size: 0.85rem; }
+.cautions { border-left: 4px solid var(--warn); background: var(--warn-bg);
+  padding: 0.4rem 1rem; }
+.cautions h3 { font-size: 0.98rem; margin: 0.7rem 0 0.1rem; }
+.cautions p { margin: 0.1rem 0 0.5rem; }
+footer { color: var(--muted); font-size: 0.8rem; margin-top: 2.5rem; }
+"""
+
+
+# -- formatting ----------------------------------------------------------------------------
+def _e(value: Any) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _num(value: Any, digits: int = 3) -> str:
+    if value is None:
+        return "&ndash;"
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return _e(value)
+    if math.isnan(number):
+        return "&ndash;"
+    if math.isinf(number):
+        return "&infin;" if number > 0 else "&minus;&infin;"
+    return f"{number:.{digits}g}"
+
+
+def _pressure_unit(values: list[float | None]) -> tuple[str, float]:
+    finite = [abs(v) for v in values if v is not None and math.isfinite(v)]
+    return ("kPa", 1e-3) if finite and max(finite) >= 1e3 else ("Pa", 1.0)
+
+
+def _scaled(value: Any, scale: float, digits: int = 3) -> str:
+    if value is None:
+        return _num(None)
+    return _num(float(value) * scale, digits)
+
+
+def _quantity(value: Any, unit: str, scale: float = 1.0) -> str:
+    text = _scaled(value, scale)
+    return text if value is None or not unit else f"{text} {_e(unit)}"
+
+
+def _check_value(value: Any, limit: Any, unit: str) -> tuple[str, str]:
+    """Value and limit of a check in lab units."""
+    if unit == "Pa":
+        shown, scale = _pressure_unit([value, limit])
+        return _quantity(value, shown, scale), _quantity(limit, shown, scale)
+    if unit == "m":
+        return _quantity(value, "um", 1e6), _quantity(limit, "um", 1e6)
+    if unit == "m^3/s":
+        return _quantity(value, "uL/min", 6e10), _quantity(limit, "uL/min", 6e10)
+    return _quantity(value, unit), _quantity(limit, unit)
+
+
+def _table(
+    header: list[str],
+    rows: list[list[str]],
+    text_columns: int = 1,
+    row_classes: list[str] | None = None,
+) -> str:
+    def cell(tag: str, i: int, content: str) -> str:
+        cls = ' class="text"' if i < text_columns else ""
+        return f"<{tag}{cls}>{content}</{tag}>"
+
+    out = ["<table>", "<tr>" + "".join(cell("th", i, h) for i, h in enumerate(header)) + "</tr>"]
+    for k, row in enumerate(rows):
+        cls = f' class="{row_classes[k]}"' if row_classes and row_classes[k] else ""
+        out.append(f"<tr{cls}>" + "".join(cell("td", i, c) for i, c in enumerate(row)) + "</tr>")
+    out.append("</table>")
+    return "\n".join(out)
+
+
+def _inline_svg(text: str) -> str:
+    """Strip what may not stand inside HTML (XML declaration, DOCTYPE, comments before <svg)."""
+    start = text.find("<svg")
+    if start < 0:
+        raise ExportError("a report figure is not SVG text (no <svg> element found)")
+    return _METADATA.sub("", text[start:]).strip()
+
+
+_METADATA = re.compile(r"\s*<metadata>.*?</metadata>", re.DOTALL)
+
+
+# -- sections ------------------------------------------------------------------------------
+def _summary(results: Mapping[str, Any]) -> str:
+    checks = results.get("checks", [])
+    counts = {s: sum(1 for c in checks if c.get("status") == s) for s in ("pass", "warn", "fail")}
+    verdict = "fail" if counts["fail"] else "warn" if counts["warn"] else "pass"
+    words = {
+        "pass": "Every check passes.",
+        "warn": "No check fails; some warn - read them before fabrication.",
+        "fail": "At least one check fails - see the checks below before fabrication.",
+    }
+    return (
+        f'<p class="verdict {verdict}">{words[verdict]}</p>'
+        f"<p>{counts['pass']} pass, {counts['warn']} warn, {counts['fail']} fail.</p>"
+    )
+
+
+def _operating_point(results: Mapping[str, Any]) -> str:
+    fluid = results.get("fluid", {})
+    supply = results.get("supply", {})
+    totals = results.get("totals", {})
+    p_unit, p_scale = _pressure_unit([totals.get("inlet_pressure"), totals.get("outlet_pressure")])
+    rows = [
+        ["fluid", _e(fluid.get("name", ""))],
+        ["viscosity", _quantity(fluid.get("viscosity"), "mPa s", 1e3)],
+        ["density", _quantity(fluid.get("density"), "kg/m3")],
+        [
+            "temperature",
+            _quantity(
+                None if fluid.get("temperature") is None else fluid["temperature"] - 273.15,
+                "&deg;C",
+            ),
+        ],
+        ["supply", _e(supply.get("mode", ""))],
+        ["total flow", _quantity(totals.get("total_flow"), "uL/min", 6e10)],
+        ["inlet pressure", _quantity(totals.get("inlet_pressure"), p_unit, p_scale)],
+        ["outlet pressure", _quantity(totals.get("outlet_pressure"), p_unit, p_scale)],
+        ["total hydraulic resistance", _quantity(totals.get("total_resistance"), "Pa s/uL", 1e-9)],
+        ["transit time, inlet to outlet", _quantity(totals.get("transit_time"), "s")],
+    ]
+    return _table(["quantity", "value"], rows, text_columns=1)
+
+
+def _generations(results: Mapping[str, Any]) -> str:
+    generations = list(results.get("generations", []))
+    labels = generation_labels(generations)
+    p_unit, p_scale = _pressure_unit(
+        [g.get("pressure_drop") for g in generations] + [g.get("pressure_in") for g in generations]
+    )
+    header = [
+        "generation",
+        "role",
+        "channels",
+        "width [um]",
+        "depth [um]",
+        "length [mm]",
+        "total cross-section [mm&sup2;]",
+        "flow per channel [uL/min]",
+        "mean velocity [mm/s]",
+        "floor shear [Pa]",
+        "mean shear [Pa]",
+        "peak shear [Pa]",
+        "Reynolds [-]",
+        "residence time [s]",
+        f"pressure drop [{p_unit}]",
+        f"inlet pressure [{p_unit}]",
+    ]
+    rows = []
+    for label, g in zip(labels, generations, strict=True):  # loop over generations
+        rows.append(
+            [
+                _e(label),
+                _e(g.get("role", "")),
+                _num(g.get("count"), 6),
+                _scaled(g.get("width"), 1e6, 4),
+                _scaled(g.get("depth"), 1e6, 4),
+                _scaled(g.get("length"), 1e3),
+                _scaled(g.get("total_area"), 1e6),
+                _scaled(g.get("flow_per_channel"), 6e10),
+                _scaled(g.get("mean_velocity"), 1e3),
+                _num(g.get("wall_shear_floor")),
+                _num(g.get("wall_shear_mean")),
+                _num(g.get("wall_shear_max")),
+                _num(g.get("reynolds")),
+                _num(g.get("residence_time")),
+                _scaled(g.get("pressure_drop"), p_scale),
+                _scaled(g.get("pressure_in"), p_scale),
+            ]
+        )
+    classes = ["bed" if g.get("role") == "bed" else "" for g in generations]
+    return _table(header, rows, text_columns=2, row_classes=classes)
+
+
+def _window(results: Mapping[str, Any]) -> str:
+    window = results.get("shear_window")
+    if not window:
+        return "<p>No cell type or shear window is given in the design: no shear check.</p>"
+    return (
+        f"<p>Cells: <strong>{_e(window.get('cell_type', ''))}</strong>; floor wall shear "
+        f"window {_num(window.get('min'))}&ndash;{_num(window.get('max'))} Pa.<br>"
+        f'<span class="source">Source: {_e(window.get("source", ""))}</span></p>'
+    )
+
+
+def _checks(results: Mapping[str, Any]) -> str:
+    rows = []
+    classes = []
+    for check in results.get("checks", []):  # a few dozen at most
+        status = str(check.get("status", ""))
+        value, limit = _check_value(check.get("value"), check.get("limit"), check.get("unit", ""))
+        rows.append(
+            [
+                f'<span class="status {_e(status)}">{_MARK.get(status, _e(status))}</span>',
+                _e(check.get("name", "")),
+                value,
+                limit,
+                f"{_e(check.get('message', ''))}<br>"
+                f'<span class="source">Limit: {_e(check.get("source", ""))}</span>',
+            ]
+        )
+        classes.append("")
+    if not rows:
+        return "<p>No checks were run.</p>"
+    return _table(["status", "check", "value", "limit", "finding"], rows, text_columns=2)
+
+
+def _figures(figures: Mapping[str, str]) -> str:
+    parts = []
+    for name, svg in figures.items():  # a handful of figures, in the caller's order
+        parts.append(f"<figure>{_inline_svg(svg)}<figcaption>{_e(name)}</figcaption></figure>")
+    return "\n".join(parts) if parts else "<p>No figures.</p>"
+
+
+def _fabrication(results: Mapping[str, Any]) -> str:
+    fab = results.get("fabrication", {})
+    mirror = fab.get("mirror")
+    rows = [
+        ["drawing units", _e(fab.get("units", ""))],
+        ["polarity", _e(fab.get("polarity", ""))],
+        ["mirrored", _e({True: "yes", False: "no"}.get(mirror, mirror if mirror else ""))],
+        ["DXF version", _e(fab.get("dxf_version", ""))],
+        ["mask grid", _quantity(fab.get("grid"), "um", 1e6)],
+    ]
+    out = [_table(["setting", "value"], rows)]
+    layers = fab.get("layers", [])
+    if layers:
+        out.append(
+            _table(
+                ["layer", "depth [um]"],
+                [
+                    [_e(layer.get("name", "")), _scaled(layer.get("depth"), 1e6, 4)]
+                    for layer in layers
+                ],
+            )
+        )
+    findings = fab.get("findings", [])
+    out.append(
+        f"<p>{len(findings)} fabrication rule finding{'s' if len(findings) != 1 else ''} "
+        "(listed among the checks above).</p>"
+    )
+    return "\n".join(out)
+
+
+def _cautions() -> str:
+    parts = ['<div class="cautions">']
+    for title, text in CAUTIONS:
+        parts.append(f"<h3>{_e(title)}</h3><p>{_e(text)}</p>")
+    parts.append("</div>")
+    return "\n".join(parts)
+
+
+def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = None) -> str:
+    """The report as HTML text (see :func:`write_report`)."""
+    from chipflow import __version__ as version
+
+    design = results.get("design", {})
+    name = design.get("name", "design")
+    description = str(design.get("description", "")).strip()
+    paragraphs = [p.strip() for p in re.split(r"\n\s*\n", description) if p.strip()]
+    body = [
+        f"<h1>{_e(name)}</h1>",
+        "".join(f"<p>{_e(p)}</p>" for p in paragraphs),
+        f'<p class="meta">Design file: {_e(design.get("file", ""))}'
+        f"<br>SHA-256: {_e(design.get('sha256', ''))}</p>",
+        _summary(results),
+        "<h2>Operating point</h2>",
+        _operating_point(results),
+        "<h2>Generations, inlet to outlet</h2>",
+        _generations(results),
+        "<h2>Checks</h2>",
+        _window(results),
+        _checks(results),
+        "<h2>Figures</h2>",
+        _figures(figures or {}),
+        "<h2>Fabrication settings</h2>",
+        _fabrication(results),
+        "<h2>Cautions</h2>",
+        _cautions(),
+        f"<footer>Report of chipflow {_e(version)}. Values in lab units; results.json holds "
+        "them in SI units.</footer>",
+    ]
+    return (
+        '<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+        '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+        f"<title>{_e(name)} - chipflow report</title>\n<style>{_CSS}</style>\n</head>\n<body>\n"
+        + "\n".join(body)
+        + "\n</body>\n</html>\n"
+    )
+
+
+def atomic_write(path: str | os.PathLike, text: str) -> None:
+    """Write UTF-8 text through a temporary file in the same folder, then rename it."""
+    path = Path(path)
+    try:
+        handle = tempfile.NamedTemporaryFile(
+            "w",
+            encoding="utf-8",
+            newline="\n",
+            dir=path.parent or ".",
+            prefix=f".{path.name}.",
+            suffix=".tmp",
+            delete=False,
+        )
+    except OSError as exc:
+        raise ExportError(f"{path}: cannot write the report ({exc.strerror})") from None
+    try:
+        with handle:
+            handle.write(text)
+        os.chmod(handle.name, 0o644)  # a temporary file is private; a report is not
+        os.replace(handle.name, path)
+    except OSError as exc:
+        Path(handle.name).unlink(missing_ok=True)
+        raise ExportError(f"{path}: cannot write the report ({exc.strerror})") from None
+
+
+def write_report(
+    results: Mapping[str, Any], path: str | os.PathLike, figures: Mapping[str, str] | None = None
+) -> None:
+    """Write the build report as one self-contained HTML file.
+
+    Parameters
+    ----------
+    results : mapping
+        The results dict (the content of results.json, SI floats).
+    path : path-like
+        The HTML file to write (replaced atomically).
+    figures : mapping of str to str, optional
+        Figure caption -> SVG text, embedded inline in the given order.
+
+    Raises
+    ------
+    ExportError
+        When the file cannot be written or a figure is not SVG.
+    """
+    atomic_write(path, report_html(results, figures))
+
+
+def write_markdown_summary(results: Mapping[str, Any], path: str | os.PathLike) -> None:
+    """Write a short Markdown summary: the generations and the checks, in lab units."""
+    design = results.get("design", {})
+    lines = [f"# {design.get('name', 'design')}", ""]
+    if design.get("description"):
+        lines += [str(design["description"]).strip(), ""]
+    lines += [
+        "| generation | channels | width [um] | depth [um] | floor shear [Pa] | "
+        "mean velocity [mm/s] | residence time [s] |",
+        "|---|---:|---:|---:|---:|---:|---:|",
+    ]
+    generations = list(results.get("generations", []))
+    for label, g in zip(generation_labels(generations), generations, strict=True):
+        lines.append(
+            f"| {label} | {g.get('count')} | {float(g['width']) * 1e6:.4g} | "
+            f"{float(g['depth']) * 1e6:.4g} | {float(g['wall_shear_floor']):.3g} | "
+            f"{float(g['mean_velocity']) * 1e3:.3g} | {float(g['residence_time']):.3g} |"
+        )
+    lines += ["", "| status | check | finding |", "|---|---|---|"]
+    for check in results.get("checks", []):
+        message = str(check.get("message", "")).replace("|", "/")
+        lines.append(f"| {check.get('status')} | {check.get('name')} | {message} |")
+    lines += ["", "## Cautions", ""]
+    lines += [f"- **{title}.** {text}" for title, text in CAUTIONS]
+    atomic_write(path, "\n".join(lines) + "\n")
