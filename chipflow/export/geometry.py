@@ -224,14 +224,20 @@ def _cut(poly: shapely.Polygon, axis: int, cuts: list[float]) -> list[shapely.Po
 
 
 def _split_polygon(poly: shapely.Polygon) -> list[np.ndarray]:
-    """Cut a polygon with holes into hole-free pieces along lines through the holes.
+    """Cut a polygon with holes into hole-free pieces.
 
-    A vertical line through the middle of a hole (on the grid, strictly between its left and
-    right ends) leaves part of the hole on either side, so no piece can enclose it. Holes less
-    than two grid steps wide are cut horizontally instead.
+    First choice: cut along two vertex-to-vertex bridges per hole (no new vertex, exact area).
+    Fallback when such bridges cannot be found: strips between vertical lines through the
+    middle of each hole (on the grid, strictly between its left and right ends), so no piece
+    can enclose a hole; holes less than two grid steps wide are cut horizontally instead. Cut
+    points on slanted edges are rounded to the grid, which may move the outline by up to one
+    grid step there.
     """
     if not poly.interiors:
         return [_clean_ring(poly.exterior.coords)]
+    exact = _split_by_bridges(poly)
+    if exact is not None:
+        return exact
     bounds = np.array([h.bounds for h in poly.interiors])
     wide = bounds[:, 2] - bounds[:, 0] >= 2
     xcuts = np.floor((bounds[wide, 0] + bounds[wide, 2]) / 2).tolist()
@@ -255,50 +261,96 @@ def _split_polygon(poly: shapely.Polygon) -> list[np.ndarray]:
     return rings
 
 
-def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
-    """Join every hole of ``poly`` to its outline by a zero-width bridge between two vertices.
+def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]] | None:
+    """Zero-width bridges, vertex to vertex, joining each hole to the outline built so far.
 
-    Holes are taken rightmost first; each is bridged from one of its vertices to the nearest
-    vertex of the outline built so far (outline plus the holes already joined) such that the
-    bridge runs through the inside of the shape and meets no other bridge.
+    Holes are taken rightmost first; each gets ``per_hole`` bridges from distinct vertices of
+    the hole to distinct vertices of the outline or of holes already joined, nearest first. A
+    bridge runs through the inside of the shape, meets its boundary only at its two ends and
+    meets no other bridge, so bridges add no vertex and never cross anything.
+
+    Returns ``[(hole index, [(hole vertex index, target vertex), ...]), ...]`` or ``None`` when
+    some hole cannot be joined.
     """
     shell = _clean_ring(poly.exterior.coords)
     holes = [_clean_ring(h.coords) for h in poly.interiors]
-    if not holes:
-        return shell
     shapely.prepare(poly)
-    ring = [tuple(p) for p in shell]
+    every = np.vstack([shell, *holes])
+    uniq, counts = np.unique(every, axis=0, return_counts=True)
+    used = {tuple(p) for p in uniq[counts > 1]}  # vertices where rings touch: never bridge ends
+    targets = [shell]
+    segments: list[shapely.LineString] = []
     order = sorted(range(len(holes)), key=lambda i: (-holes[i][:, 0].max(), -holes[i][:, 1].max()))
-    bridges: list[shapely.LineString] = []
+    result = []
     for i in order:
         hole = holes[i]
-        cand = np.array(ring)
+        cand = np.vstack(targets)
         d2 = ((hole[:, None, :] - cand[None, :, :]) ** 2).sum(axis=2)
         flat = np.argsort(d2, axis=None, kind="stable")
-        joined = False
-        for k in flat[: min(flat.size, 4000)]:
+        found: list = []
+        for k in flat[:_MAX_TRIES]:
             hj, ci = divmod(int(k), cand.shape[0])
-            seg = shapely.LineString([hole[hj], cand[ci]])
+            a, b = tuple(hole[hj]), tuple(cand[ci])
+            if a in used or b in used:
+                continue
+            seg = shapely.LineString([a, b])
             if not shapely.relate_pattern(seg, poly, "TFF**F***"):
                 continue
-            if bridges and shapely.intersects(seg, shapely.MultiLineString(bridges)):
+            if segments and shapely.intersects(seg, shapely.MultiLineString(segments)):
                 continue
-            q = tuple(cand[ci])
-            if ring.count(q) != 1:
-                continue
-            at = ring.index(q)
-            loop = [tuple(p) for p in np.roll(hole, -hj, axis=0)]
-            ring = ring[: at + 1] + loop + [loop[0]] + ring[at:]
-            bridges.append(seg)
-            joined = True
-            break
-        if not joined:
-            x, y = hole[0]
-            raise ExportError(
-                f"cannot join the hole near x={x:g}, y={y:g} (grid units) to its outline by a "
-                "keyhole bridge; write the mask with holes = 'split' instead"
-            )
+            found.append((hj, cand[ci]))
+            segments.append(seg)
+            used.update((a, b))
+            if len(found) == per_hole:
+                break
+        if len(found) < per_hole:
+            return None
+        targets.append(hole)
+        result.append((i, found))
+    return result
+
+
+_MAX_TRIES = 5000
+
+
+def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
+    """Join every hole of ``poly`` to its outline by one zero-width bridge (see _find_bridges)."""
+    shell = _clean_ring(poly.exterior.coords)
+    if not poly.interiors:
+        return shell
+    bridges = _find_bridges(poly, 1)
+    if bridges is None:
+        x, y = poly.interiors[0].coords[0]
+        raise ExportError(
+            f"cannot join the holes near x={x:g}, y={y:g} (grid units) to their outline by "
+            "keyhole bridges; write the mask with holes = 'split' instead"
+        )
+    holes = [_clean_ring(h.coords) for h in poly.interiors]
+    ring = [tuple(p) for p in shell]
+    for i, [(hj, target)] in bridges:
+        at = ring.index(tuple(target))
+        loop = [tuple(p) for p in np.roll(holes[i], -hj, axis=0)]
+        ring = ring[: at + 1] + loop + [loop[0]] + ring[at:]
     return np.array(ring, dtype=float)
+
+
+def _split_by_bridges(poly: shapely.Polygon) -> list[np.ndarray] | None:
+    """Cut along two bridges per hole: hole-free pieces with no new vertex (exact area)."""
+    bridges = _find_bridges(poly, 2)
+    if bridges is None:
+        return None
+    holes = [_clean_ring(h.coords) for h in poly.interiors]
+    segs = [
+        shapely.LineString([holes[i][hj], target]) for i, found in bridges for hj, target in found
+    ]
+    lines = shapely.union_all([poly.exterior, *poly.interiors, *segs])
+    faces = [f for f in shapely.get_parts(shapely.polygonize([lines])) if f.area > 0]
+    inside = [f for f in faces if poly.contains(f.representative_point())]
+    if any(f.interiors for f in inside) or not math.isclose(
+        sum(f.area for f in inside), poly.area, rel_tol=1e-12
+    ):
+        return None
+    return [_clean_ring(shapely.orient_polygons(f).exterior.coords) for f in inside]
 
 
 def resolve_holes(geom: shapely.Geometry, holes: str) -> list[np.ndarray]:
