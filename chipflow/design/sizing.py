@@ -455,7 +455,8 @@ def size_tree(spec: TreeSpec, *, snap: bool = True) -> TreeDesign:
                 raise DesignError(
                     f"{spec.source}: tree.widths[{g}]: width {format_quantity(w, 'um')} at depth "
                     f"{format_quantity(h, 'um')} breaks the {rule} (limit "
-                    f"{format_quantity(bound, 'um')}); {_advice(rule, 'distribution')}"
+                    f"{format_quantity(bound, 'um')}); drawable widths at this depth are "
+                    f"{format_quantity(lo, 'um')} to {format_quantity(hi, 'um')}"
                 )
             geometry.append((w, h, targets.target(g), False))
         sized_targets = [t for _, _, t, _ in geometry]

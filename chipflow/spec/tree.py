@@ -166,8 +166,8 @@ class Fabrication:
         ('tall-wall limit depth/width <= 2', 0.001, 'roof-sag limit width/depth <= 10')
         """
         lows = (
-            (self.min_width, "minimum width"),
             (self.min_feature, "mask minimum feature"),
+            (self.min_width, "minimum width"),
             (
                 depth / self.max_depth_to_width,
                 f"tall-wall limit depth/width <= {self.max_depth_to_width:g}",
