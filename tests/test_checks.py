@@ -220,7 +220,7 @@ def test_oxygen_supply_against_a_hand_calculation():
     area = 16 * 200e-6 * 3e-3
     r = check_oxygen_supply(flow, area, 1e9, 4.8e-17, 0.2)
     assert r.value == pytest.approx(0.027648, rel=1e-9)
-    assert r.status == "pass" and r.unit == ""
+    assert r.status == "pass" and r.unit == "1"
     assert "Sci Rep 2017" in r.source and "9.6e+03 cells" in r.message
 
 

@@ -218,6 +218,8 @@ def test_report_contents(results, profile_svg, tmp_path):
     for setting in ("um", "clear features on dark field", "R2000", "DEPTH_60UM", ">60</td>"):
         assert setting in text
     assert "mirrored</td><td>yes" in text
+    # lab units: oxygen use as a percentage, temperature in degrees Celsius, flow in uL/min
+    assert "<td>50 %</td>" in text and "37 \u00b0C" in text and "10 uL/min" in text
     # cautions
     assert "<h2>Cautions</h2>" in text
     for title, _ in CAUTIONS:

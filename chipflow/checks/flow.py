@@ -113,7 +113,7 @@ def check_entrance_length(
         )
     source = "Chen, J Fluids Eng 1973, with the hydraulic diameter (common practice); 10 % is ours"
     return CheckResult(
-        "entrance length share", status, value, ENTRANCE_SHARE_WARN, "", source, message
+        "entrance length share", status, value, ENTRANCE_SHARE_WARN, "1", source, message
     )
 
 
@@ -156,7 +156,7 @@ def check_uniformity(bed_flows: ArrayLike) -> CheckResult:
         status,
         cv,
         UNIFORMITY_PASS,
-        "",
+        "1",
         "chipflow's own thresholds (1 % pass, 5 % fail)",
         message,
     )

@@ -28,7 +28,8 @@ class CheckResult:
         The bound beyond which the check no longer passes, in SI units (``unit``); the
         message names the fail bound where it differs.
     unit : str
-        SI unit of ``value`` and ``limit`` ("Pa", "s", "" for plain numbers and fractions).
+        SI unit of ``value`` and ``limit``: "Pa", "s", "m", "1" for a ratio or fraction
+        (shown as a percentage), "" for other plain numbers (Reynolds number).
     source : str
         Where the limit comes from (a citation, "common practice" or "chipflow default").
     message : str

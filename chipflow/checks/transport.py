@@ -200,5 +200,5 @@ def check_oxygen_supply(
         f"inlet oxygen {inlet_concentration:.3g} mol/m^3; limits: chipflow's own"
     )
     return CheckResult(
-        "oxygen used in the bed", status, fraction, O2_WARN_FRACTION, "", source, message
+        "oxygen used in the bed", status, fraction, O2_WARN_FRACTION, "1", source, message
     )

@@ -118,8 +118,8 @@ def _scaled(value: Any, scale: float, digits: int = 3) -> str:
     return _num(float(value) * scale, digits)
 
 
-def _quantity(value: Any, unit: str, scale: float = 1.0) -> str:
-    text = _scaled(value, scale)
+def _quantity(value: Any, unit: str, scale: float = 1.0, digits: int = 3) -> str:
+    text = _scaled(value, scale, digits)
     return text if value is None or not unit else f"{text} {_e(unit)}"
 
 
@@ -132,6 +132,8 @@ def _check_value(value: Any, limit: Any, unit: str) -> tuple[str, str]:
         return _quantity(value, "um", 1e6), _quantity(limit, "um", 1e6)
     if unit == "m^3/s":
         return _quantity(value, "uL/min", 6e10), _quantity(limit, "uL/min", 6e10)
+    if unit == "1":  # a ratio or fraction
+        return _quantity(value, "%", 100.0), _quantity(limit, "%", 100.0)
     return _quantity(value, unit), _quantity(limit, unit)
 
 
@@ -187,20 +189,24 @@ def _operating_point(results: Mapping[str, Any]) -> str:
     p_unit, p_scale = _pressure_unit([totals.get("inlet_pressure"), totals.get("outlet_pressure")])
     rows = [
         ["fluid", _e(fluid.get("name", ""))],
-        ["viscosity", _quantity(fluid.get("viscosity"), "mPa s", 1e3)],
-        ["density", _quantity(fluid.get("density"), "kg/m3")],
+        ["viscosity", _quantity(fluid.get("viscosity"), "mPa s", 1e3, digits=4)],
+        ["density", _quantity(fluid.get("density"), "kg/m\u00b3", digits=4)],
         [
             "temperature",
             _quantity(
                 None if fluid.get("temperature") is None else fluid["temperature"] - 273.15,
-                "&deg;C",
+                "\u00b0C",
+                digits=4,
             ),
         ],
         ["supply", _e(supply.get("mode", ""))],
         ["total flow", _quantity(totals.get("total_flow"), "uL/min", 6e10)],
         ["inlet pressure", _quantity(totals.get("inlet_pressure"), p_unit, p_scale)],
         ["outlet pressure", _quantity(totals.get("outlet_pressure"), p_unit, p_scale)],
-        ["total hydraulic resistance", _quantity(totals.get("total_resistance"), "Pa s/uL", 1e-9)],
+        [
+            "total hydraulic resistance",
+            _quantity(totals.get("total_resistance"), "Pa/(uL/min)", 1e-9 / 60),
+        ],
         ["transit time, inlet to outlet", _quantity(totals.get("transit_time"), "s")],
     ]
     return _table(["quantity", "value"], rows, text_columns=1)
