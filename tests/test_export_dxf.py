@@ -316,3 +316,21 @@ def test_bad_options_and_bad_targets_are_reported(tmp_path):
     odd = dataclasses.replace(LAYOUT, grid=0.1234e-9)
     with pytest.raises(ExportError, match="whole number of nanometres"):
         write_dxf(odd, tmp_path / "x.dxf")
+
+
+def test_strip_fallback_when_no_bridges_are_found(monkeypatch):
+    # force the fallback cut (vertical strips through every hole) and check it separately
+    from chipflow.export import geometry
+
+    monkeypatch.setattr(geometry, "_find_bridges", lambda poly, per_hole: None)
+    target = shapely.transform(LAYOUT.layers[0].geometry, lambda c: c / LAYOUT.grid)
+    for g in (target, shapely.difference(shapely.box(0, 0, 200_000, 100_000), target)):
+        rings = resolve_holes(g, "split")
+        polys = [shapely.Polygon(r) for r in rings]
+        assert all(p.is_valid and not p.interiors for p in polys)
+        union = shapely.union_all(polys)
+        assert sum(p.area for p in polys) == pytest.approx(union.area, rel=1e-12)
+        # within the grid tolerance: |A xor B| <= perimeter * 1 grid step
+        assert shapely.symmetric_difference(union, g).area <= g.length
+    with pytest.raises(ExportError, match="holes = 'split'"):
+        resolve_holes(target, "keyhole")
