@@ -333,7 +333,8 @@ def test_max_width_binds():
             spec_from(
                 tree_text(
                     targets='shear = "0.75 Pa"',
-                    fabrication='depths = ["100 um"]\nmax_width = "150 um"\nmax_width_to_depth = 20',
+                    fabrication='depths = ["100 um"]\nmax_width = "150 um"\n'
+                    "max_width_to_depth = 20",
                 )
             )
         )
@@ -430,7 +431,8 @@ def test_table_rule_checks_fabrication():
                 rule="table",
                 generations=2,
                 targets="",
-                tree_extra='widths = ["300 um", "200 um", "100 um"]\ndepths = ["50 um", "50 um", "50 um"]',
+                tree_extra='widths = ["300 um", "200 um", "100 um"]\n'
+                'depths = ["50 um", "50 um", "50 um"]',
             )
         )
     )
@@ -454,3 +456,20 @@ def test_bed_length_given():
     )
     assert design.bed.length == pytest.approx(800e-6)
     assert design.max_straight_length == pytest.approx(2e-3)
+
+
+def test_tree_check_text_and_json():
+    """What ``chipflow check`` prints for a tree: every level, the window and pass/fail; the
+    JSON rows carry the same floor shear as the duct physics for the sized geometry."""
+    import json
+
+    from chipflow.design.table import tree_check
+
+    top = read_design_file(DESIGNS / "tree_endothelial.toml")
+    text, ok = tree_check(top)
+    assert ok and len(text.splitlines()) == 2 + 9
+    data = json.loads(tree_check(top, as_json=True)[0])
+    bed = next(r for r in data["levels"] if r["role"] == "bed")
+    expected = duct.wall_shear_floor(bed["width"], bed["depth"], bed["flow"], 0.95e-3)
+    assert bed["wall_shear_floor"] == pytest.approx(expected, rel=1e-9)
+    assert data["units"]["wall_shear_floor"] == "Pa" and data["status"] == "pass"

@@ -16,8 +16,15 @@ import numpy as np
 
 from chipflow.design.model import TreeDesign
 from chipflow.network import Solution
+from chipflow.spec.reader import Table
 
-__all__ = ["generation_table", "generation_table_dict", "generation_table_text", "SI_UNITS"]
+__all__ = [
+    "generation_table",
+    "generation_table_dict",
+    "generation_table_text",
+    "tree_check",
+    "SI_UNITS",
+]
 
 #: SI unit of every numeric column.
 SI_UNITS = {
@@ -184,3 +191,40 @@ def generation_table_text(design: TreeDesign, solution: Solution | None = None) 
     for warning in design.warnings:
         lines.append(f"warning: {warning}")
     return "\n".join(lines)
+
+
+def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
+    """What ``chipflow check`` prints for a tree design file (a file with ``[tree]``).
+
+    Parameters
+    ----------
+    top : Table
+        The parsed design file (:func:`chipflow.spec.reader.read_design_file`).
+    as_json : bool
+        JSON text (SI units) instead of the lab-unit table.
+
+    Returns
+    -------
+    text : str
+        The table (with sizing warnings) or JSON.
+    ok : bool
+        True when every level with a shear window passes.
+
+    Raises
+    ------
+    SpecError, DesignError
+        Bad file, or targets that the fabrication limits cannot meet.
+    """
+    import json
+
+    from chipflow.design.sizing import size_tree
+    from chipflow.design.tree_network import solve_tree
+    from chipflow.spec.tree import load_tree_spec
+
+    design = size_tree(load_tree_spec(top))
+    solution = solve_tree(design)
+    table = generation_table_dict(design, solution)
+    ok = table["status"] == "pass"
+    if as_json:
+        return json.dumps(table, indent=2), ok
+    return generation_table_text(design, solution), ok
