@@ -54,9 +54,9 @@ def main() -> None:
 
 
 def _register() -> None:
-    from chipflow.cli import channel, size
+    from chipflow.cli import channel, check, size
 
-    for module in (channel, size):
+    for module in (channel, size, check):
         main.add_command(module.command)
 
 

@@ -1,0 +1,252 @@
+"""``chipflow check``: solve a design's network and show pressures, flows and wall shear.
+
+The command dispatches on the top-level keys of the design file: explicit networks
+(``[[channels]]`` / ``[[tubes]]``) are handled by :func:`check_network`; tree designs
+(``[tree]``) belong to the sizing module.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import click
+
+from chipflow.cli.common import echo_table
+from chipflow.errors import SpecError
+from chipflow.network import Solution, generation_rows, solve
+from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
+from chipflow.spec.reader import Table, read_design_file
+
+__all__ = ["command", "check_network", "network_report", "SI_UNITS"]
+
+#: Units of the SI values in ``chipflow check --json``.
+SI_UNITS = {
+    "pressure": "Pa",
+    "flow": "m^3/s",
+    "pressure_drop": "Pa",
+    "mean_velocity": "m/s",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "reynolds": "1",
+    "residence_time": "s",
+    "viscosity": "Pa*s",
+    "density": "kg/m^3",
+    "temperature": "K",
+}
+
+_UL_MIN = 6e10  # m^3/s -> uL/min
+
+
+def _finite(value: float) -> float | None:
+    """JSON has no infinity: a channel without flow has no residence time (null)."""
+    return float(value) if math.isfinite(value) else None
+
+
+def network_report(design: NetworkDesign, solution: Solution) -> dict:
+    """The SI structure printed by ``chipflow check --json`` for an explicit network.
+
+    Keys: ``design``, ``fluid``, ``nodes``, ``channels``, ``ports``, ``units``.
+    """
+    net = solution.network
+    names = net.channel_names()
+    fluid = design.fluid
+    fields = (
+        "flow",
+        "pressure_drop",
+        "mean_velocity",
+        "wall_shear_mean",
+        "wall_shear_max",
+        "reynolds",
+        "residence_time",
+    )
+    columns = {key: getattr(solution, key).tolist() for key in fields}
+    channels = [
+        {
+            "name": names[i],
+            "from": net.node_names[a],
+            "to": net.node_names[b],
+            **{key: _finite(columns[key][i]) for key in fields},
+        }
+        for i, (a, b) in enumerate(zip(net.node_a.tolist(), net.node_b.tolist(), strict=True))
+    ]
+    ports = []
+    for node in solution.port_flow:
+        supply = design.supplies.get(node)
+        ports.append(
+            {
+                "node": node,
+                "supply": supply.label if supply else "",
+                "pressure": solution.node_pressure(node),
+                "flow": solution.port_flow[node],
+            }
+        )
+    return {
+        "design": design.name,
+        "fluid": {
+            "name": fluid.name,
+            "viscosity": fluid.viscosity,
+            "density": fluid.density,
+            "temperature": fluid.temperature,
+        },
+        "nodes": [
+            {"name": name, "pressure": float(p)}
+            for name, p in zip(net.node_names, solution.pressure.tolist(), strict=True)
+        ],
+        "channels": channels,
+        "ports": ports,
+        "units": SI_UNITS,
+    }
+
+
+def _g(value: float, scale: float = 1.0) -> str:
+    return f"{value * scale:.4g}" if math.isfinite(value) else "-"
+
+
+def _echo_text(design: NetworkDesign, solution: Solution) -> None:
+    net = solution.network
+    fluid = design.fluid
+    click.echo(f"design: {design.name}")
+    if design.description:
+        click.echo(f"  {design.description}")
+    temp = f", {fluid.temperature - 273.15:.4g} degC" if fluid.temperature else ""
+    click.echo(
+        f"fluid: {fluid.name}{temp}, viscosity {fluid.viscosity * 1e3:.4g} mPa*s, "
+        f"density {fluid.density:.5g} kg/m^3"
+    )
+    click.echo("")
+    click.echo("ports")
+    rows = []
+    for node in solution.port_flow:
+        supply = design.supplies.get(node)
+        rows.append(
+            (
+                node,
+                supply.label if supply else "",
+                _g(solution.node_pressure(node)),
+                _g(solution.port_flow[node], _UL_MIN),
+            )
+        )
+    echo_table(rows, ("node", "supply", "pressure [Pa]", "inflow [uL/min]"))
+    click.echo("")
+    click.echo("nodes")
+    echo_table(
+        [(name, _g(p)) for name, p in zip(net.node_names, solution.pressure.tolist(), strict=True)],
+        ("node", "pressure [Pa]"),
+    )
+    click.echo("")
+    click.echo("channels")
+    cols = [
+        net.width * 1e6,
+        net.depth * 1e6,
+        net.length * 1e3,
+        solution.flow * _UL_MIN,
+        solution.pressure_drop,
+        solution.mean_velocity * 1e3,
+        solution.wall_shear_floor,
+        solution.wall_shear_max,
+        solution.reynolds,
+        solution.residence_time,
+    ]
+    values = [c.tolist() for c in cols]
+    names = net.channel_names()
+    rows = [
+        (
+            names[i],
+            net.node_names[a],
+            net.node_names[b],
+            *(_g(col[i]) for col in values),
+        )
+        for i, (a, b) in enumerate(zip(net.node_a.tolist(), net.node_b.tolist(), strict=True))
+    ]
+    echo_table(
+        rows,
+        (
+            "channel",
+            "from",
+            "to",
+            "width [um]",
+            "depth [um]",
+            "length [mm]",
+            "flow [uL/min]",
+            "dp [Pa]",
+            "velocity [mm/s]",
+            "shear floor [Pa]",
+            "shear peak [Pa]",
+            "Re",
+            "residence [s]",
+        ),
+    )
+    generations = generation_rows(solution)
+    if generations:
+        click.echo("")
+        click.echo("generations")
+        echo_table(
+            [
+                (
+                    r.role,
+                    str(r.generation),
+                    str(r.count),
+                    _g(r.flow_total, _UL_MIN),
+                    f"{_g(r.flow_min, _UL_MIN)}-{_g(r.flow_max, _UL_MIN)}",
+                    f"{_g(r.velocity_min, 1e3)}-{_g(r.velocity_max, 1e3)}",
+                    f"{_g(r.shear_floor_min)}-{_g(r.shear_floor_max)}",
+                    _g(r.pressure_drop_mean),
+                    f"{_g(r.residence_min)}-{_g(r.residence_max)}",
+                )
+                for r in generations
+            ],
+            (
+                "role",
+                "gen",
+                "count",
+                "total flow [uL/min]",
+                "flow each [uL/min]",
+                "velocity [mm/s]",
+                "shear floor [Pa]",
+                "dp [Pa]",
+                "residence [s]",
+            ),
+        )
+    click.echo("")
+    click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
+
+
+def check_network(top: Table, as_json: bool) -> None:
+    """Solve an explicit-network design and print the tables (or the JSON structure)."""
+    design = load_network_design(top)
+    solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    if as_json:
+        click.echo(json.dumps(network_report(design, solution), indent=2))
+    else:
+        _echo_text(design, solution)
+
+
+def check_tree(top: Table, as_json: bool) -> None:
+    """Tree designs (``[tree]``): checked by the sizing module."""
+    raise SpecError(
+        f"{top.source}: tree designs ([tree]) are checked by the sizing module, "
+        "which is not available in this build"
+    )
+
+
+@click.command("check")
+@click.argument("design", type=click.Path(dir_okay=False, path_type=str))
+@click.option("--json", "as_json", is_flag=True, help="Print SI values as one JSON object.")
+def command(design: str, as_json: bool) -> None:
+    """Solve DESIGN's channel network: pressures, flows, velocity and wall shear.
+
+    \b
+    Example:
+      chipflow check designs/bench_loop_network.toml
+    """
+    top = read_design_file(design)
+    if "tree" in top:
+        check_tree(top, as_json)
+    elif is_network_design(top):
+        check_network(top, as_json)
+    else:
+        raise SpecError(
+            f"{top.source}: nothing to check: expected a [tree] table or an explicit network "
+            "([[channels]] and/or [[tubes]] with [[ports]])"
+        )
