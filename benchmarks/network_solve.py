@@ -4,7 +4,8 @@ The networks have the shape chipflow designs: a trunk and a bifurcating distribu
 ending in ``2**n`` branches, a bed of ``2**n`` channels each split in two halves with a
 cross-connection between neighbouring midpoints (so the bed has loops), and a mirrored
 collecting tree. That is ``7 * 2**n - 3`` channels; n = 7..17 spans about 2^10 to 2^20
-channels, and n = 18 (1.8 million channels) goes beyond.
+channels. ``--bed-segments 3`` splits each bed channel in three (``9 * 2**n - 4`` channels,
+1.18 million at n = 17, just above 2^20).
 
 For each size the script prints, all measured in this run:
 
@@ -34,36 +35,38 @@ from chipflow.network import Network, reduced_system, solve
 from chipflow.physics.fluid import water
 
 
-def tree_with_bed(n: int) -> tuple[Network, int, int]:
-    """A mirrored bifurcating tree of ``n`` generations joined by a looped bed.
+def tree_with_bed(n: int, segments: int = 2) -> tuple[Network, int, int]:
+    """A mirrored bifurcating tree joined by a looped bed.
 
-    Returns the network, the inlet node and the outlet node.
+    The distribution tree has a trunk and ends in ``2**n`` branches; each bed channel is split
+    into ``segments`` pieces in series, and neighbouring bed channels are cross-connected at
+    every interior point. Returns the network, the inlet node and the outlet node.
     """
     # Distribution tree: node k (heap numbering, root 1) -> children 2k, 2k+1; the inlet is 0.
     leaves = 2**n
-    tree_nodes = 2 * leaves  # heap indices 1 .. 2*leaves-1, plus the inlet 0
     heap = np.arange(2, 2 * leaves)
     d_a = np.concatenate(([0], heap // 2))
     d_b = np.concatenate(([1], heap))
     d_gen = np.concatenate(([0], np.floor(np.log2(heap)).astype(np.int64)))
-    # Leaves of the distribution tree are heap indices leaves .. 2*leaves-1.
-    offset = tree_nodes  # collection tree nodes are the mirror: offset + heap index
-    mid = 2 * tree_nodes + np.arange(leaves)  # bed midpoints
+    # Collection tree: the mirror image, nodes offset by 2 * leaves; its node 0 is the outlet.
+    offset = 2 * leaves
+    outlet = offset
+    c_a, c_b = offset + d_b, offset + d_a
+    # Bed: leaf k of the distribution tree -> interior points -> leaf k of the collection tree.
     dist_leaf = np.arange(leaves, 2 * leaves)
-    coll_leaf = offset + dist_leaf
-    outlet = offset  # mirror of the inlet
-    c_a = offset + d_b
-    c_b = offset + d_a
-    bed_a = np.concatenate((dist_leaf, mid, mid[:-1]))
-    bed_b = np.concatenate((mid, coll_leaf, mid[1:]))
+    inner = 4 * leaves + np.arange(leaves * (segments - 1)).reshape(leaves, segments - 1)
+    chain = np.column_stack((dist_leaf, inner, offset + dist_leaf))
+    bed_a = np.concatenate((chain[:, :-1].ravel(), inner[:-1].ravel()))
+    bed_b = np.concatenate((chain[:, 1:].ravel(), inner[1:].ravel()))
+    n_series = leaves * segments
     node_a = np.concatenate((d_a, bed_a, c_a))
     node_b = np.concatenate((d_b, bed_b, c_b))
     gen = np.concatenate((d_gen, np.full(bed_a.size, n), d_gen))
-    # Murray-like widths: halve the cross-section area per generation, depth 50 um.
+    # Murray-like widths: the cross-section area halves every 1.5 generations; depth 50 um.
     width = np.maximum(20e-6, 1.6e-3 / 2.0 ** (gen / 1.5))
-    width[d_gen.size + 2 * leaves : d_gen.size + bed_a.size] = 20e-6  # cross-connections
+    width[d_gen.size + n_series : d_gen.size + bed_a.size] = 20e-6  # cross-connections
     depth = np.full(node_a.size, 50e-6)
-    length = np.where(gen == n, 0.5e-3, 2e-3 / 2.0 ** (gen / 2.0))
+    length = np.where(gen == n, 1e-3 / segments, 2e-3 / 2.0 ** (gen / 2.0))
     role = np.concatenate(
         (
             np.full(d_a.size, "distribution"),
@@ -71,8 +74,9 @@ def tree_with_bed(n: int) -> tuple[Network, int, int]:
             np.full(c_a.size, "collection"),
         )
     )
+    n_nodes = 4 * leaves + inner.size
     net = Network.from_arrays(
-        node_a, node_b, width, depth, length, generation=gen, role=role, n_nodes=mid[-1] + 1
+        node_a, node_b, width, depth, length, generation=gen, role=role, n_nodes=n_nodes
     )
     return net, 0, outlet
 
@@ -87,6 +91,7 @@ def main() -> None:
     parser.add_argument("--min-generations", type=int, default=7)
     parser.add_argument("--max-generations", type=int, default=17)
     parser.add_argument("--repeat", type=int, default=1, help="take the best of N runs")
+    parser.add_argument("--bed-segments", type=int, default=2, help="series pieces per bed channel")
     args = parser.parse_args()
     fluid = water()
     print(
@@ -94,7 +99,7 @@ def main() -> None:
         f"{'spsolve [s]':>11} {'ratio':>6} {'ratio+f':>7} {'residual':>9} {'peak RSS [MB]':>13}"
     )
     for n in range(args.min_generations, args.max_generations + 1):
-        net, inlet, outlet = tree_with_bed(n)
+        net, inlet, outlet = tree_with_bed(n, args.bed_segments)
         pressures, flows = {outlet: 0.0}, {inlet: 10e-9 / 60}
         t_solve, t_full, t_bare = np.inf, np.inf, np.inf
         for _ in range(args.repeat):

@@ -29,7 +29,7 @@ from numpy.typing import ArrayLike
 
 from chipflow.errors import NetworkError
 
-__all__ = ["Network", "NetworkBuilder", "NodeKey", "listing"]
+__all__ = ["Network", "NetworkBuilder", "NodeKey", "listing", "unknown_name_message"]
 
 #: A node given by its index or by its name.
 NodeKey = int | str
@@ -68,7 +68,7 @@ def _array(value: ArrayLike, dtype, what: str, n: int | None = None) -> np.ndarr
     return arr
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, repr=False)
 class Network:
     """Nodes and channels of a hydraulic network, all per-channel data as arrays.
 
@@ -205,9 +205,8 @@ class Network:
         count = len(nodes) if nodes is not None else count
         if n and (min(a.min(), b.min()) < 0 or max(a.max(), b.max()) >= count):
             bad = np.flatnonzero((a < 0) | (b < 0) | (a >= count) | (b >= count))
-            raise NetworkError(
-                f"channels {listing(bad.tolist())}: node index outside 0..{count - 1}"
-            )
+            shown = listing(bad[:8].tolist(), total=bad.size)
+            raise NetworkError(f"channels {shown}: node index outside 0..{count - 1}")
         net = cls(a, b, w, h, ln, rnd, gen, rl, nodes or (), chan_names)
         if nodes is None:
             object.__setattr__(net, "node_names", tuple(f"n{i}" for i in range(count)))
@@ -240,6 +239,9 @@ class Network:
         _check_unique(self.node_names, "node")
         if self.names is not None:
             _check_unique(self.names, "channel")
+
+    def __repr__(self) -> str:
+        return f"<Network: {self.n_nodes} nodes, {self.n_channels} channels>"
 
     # -- sizes and names ------------------------------------------------------------------
     @property
@@ -295,7 +297,7 @@ class Network:
             raise NetworkError(f"node index {key} outside 0..{self.n_nodes - 1}")
         index = self._node_index.get(str(key))
         if index is None:
-            raise NetworkError(_unknown(str(key), self.node_names, "node"))
+            raise NetworkError(unknown_name_message(str(key), self.node_names, "node"))
         return index
 
     def node_name(self, index: int) -> str:
@@ -303,7 +305,8 @@ class Network:
         return self.node_names[index]
 
 
-def _unknown(key: str, valid: Sequence[str], what: str) -> str:
+def unknown_name_message(key: str, valid: Sequence[str], what: str) -> str:
+    """'unknown node 'x'; did you mean 'y'? (known nodes: ...)' for messages."""
     near = difflib.get_close_matches(key, list(valid)[:10000], n=1, cutoff=0.6)
     hint = f"; did you mean '{near[0]}'?" if near else ""
     shown = listing(list(valid[:8]), total=len(valid))

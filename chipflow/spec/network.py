@@ -45,7 +45,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from chipflow.errors import NetworkError
-from chipflow.network.model import Network, NetworkBuilder, _unknown
+from chipflow.network.model import Network, NetworkBuilder, unknown_name_message
 from chipflow.network.supply import Supply, boundary_conditions
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.fluid import read_fluid
@@ -113,7 +113,8 @@ def _endpoints(item: Table, known: Mapping[str, int] | None) -> tuple[str, str]:
     for key in ("from", "to"):
         node = item.string(key)
         if known is not None and node not in known:
-            raise item.error(key, _unknown(node, list(known), "node") + " (list it in [[nodes]])")
+            message = unknown_name_message(node, list(known), "node")
+            raise item.error(key, f"{message} (list it in [[nodes]])")
         ends.append(node)
     if ends[0] == ends[1]:
         raise item.error(
@@ -227,7 +228,7 @@ def load_network_design(top: Table) -> NetworkDesign:
         item.only(_PORT_KEYS)
         node = item.string("node")
         if node not in network.node_names:
-            raise item.error("node", _unknown(node, network.node_names, "node"))
+            raise item.error("node", unknown_name_message(node, network.node_names, "node"))
         if node in supplies:
             raise item.error("node", f"node {node!r} already has a port; give each node one")
         given = [key for key in ("flow", "pressure", "head") if key in item]
