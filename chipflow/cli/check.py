@@ -2,7 +2,7 @@
 
 The command dispatches on the top-level keys of the design file: explicit networks
 (``[[channels]]`` / ``[[tubes]]``) are handled by :func:`check_network`; tree designs
-(``[tree]``) belong to the sizing module.
+(``[tree]``) are sized and tabled by :func:`chipflow.design.table.tree_check`.
 """
 
 from __future__ import annotations
@@ -13,6 +13,7 @@ import math
 import click
 
 from chipflow.cli.common import echo_table
+from chipflow.design.table import tree_check
 from chipflow.errors import SpecError
 from chipflow.network import Solution, generation_rows, solve
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
@@ -222,12 +223,14 @@ def check_network(top: Table, as_json: bool) -> None:
         _echo_text(design, solution)
 
 
-def check_tree(top: Table, as_json: bool) -> None:
-    """Tree designs (``[tree]``): checked by the sizing module."""
-    raise SpecError(
-        f"{top.source}: tree designs ([tree]) are checked by the sizing module, "
-        "which is not available in this build"
-    )
+def check_tree(top: Table, as_json: bool) -> bool:
+    """Size a tree design (``[tree]``), solve its nominal tree and print the generation table.
+
+    Returns False when a level misses its shear window.
+    """
+    text, ok = tree_check(top, as_json=as_json)
+    click.echo(text)
+    return ok
 
 
 @click.command("check")
@@ -239,10 +242,14 @@ def command(design: str, as_json: bool) -> None:
     \b
     Example:
       chipflow check designs/bench_loop_network.toml
+
+    Exit status: 0 when every checked level is inside its shear window, 1 when a level of a
+    tree design misses it, 2 for bad input.
     """
     top = read_design_file(design)
     if "tree" in top:
-        check_tree(top, as_json)
+        if not check_tree(top, as_json):
+            click.get_current_context().exit(1)
     elif is_network_design(top):
         check_network(top, as_json)
     else:
