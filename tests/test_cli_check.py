@@ -115,7 +115,10 @@ ERRORS = {
         TWO_CHANNELS.replace('"c2"', '"c1"'),
         "channels[1].name: duplicated name 'c1'",
     ),
-    "tree design": ('[tree]\nflow = "5 uL/min"\n', "tree designs ([tree]) are checked by"),
+    "tree design without generations": (
+        '[tree]\nflow = "5 uL/min"\n',
+        "give exactly one of generations and bed_channels",
+    ),
     "nothing to check": ('name = "empty"\n', "nothing to check"),
 }
 
