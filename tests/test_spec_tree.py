@@ -79,7 +79,8 @@ def test_bed_channels_must_be_a_power_of_two():
         ),
         ('residence_time = "1 s"', "", "give exactly one of residence_time and length"),
         ('shear = "0.5 Pa"', 'shear = ["0.5 Pa", "1 Pa"]', "one per generation 0..3"),
-        ('shear = "0.5 Pa"', 'cell = "endothelial"', "needs a shear target"),
+        ('shear = "0.5 Pa"', 'levels = "all"', "needs a shear target"),
+        ('shear = "0.5 Pa"', 'cell = "endothelial"', "targets.cell: unknown key"),
         ("[targets]", '[fabrication]\ndepths = ["50 um", "50 um"]\n[targets]', "listed twice"),
     ],
 )
@@ -100,3 +101,14 @@ def test_trunk_depth_needed_with_several_depths():
     assert load(text).trunk_depth == pytest.approx(50e-6)  # the single default depth
     with pytest.raises(SpecError, match="trunk_depth: missing"):
         load(text + '[fabrication]\ndepths = ["50 um", "100 um"]\n')
+
+
+def test_window_from_the_culture_cell_type():
+    # Dewey et al. (J Biomech Eng 1981): endothelial cells align with the flow at 0.5-1.0 Pa;
+    # the [culture] cell type supplies the sizing window when [targets] gives no numbers.
+    culture = '\n[culture]\ncell_type = "endothelial"\n'
+    text = BASE.replace('shear = "0.5 Pa"', 'levels = "all"') + culture
+    targets = load(text).targets
+    assert (targets.minimum, targets.maximum) == (0.5, 1.0)
+    assert targets.target(0) == pytest.approx(0.75)
+    assert targets.cell == "endothelial"

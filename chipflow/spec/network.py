@@ -60,7 +60,18 @@ __all__ = [
 ]
 
 #: Top-level keys of an explicit-network design file.
-TOP_KEYS = ("name", "description", "fluid", "nodes", "channels", "tubes", "ports")
+#: Top-level keys of an explicit-network design file ([culture] and [limits] feed the checks).
+TOP_KEYS = (
+    "name",
+    "description",
+    "fluid",
+    "nodes",
+    "channels",
+    "tubes",
+    "ports",
+    "culture",
+    "limits",
+)
 _CHANNEL_KEYS = ("name", "from", "to", "width", "depth", "length", "generation", "role")
 _TUBE_KEYS = ("name", "from", "to", "diameter", "length", "role")
 _PORT_KEYS = ("node", "flow", "pressure", "head", "label")

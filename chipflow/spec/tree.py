@@ -41,7 +41,7 @@ only); :func:`chipflow.design.sizing.size_tree` turns that into a sized
     shear_max = "1.0 Pa"
     levels = "all"               # the window applies to "all" levels or only to the "bed"
     tolerance = 0.02             # relative miss after grid snapping that is only a warning
-    cell = "endothelial cells"   # label of the cell type the window comes from
+                                 # no shear numbers: the window of [culture] cell_type
 
     [fabrication]
     depths = ["50 um", "100 um"] # mould depths available (one per mask level)
@@ -87,7 +87,22 @@ RULES = ("equal-shear", "shear-target", "area-growth", "table")
 SHAPES = ("rectangular", "round")
 SHEAR_KINDS = ("floor", "mean", "max")
 
-TOP_KEYS = ("name", "description", "fluid", "tree", "bed", "targets", "fabrication")
+#: Top-level keys of a tree design file; the last five belong to the build (layout, supply,
+#: checks, export) and are read by their own modules.
+TOP_KEYS = (
+    "name",
+    "description",
+    "fluid",
+    "tree",
+    "bed",
+    "targets",
+    "fabrication",
+    "chip",
+    "supply",
+    "culture",
+    "limits",
+    "export",
+)
 TREE_KEYS = (
     "flow",
     "generations",
@@ -104,7 +119,7 @@ TREE_KEYS = (
     "lengths",
 )
 BED_KEYS = ("residence_time", "length", "max_straight_length", "gap")
-TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance", "cell")
+TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance")
 FABRICATION_KEYS = (
     "depths",
     "grid",
@@ -224,7 +239,7 @@ class Targets:
     tolerance : float
         Relative miss after grid snapping reported as a warning [-].
     cell : str or None
-        The cell type the window belongs to (a label).
+        The cell type whose window (from ``[culture] cell_type``) was used, if any.
     """
 
     kind: str = "floor"
@@ -340,10 +355,20 @@ def read_fabrication(top: Table) -> Fabrication:
     return fab
 
 
+def _culture_targets(top: Table) -> Targets:
+    """Targets from the shear window of the ``[culture]`` cell type (none without one)."""
+    from chipflow.spec.culture import read_culture
+
+    window = read_culture(top).window
+    if window is None:
+        return Targets()
+    return Targets(minimum=window.min, maximum=window.max, cell=window.cell_type)
+
+
 def _read_targets(top: Table, n: int) -> Targets:
     table = top.table("targets", None)
     if table is None:
-        return Targets()
+        return _culture_targets(top)
     table.only(TARGET_KEYS)
     values = table.quantities("shear", "pressure", None)
     if values is not None and len(values) not in (1, n + 1):
@@ -355,6 +380,10 @@ def _read_targets(top: Table, n: int) -> Targets:
     maximum = table.quantity("shear_max", "pressure", None)
     if minimum is not None and maximum is not None and minimum > maximum:
         raise table.error("shear_min", "is larger than shear_max")
+    cell = None
+    if values is None and minimum is None and maximum is None:
+        fallback = _culture_targets(top)
+        minimum, maximum, cell = fallback.minimum, fallback.maximum, fallback.cell
     return Targets(
         kind=table.choice("shear_kind", SHEAR_KINDS, "floor"),
         values=None if values is None else tuple(values),
@@ -362,7 +391,7 @@ def _read_targets(top: Table, n: int) -> Targets:
         maximum=maximum,
         levels=table.choice("levels", ("all", "bed"), "all"),
         tolerance=float(table.number("tolerance", 0.02, minimum=0.0, maximum=1.0)),
-        cell=table.string("cell", None),
+        cell=cell,
     )
 
 
