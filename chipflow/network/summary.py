@@ -29,9 +29,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from chipflow.network.model import Network
 from chipflow.network.solver import Solution
 
-__all__ = ["GenerationRow", "generation_rows", "ROLE_ORDER"]
+__all__ = ["GenerationRow", "generation_rows", "level_groups", "ROLE_ORDER"]
 
 #: Order of roles along the path from inlet to outlet.
 ROLE_ORDER = ("tubing", "port", "distribution", "bed", "collection")
@@ -87,50 +88,53 @@ def _order(role: str, generation: int) -> tuple:
     return (rank, -generation if role == "collection" else generation, role)
 
 
+def level_groups(network: Network) -> list[tuple[str, int, np.ndarray]]:
+    """The channels of each (role, generation), in order from inlet to outlet.
+
+    Returns a list of ``(role, generation, channel indices)``; channels without a generation
+    are left out. The grouping is vectorised; only the handful of groups is looped over.
+    """
+    tagged = np.flatnonzero(network.generation >= 0)
+    if tagged.size == 0:
+        return []
+    roles, role_id = np.unique(network.role[tagged], return_inverse=True)
+    n_gen = int(network.generation.max()) + 1
+    key = role_id.astype(np.int64) * n_gen + network.generation[tagged]
+    order = np.argsort(key, kind="stable")
+    keys, starts = np.unique(key[order], return_index=True)
+    members = np.split(tagged[order], starts[1:])
+    groups = [
+        (str(roles[int(k) // n_gen]), int(k) % n_gen, m) for k, m in zip(keys, members, strict=True)
+    ]
+    return sorted(groups, key=lambda g: _order(g[0], g[1]))
+
+
 def generation_rows(solution: Solution) -> tuple[GenerationRow, ...]:
     """Per (role, generation) summary of the channels that carry a generation.
 
     Returns an empty tuple when no channel has a generation.
     """
-    net = solution.network
-    tagged = np.flatnonzero(net.generation >= 0)
-    if tagged.size == 0:
-        return ()
-    roles, role_id = np.unique(net.role[tagged], return_inverse=True)
-    key = role_id.astype(np.int64) * (int(net.generation.max()) + 1) + net.generation[tagged]
-    groups, inverse = np.unique(key, return_inverse=True)
-    sort = np.argsort(inverse, kind="stable")
-    starts = np.searchsorted(inverse[sort], np.arange(groups.size))
-    idx = tagged[sort]
-
-    def reduce(values: np.ndarray, ufunc) -> np.ndarray:
-        return ufunc.reduceat(values[idx], starts)
-
     q = np.abs(solution.flow)
     u = np.abs(solution.mean_velocity)
-    counts = np.diff(np.append(starts, idx.size))
-    stats = {
-        "flow_total": reduce(q, np.add),
-        "flow_min": reduce(q, np.minimum),
-        "flow_max": reduce(q, np.maximum),
-        "velocity_min": reduce(u, np.minimum),
-        "velocity_max": reduce(u, np.maximum),
-        "shear_floor_min": reduce(solution.wall_shear_floor, np.minimum),
-        "shear_floor_max": reduce(solution.wall_shear_floor, np.maximum),
-        "shear_max": reduce(solution.wall_shear_max, np.maximum),
-        "pressure_drop_mean": reduce(np.abs(solution.pressure_drop), np.add) / counts,
-        "residence_min": reduce(solution.residence_time, np.minimum),
-        "residence_max": reduce(solution.residence_time, np.maximum),
-        "reynolds_max": reduce(solution.reynolds, np.maximum),
-    }
-    n_gen = int(net.generation.max()) + 1
-    rows = [
-        GenerationRow(
-            role=str(roles[int(k) // n_gen]),
-            generation=int(k) % n_gen,
-            count=int(counts[i]),
-            **{name: float(values[i]) for name, values in stats.items()},
+    rows = []
+    for role, generation, m in level_groups(solution.network):
+        rows.append(
+            GenerationRow(
+                role=role,
+                generation=generation,
+                count=int(m.size),
+                flow_total=float(q[m].sum()),
+                flow_min=float(q[m].min()),
+                flow_max=float(q[m].max()),
+                velocity_min=float(u[m].min()),
+                velocity_max=float(u[m].max()),
+                shear_floor_min=float(solution.wall_shear_floor[m].min()),
+                shear_floor_max=float(solution.wall_shear_floor[m].max()),
+                shear_max=float(solution.wall_shear_max[m].max()),
+                pressure_drop_mean=float(np.abs(solution.pressure_drop[m]).mean()),
+                residence_min=float(solution.residence_time[m].min()),
+                residence_max=float(solution.residence_time[m].max()),
+                reynolds_max=float(solution.reynolds[m].max()),
+            )
         )
-        for i, k in enumerate(groups)
-    ]
-    return tuple(sorted(rows, key=lambda r: _order(r.role, r.generation)))
+    return tuple(rows)

@@ -23,7 +23,7 @@ from typing import Any
 from chipflow.errors import SpecError
 from chipflow.units import to_si
 
-__all__ = ["Table", "read_design_file", "parse_design_text", "REQUIRED"]
+__all__ = ["Table", "read_design_file", "read_design_bytes", "parse_design_text", "REQUIRED"]
 
 
 class _Required:
@@ -233,6 +233,11 @@ def parse_design_text(text: str, source: str = "<design>") -> Table:
 
 def read_design_file(path: str | Path) -> Table:
     """Read and parse a design file, with a clear error for missing, binary or broken files."""
+    return parse_design_text(read_design_bytes(path).decode("utf-8"), str(path))
+
+
+def read_design_bytes(path: str | Path) -> bytes:
+    """The bytes of a design file, checked to be non-empty UTF-8 text (else a SpecError)."""
     path = Path(path)
     try:
         raw = path.read_bytes()
@@ -250,4 +255,4 @@ def read_design_file(path: str | Path) -> Table:
         raise SpecError(f"{path}: not a text file (expected UTF-8 TOML)") from None
     if "\x00" in text:
         raise SpecError(f"{path}: not a text file (expected UTF-8 TOML)")
-    return parse_design_text(text, str(path))
+    return raw
