@@ -118,10 +118,10 @@ def to_si(value: object, kind: str, *, where: str = "") -> float:
     0.0009
     >>> to_si("3 kPa", "pressure")
     3000.0
-    >>> to_si("12 um", "flow")
+    >>> to_si("12 um", "flow")  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    chipflow.errors.UnitError: wrong kind of unit: expected a flow rate such as '5 uL/min', got '12 um'
+    chipflow.errors.UnitError: wrong kind of unit: expected a flow rate ..., got '12 um'
     """
     spec = KINDS[kind]
     if isinstance(value, bool):
@@ -170,7 +170,8 @@ def from_si(value: float | np.ndarray, unit: str) -> float | np.ndarray:
     value : float or numpy.ndarray
         Value in the SI unit of the same dimension as ``unit``.
     unit : str
-        Target unit (not an offset unit such as degC), e.g. ``"um"``, ``"uL/min"``, ``"kPa"``, ``"mm/s"``.
+        Target unit (not an offset unit such as degC), e.g. ``"um"``, ``"uL/min"``,
+        ``"kPa"``, ``"mm/s"``.
 
     Examples
     --------

@@ -43,7 +43,9 @@ class _Group(click.Group):
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
-@click.version_option(__version__, "--version", prog_name="chipflow", message="%(prog)s %(version)s")
+@click.version_option(
+    __version__, "--version", prog_name="chipflow", message="%(prog)s %(version)s"
+)
 def main() -> None:
     """Design, check and draw branching perfusion networks for organ-on-chip devices.
 
@@ -54,10 +56,11 @@ def main() -> None:
 
 
 def _register() -> None:
-    from chipflow.cli import channel, check, size
+    from chipflow.cli import build, channel, check, size
 
-    for module in (channel, size, check):
+    for module in (channel, size, check, build):
         main.add_command(module.command)
+    main.add_command(build.demo_command)
 
 
 _register()

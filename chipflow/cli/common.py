@@ -7,6 +7,7 @@ from collections.abc import Sequence
 import click
 
 from chipflow.errors import UnitError
+from chipflow.report.console import format_table
 from chipflow.units import KINDS, to_si
 
 __all__ = ["QUANTITY", "echo_table", "format_table"]
@@ -35,25 +36,6 @@ class QUANTITY(click.ParamType):
         if self.positive and not si > 0:
             self.fail(f"must be greater than zero, got {value!r}", param, ctx)
         return si
-
-
-def format_table(rows: Sequence[Sequence[str]], header: Sequence[str] | None = None) -> str:
-    """Left-align the first column, right-align the others.
-
-    >>> print(format_table([("flow", "5", "uL/min")], ("quantity", "value", "unit")))
-    quantity  value  unit
-    flow          5  uL/min
-    """
-    table = [tuple(header)] + [tuple(r) for r in rows] if header else [tuple(r) for r in rows]
-    widths = [max(len(row[i]) for row in table) for i in range(len(table[0]))]
-    lines = []
-    for row in table:
-        cells = [row[0].ljust(widths[0])] + [
-            cell.rjust(widths[i]) if i < len(row) - 1 else cell.ljust(widths[i])
-            for i, cell in enumerate(row) if i > 0
-        ]
-        lines.append("  ".join(cells).rstrip())
-    return "\n".join(lines)
 
 
 def echo_table(rows: Sequence[Sequence[str]], header: Sequence[str] | None = None) -> None:

@@ -240,7 +240,11 @@ def wall_shear_mean(
 
 def _wall_shear(width, depth, flow, viscosity, round, floor: bool):
     w, h, flow, viscosity, rnd = np.broadcast_arrays(
-        np.asarray(width, float), np.asarray(depth, float), np.asarray(flow, float), viscosity, round
+        np.asarray(width, float),
+        np.asarray(depth, float),
+        np.asarray(flow, float),
+        viscosity,
+        round,
     )
     a, b = np.maximum(w, h), np.minimum(w, h)
     factors = _factors(b / a)
@@ -391,8 +395,11 @@ def flow_state(
     a, b = np.maximum(w, h), np.minimum(w, h)
     factors = _factors(b / a)
     r_rect = (
-        factors.k_r if method == "series" else _factors(b / a, method).k_r
-    ) * viscosity * length / (a * b**3)
+        (factors.k_r if method == "series" else _factors(b / a, method).k_r)
+        * viscosity
+        * length
+        / (a * b**3)
+    )
     r_tube = 128.0 * viscosity * length / (np.pi * a**4)
     res = np.where(rnd, r_tube, r_rect)
     area = np.where(rnd, np.pi / 4.0 * a * a, w * h)
@@ -403,9 +410,7 @@ def flow_state(
     scale = viscosity * np.abs(flow) / (a * b**2)
     tube_shear = 32.0 * viscosity * np.abs(flow) / (np.pi * a**3)
     tau_max = np.where(rnd, tube_shear, factors.c_long * scale)
-    tau_floor = np.where(
-        rnd, tube_shear, np.where(w >= h, factors.c_long, factors.c_short) * scale
-    )
+    tau_floor = np.where(rnd, tube_shear, np.where(w >= h, factors.c_long, factors.c_short) * scale)
     u_max = np.where(rnd, 2.0 * u, factors.c_umax * flow / (a * b))
     re = density * np.abs(u) * d_h / viscosity
     with np.errstate(divide="ignore"):

@@ -11,15 +11,14 @@ import html
 import math
 import os
 import re
-import tempfile
 from collections.abc import Mapping
-from pathlib import Path
 from typing import Any
 
 from chipflow.errors import ExportError
+from chipflow.export._files import atomic_write
 from chipflow.report.figures import generation_labels
 
-__all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS", "atomic_write"]
+__all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
 
 #: The Cautions section, one paragraph each (title, text).
 CAUTIONS = (
@@ -303,7 +302,12 @@ def _figures(figures: Mapping[str, str]) -> str:
 
 
 def _fabrication(results: Mapping[str, Any]) -> str:
-    fab = results.get("fabrication", {})
+    fab = results.get("fabrication")
+    if fab is None:
+        return (
+            "<p>This design is an explicit channel network without a drawing: no mask files "
+            "were written.</p>"
+        )
     mirror = fab.get("mirror")
     rows = [
         ["drawing units", _e(fab.get("units", ""))],
@@ -379,31 +383,6 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
     )
 
 
-def atomic_write(path: str | os.PathLike, text: str) -> None:
-    """Write UTF-8 text through a temporary file in the same folder, then rename it."""
-    path = Path(path)
-    try:
-        handle = tempfile.NamedTemporaryFile(
-            "w",
-            encoding="utf-8",
-            newline="\n",
-            dir=path.parent or ".",
-            prefix=f".{path.name}.",
-            suffix=".tmp",
-            delete=False,
-        )
-    except OSError as exc:
-        raise ExportError(f"{path}: cannot write the report ({exc.strerror})") from None
-    try:
-        with handle:
-            handle.write(text)
-        os.chmod(handle.name, 0o644)  # a temporary file is private; a report is not
-        os.replace(handle.name, path)
-    except OSError as exc:
-        Path(handle.name).unlink(missing_ok=True)
-        raise ExportError(f"{path}: cannot write the report ({exc.strerror})") from None
-
-
 def write_report(
     results: Mapping[str, Any], path: str | os.PathLike, figures: Mapping[str, str] | None = None
 ) -> None:
@@ -423,7 +402,8 @@ def write_report(
     ExportError
         When the file cannot be written or a figure is not SVG.
     """
-    atomic_write(path, report_html(results, figures))
+    text = report_html(results, figures)
+    atomic_write(path, lambda tmp: tmp.write_bytes(text.encode("utf-8")), "report")
 
 
 def write_markdown_summary(results: Mapping[str, Any], path: str | os.PathLike) -> None:
@@ -450,4 +430,5 @@ def write_markdown_summary(results: Mapping[str, Any], path: str | os.PathLike) 
         lines.append(f"| {check.get('status')} | {check.get('name')} | {message} |")
     lines += ["", "## Cautions", ""]
     lines += [f"- **{title}.** {text}" for title, text in CAUTIONS]
-    atomic_write(path, "\n".join(lines) + "\n")
+    summary = "\n".join(lines) + "\n"
+    atomic_write(path, lambda tmp: tmp.write_bytes(summary.encode("utf-8")), "summary")

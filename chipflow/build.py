@@ -1,0 +1,565 @@
+"""The whole job in one call: design file -> sizing -> drawing -> network -> solution -> checks.
+
+:func:`build_design` runs every stage on a design file and returns a :class:`Build`: the sized
+design, the drawn layout, the solved network, the checks and the results (a JSON-able dict of
+SI values). Writing the files is :func:`chipflow.export.bundle.write_build`'s job; nothing here
+writes anything.
+
+Two kinds of design file build:
+
+- **tree designs** (a ``[tree]`` table) are sized, drawn on the chip, extracted back into a
+  network from the drawing (so the solver sees exactly the geometry of the mask), connected to
+  their supply and tubing, solved and checked;
+- **explicit networks** (``[[channels]]``/``[[tubes]]``) are solved and checked as given; they
+  have no drawing, so no mask files.
+
+Stages report their name to an optional ``progress`` callable, for the command line.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from chipflow.checks import (
+    CheckResult,
+    check_bond_pressure,
+    check_entrance_length,
+    check_floor_shear,
+    check_oxygen_diffusion,
+    check_oxygen_supply,
+    check_pump_pressure,
+    check_residence_time,
+    check_reynolds,
+    check_uniformity,
+    fabrication_results,
+    worst_status,
+)
+from chipflow.checks.cell_types import ShearWindow
+from chipflow.design.model import TreeDesign
+from chipflow.design.sizing import size_tree
+from chipflow.errors import SpecError
+from chipflow.layout.model import Layout
+from chipflow.network import Network, Solution, solve
+from chipflow.network.supply import Supply, boundary_conditions
+from chipflow.physics.fluid import Fluid
+from chipflow.spec.culture import Culture, Limits, read_culture, read_limits
+from chipflow.spec.export import ExportSettings, read_export
+from chipflow.spec.network import is_network_design, load_network_design
+from chipflow.spec.reader import Table, parse_design_text
+from chipflow.spec.supply import SupplySpec, read_supply
+from chipflow.spec.tree import load_tree_spec
+
+__all__ = ["Build", "DesignSource", "read_design_source", "build_design", "RESULT_UNITS"]
+
+#: Units of the SI values in the results (keys as they appear anywhere in the dict).
+RESULT_UNITS = {
+    "viscosity": "Pa*s",
+    "density": "kg/m^3",
+    "temperature": "K",
+    "flow": "m^3/s",
+    "pressure": "Pa",
+    "head": "m",
+    "inlet_pressure": "Pa",
+    "chip_inlet_pressure": "Pa",
+    "outlet_pressure": "Pa",
+    "total_flow": "m^3/s",
+    "total_resistance": "Pa*s/m^3",
+    "transit_time": "s",
+    "tubing_transit_time": "s",
+    "width": "m",
+    "depth": "m",
+    "length": "m",
+    "total_area": "m^2",
+    "flow_per_channel": "m^3/s",
+    "mean_velocity": "m/s",
+    "wall_shear_floor": "Pa",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "reynolds": "1",
+    "residence_time": "s",
+    "pressure_drop": "Pa",
+    "pressure_in": "Pa",
+    "pressure_out": "Pa",
+    "grid": "m",
+    "x": "m",
+    "y": "m",
+}
+
+Progress = Callable[[str], None]
+
+
+@dataclass(frozen=True)
+class DesignSource:
+    """A design file as read: its parsed top-level table and the SHA-256 of its bytes."""
+
+    path: str
+    top: Table
+    sha256: str
+
+
+def read_design_source(path: str | Path) -> DesignSource:
+    """Read and parse a design file, keeping the hash of its exact bytes."""
+    from chipflow.spec.reader import read_design_bytes
+
+    raw = read_design_bytes(path)
+    top = parse_design_text(raw.decode("utf-8"), str(path))
+    return DesignSource(str(path), top, hashlib.sha256(raw).hexdigest())
+
+
+@dataclass(frozen=True)
+class Build:
+    """Everything one build produced (no files).
+
+    Attributes
+    ----------
+    source : DesignSource
+    name, description : str
+    fluid : Fluid
+    design : TreeDesign or None
+        The sized tree (None for an explicit network).
+    layout : Layout or None
+        The drawing (None for an explicit network).
+    solution : Solution
+        The solved network, tubing included.
+    checks : tuple of CheckResult
+    export : ExportSettings or None
+        Mask-file options (None when there is nothing to draw).
+    results : dict
+        JSON-able results in SI units (see :data:`RESULT_UNITS`).
+    """
+
+    source: DesignSource
+    name: str
+    description: str
+    fluid: Fluid
+    design: TreeDesign | None
+    layout: Layout | None
+    solution: Solution
+    checks: tuple[CheckResult, ...]
+    export: ExportSettings | None
+    results: dict[str, Any] = field(repr=False)
+
+    @property
+    def status(self) -> str:
+        """ "pass", "warn" or "fail": the worst of the checks."""
+        return worst_status(self.checks)
+
+
+def _noop(stage: str) -> None:
+    return None
+
+
+def build_design(source: DesignSource | str | Path, progress: Progress | None = None) -> Build:
+    """Run every stage on a design file.
+
+    Parameters
+    ----------
+    source : DesignSource or path
+        The design file.
+    progress : callable, optional
+        Called with the name of each stage as it starts.
+
+    Returns
+    -------
+    Build
+
+    Raises
+    ------
+    ChipflowError
+        Bad input (SpecError), targets that cannot be met (DesignError), a design that does
+        not fit on the chip (LayoutError), an unsolvable network (NetworkError).
+    """
+    progress = progress or _noop
+    if not isinstance(source, DesignSource):
+        progress("load")
+        source = read_design_source(source)
+    top = source.top
+    if "tree" in top:
+        return _build_tree(source, progress)
+    if is_network_design(top):
+        return _build_network(source, progress)
+    raise SpecError(
+        f"{top.source}: nothing to build: expected a [tree] table or an explicit network "
+        "([[channels]] and/or [[tubes]] with [[ports]])"
+    )
+
+
+# -- tree designs -------------------------------------------------------------------------------
+def _build_tree(source: DesignSource, progress: Progress) -> Build:
+    from chipflow.layout import LayoutRules, check_rules, draw, extract_network
+    from chipflow.spec.chip import read_chip
+
+    top = source.top
+    spec = load_tree_spec(top)
+    culture, limits = read_culture(top), read_limits(top)
+    supply = read_supply(top, spec.flow)
+    chip = read_chip(top)
+    export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
+    progress("size")
+    design = size_tree(spec)
+    progress("layout")
+    rules = LayoutRules.from_fabrication(design.fabrication)
+    layout = draw(design, chip, rules)
+    progress("extract")
+    network, feed, drain = _with_tubing(extract_network(layout), supply)
+    progress("solve")
+    pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
+    solution = solve(network, spec.fluid, pressures, flows)
+    progress("check")
+    findings = check_rules(layout, rules)
+    window = culture.window or _targets_window(spec)
+    generations = level_rows(solution)
+    residence_target = culture.residence_time or spec.bed.residence_time
+    checks = (
+        *_culture_checks(solution, generations, culture, window, residence_target),
+        *_pressure_checks(solution, limits),
+        *fabrication_results(findings),
+    )
+    results = _results(
+        source,
+        spec.name,
+        spec.description,
+        spec.fluid,
+        _supply_dict(supply),
+        solution,
+        generations,
+        checks,
+        window,
+    )
+    results["fabrication"] = _fabrication_dict(layout, export, findings)
+    results["warnings"] = list(design.warnings)
+    return Build(
+        source,
+        spec.name,
+        spec.description,
+        spec.fluid,
+        design,
+        layout,
+        solution,
+        tuple(checks),
+        export,
+        results,
+    )
+
+
+def _targets_window(spec) -> ShearWindow | None:
+    t = spec.targets
+    if t.minimum is None or t.maximum is None:
+        return None
+    return ShearWindow("design targets", t.minimum, t.maximum, f"design file {spec.source}")
+
+
+def _with_tubing(chip: Network, supply: SupplySpec) -> tuple[Network, str, str]:
+    """The chip network with the supply's tubing, and the names of the two driven nodes.
+
+    Tubing runs from a new node "pump" to the "inlet" port and from the "outlet" port to a new
+    node "drain". A side without tubing is driven at its port directly.
+    """
+    names = list(chip.node_names)
+    inlet, outlet = chip.node_index("inlet"), chip.node_index("outlet")
+    a, b, length, tags = [], [], [], []
+    feed, drain = "inlet", "outlet"
+    if supply.inlet_tubing > 0:
+        feed = "pump"
+        names.append(feed)
+        a.append(len(names) - 1), b.append(inlet), length.append(supply.inlet_tubing)
+        tags.append("inlet tubing")
+    if supply.outlet_tubing > 0:
+        drain = "drain"
+        names.append(drain)
+        a.append(outlet), b.append(len(names) - 1), length.append(supply.outlet_tubing)
+        tags.append("outlet tubing")
+    if not a:
+        return chip, feed, drain
+    d = supply.tubing_diameter
+    n = len(a)
+    network = Network.from_arrays(
+        np.concatenate([chip.node_a, np.asarray(a, dtype=chip.node_a.dtype)]),
+        np.concatenate([chip.node_b, np.asarray(b, dtype=chip.node_b.dtype)]),
+        np.concatenate([chip.width, np.full(n, d)]),
+        np.concatenate([chip.depth, np.full(n, d)]),
+        np.concatenate([chip.length, np.asarray(length, dtype=float)]),
+        round=np.concatenate([chip.round, np.ones(n, dtype=bool)]),
+        names=None if chip.names is None else (*chip.names, *tags),
+        generation=np.concatenate([chip.generation, np.full(n, -1)]),
+        role=np.concatenate([chip.role, np.full(n, "tubing")]),
+        node_names=names,
+    )
+    return network, feed, drain
+
+
+# -- explicit networks ---------------------------------------------------------------------------
+def _build_network(source: DesignSource, progress: Progress) -> Build:
+    top = source.top
+    design = load_network_design(top)
+    culture, limits = read_culture(top), read_limits(top)
+    progress("solve")
+    solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    progress("check")
+    generations = level_rows(solution)
+    checks = (
+        *_culture_checks(solution, generations, culture, culture.window, culture.residence_time),
+        *_pressure_checks(solution, limits),
+    )
+    supply = {
+        node: {"mode": s.label or s.kind, s.kind if s.kind != "reservoir" else "head": s.value}
+        for node, s in design.supplies.items()
+    }
+    results = _results(
+        source,
+        design.name,
+        design.description,
+        design.fluid,
+        supply,
+        solution,
+        generations,
+        checks,
+        culture.window,
+    )
+    results["fabrication"] = None
+    results["warnings"] = []
+    return Build(
+        source,
+        design.name,
+        design.description,
+        design.fluid,
+        None,
+        None,
+        solution,
+        tuple(checks),
+        None,
+        results,
+    )
+
+
+# -- results ---------------------------------------------------------------------------------------
+def level_rows(solution: Solution) -> list[dict[str, Any]]:
+    """One row per (role, generation) from inlet to outlet, means over the level's channels.
+
+    Channels without a generation (tubing, plain channels) are left out. Pressures at the
+    level's upstream and downstream ends are the means of its end-node pressures [Pa].
+    """
+    from chipflow.network.summary import level_groups
+
+    net = solution.network
+    rows = []
+    for role, generation, members in level_groups(net):
+        q = np.abs(solution.flow[members])
+        p_a = solution.pressure[net.node_a[members]]
+        p_b = solution.pressure[net.node_b[members]]
+        forward = solution.flow[members] >= 0
+        p_in = np.where(forward, p_a, p_b)
+        p_out = np.where(forward, p_b, p_a)
+        w, h = net.width[members], net.depth[members]
+        area = np.where(net.round[members], np.pi / 4 * w * w, w * h)
+        rows.append(
+            {
+                "generation": int(generation),
+                "role": str(role),
+                "count": int(members.size),
+                "width": float(w.mean()),
+                "depth": float(h.mean()),
+                "length": float(net.length[members].mean()),
+                "total_area": float(area.sum()),
+                "flow_per_channel": float(q.mean()),
+                "flow_total": float(q.sum()),
+                "mean_velocity": float(np.abs(solution.mean_velocity[members]).mean()),
+                "wall_shear_floor": float(solution.wall_shear_floor[members].mean()),
+                "wall_shear_mean": float(solution.wall_shear_mean[members].mean()),
+                "wall_shear_max": float(solution.wall_shear_max[members].mean()),
+                "reynolds": float(solution.reynolds[members].max()),
+                "residence_time": float(solution.residence_time[members].mean()),
+                "pressure_drop": float(np.abs(solution.pressure_drop[members]).mean()),
+                "pressure_in": float(p_in.mean()),
+                "pressure_out": float(p_out.mean()),
+            }
+        )
+    return rows
+
+
+def _labels(rows: list[dict[str, Any]]) -> list[str]:
+    from chipflow.report import generation_labels
+
+    return generation_labels(rows)
+
+
+def _culture_checks(
+    solution: Solution,
+    rows: list[dict[str, Any]],
+    culture: Culture,
+    window: ShearWindow | None,
+    residence_target: float | None,
+) -> list[CheckResult]:
+    net = solution.network
+    out: list[CheckResult] = []
+    if not rows:
+        return out
+    labels = _labels(rows)
+    shear = np.array([r["wall_shear_floor"] for r in rows])
+    beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
+    seeded = beds if culture.seeded == "bed" and beds else list(range(len(rows)))
+    if window is not None:
+        out += check_floor_shear([labels[i] for i in seeded], shear[seeded], window)
+    if beds:
+        bed = rows[beds[0]]
+        if residence_target is not None:
+            out.append(check_residence_time(bed["residence_time"], residence_target))
+        out.append(
+            check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
+        )
+        floor_area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
+        out.append(
+            check_oxygen_supply(
+                max(r["flow_total"] for r in rows),
+                floor_area,
+                culture.cell_density,
+                culture.o2_consumption,
+                culture.o2_inlet,
+                consumption_source=culture.o2_consumption_source,
+                density_source=culture.cell_density_source,
+            )
+        )
+        out.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
+    out.append(check_reynolds(labels, np.array([r["reynolds"] for r in rows])))
+    out.append(
+        check_entrance_length(
+            labels,
+            np.array([r["width"] for r in rows]),
+            np.array([r["depth"] for r in rows]),
+            np.array([r["length"] for r in rows]),
+            np.array([r["reynolds"] for r in rows]),
+        )
+    )
+    return out
+
+
+def _port_pressures(solution: Solution) -> tuple[float, float]:
+    """Highest and lowest port pressure [Pa]: what the pump gives and where the liquid leaves."""
+    nodes = [solution.network.node_index(name) for name in solution.port_flow]
+    values = solution.pressure[nodes]
+    return float(values.max()), float(values.min())
+
+
+def _pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:
+    net = solution.network
+    supply_pressure, _ = _port_pressures(solution)
+    on_chip = net.role != "tubing"
+    chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
+    chip_peak = float(solution.pressure[chip_nodes].max())
+    out = [
+        check_bond_pressure(
+            chip_peak,
+            limits.bond_pressure,
+            safety_factor=limits.safety_factor,
+            source=limits.bond_source,
+        )
+    ]
+    if limits.pump_pressure is not None:
+        out.append(check_pump_pressure(supply_pressure, limits.pump_pressure))
+    return out
+
+
+def _supply_dict(supply: SupplySpec) -> dict[str, Any]:
+    def one(s: Supply) -> dict[str, Any]:
+        key = {"flow": "flow", "pressure": "pressure", "reservoir": "head"}[s.kind]
+        return {"mode": s.label, key: s.value}
+
+    return {
+        "inlet": one(supply.inlet),
+        "outlet": one(supply.outlet),
+        "tubing_diameter": supply.tubing_diameter,
+        "inlet_tubing": supply.inlet_tubing,
+        "outlet_tubing": supply.outlet_tubing,
+    }
+
+
+def _results(
+    source: DesignSource,
+    name: str,
+    description: str,
+    fluid: Fluid,
+    supply: dict[str, Any],
+    solution: Solution,
+    rows: list[dict[str, Any]],
+    checks: tuple[CheckResult, ...] | list[CheckResult],
+    window: ShearWindow | None,
+) -> dict[str, Any]:
+    net = solution.network
+    p_in, p_out = _port_pressures(solution)
+    port_flows = np.array(list(solution.port_flow.values()), dtype=float)
+    total_flow = float(port_flows[port_flows > 0].sum())
+    # transit along one path through the chip (the sum of level residence times), and the
+    # time the liquid spends in the supply tubing on top of that
+    transit = sum(r["residence_time"] for r in rows)
+    tubing_transit = float(np.sum(solution.residence_time[net.role == "tubing"]))
+    chip_inlet = next(
+        (float(solution.pressure[i]) for i, n in enumerate(net.node_names) if n == "inlet"), p_in
+    )
+    return {
+        "design": {
+            "name": name,
+            "description": description,
+            "file": Path(source.path).name,
+            "sha256": source.sha256,
+        },
+        "fluid": {
+            "name": fluid.name,
+            "viscosity": fluid.viscosity,
+            "density": fluid.density,
+            "temperature": fluid.temperature,
+        },
+        "supply": supply,
+        "totals": {
+            "inlet_pressure": p_in,
+            "chip_inlet_pressure": chip_inlet,
+            "outlet_pressure": p_out,
+            "total_flow": total_flow,
+            "total_resistance": (p_in - p_out) / total_flow if total_flow > 0 else None,
+            "transit_time": transit if rows else None,
+            "tubing_transit_time": tubing_transit,
+            "mass_residual": float(solution.residual),
+        },
+        "generations": [{k: v for k, v in r.items() if k != "flow_total"} for r in rows],
+        "checks": [c.to_dict() for c in checks],
+        "status": worst_status(checks),
+        "shear_window": None if window is None else window.to_dict(),
+        "units": RESULT_UNITS,
+    }
+
+
+def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[str, Any]:
+    dxf = export.dxf
+    return {
+        "units": dxf.units,
+        "polarity": dxf.polarity,
+        "mirror": dxf.mirror,
+        "holes": dxf.holes,
+        "dxf_version": dxf.version,
+        "gds_vertex_limit": export.gds.vertex_limit,
+        "grid": layout.grid,
+        "chip": {
+            "width": float(layout.outline.bounds[2] - layout.outline.bounds[0]),
+            "height": float(layout.outline.bounds[3] - layout.outline.bounds[1]),
+        },
+        "layers": [{"name": layer.name, "depth": layer.depth} for layer in layout.layers],
+        "findings": [_finding_dict(f) for f in findings],
+    }
+
+
+def _finding_dict(finding) -> dict[str, Any]:
+    return {
+        "rule": finding.rule,
+        "severity": finding.severity,
+        "value": finding.value,
+        "limit": finding.limit,
+        "x": finding.x,
+        "y": finding.y,
+        "channels": [int(c) for c in finding.channels],
+        "message": finding.message,
+    }

@@ -1,0 +1,92 @@
+"""``chipflow build`` and ``chipflow demo``: the whole job, design file to mask files and report."""
+
+from __future__ import annotations
+
+import sys
+import time
+from importlib import resources
+from pathlib import Path
+
+import click
+
+from chipflow.export.bundle import build_to_folder
+from chipflow.report.console import console_summary
+
+__all__ = ["command", "demo_command", "DEMO_DESIGN"]
+
+#: The bundled demo design (a copy of designs/demo_endothelial_bed.toml).
+DEMO_DESIGN = "demo.toml"
+
+
+class _StageLine:
+    """Shows the current stage on one line of a terminal's stderr; silent when piped."""
+
+    def __init__(self, stream=None) -> None:
+        self.stream = stream or sys.stderr
+        self.live = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.start = time.perf_counter()
+
+    def __call__(self, stage: str) -> None:
+        if self.live:
+            elapsed = time.perf_counter() - self.start
+            self.stream.write(f"\r\033[Kchipflow: {stage} ... ({elapsed:.1f} s)")
+            self.stream.flush()
+
+    def done(self) -> None:
+        if self.live:
+            self.stream.write("\r\033[K")
+            self.stream.flush()
+
+
+def _run(design: str | Path, outdir: str | None) -> int:
+    stages = _StageLine()
+    try:
+        build, files = build_to_folder(design, outdir, stages)
+    finally:
+        stages.done()
+    click.echo(console_summary(build.results))
+    folder = files[0].parent if files else Path(outdir or ".")
+    click.echo(f"wrote {len(files)} files to {folder}/")
+    return 1 if build.status == "fail" else 0
+
+
+@click.command("build")
+@click.argument("design", type=click.Path(dir_okay=False, path_type=str))
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    type=click.Path(file_okay=False, path_type=str),
+    help="Output folder (default: a folder named after the design).",
+)
+def command(design: str, outdir: str | None) -> int:
+    """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
+
+    \b
+    Example:
+      chipflow build designs/demo_endothelial_bed.toml -o demo-out
+
+    Exit status: 0 when every check passes (warnings allowed), 1 when the design was built but
+    a check failed (the outputs are written and the failure is marked in them), 2 for bad
+    input (nothing is written).
+    """
+    return _run(design, outdir)
+
+
+@click.command("demo")
+@click.option(
+    "-o",
+    "--output",
+    "outdir",
+    type=click.Path(file_okay=False, path_type=str),
+    help="Output folder (default: a folder named after the demo design).",
+)
+def demo_command(outdir: str | None) -> int:
+    """Build the bundled demo design: an endothelial bed on a slide-sized chip.
+
+    \b
+    Example:
+      chipflow demo -o demo-out
+    """
+    with resources.as_file(resources.files("chipflow.data") / DEMO_DESIGN) as path:
+        return _run(path, outdir)

@@ -1,0 +1,226 @@
+"""Every output file of a build, written together or not at all.
+
+:func:`write_build` writes, into a staged folder that replaces the output folder's files only
+when everything succeeded (see :mod:`chipflow.export.outdir`):
+
+==========================  =====================================================================
+``<name>.dxf``              mask file for the cleanroom (tree designs)
+``<name>.gds``              the same masks as GDSII (tree designs)
+``layout.svg``/``.png``     preview of the chip: mask layers, ports, scale bar (tree designs)
+``shear.svg``/``.png``      the chip coloured by floor wall shear [Pa] (tree designs)
+``profile.svg``             pressure, flow, cross-section, velocity, shear and residence time
+                            along the path from inlet to outlet
+``report.html``             one self-contained report: tables, checks, figures, cautions
+``results.json``            the results in SI units with a "units" map
+``channels.csv``            one row per channel, SI units named in the header
+==========================  =====================================================================
+
+Every file is deterministic: the same design file gives the same bytes.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import re
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from chipflow.build import Build
+from chipflow.export.outdir import staged_folder
+
+__all__ = ["write_build", "output_names", "CSV_COLUMNS"]
+
+#: Columns of channels.csv and their units.
+CSV_COLUMNS = {
+    "channel": "",
+    "role": "",
+    "generation": "",
+    "from": "",
+    "to": "",
+    "width": "m",
+    "depth": "m",
+    "length": "m",
+    "round": "",
+    "flow": "m^3/s",
+    "pressure_in": "Pa",
+    "pressure_out": "Pa",
+    "mean_velocity": "m/s",
+    "wall_shear_floor": "Pa",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "reynolds": "1",
+    "residence_time": "s",
+}
+
+
+def _slug(name: str) -> str:
+    """A file-name-safe form of the design name.
+
+    >>> _slug("Liver bed / v2")
+    'liver-bed-v2'
+    """
+    slug = re.sub(r"[^A-Za-z0-9_.-]+", "-", name).strip("-.")
+    return slug or "design"
+
+
+def output_names(build: Build) -> list[str]:
+    """The names of the files :func:`write_build` writes for ``build``, in writing order."""
+    names = []
+    if build.layout is not None:
+        slug = _slug(build.name)
+        names += [
+            f"{slug}.dxf",
+            f"{slug}.gds",
+            "layout.svg",
+            "layout.png",
+            "shear.svg",
+            "shear.png",
+        ]
+    if build.results["generations"]:
+        names.append("profile.svg")
+    return names + ["report.html", "results.json", "channels.csv"]
+
+
+def _finite(value: Any) -> Any:
+    """JSON has no infinity or NaN: they become null (e.g. the residence time of a still
+    channel)."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
+
+
+def results_json(build: Build) -> str:
+    """The results as JSON text (SI units, a "units" map, null for non-finite values)."""
+    return json.dumps(_finite(build.results), indent=2, allow_nan=False) + "\n"
+
+
+def channels_csv(build: Build) -> str:
+    """One row per channel of the solved network (tubing included), SI units in the header."""
+    sol = build.solution
+    net = sol.network
+    nodes = np.asarray(net.node_names, dtype=object)
+    forward = sol.flow >= 0
+    p_a, p_b = sol.pressure[net.node_a], sol.pressure[net.node_b]
+    columns = {
+        "channel": np.asarray(net.channel_names(), dtype=object),
+        "role": net.role,
+        "generation": net.generation,
+        "from": nodes[net.node_a],
+        "to": nodes[net.node_b],
+        "width": net.width,
+        "depth": net.depth,
+        "length": net.length,
+        "round": np.where(net.round, "yes", "no"),
+        "flow": sol.flow,
+        "pressure_in": np.where(forward, p_a, p_b),
+        "pressure_out": np.where(forward, p_b, p_a),
+        "mean_velocity": sol.mean_velocity,
+        "wall_shear_floor": sol.wall_shear_floor,
+        "wall_shear_mean": sol.wall_shear_mean,
+        "wall_shear_max": sol.wall_shear_max,
+        "reynolds": sol.reynolds,
+        "residence_time": sol.residence_time,
+    }
+    text = io.StringIO()
+    writer = csv.writer(text, lineterminator="\n")
+    writer.writerow(f"{k} [{u}]" if u else k for k, u in CSV_COLUMNS.items())
+    writer.writerows(zip(*(_csv_column(v) for v in columns.values()), strict=True))
+    return text.getvalue()
+
+
+def _csv_column(values: np.ndarray) -> list[str]:
+    values = np.asarray(values)
+    if values.dtype.kind == "f":
+        return [repr(float(v)) if math.isfinite(v) else "" for v in values.tolist()]
+    return [str(v) for v in values.tolist()]
+
+
+def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None] | None = None):
+    """Write every output of ``build`` into ``outdir`` (created if needed), all or nothing.
+
+    Parameters
+    ----------
+    build : Build
+    outdir : str or path-like
+        Output folder. Files of a previous build are replaced; other files are left alone.
+    progress : callable, optional
+        Called with the name of each writing stage.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, in :func:`output_names` order.
+    """
+    from chipflow.export.dxf import write_dxf
+    from chipflow.export.gds import write_gds
+    from chipflow.export.preview import write_preview
+    from chipflow.report import profile_figure, svg_text, write_report
+
+    progress = progress or (lambda stage: None)
+    outdir = Path(outdir)
+    figures: dict[str, str] = {}
+    with staged_folder(outdir) as stage:
+        layout = build.layout
+        if layout is not None:
+            slug = _slug(build.name)
+            progress("dxf")
+            write_dxf(layout, stage / f"{slug}.dxf", build.export.dxf)
+            progress("gds")
+            write_gds(layout, stage / f"{slug}.gds", build.export.gds)
+            progress("previews")
+            shear = build.solution.wall_shear_floor[: layout.channels.length.size]
+            for stem, values in (("layout", None), ("shear", shear)):
+                for suffix in ("svg", "png"):
+                    write_preview(layout, stage / f"{stem}.{suffix}", values=values)
+            figures["The chip as drawn"] = (stage / "layout.svg").read_text(encoding="utf-8")
+            figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
+                encoding="utf-8"
+            )
+        progress("report")
+        profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
+        if profile is not None:
+            figures = {"Profile from inlet to outlet": profile, **figures}
+            (stage / "profile.svg").write_bytes(profile.encode("utf-8"))
+        write_report(build.results, stage / "report.html", figures)
+        (stage / "results.json").write_bytes(results_json(build).encode("utf-8"))
+        (stage / "channels.csv").write_bytes(channels_csv(build).encode("utf-8"))
+    return [outdir / n for n in output_names(build)]
+
+
+def build_to_folder(
+    design: str | Path,
+    outdir: str | Path | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> tuple[Build, list[Path]]:
+    """Build a design file and write all its outputs (the whole job of ``chipflow build``).
+
+    Parameters
+    ----------
+    design : str or path-like
+        The design file.
+    outdir : str or path-like, optional
+        Output folder; by default a folder named after the design, in the current folder.
+    progress : callable, optional
+        Called with the name of each stage.
+
+    Returns
+    -------
+    build : Build
+    files : list of pathlib.Path
+        The files written.
+    """
+    from chipflow.build import build_design
+
+    build = build_design(design, progress)
+    target = Path(outdir) if outdir is not None else Path(_slug(build.name))
+    return build, write_build(build, target, progress)
