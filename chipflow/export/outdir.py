@@ -28,7 +28,7 @@ from pathlib import Path
 
 from chipflow.errors import ExportError
 
-__all__ = ["staged_folder", "atomic_write_bytes", "atomic_write_text"]
+__all__ = ["staged_folder"]
 
 
 @contextlib.contextmanager
@@ -55,22 +55,3 @@ def staged_folder(target: str | Path) -> Iterator[Path]:
             os.replace(path, target / path.name)
     finally:
         shutil.rmtree(stage, ignore_errors=True)
-
-
-def atomic_write_bytes(path: str | Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` through a temporary file and a rename."""
-    path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}-", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-
-
-def atomic_write_text(path: str | Path, text: str) -> None:
-    """Write UTF-8 ``text`` to ``path`` atomically, with Unix line ends."""
-    atomic_write_bytes(path, text.encode("utf-8"))
