@@ -1,5 +1,27 @@
-"""Drawing: a sized design placed on the chip as mask-layer polygons."""
+"""Drawing: a sized design placed on the chip as mask-layer polygons.
 
+:func:`draw` places a :class:`~chipflow.design.model.TreeDesign` on a :class:`Chip` under
+:class:`LayoutRules`; :func:`extract_network` turns the drawing into the solver's network;
+:func:`check_rules` reports where the drawing breaks a fabrication rule.
+"""
+
+from chipflow.layout.check import Finding, check_rules
+from chipflow.layout.draw import draw, layer_name
+from chipflow.layout.extract import extract_network
 from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
+from chipflow.layout.rules import PUNCH_DIAMETERS, Chip, LayoutRules
 
-__all__ = ["DrawnChannels", "Layout", "MaskLayer", "PortMark"]
+__all__ = [
+    "Chip",
+    "DrawnChannels",
+    "Finding",
+    "Layout",
+    "LayoutRules",
+    "MaskLayer",
+    "PUNCH_DIAMETERS",
+    "PortMark",
+    "check_rules",
+    "draw",
+    "extract_network",
+    "layer_name",
+]

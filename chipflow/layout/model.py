@@ -79,6 +79,11 @@ class DrawnChannels:
         Junction/port node indices at the channel's ends (flow direction inlet -> outlet).
     layer : numpy.ndarray of int
         Index into ``Layout.layers``.
+    outline : numpy.ndarray of shapely.Polygon or None
+        Each channel's own outline (centreline offset by half the width each side, flat
+        ends at the nodes), before merging into the mask layers [m].
+    bends : numpy.ndarray of int or None
+        Number of bends (circular arcs) along each channel.
     """
 
     centreline: np.ndarray
@@ -91,6 +96,8 @@ class DrawnChannels:
     node_a: np.ndarray
     node_b: np.ndarray
     layer: np.ndarray
+    outline: np.ndarray | None = None
+    bends: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -117,6 +124,8 @@ class Layout:
         (n_nodes, 2) positions of the network nodes [m].
     node_names : tuple of str
         Node names ("inlet", "outlet", junction names).
+    warnings : tuple of str
+        Soft misses found while drawing (e.g. bed channels drawn longer than designed).
     """
 
     name: str
@@ -128,3 +137,4 @@ class Layout:
     channels: DrawnChannels
     node_xy: np.ndarray
     node_names: tuple[str, ...]
+    warnings: tuple[str, ...] = ()

@@ -1,0 +1,252 @@
+"""Fabrication rule checks on a drawn chip.
+
+Each broken rule gives a :class:`Finding` with the measured value, the limit, a position in
+the chip frame and the channels involved:
+
+``min_width``
+    a channel narrower than the mask's smallest feature (error);
+``min_gap``
+    a PDMS wall thinner than ``min_gap`` between channels that are not connected, i.e. do not
+    share a node (error: the wall tears or the bond fails);
+``overlap``
+    two channels that are not connected touch or overlap (error: a short circuit);
+``outline``
+    a channel or port hole inside the edge margin or off the chip (error);
+``port_keepout``
+    a channel other than the port's own inside a port's keep-out (error: the punch hits it);
+``roof_sag``
+    width/depth above the roof-sag limit (error: the roof touches the floor);
+``tall_wall``
+    depth/width above the tall-wall limit (error: the PDMS walls fold or tear).
+
+All checks are vectorised: an R-tree query over the channel outlines for pairs, numpy for the
+per-channel ratios. Per-channel ratio findings are grouped per level (role and generation).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import shapely
+
+from chipflow.layout.model import Layout
+from chipflow.layout.rules import LayoutRules
+
+__all__ = ["Finding", "check_rules", "RULES"]
+
+RULES = ("min_width", "min_gap", "overlap", "outline", "port_keepout", "roof_sag", "tall_wall")
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One broken fabrication rule.
+
+    Attributes
+    ----------
+    rule : str
+        One of :data:`RULES`.
+    severity : str
+        "error" or "warning".
+    value, limit : float
+        Measured value and the limit it breaks ([m] for lengths, [-] for ratios).
+    x, y : float
+        Where, in the chip frame [m].
+    channels : tuple of int
+        Indices of the channels involved (into ``Layout.channels``).
+    message : str
+        One line for people.
+    """
+
+    rule: str
+    severity: str
+    value: float
+    limit: float
+    x: float
+    y: float
+    channels: tuple[int, ...]
+    message: str
+
+
+def _outlines(layout: Layout) -> np.ndarray:
+    ch = layout.channels
+    if ch.outline is not None:
+        return ch.outline
+    return shapely.buffer(ch.centreline, ch.width / 2, cap_style="flat")
+
+
+def _label(layout: Layout, i: int) -> str:
+    ch = layout.channels
+    return f"{ch.role[i]} channel gen {ch.generation[i]} #{ch.index[i]}"
+
+
+def _um(value: float) -> str:
+    return f"{value * 1e6:.1f} um"
+
+
+def _mm(x: float, y: float) -> str:
+    return f"({x * 1e3:.3f}, {y * 1e3:.3f}) mm"
+
+
+def check_rules(layout: Layout, rules: LayoutRules) -> tuple[Finding, ...]:
+    """Every fabrication rule the drawing breaks (empty when it is clean).
+
+    Parameters
+    ----------
+    layout : Layout
+        The drawn chip.
+    rules : LayoutRules
+        Minimum feature, minimum gap, aspect-ratio limits.
+
+    Returns
+    -------
+    tuple of Finding
+        Sorted by rule, then position.
+    """
+    ch = layout.channels
+    out = _outlines(layout)
+    mid = shapely.line_interpolate_point(ch.centreline, 0.5, normalized=True)
+    mx, my = shapely.get_x(mid), shapely.get_y(mid)
+    findings: list[Finding] = []
+
+    # per-channel limits, grouped per level
+    ratio_rules = (
+        ("min_width", ch.width, rules.min_feature, ch.width < rules.min_feature, "m"),
+        ("roof_sag", ch.width / ch.depth, rules.max_width_to_depth, None, "-"),
+        ("tall_wall", ch.depth / ch.width, rules.max_depth_to_width, None, "-"),
+    )
+    for rule, value, limit, bad, unit in ratio_rules:
+        bad = value > limit * (1 + 1e-9) if bad is None else bad
+        if not bad.any():
+            continue
+        key = np.char.add(ch.role.astype(str), ch.generation.astype(str))
+        for level in np.unique(key[bad]):  # loop over levels, not channels
+            idx = np.flatnonzero(bad & (key == level))
+            i = int(idx[0])
+            v = float(value[i])
+            shown = (
+                f"{_um(v)} < mask minimum feature {_um(limit)}"
+                if unit == "m"
+                else f"{rule.replace('_', ' ')} ratio {v:.2f} > limit {limit:g}"
+            )
+            findings.append(
+                Finding(
+                    rule,
+                    "error",
+                    v,
+                    float(limit),
+                    float(mx[i]),
+                    float(my[i]),
+                    tuple(int(j) for j in idx),
+                    f"{_label(layout, i)} and {idx.size - 1} more of its level at "
+                    f"{_mm(mx[i], my[i])}: {shown}",
+                ),
+            )
+
+    # pairs of channels closer than the minimum gap that do not share a node
+    tree = shapely.STRtree(out)
+    a, b = tree.query(out, predicate="dwithin", distance=rules.min_gap * (1 - 1e-9))
+    keep = a < b
+    a, b = a[keep], b[keep]
+    na, nb = ch.node_a, ch.node_b
+    linked = (na[a] == na[b]) | (na[a] == nb[b]) | (nb[a] == na[b]) | (nb[a] == nb[b])
+    a, b = a[~linked], b[~linked]
+    if a.size:
+        dist = shapely.distance(out[a], out[b])
+        touch = dist <= 0
+        where = np.empty(a.size, dtype=object)
+        where[touch] = shapely.point_on_surface(shapely.intersection(out[a[touch]], out[b[touch]]))
+        where[~touch] = shapely.centroid(shapely.shortest_line(out[a[~touch]], out[b[~touch]]))
+        wx, wy = shapely.get_x(where), shapely.get_y(where)
+        for k in range(a.size):  # one finding per offending pair (rare by construction)
+            i, j = int(a[k]), int(b[k])
+            if touch[k]:
+                rule, text = "overlap", "touch or overlap although they are not connected"
+            else:
+                rule = "min_gap"
+                text = f"wall {_um(dist[k])} thinner than the minimum {_um(rules.min_gap)}"
+            findings.append(
+                Finding(
+                    rule,
+                    "error",
+                    float(dist[k]),
+                    rules.min_gap if rule == "min_gap" else 0.0,
+                    float(wx[k]),
+                    float(wy[k]),
+                    (i, j),
+                    f"{_label(layout, i)} and {_label(layout, j)} at {_mm(wx[k], wy[k])}: {text}",
+                )
+            )
+
+    # everything inside the outline with its margin
+    inner = shapely.buffer(layout.outline, -layout.margin, join_style="mitre")
+    ix0, iy0, ix1, iy1 = inner.bounds
+    bounds = shapely.bounds(out)
+    over = np.max(
+        np.column_stack(
+            (ix0 - bounds[:, 0], iy0 - bounds[:, 1], bounds[:, 2] - ix1, bounds[:, 3] - iy1)
+        ),
+        axis=1,
+    )
+    outside = np.flatnonzero(~shapely.within(out, inner))
+    if outside.size:
+        i = int(outside[np.argmax(over[outside])])
+        p = shapely.point_on_surface(shapely.difference(out[i], inner))
+        findings.append(
+            Finding(
+                "outline",
+                "error",
+                float(over[i]),
+                float(layout.margin),
+                p.x,
+                p.y,
+                tuple(int(j) for j in outside),
+                f"{outside.size} channel(s) reach into the {layout.margin * 1e3:g} mm edge "
+                f"margin, e.g. {_label(layout, i)} by {_um(max(over[i], 0.0))} at "
+                f"{_mm(p.x, p.y)}",
+            )
+        )
+    for port in layout.ports:  # a handful of ports
+        hole = shapely.Point(port.x, port.y).buffer(port.diameter / 2, quad_segs=32)
+        if not hole.within(inner):
+            findings.append(
+                Finding(
+                    "outline",
+                    "error",
+                    port.diameter / 2,
+                    float(layout.margin),
+                    port.x,
+                    port.y,
+                    (),
+                    f"{port.name} port hole at {_mm(port.x, port.y)} reaches into the "
+                    f"{layout.margin * 1e3:g} mm edge margin or off the chip",
+                )
+            )
+
+    # port keep-outs: only the port's own channel may enter
+    names = list(layout.node_names)
+    for port in layout.ports:
+        node = names.index(port.name) if port.name in names else -1
+        zone = shapely.Point(port.x, port.y).buffer(port.keepout, quad_segs=32)
+        hits = tree.query(zone, predicate="intersects")
+        hits = hits[(na[hits] != node) & (nb[hits] != node)]
+        if hits.size:
+            d = shapely.distance(shapely.Point(port.x, port.y), out[hits])
+            i = int(hits[np.argmin(d)])
+            p = shapely.point_on_surface(shapely.intersection(out[i], zone))
+            findings.append(
+                Finding(
+                    "port_keepout",
+                    "error",
+                    float(d.min()),
+                    port.keepout,
+                    p.x,
+                    p.y,
+                    tuple(int(j) for j in np.sort(hits)),
+                    f"{_label(layout, i)} enters the {port.name} port keep-out at "
+                    f"{_mm(p.x, p.y)}: {d.min() * 1e3:.3f} mm from the port centre, "
+                    f"keep {port.keepout * 1e3:.3f} mm clear",
+                )
+            )
+    findings.sort(key=lambda f: (RULES.index(f.rule), f.x, f.y))
+    return tuple(findings)
