@@ -180,7 +180,9 @@ def _plan(design: TreeDesign, chip: Chip, rules: LayoutRules, runs: int) -> _Pla
         a = 2 ** (n - g - 1) * pitch
         theta[g], lead_in[g] = _fork(a, radius[g])
         nxt = width[g + 1] if g < n else 0.0
-        straight[g] = _ceil_grid(max(width[g], nxt) + gap, grid) if g < n else 0.0
+        if g < n:  # straight run after the bend; it rounds the advance up to the grid
+            reach = radius[g] * math.sin(theta[g])
+            straight[g] = _ceil_grid(reach + max(width[g], nxt) + gap, grid) - reach
         advance[g] = radius[g] * math.sin(theta[g]) + straight[g]
     keep = chip.punch_diameter / 2 + rules.port_keepout
     trunk = _ceil_grid(rules.port_keepout + max(width[0], width[min(1, n)]) + gap, grid)
@@ -267,14 +269,16 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     keep = chip.punch_diameter / 2 + rules.port_keepout
     r_hole = chip.punch_diameter / 2
 
-    # x positions: centre the drawing on the chip
-    x_mid = _snap(chip.width / 2, grid)
-    x_in = _snap(x_mid - plan.width_needed / 2 + chip.margin + keep, grid)
+    # x positions: centre the drawing on the chip; the inlet side is on the grid, the outlet
+    # side is its exact mirror image about the middle of the bed
+    x_in = _snap(chip.width / 2 - plan.width_needed / 2 + chip.margin + keep, grid)
     x_rim = x_in + r_hole
     x_node = np.empty(n)
     x_node[0] = x_rim + plan.trunk
     for k in range(1, n):
-        x_node[k] = x_node[k - 1] + plan.advance[k]
+        x_node[k] = _snap(x_node[k - 1] + plan.advance[k], grid)
+    bed_extent = 2 * plan.radius[n] * math.sin(plan.theta[n]) + plan.run_length + 2 * plan.lead
+    x_mid = x_node[n - 1] + bed_extent / 2
     # y positions: centre the bed lanes
     y_lane0 = _snap(chip.height / 2 - ((n_bed - 1) * plan.pitch + rise) / 2, grid)
     y_in = y_lane0 + (n_bed - 1) * plan.pitch / 2
