@@ -91,6 +91,47 @@ def _path_of(geom: shapely.Geometry, scale: float):
     return MplPath(xy * scale, codes)
 
 
+def _view_bounds(layout: Layout) -> tuple[float, float, float, float]:
+    """What the preview shows [m]: the whole chip, or the drawn network when it covers less
+    than a quarter of the chip (the whole chip then goes into an inset)."""
+    chip = layout.outline.bounds
+    parts = [m.geometry for m in layout.layers if not m.geometry.is_empty]
+    parts += [shapely.Point(p.x, p.y).buffer(p.diameter / 2) for p in layout.ports]
+    if not parts:
+        return chip
+    x0, y0, x1, y1 = shapely.GeometryCollection(parts).bounds
+    if (x1 - x0) * (y1 - y0) >= 0.25 * (chip[2] - chip[0]) * (chip[3] - chip[1]):
+        return chip
+    pad = 0.1 * max(x1 - x0, y1 - y0)
+    return (
+        max(x0 - pad, chip[0]),
+        max(y0 - pad, chip[1]),
+        min(x1 + pad, chip[2]),
+        min(y1 + pad, chip[3]),
+    )
+
+
+def _chip_inset(ax: Any, layout: Layout, view: tuple[float, ...], mm: float) -> None:
+    """A small map of the whole chip with the shown region marked."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Rectangle
+
+    inset = ax.inset_axes([0.70, 0.03, 0.28, 0.28])
+    ox, oy = layout.outline.exterior.xy
+    inset.add_line(Line2D(np.asarray(ox) * mm, np.asarray(oy) * mm, color=_OUTLINE_COLOUR, lw=0.8))
+    x0, y0, x1, y1 = view
+    inset.add_patch(
+        Rectangle((x0 * mm, y0 * mm), (x1 - x0) * mm, (y1 - y0) * mm, color=LAYER_COLOURS[0])
+    )
+    bx0, by0, bx1, by1 = layout.outline.bounds
+    inset.set_xlim(bx0 * mm, bx1 * mm)
+    inset.set_ylim(by0 * mm, by1 * mm)
+    inset.set_aspect("equal")
+    inset.set_xticks([])
+    inset.set_yticks([])
+    inset.set_title("whole chip", fontsize=7)
+
+
 def plot_layout(
     layout: Layout,
     ax: Any = None,
@@ -98,6 +139,9 @@ def plot_layout(
     value_label: str = "floor wall shear [Pa]",
 ) -> LayoutPlot:
     """Draw the chip: mask levels, outline, ports with names, a scale bar.
+
+    When the network covers less than a quarter of the chip, the view zooms onto it and a
+    small map of the whole chip marks where it sits.
 
     Parameters
     ----------
@@ -186,7 +230,10 @@ def plot_layout(
             fontsize=9,
         )
 
-    minx, miny, maxx, maxy = layout.outline.bounds
+    view = _view_bounds(layout)
+    if view != layout.outline.bounds:
+        _chip_inset(ax, layout, view, mm)
+    minx, miny, maxx, maxy = view
     pad = 0.05 * max(maxx - minx, maxy - miny)
     ax.set_xlim((minx - pad) * mm, (maxx + pad) * mm)
     ax.set_ylim((miny - 2 * pad) * mm, (maxy + pad) * mm)
