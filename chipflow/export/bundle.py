@@ -63,7 +63,7 @@ def _slug(name: str) -> str:
     """A file-name-safe form of the design name.
 
     >>> _slug("Liver bed / v2")
-    'liver-bed-v2'
+    'Liver-bed-v2'
     """
     slug = re.sub(r"[^A-Za-z0-9_.-]+", "-", name).strip("-.")
     return slug or "design"
