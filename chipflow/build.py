@@ -253,7 +253,8 @@ def _targets_window(spec) -> ShearWindow | None:
     t = spec.targets
     if t.minimum is None or t.maximum is None:
         return None
-    return ShearWindow("design targets", t.minimum, t.maximum, f"design file {spec.source}")
+    source = f"design file {Path(spec.source).name}"
+    return ShearWindow("design targets", t.minimum, t.maximum, source)
 
 
 def _with_tubing(chip: Network, supply: SupplySpec) -> tuple[Network, str, str]:

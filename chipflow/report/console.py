@@ -87,6 +87,8 @@ def console_summary(results: Mapping[str, Any]) -> str:
                 else ""
             )
         )
+    for warning in results.get("warnings") or []:
+        lines.append(f"sizing: {warning}")
     checks = list(results.get("checks") or [])
     counts = {s: sum(c["status"] == s for c in checks) for s in ("pass", "warn", "fail")}
     lines.append(f"checks: {counts['pass']} pass, {counts['warn']} warn, {counts['fail']} fail")

@@ -154,20 +154,20 @@ def read_culture(top: Table) -> Culture:
             low = window.min if low is None else low
             high = window.max if high is None else high
             window = ShearWindow(
-                cell.name, low, high, f"design file {top.source} (overrides: {window.source})"
+                cell.name, low, high, f"{top.file_label} (overrides: {window.source})"
             )
     elif low is not None or high is not None:
         if low is None or high is None:
             key = "shear_min" if low is None else "shear_max"
             raise table.error(key, "without a cell_type, give both shear_min and shear_max")
-        window = ShearWindow("design window", low, high, f"design file {top.source}")
+        window = ShearWindow("design window", low, high, top.file_label)
     if window is not None and not window.min < window.max:
         raise table.error("shear_max", f"must be greater than shear_min ({window.min:g} Pa)")
 
     density = table.quantity("cell_density", "areal_density", None)
     uptake = table.quantity("o2_consumption", "molar_rate", None)
     if uptake is not None:
-        uptake_source = f"design file {top.source}"
+        uptake_source = top.file_label
     elif cell is not None and cell.o2_consumption is not None:
         uptake, uptake_source = cell.o2_consumption, cell.o2_source
     else:
@@ -178,9 +178,7 @@ def read_culture(top: Table) -> Culture:
         window=window,
         seeded=table.choice("seeded", SEEDED, "bed"),
         cell_density=CELL_DENSITY_DEFAULT if density is None else density,
-        cell_density_source=(
-            "assumption: 1e5 cells/cm^2" if density is None else f"design file {top.source}"
-        ),
+        cell_density_source=("assumption: 1e5 cells/cm^2" if density is None else top.file_label),
         o2_consumption=uptake,
         o2_consumption_source=uptake_source,
         o2_inlet=O2_INLET_CONCENTRATION if inlet is None else inlet,
@@ -198,7 +196,7 @@ def read_limits(top: Table) -> Limits:
     bond = table.quantity("bond_pressure", "pressure", None)
     return Limits(
         bond_pressure=BOND_LIMIT_DEFAULT if bond is None else bond,
-        bond_source=BOND_SOURCE if bond is None else f"design file {top.source}",
+        bond_source=BOND_SOURCE if bond is None else top.file_label,
         safety_factor=table.number("safety_factor", BOND_SAFETY_FACTOR, minimum=1.0),
         pump_pressure=table.quantity("pump_pressure", "pressure", None),
     )

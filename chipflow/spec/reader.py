@@ -54,6 +54,12 @@ class Table:
     path: str = ""
 
     # -- locating -------------------------------------------------------------------------
+    @property
+    def file_label(self) -> str:
+        """``design file <name>``: how results cite a value taken from this file (the base
+        name only, so that results do not depend on where the file sits)."""
+        return f"design file {Path(self.source).name}"
+
     def where(self, key: str | None = None) -> str:
         """``file: key.path`` for messages."""
         parts = [p for p in (self.path, key) if p]
