@@ -115,7 +115,12 @@ def command(width, depth, diameter, length, flow, pressure, fluid, temperature, 
     if round_tube:
         width = depth = diameter
     values = channel_report(
-        width, depth, length, fluid_preset(fluid, temperature, viscosity), flow, pressure,
+        width,
+        depth,
+        length,
+        fluid_preset(fluid, temperature, viscosity),
+        flow,
+        pressure,
         round_tube,
     )
     if as_json:
