@@ -12,6 +12,7 @@ from __future__ import annotations
 import numpy as np
 import shapely
 
+from chipflow.layout.draw import layer_name
 from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
 
 UM = 1e-6
@@ -79,8 +80,8 @@ def comb_layout(
         )
     )
     layers = (
-        MaskLayer("bed", 50 * UM, _snap(bed, grid)),
-        MaskLayer("feeders", 120 * UM, _snap(feeders, grid)),
+        MaskLayer(layer_name(1, 50 * UM), 50 * UM, _snap(bed, grid)),
+        MaskLayer(layer_name(2, 120 * UM), 120 * UM, _snap(feeders, grid)),
     )
     centrelines = np.array([feed_in, *bed_lines, feed_out], dtype=object)
     channels = DrawnChannels(

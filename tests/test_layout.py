@@ -166,7 +166,7 @@ def test_two_depths_make_two_layers_with_alignment_overlap():
     design = tree(3, [300e-6, 200e-6, 150e-6, 100e-6], [80e-6, 80e-6, 80e-6, 40e-6], 4e-3)
     rules = LayoutRules(alignment_margin=20e-6)
     layout = draw(design, rules=rules)
-    assert [layer.name for layer in layout.layers] == ["D40UM", "D80UM"]
+    assert [layer.name for layer in layout.layers] == ["MASK1_DEPTH_40UM", "MASK2_DEPTH_80UM"]
     shallow, deep = layout.layers
     ch = layout.channels
     assert set(ch.layer[ch.role == "bed"]) == {0}
@@ -182,7 +182,7 @@ def test_two_depths_make_two_layers_with_alignment_overlap():
     assert not deep.geometry.contains(outside)
     assert shallow.geometry.contains(outside)
     assert check_rules(layout, rules) == ()
-    assert layer_name(12.5e-6) == "D12P5UM"
+    assert layer_name(2, 12.5e-6) == "MASK2_DEPTH_12P5UM"
 
 
 def test_long_bed_folds_into_equal_serpentines():

@@ -47,7 +47,6 @@ __all__ = [
     "resolve_holes",
     "ring_area",
     "circle_ring",
-    "depth_layer_name",
 ]
 
 HOLES = ("split", "keyhole")
@@ -61,7 +60,7 @@ class PreparedLayer:
     Attributes
     ----------
     name : str
-        Our layer name, derived from the level number and depth (see :func:`depth_layer_name`).
+        The layout's layer name (see :func:`chipflow.layout.draw.layer_name`).
     depth : float
         Feature depth [m].
     rings : tuple of numpy.ndarray
@@ -127,29 +126,6 @@ def grid_nanometres(grid: float) -> int:
             "use a grid such as 0.1 um or 1 um"
         )
     return nm
-
-
-def depth_layer_name(level: int, depth: float) -> str:
-    """Our DXF layer name for a mask level: level number and depth in micrometres.
-
-    Only letters, digits and underscores, so that every DXF version accepts it.
-
-    Parameters
-    ----------
-    level : int
-        Level number, 1 for the shallowest.
-    depth : float
-        Feature depth [m].
-
-    Examples
-    --------
-    >>> depth_layer_name(1, 50e-6)
-    'MASK1_DEPTH_50UM'
-    >>> depth_layer_name(2, 12.5e-6)
-    'MASK2_DEPTH_12P5UM'
-    """
-    text = f"{depth * 1e6:.3f}".rstrip("0").rstrip(".")
-    return f"MASK{level}_DEPTH_{text.replace('.', 'P')}UM"
 
 
 def ring_area(ring: np.ndarray) -> float:
@@ -420,7 +396,7 @@ def prepare_layout(
 
     outline = flip(outline)
     layers = []
-    for level, mask in enumerate(layout.layers, start=1):
+    for mask in layout.layers:
         geom = mask.geometry
         if not shapely.is_valid(geom):
             raise ExportError(
@@ -431,9 +407,7 @@ def prepare_layout(
         if polarity == "inverse":
             geom = shapely.set_precision(shapely.difference(outline, geom), 1.0)
         rings = resolve_holes(geom, holes)
-        layers.append(
-            PreparedLayer(depth_layer_name(level, mask.depth), mask.depth, tuple(rings), geom.area)
-        )
+        layers.append(PreparedLayer(mask.name, mask.depth, tuple(rings), geom.area))
     outline_ring = _canonical(_clean_ring(shapely.orient_polygons(outline).exterior.coords))
     centres = np.array([[p.x, p.y] for p in layout.ports], dtype=float).reshape(-1, 2) / grid
     centres = np.rint(centres)

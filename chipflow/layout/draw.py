@@ -33,7 +33,8 @@ area is thus shared out half to each side of the node, and no length is counted 
 Mask layers
 -----------
 One layer per depth, named ``D<depth in um>UM`` with a ``P`` for a decimal point (50 um ->
-``D50UM``, 12.5 um -> ``D12P5UM``), shallowest first. Where a shallow channel meets a deeper
+``MASK1_DEPTH_50UM``, a second level of 12.5 um -> ``MASK2_DEPTH_12P5UM``; see
+:func:`layer_name`), shallowest first. Where a shallow channel meets a deeper
 one at a junction, the deeper layer gets the junction disc and also covers the shallow channel
 for ``alignment_margin`` beyond the disc, so a misaligned second exposure cannot leave a step
 that narrows the channel. The shallow layer draws its channel up to the junction centre.
@@ -57,15 +58,19 @@ __all__ = ["draw", "layer_name"]
 _MAX_RUNS = 401  # serpentine runs tried before giving up
 
 
-def layer_name(depth: float) -> str:
-    """Mask layer name for a depth [m].
+def layer_name(level: int, depth: float) -> str:
+    """Mask layer name: the mask level number (1 for the shallowest) and its depth [m].
+
+    Only letters, digits and underscores (``P`` for a decimal point), so that every DXF
+    version and GDSII reader accepts it; the exporters write these names as they are.
 
     Examples
     --------
-    >>> layer_name(50e-6), layer_name(12.5e-6)
-    ('D50UM', 'D12P5UM')
+    >>> layer_name(1, 50e-6), layer_name(2, 12.5e-6)
+    ('MASK1_DEPTH_50UM', 'MASK2_DEPTH_12P5UM')
     """
-    return f"D{round(depth * 1e6, 2):g}UM".replace(".", "P")
+    text = f"{depth * 1e6:.3f}".rstrip("0").rstrip(".")
+    return f"MASK{level}_DEPTH_{text.replace('.', 'P')}UM"
 
 
 # -- centreline templates -------------------------------------------------------------------
@@ -448,7 +453,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         merged = shapely.set_precision(merged, grid)
         if not merged.is_valid:  # pragma: no cover - set_precision keeps validity
             merged = shapely.make_valid(merged)
-        layers.append(MaskLayer(layer_name(float(depth)), float(depth), merged))
+        layers.append(MaskLayer(layer_name(li + 1, float(depth)), float(depth), merged))
 
     channels = DrawnChannels(
         centreline=cat["centreline"],
