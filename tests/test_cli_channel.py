@@ -35,8 +35,9 @@ def test_json_keys_and_values() -> None:
     assert data["flow"] == pytest.approx(5e-9 / 60)
     assert data["viscosity"] == 1e-3
     # Analytic: tau_max = 1.183 * 6 mu Q / (w h^2) at h/w = 0.25 (REFERENCES.md section 1).
-    assert data["wall_shear_max"] == pytest.approx(1.183 * 6e-3 * 5e-9 / 60 / 200e-6 / 50e-6**2,
-                                                   rel=1e-3)
+    assert data["wall_shear_max"] == pytest.approx(
+        1.183 * 6e-3 * 5e-9 / 60 / 200e-6 / 50e-6**2, rel=1e-3
+    )
     assert data["pressure_drop"] == pytest.approx(data["flow"] * data["hydraulic_resistance"])
 
 
@@ -47,12 +48,25 @@ def test_pressure_driven_matches_flow_driven() -> None:
 
 
 def test_round_tube() -> None:
-    result = run(["channel", "--width", "1mm", "--diameter", "0.5mm", "--length", "30cm",
-                  "--flow", "10uL/min", "--json"])
+    result = run(
+        [
+            "channel",
+            "--width",
+            "1mm",
+            "--diameter",
+            "0.5mm",
+            "--length",
+            "30cm",
+            "--flow",
+            "10uL/min",
+            "--json",
+        ]
+    )
     data = json.loads(result.output)
     # Hagen-Poiseuille (analytic): R = 8 mu L / (pi r^4)
     assert data["hydraulic_resistance"] == pytest.approx(
-        8 * data["viscosity"] * 0.3 / (3.141592653589793 * 0.25e-3**4), rel=1e-12)
+        8 * data["viscosity"] * 0.3 / (3.141592653589793 * 0.25e-3**4), rel=1e-12
+    )
 
 
 @pytest.mark.parametrize(
@@ -60,7 +74,7 @@ def test_round_tube() -> None:
     [
         ["channel", "--width", "200um", "--depth", "50um", "--length", "10mm"],
         [*ARGS, "--pressure", "1kPa"],
-        ["channel", "--width", "-200um", "--depth", "50um", "--length", "10mm", "--flow", "5uL/min"],
+        [*ARGS[:2], "-200um", *ARGS[3:]],
         ["channel", "--width", "200um", "--depth", "50um", "--length", "10mm", "--flow", "5mm"],
         ["channel", "--width", "200", "--depth", "50um", "--length", "10mm", "--flow", "5uL/min"],
         ["channel", "--depth", "50um", "--length", "10mm", "--flow", "5uL/min"],
