@@ -450,9 +450,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     layers = []
     for li, depth in enumerate(depths):
         merged = _merge_layer(piece[li], extra[li])
-        merged = shapely.set_precision(merged, grid)
-        if not merged.is_valid:  # pragma: no cover - set_precision keeps validity
-            merged = shapely.make_valid(merged)
+        merged = _snap_to_grid(merged, grid)
         layers.append(MaskLayer(layer_name(li + 1, float(depth)), float(depth), merged))
 
     channels = DrawnChannels(
@@ -487,6 +485,22 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         node_names=tuple(names),
         warnings=warnings,
     )
+
+
+def _snap_to_grid(geometry: shapely.Geometry, grid: float) -> shapely.Geometry:
+    """Round every vertex to the mask grid, keeping the geometry valid.
+
+    Rounding vertex by vertex is linear in the number of vertices; walls and arc chords are
+    far longer than the grid, so it almost never spoils validity. Should it, the full
+    snap-rounding of GEOS (much slower on layers with thousands of holes) takes over.
+    """
+    snapped = shapely.remove_repeated_points(
+        shapely.set_precision(geometry, grid, mode="pointwise"), 0.0
+    )
+    if snapped.is_valid:
+        return snapped
+    snapped = shapely.set_precision(geometry, grid)
+    return snapped if snapped.is_valid else shapely.make_valid(snapped)
 
 
 def _snap(value: float, grid: float) -> float:
