@@ -43,7 +43,7 @@ from chipflow.checks import (
 from chipflow.checks.cell_types import ShearWindow
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
-from chipflow.errors import SpecError
+from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
 from chipflow.network import Network, Solution, solve
 from chipflow.network.supply import Supply, boundary_conditions
@@ -180,10 +180,16 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
         progress("load")
         source = read_design_source(source)
     top = source.top
-    if "tree" in top:
-        return _build_tree(source, progress)
-    if is_network_design(top):
-        return _build_network(source, progress)
+    try:
+        if "tree" in top:
+            return _build_tree(source, progress)
+        if is_network_design(top):
+            return _build_network(source, progress)
+    except ChipflowError as exc:
+        # every message names the design file, whichever stage raised it
+        if str(exc).startswith(source.path):
+            raise
+        raise type(exc)(f"{source.path}: {exc}") from None
     raise SpecError(
         f"{top.source}: nothing to build: expected a [tree] table or an explicit network "
         "([[channels]] and/or [[tubes]] with [[ports]])"
