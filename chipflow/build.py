@@ -19,6 +19,7 @@ Stages report their name to an optional ``progress`` callable, for the command l
 from __future__ import annotations
 
 import hashlib
+import json
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -101,6 +102,20 @@ class DesignSource:
     path: str
     top: Table
     sha256: str
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any], path: str = "<memory>.toml") -> DesignSource:
+        """A design held in memory, e.g. a parsed file with one value changed.
+
+        The hash is taken over the canonical JSON form of ``data``.
+
+        >>> source = DesignSource.from_dict({"tree": {"flow": "5 uL/min"}}, "sweep.toml")
+        >>> source.top.table("tree").quantity("flow", "flow") > 0
+        True
+        """
+        canonical = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
+        digest = hashlib.sha256(canonical.encode("utf-8")).hexdigest()
+        return cls(path, Table(data, path, ""), digest)
 
 
 def read_design_source(path: str | Path) -> DesignSource:
