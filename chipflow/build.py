@@ -331,8 +331,11 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         *_pressure_checks(solution, limits),
     )
     supply = {
-        node: {"mode": s.label or s.kind, s.kind if s.kind != "reservoir" else "head": s.value}
-        for node, s in design.supplies.items()
+        "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
+        "ports": {
+            node: {"mode": s.label or s.kind, "head" if s.kind == "reservoir" else s.kind: s.value}
+            for node, s in design.supplies.items()
+        },
     }
     results = _results(
         source,
@@ -489,17 +492,38 @@ def _pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:
 
 
 def _supply_dict(supply: SupplySpec) -> dict[str, Any]:
+    """The supply as results: a one-line ``mode`` for people and the values in SI."""
+
     def one(s: Supply) -> dict[str, Any]:
         key = {"flow": "flow", "pressure": "pressure", "reservoir": "head"}[s.kind]
         return {"mode": s.label, key: s.value}
 
+    inlet, outlet = one(supply.inlet), one(supply.outlet)
+    words = [_supply_words(supply.inlet)]
+    for side, length in (("inlet", supply.inlet_tubing), ("outlet", supply.outlet_tubing)):
+        if length > 0:
+            words.append(
+                f"{length * 100:.3g} cm of {supply.tubing_diameter * 1e3:.3g} mm tubing at the "
+                f"{side}"
+            )
+    words.append(f"outlet {_supply_words(supply.outlet)}")
     return {
-        "inlet": one(supply.inlet),
-        "outlet": one(supply.outlet),
+        "mode": "; ".join(words),
+        "inlet": inlet,
+        "outlet": outlet,
         "tubing_diameter": supply.tubing_diameter,
         "inlet_tubing": supply.inlet_tubing,
         "outlet_tubing": supply.outlet_tubing,
     }
+
+
+def _supply_words(s: Supply) -> str:
+    """A supply in lab units, e.g. "syringe pump, 12 uL/min"."""
+    if s.kind == "flow":
+        return f"{s.label}, {s.value * 6e10:.4g} uL/min"
+    if s.kind == "pressure":
+        return s.label if s.value == 0 else f"{s.label}, {s.value:.4g} Pa"
+    return f"{s.label}, liquid {s.value * 100:.3g} cm above the port"
 
 
 def _results(

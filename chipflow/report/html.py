@@ -200,13 +200,15 @@ def _operating_point(results: Mapping[str, Any]) -> str:
         ],
         ["supply", _e(supply.get("mode", ""))],
         ["total flow", _quantity(totals.get("total_flow"), "uL/min", 6e10)],
-        ["inlet pressure", _quantity(totals.get("inlet_pressure"), p_unit, p_scale)],
+        ["supply pressure", _quantity(totals.get("inlet_pressure"), p_unit, p_scale)],
+        ["chip inlet pressure", _quantity(totals.get("chip_inlet_pressure"), p_unit, p_scale)],
         ["outlet pressure", _quantity(totals.get("outlet_pressure"), p_unit, p_scale)],
         [
             "total hydraulic resistance",
             _quantity(totals.get("total_resistance"), "Pa/(uL/min)", 1e-9 / 60),
         ],
-        ["transit time, inlet to outlet", _quantity(totals.get("transit_time"), "s")],
+        ["transit time through the chip", _quantity(totals.get("transit_time"), "s")],
+        ["time in the supply tubing", _quantity(totals.get("tubing_transit_time"), "s")],
     ]
     return _table(["quantity", "value"], rows, text_columns=1)
 
