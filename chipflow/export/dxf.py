@@ -190,9 +190,9 @@ def write_dxf(layout: Layout, path: str | os.PathLike, options: DxfOptions = Dxf
     nm_per_unit, insunits, _ = DXF_UNITS[options.units]
     scale = prepared.grid_nm  # nanometres per grid unit (a whole number)
 
-    def coords(ring) -> list[tuple[float, float]]:
-        nm = ring.astype("int64") * scale
-        return [(int(x) / nm_per_unit, int(y) / nm_per_unit) for x, y in nm]
+    def coords(ring) -> list[list[float]]:
+        # whole nanometres (exact in int64), then one correctly rounded division each
+        return ((ring.astype("int64") * scale) / nm_per_unit).tolist()
 
     r12 = options.version == "R12"
     with _fixed_metadata():

@@ -29,6 +29,7 @@ Examples
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -261,11 +262,8 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
     for i in order:
         hole = holes[i]
         cand = np.vstack(targets)
-        d2 = ((hole[:, None, :] - cand[None, :, :]) ** 2).sum(axis=2)
-        flat = np.argsort(d2, axis=None, kind="stable")
         found: list = []
-        for k in flat[:_MAX_TRIES]:
-            hj, ci = divmod(int(k), cand.shape[0])
+        for hj, ci in _nearest_pairs(hole, cand, _MAX_TRIES):
             a, b = tuple(hole[hj]), tuple(cand[ci])
             if a in used or b in used:
                 continue
@@ -287,6 +285,45 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
 
 
 _MAX_TRIES = 5000
+
+
+def _nearest_pairs(a: np.ndarray, b: np.ndarray, count: int) -> Iterator[tuple[int, int]]:
+    """The ``count`` closest pairs of points ``a[i]``, ``b[j]`` as ``(i, j)``, nearest first,
+    ties in the order of ``i * len(b) + j`` (the order of a stable argsort of all squared
+    distances).
+
+    The pairs are found in growing windows: only points of ``b`` whose distance from the
+    bounding box of ``a`` is within the window's radius are compared, so a search that ends
+    after a few pairs costs far less than comparing every pair.
+
+    Examples
+    --------
+    >>> a = np.array([[0.0, 0.0], [5.0, 0.0]])
+    >>> b = np.array([[1.0, 0.0], [4.0, 0.0], [9.0, 9.0]])
+    >>> list(_nearest_pairs(a, b, 3))
+    [(0, 0), (1, 1), (0, 1)]
+    """
+    n = len(b)
+    gap = np.maximum(np.maximum(a.min(axis=0) - b, b - a.max(axis=0)), 0.0)
+    box_d2 = (gap * gap).sum(axis=1)  # no point of a is closer than this to b[j]
+    reach = float(((b - a[0]) ** 2).sum(axis=1).min())  # some pair is at least this close
+    done = -1.0  # pairs up to this squared distance were given out
+    given = 0
+    while given < count:
+        near = np.flatnonzero(box_d2 <= reach)
+        everything = near.size == n
+        dx = a[:, None, 0] - b[None, near, 0]
+        dy = a[:, None, 1] - b[None, near, 1]
+        d2 = dx * dx + dy * dy
+        ia, ib = np.nonzero((d2 > done) & (everything | (d2 <= reach)))
+        dist = d2[ia, ib]
+        flat = ia * n + near[ib]
+        for k in np.lexsort((flat, dist))[: count - given]:
+            yield int(ia[k]), int(near[ib[k]])
+        given += min(len(dist), count - given)
+        if everything:
+            return
+        done, reach = reach, max(4.0 * reach, 1.0)
 
 
 def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
@@ -357,7 +394,19 @@ def resolve_holes(geom: shapely.Geometry, holes: str) -> list[np.ndarray]:
 
 
 def _to_grid(geom: shapely.Geometry, grid: float) -> shapely.Geometry:
+    """``geom`` [m] in whole grid units.
+
+    A layout drawn on the grid (every vertex within a millionth of a grid step of it) is
+    rounded vertex by vertex, which keeps every ring as it is; the result is used when it is
+    still a valid geometry. Otherwise the geometry is snapped with a valid-output precision
+    reduction, which may merge, drop or reshape features smaller than one grid step.
+    """
     scaled = shapely.transform(geom, lambda c: c / grid)
+    coords = shapely.get_coordinates(scaled)
+    if coords.size and np.abs(coords - np.rint(coords)).max() <= 1e-6:
+        rounded = shapely.transform(scaled, np.rint)
+        if shapely.is_valid(rounded):
+            return rounded
     return shapely.set_precision(scaled, 1.0)
 
 
