@@ -47,6 +47,7 @@ from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
 from chipflow.network import Network, Solution, solve
+from chipflow.network.summary import level_rows
 from chipflow.network.supply import Supply, boundary_conditions
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.culture import Culture, Limits, read_culture, read_limits
@@ -78,6 +79,7 @@ RESULT_UNITS = {
     "length": "m",
     "total_area": "m^2",
     "flow_per_channel": "m^3/s",
+    "flow_total": "m^3/s",
     "mean_velocity": "m/s",
     "wall_shear_floor": "Pa",
     "wall_shear_mean": "Pa",
@@ -365,50 +367,6 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
 
 
 # -- results ---------------------------------------------------------------------------------------
-def level_rows(solution: Solution) -> list[dict[str, Any]]:
-    """One row per (role, generation) from inlet to outlet, means over the level's channels.
-
-    Channels without a generation (tubing, plain channels) are left out. Pressures at the
-    level's upstream and downstream ends are the means of its end-node pressures [Pa].
-    """
-    from chipflow.network.summary import level_groups
-
-    net = solution.network
-    rows = []
-    for role, generation, members in level_groups(net):
-        q = np.abs(solution.flow[members])
-        p_a = solution.pressure[net.node_a[members]]
-        p_b = solution.pressure[net.node_b[members]]
-        forward = solution.flow[members] >= 0
-        p_in = np.where(forward, p_a, p_b)
-        p_out = np.where(forward, p_b, p_a)
-        w, h = net.width[members], net.depth[members]
-        area = np.where(net.round[members], np.pi / 4 * w * w, w * h)
-        rows.append(
-            {
-                "generation": int(generation),
-                "role": str(role),
-                "count": int(members.size),
-                "width": float(w.mean()),
-                "depth": float(h.mean()),
-                "length": float(net.length[members].mean()),
-                "total_area": float(area.sum()),
-                "flow_per_channel": float(q.mean()),
-                "flow_total": float(q.sum()),
-                "mean_velocity": float(np.abs(solution.mean_velocity[members]).mean()),
-                "wall_shear_floor": float(solution.wall_shear_floor[members].mean()),
-                "wall_shear_mean": float(solution.wall_shear_mean[members].mean()),
-                "wall_shear_max": float(solution.wall_shear_max[members].mean()),
-                "reynolds": float(solution.reynolds[members].max()),
-                "residence_time": float(solution.residence_time[members].mean()),
-                "pressure_drop": float(np.abs(solution.pressure_drop[members]).mean()),
-                "pressure_in": float(p_in.mean()),
-                "pressure_out": float(p_out.mean()),
-            }
-        )
-    return rows
-
-
 def _labels(rows: list[dict[str, Any]]) -> list[str]:
     from chipflow.report import generation_labels
 
@@ -572,7 +530,7 @@ def _results(
             "tubing_transit_time": tubing_transit,
             "mass_residual": float(solution.residual),
         },
-        "generations": [{k: v for k, v in r.items() if k != "flow_total"} for r in rows],
+        "generations": rows,
         "checks": [c.to_dict() for c in checks],
         "status": worst_status(checks),
         "shear_window": None if window is None else window.to_dict(),

@@ -153,10 +153,10 @@ def test_continuity_every_generation(name):
     rows = generation_table(design)
     assert len(rows) == 2 * design.generations + 1
     for row in rows:
-        assert row["mean_velocity"] * row["area_total"] == pytest.approx(
+        assert row["mean_velocity"] * row["total_area"] == pytest.approx(
             design.total_flow, rel=1e-9
         )
-        assert row["flow"] * row["count"] == pytest.approx(design.total_flow, rel=1e-9)
+        assert row["flow_per_channel"] * row["count"] == pytest.approx(design.total_flow, rel=1e-9)
 
 
 @settings(max_examples=15, deadline=None)
@@ -470,6 +470,6 @@ def test_tree_check_text_and_json():
     assert ok and len(text.splitlines()) == 2 + 9
     data = json.loads(tree_check(top, as_json=True)[0])
     bed = next(r for r in data["levels"] if r["role"] == "bed")
-    expected = duct.wall_shear_floor(bed["width"], bed["depth"], bed["flow"], 0.95e-3)
+    expected = duct.wall_shear_floor(bed["width"], bed["depth"], bed["flow_per_channel"], 0.95e-3)
     assert bed["wall_shear_floor"] == pytest.approx(expected, rel=1e-9)
     assert data["units"]["wall_shear_floor"] == "Pa" and data["status"] == "pass"

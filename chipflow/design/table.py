@@ -12,10 +12,10 @@ shear of the level's channels against the window.
 
 from __future__ import annotations
 
-import numpy as np
-
 from chipflow.design.model import TreeDesign
 from chipflow.network import Solution
+from chipflow.network.summary import level_rows
+from chipflow.report.console import format_table
 from chipflow.spec.reader import Table
 
 __all__ = [
@@ -32,8 +32,8 @@ SI_UNITS = {
     "width": "m",
     "depth": "m",
     "length": "m",
-    "flow": "m^3/s",
-    "area_total": "m^2",
+    "flow_per_channel": "m^3/s",
+    "total_area": "m^2",
     "mean_velocity": "m/s",
     "wall_shear_floor": "Pa",
     "wall_shear_mean": "Pa",
@@ -41,6 +41,9 @@ SI_UNITS = {
     "reynolds": "1",
     "residence_time": "s",
     "pressure_drop": "Pa",
+    "flow_total": "m^3/s",
+    "pressure_in": "Pa",
+    "pressure_out": "Pa",
     "shear_target": "Pa",
     "shear_min": "Pa",
     "shear_max": "Pa",
@@ -62,48 +65,32 @@ def generation_table(design: TreeDesign, solution: Solution | None = None) -> li
     Returns
     -------
     list of dict
-        Keys: ``generation``, ``role``, the keys of :data:`SI_UNITS`, ``shear_kind`` and
-        ``status`` ("pass", "fail" or "" when no window applies).
+        The per-level means of :func:`chipflow.network.summary.level_rows`, plus
+        ``shear_target``, ``shear_min``, ``shear_max``, ``shear_kind`` and ``status``
+        ("pass", "fail", or "" when no window applies).
     """
     if solution is None:
         from chipflow.design.tree_network import solve_tree
 
         solution = solve_tree(design)
-    net = solution.network
+    by_level = {(r["role"], r["generation"]): r for r in level_rows(solution)}
     field = _KIND_FIELD[design.shear_kind]
     rows = []
     for level in design.levels:
-        mask = (net.role == level.role) & (net.generation == level.generation)
-        if not mask.any():
+        row = by_level.get((level.role, level.generation))
+        if row is None:
             continue
-        shear = getattr(solution, field)[mask]
-        area = np.where(
-            net.round[mask], np.pi / 4 * net.width[mask] ** 2, net.width[mask] * net.depth[mask]
-        )
         low, high = level.shear_min, level.shear_max
         status = ""
         if low is not None or high is not None:
-            ok = (low is None or shear.min() >= low * (1 - 1e-9)) and (
-                high is None or shear.max() <= high * (1 + 1e-9)
+            shear = row[field]
+            ok = (low is None or shear >= low * (1 - 1e-9)) and (
+                high is None or shear <= high * (1 + 1e-9)
             )
             status = "pass" if ok else "fail"
         rows.append(
             {
-                "generation": level.generation,
-                "role": level.role,
-                "count": int(mask.sum()),
-                "width": float(net.width[mask].mean()),
-                "depth": float(net.depth[mask].mean()),
-                "length": float(net.length[mask].mean()),
-                "flow": float(np.abs(solution.flow[mask]).mean()),
-                "area_total": float(area.sum()),
-                "mean_velocity": float(np.abs(solution.mean_velocity[mask]).mean()),
-                "wall_shear_floor": float(solution.wall_shear_floor[mask].mean()),
-                "wall_shear_mean": float(solution.wall_shear_mean[mask].mean()),
-                "wall_shear_max": float(solution.wall_shear_max[mask].mean()),
-                "reynolds": float(solution.reynolds[mask].max()),
-                "residence_time": float(solution.residence_time[mask].mean()),
-                "pressure_drop": float(np.abs(solution.pressure_drop[mask]).mean()),
+                **row,
                 "shear_target": level.shear_target,
                 "shear_min": low,
                 "shear_max": high,
@@ -139,8 +126,8 @@ _COLUMNS = (
     ("n", "count", "", None),
     ("width", "width", "um", 1e6),
     ("depth", "depth", "um", 1e6),
-    ("flow/ch", "flow", "uL/min", 6e10),
-    ("area", "area_total", "mm^2", 1e6),
+    ("flow/ch", "flow_per_channel", "uL/min", 6e10),
+    ("area", "total_area", "mm^2", 1e6),
     ("u_mean", "mean_velocity", "mm/s", 1e3),
     ("floor", "wall_shear_floor", "Pa", 1.0),
     ("mean", "wall_shear_mean", "Pa", 1.0),
@@ -181,13 +168,7 @@ def generation_table_text(design: TreeDesign, solution: Solution | None = None) 
             window = f"{low:.3g} - {high:.3g}"
         cells += [window, r["shear_kind"] if window else "", r["status"]]
         body.append(cells)
-    table = [header, units] + body
-    widths = [max(len(row[i]) for row in table) for i in range(len(header))]
-    lines = []
-    for row in table:
-        cells = [row[0].rjust(widths[0]), row[1].ljust(widths[1])]
-        cells += [c.rjust(widths[i + 2]) for i, c in enumerate(row[2:])]
-        lines.append("  ".join(cells).rstrip())
+    lines = [format_table([units, *body], header, "rl" + "r" * (len(header) - 2))]
     for warning in design.warnings:
         lines.append(f"warning: {warning}")
     return "\n".join(lines)

@@ -26,13 +26,14 @@ True
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from chipflow.network.model import Network
 from chipflow.network.solver import Solution
 
-__all__ = ["GenerationRow", "generation_rows", "level_groups", "ROLE_ORDER"]
+__all__ = ["GenerationRow", "generation_rows", "level_groups", "level_rows", "ROLE_ORDER"]
 
 #: Order of roles along the path from inlet to outlet.
 ROLE_ORDER = ("tubing", "port", "distribution", "bed", "collection")
@@ -138,3 +139,45 @@ def generation_rows(solution: Solution) -> tuple[GenerationRow, ...]:
             )
         )
     return tuple(rows)
+
+
+def level_rows(solution: Solution) -> list[dict[str, Any]]:
+    """One row per (role, generation) from inlet to outlet, means over the level's channels.
+
+    Channels without a generation (tubing, plain channels) are left out. Pressures at the
+    level's upstream and downstream ends are the means of its end-node pressures [Pa].
+    """
+    net = solution.network
+    rows = []
+    for role, generation, members in level_groups(net):
+        q = np.abs(solution.flow[members])
+        p_a = solution.pressure[net.node_a[members]]
+        p_b = solution.pressure[net.node_b[members]]
+        forward = solution.flow[members] >= 0
+        p_in = np.where(forward, p_a, p_b)
+        p_out = np.where(forward, p_b, p_a)
+        w, h = net.width[members], net.depth[members]
+        area = np.where(net.round[members], np.pi / 4 * w * w, w * h)
+        rows.append(
+            {
+                "generation": int(generation),
+                "role": str(role),
+                "count": int(members.size),
+                "width": float(w.mean()),
+                "depth": float(h.mean()),
+                "length": float(net.length[members].mean()),
+                "total_area": float(area.sum()),
+                "flow_per_channel": float(q.mean()),
+                "flow_total": float(q.sum()),
+                "mean_velocity": float(np.abs(solution.mean_velocity[members]).mean()),
+                "wall_shear_floor": float(solution.wall_shear_floor[members].mean()),
+                "wall_shear_mean": float(solution.wall_shear_mean[members].mean()),
+                "wall_shear_max": float(solution.wall_shear_max[members].mean()),
+                "reynolds": float(solution.reynolds[members].max()),
+                "residence_time": float(solution.residence_time[members].mean()),
+                "pressure_drop": float(np.abs(solution.pressure_drop[members]).mean()),
+                "pressure_in": float(p_in.mean()),
+                "pressure_out": float(p_out.mean()),
+            }
+        )
+    return rows
