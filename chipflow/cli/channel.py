@@ -6,10 +6,10 @@ import json
 
 import click
 
-from chipflow.cli.common import QUANTITY, echo_table
+from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.errors import SpecError
 from chipflow.physics.duct import DuctFlow, flow_state, resistance
-from chipflow.physics.fluid import Fluid, fluid_preset
+from chipflow.physics.fluid import Fluid
 
 __all__ = ["command", "channel_report", "SI_UNITS"]
 
@@ -96,13 +96,9 @@ _LAB_ROWS = (
 @click.option("--length", type=QUANTITY("length"), required=True, help="Length, e.g. 10mm.")
 @click.option("--flow", type=QUANTITY("flow"), help="Imposed flow rate, e.g. 5uL/min.")
 @click.option("--pressure", type=QUANTITY("pressure"), help="Imposed pressure drop, e.g. 2kPa.")
-@click.option(
-    "--fluid", type=click.Choice(["medium", "water"]), default="medium", show_default=True
-)
-@click.option("--temperature", type=QUANTITY("temperature"), help="Default 37degC (20 for water).")
-@click.option("--viscosity", type=QUANTITY("viscosity"), help="Override, e.g. 0.95mPa*s.")
+@fluid_options
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as one JSON object.")
-def command(width, depth, diameter, length, flow, pressure, fluid, temperature, viscosity, as_json):
+def command(width, depth, diameter, length, flow, pressure, fluid, as_json):
     """Flow, pressure, velocity and wall shear in one straight channel.
 
     \b
@@ -118,7 +114,7 @@ def command(width, depth, diameter, length, flow, pressure, fluid, temperature, 
         width,
         depth,
         length,
-        fluid_preset(fluid, temperature, viscosity),
+        fluid,
         flow,
         pressure,
         round_tube,

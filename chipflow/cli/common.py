@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import functools
+from collections.abc import Callable, Sequence
 
 import click
 
 from chipflow.errors import UnitError
+from chipflow.physics.fluid import fluid_preset
 from chipflow.report.console import format_table
 from chipflow.units import KINDS, to_si
 
-__all__ = ["QUANTITY", "echo_table", "format_table"]
+__all__ = ["QUANTITY", "echo_table", "format_table", "fluid_options"]
 
 
 class QUANTITY(click.ParamType):
@@ -41,3 +43,24 @@ class QUANTITY(click.ParamType):
 def echo_table(rows: Sequence[Sequence[str]], header: Sequence[str] | None = None) -> None:
     """Print :func:`format_table` to stdout."""
     click.echo(format_table(rows, header))
+
+
+def fluid_options(command: Callable) -> Callable:
+    """Add ``--fluid``, ``--temperature`` and ``--viscosity``; pass the command a ``fluid``."""
+
+    @click.option(
+        "--fluid",
+        "fluid_name",
+        type=click.Choice(["medium", "water"]),
+        default="medium",
+        show_default=True,
+    )
+    @click.option(
+        "--temperature", type=QUANTITY("temperature"), help="Default 37degC (20 for water)."
+    )
+    @click.option("--viscosity", type=QUANTITY("viscosity"), help="Override, e.g. 0.95mPa*s.")
+    @functools.wraps(command)
+    def with_fluid(*args, fluid_name, temperature, viscosity, **kwargs):
+        return command(*args, fluid=fluid_preset(fluid_name, temperature, viscosity), **kwargs)
+
+    return with_fluid

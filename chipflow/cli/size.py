@@ -6,9 +6,8 @@ import json
 
 import click
 
-from chipflow.cli.common import QUANTITY, echo_table
+from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.design.sizing import size_channel
-from chipflow.physics.fluid import fluid_preset
 
 __all__ = ["command", "SI_UNITS"]
 
@@ -57,14 +56,10 @@ _ROWS = (
     show_default=True,
     help="Which wall shear the target means (floor: centre of the floor).",
 )
-@click.option(
-    "--fluid", type=click.Choice(["medium", "water"]), default="medium", show_default=True
-)
-@click.option("--temperature", type=QUANTITY("temperature"), help="Default 37degC (20 for water).")
-@click.option("--viscosity", type=QUANTITY("viscosity"), help="Override, e.g. 0.95mPa*s.")
+@fluid_options
 @click.option("--grid", type=QUANTITY("length"), help="Snap the width to this mask grid, e.g. 1um.")
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as one JSON object.")
-def command(flow, depth, shear, kind, fluid, temperature, viscosity, grid, as_json):
+def command(flow, depth, shear, kind, fluid, grid, as_json):
     """Width of a rectangular channel whose wall shear meets a target.
 
     Solves the exact duct series for the width, then prints the shear (floor centre, mean,
@@ -74,9 +69,7 @@ def command(flow, depth, shear, kind, fluid, temperature, viscosity, grid, as_js
     Example:
       chipflow size --flow 2uL/min --depth 50um --shear 0.75Pa
     """
-    values = size_channel(
-        flow, depth, shear, fluid_preset(fluid, temperature, viscosity), kind, grid
-    )
+    values = size_channel(flow, depth, shear, fluid, kind, grid)
     if as_json:
         click.echo(json.dumps({**{k: values[k] for k in SI_UNITS}, "units": SI_UNITS}, indent=2))
         return
