@@ -16,7 +16,7 @@ from chipflow.export.gds import (
     GdsOptions,
     write_gds,
 )
-from chipflow.export.preview import plot_layout, write_preview
+from chipflow.export.preview import plot_layout, write_preview, write_previews
 from chipflow.spec.export import read_export
 from chipflow.spec.reader import parse_design_text
 
@@ -172,3 +172,37 @@ def test_export_section_reads_every_key():
 def test_export_section_errors_say_where(text, match):
     with pytest.raises(SpecError, match=match):
         read_export(parse_design_text("[export]\n" + text, "demo.toml"))
+
+
+def test_previews_drawn_once_match_single_previews(tmp_path):
+    # one figure saved as SVG and PNG gives the bytes of two separate single-file previews
+    values = np.arange(len(LAYOUT.channels.width), dtype=float)
+    together = write_previews(LAYOUT, [tmp_path / "t.svg", tmp_path / "t.png"], values=values)
+    assert [p.name for p in together] == ["t.svg", "t.png"]
+    for suffix in ("svg", "png"):
+        alone = write_preview(LAYOUT, tmp_path / f"alone.{suffix}", values=values)
+        assert alone.read_bytes() == (tmp_path / f"t.{suffix}").read_bytes()
+    with pytest.raises(ExportError, match=".svg or .png"):
+        write_previews(LAYOUT, [tmp_path / "ok.svg", tmp_path / "chip.pdf"])
+    assert not (tmp_path / "ok.svg").exists()  # suffixes are checked before anything is written
+
+
+def test_dense_previews_embed_the_shapes_as_one_image(tmp_path):
+    values = np.linspace(0.1, 1.2, len(LAYOUT.channels.width))
+    vector = plot_layout(LAYOUT, values=values)
+    assert not any(p.get_rasterized() for p in vector.layer_patches)
+    assert not vector.channel_collection.get_rasterized()
+    dense = plot_layout(LAYOUT, values=values, raster_above=0)
+    assert all(p.get_rasterized() for p in dense.layer_patches)
+    assert dense.channel_collection.get_rasterized()
+    # written with the shapes as an image: still byte-identical from run to run, and the
+    # SVG then holds them as an embedded PNG (data URI of an <image>, SVG 1.1 specification)
+    paths = [tmp_path / "a.svg", tmp_path / "b.svg"]
+    for path in paths:
+        write_previews(LAYOUT, [path], values=values, raster_above=0)
+    dense_svg = paths[0].read_bytes()
+    assert dense_svg == paths[1].read_bytes()
+    assert b"<image" in dense_svg and b"data:image/png;base64," in dense_svg
+    write_previews(LAYOUT, [tmp_path / "v.svg"], values=values)
+    # the colour bar is an image in both; the dense one adds the image of the shapes
+    assert dense_svg.count(b"<image") == (tmp_path / "v.svg").read_bytes().count(b"<image") + 1

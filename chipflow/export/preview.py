@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -21,12 +22,24 @@ from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
 from chipflow.layout.model import Layout
 
-__all__ = ["LayoutPlot", "plot_layout", "write_preview", "LAYER_COLOURS"]
+__all__ = [
+    "LayoutPlot",
+    "plot_layout",
+    "write_preview",
+    "write_previews",
+    "LAYER_COLOURS",
+    "RASTER_VERTICES",
+]
 
 #: Fill colours of the mask levels, shallowest first (our own palette), then cycling.
 LAYER_COLOURS = ("#3a7ca5", "#e07a2f", "#5c9e52", "#9a5fb0", "#c8455b", "#8a8a3c")
 _OUTLINE_COLOUR = "#4d4d4d"
 _PORT_COLOUR = "#222222"
+#: Above this many drawn vertices (mask shapes and channel fills together) those shapes are
+#: embedded in vector previews as one image at the preview resolution, so that the SVG of a
+#: bed of thousands of channels stays a few hundred kilobytes; outline, ports, text and the
+#: colour bar stay vector.
+RASTER_VERTICES = 20_000
 
 
 @dataclass(frozen=True)
@@ -137,11 +150,13 @@ def plot_layout(
     ax: Any = None,
     values: np.ndarray | None = None,
     value_label: str = "floor wall shear [Pa]",
+    raster_above: int | None = None,
 ) -> LayoutPlot:
     """Draw the chip: mask levels, outline, ports with names, a scale bar.
 
     When the network covers less than a quarter of the chip, the view zooms onto it and a
-    small map of the whole chip marks where it sits.
+    small map of the whole chip marks where it sits. Each mask level is one path and the
+    channels coloured by value are one collection, however many channels there are.
 
     Parameters
     ----------
@@ -154,6 +169,10 @@ def plot_layout(
         [Pa]; the channels are then filled by value, with a colour bar.
     value_label : str
         Colour-bar label, with its unit.
+    raster_above : int, optional
+        When the mask shapes and channel fills have more vertices than this (default
+        :data:`RASTER_VERTICES`), they are marked for rasterising: vector files then embed
+        them as an image at the preview resolution.
 
     Returns
     -------
@@ -176,10 +195,12 @@ def plot_layout(
 
     faded = values is not None
     patches = []
+    drawn = []
     for i, mask in enumerate(layout.layers):
         path = _path_of(mask.geometry, mm)
         if path is None:
             continue
+        drawn.append(len(path.vertices))
         colour = LAYER_COLOURS[i % len(LAYER_COLOURS)]
         patch = PathPatch(
             path,
@@ -188,7 +209,9 @@ def plot_layout(
             alpha=0.25 if faded else 0.85,
             label=f"{mask.name} ({mask.depth * 1e6:g} um deep)",
         )
-        ax.add_patch(patch)
+        # add_artist, not add_patch: the view limits are set below, and updating the data
+        # limits from a path walks every vertex in Python
+        ax.add_artist(patch)
         patches.append(patch)
 
     collection = colorbar = None
@@ -207,9 +230,15 @@ def plot_layout(
         cuts = np.flatnonzero(np.diff(idx)) + 1
         collection = PolyCollection(np.split(xy * mm, cuts), cmap="viridis", edgecolors="none")
         collection.set_array(vals[owner])
-        ax.add_collection(collection)
+        ax.add_collection(collection, autolim=False)
+        drawn.append(len(xy))
         colorbar = ax.figure.colorbar(collection, ax=ax, shrink=0.8)
         colorbar.set_label(value_label)
+
+    if sum(drawn) > (RASTER_VERTICES if raster_above is None else raster_above):
+        for artist in (*patches, collection):
+            if artist is not None:
+                artist.set_rasterized(True)
 
     for port in layout.ports:
         ax.add_patch(
@@ -271,18 +300,59 @@ def write_preview(
     value_label : str
         Colour-bar label, with its unit.
     """
+    (written,) = write_previews(layout, [path], values=values, value_label=value_label)
+    return written
+
+
+def write_previews(
+    layout: Layout,
+    paths: Sequence[str | os.PathLike],
+    values: np.ndarray | None = None,
+    value_label: str = "floor wall shear [Pa]",
+    raster_above: int | None = None,
+) -> list[Path]:
+    """Draw the chip once and write it to several files, e.g. ``shear.svg`` and ``shear.png``.
+
+    Each file has the same bytes as :func:`write_preview` gives for it alone; drawing once
+    saves the figure set-up for every further format.
+
+    Parameters
+    ----------
+    layout : Layout
+    paths : sequence of str or path-like
+        ``.svg`` or ``.png`` files; each written atomically.
+    values : numpy.ndarray, optional
+        One value per channel for colouring (see :func:`plot_layout`).
+    value_label : str
+        Colour-bar label, with its unit.
+    raster_above : int, optional
+        As :func:`plot_layout`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The written files, in the order given.
+    """
     import matplotlib
 
-    path = Path(path)
-    fmt = path.suffix.lower().lstrip(".")
-    if fmt not in ("svg", "png"):
-        raise ExportError(f"{path}: a preview is written as .svg or .png, not {path.suffix!r}")
-    metadata = {"Date": None, "Creator": "chipflow"} if fmt == "svg" else {"Software": "chipflow"}
+    paths = [Path(p) for p in paths]
+    for path in paths:
+        if path.suffix.lower() not in (".svg", ".png"):
+            raise ExportError(f"{path}: a preview is written as .svg or .png, not {path.suffix!r}")
+    written = []
     with matplotlib.rc_context({"svg.hashsalt": "chipflow", "svg.fonttype": "path"}):
-        plot = plot_layout(layout, values=values, value_label=value_label)
+        plot = plot_layout(
+            layout, values=values, value_label=value_label, raster_above=raster_above
+        )
         fig = plot.ax.figure
+        for path in paths:
+            fmt = path.suffix.lower().lstrip(".")
+            metadata = (
+                {"Date": None, "Creator": "chipflow"} if fmt == "svg" else {"Software": "chipflow"}
+            )
 
-        def save(tmp: Path) -> None:
-            fig.savefig(tmp, format=fmt, metadata=metadata, dpi=150)
+            def save(tmp: Path, fmt: str = fmt, metadata: dict = metadata) -> None:
+                fig.savefig(tmp, format=fmt, metadata=metadata, dpi=150)
 
-        return atomic_write(path, save, f"{fmt.upper()} preview")
+            written.append(atomic_write(path, save, f"{fmt.upper()} preview"))
+    return written
