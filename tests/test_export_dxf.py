@@ -334,3 +334,52 @@ def test_strip_fallback_when_no_bridges_are_found(monkeypatch):
         assert shapely.symmetric_difference(union, g).area <= g.length
     with pytest.raises(ExportError, match="holes = 'split'"):
         resolve_holes(target, "keyhole")
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(st.tuples(st.integers(-9, 9), st.integers(-9, 9)), min_size=1, max_size=25),
+    st.lists(st.tuples(st.integers(-9, 9), st.integers(-9, 9)), min_size=1, max_size=40),
+    st.integers(1, 1200),
+)
+def test_nearest_pairs_follow_a_stable_sort_of_all_distances(a, b, count):
+    # independent reference: numpy's stable argsort of the full squared-distance matrix
+    from chipflow.export.geometry import _nearest_pairs
+
+    a, b = np.array(a, dtype=float), np.array(b, dtype=float)
+    d2 = ((a[:, None, :] - b[None, :, :]) ** 2).sum(axis=2)
+    ref = [divmod(int(k), len(b)) for k in np.argsort(d2, axis=None, kind="stable")[:count]]
+    assert list(_nearest_pairs(a, b, count)) == ref
+
+
+def test_on_grid_layout_is_rounded_to_the_same_shapes_as_a_precision_reduction():
+    from chipflow.export.geometry import _to_grid
+
+    for mask in LAYOUT.layers:
+        fast = _to_grid(mask.geometry, LAYOUT.grid)
+        scaled = shapely.transform(mask.geometry, lambda c: c / LAYOUT.grid)
+        reduced = shapely.set_precision(scaled, 1.0)  # GEOS valid-output snap rounding
+        assert shapely.equals_exact(shapely.normalize(fast), shapely.normalize(reduced))
+    # off the grid: snapped by the precision reduction (every vertex a whole grid unit)
+    off = shapely.box(0.3e-6, 0.3e-6, 10.26e-6, 5.04e-6)
+    snapped = _to_grid(off, LAYOUT.grid)
+    xy = shapely.get_coordinates(snapped)
+    assert np.array_equal(xy, np.rint(xy)) and snapped.is_valid
+
+
+def test_prepared_layout_is_shared_by_the_writers_of_one_layout():
+    from chipflow.export.geometry import prepare_layout
+
+    first = prepare_layout(LAYOUT)
+    assert prepare_layout(LAYOUT) is first
+    other = prepare_layout(LAYOUT, mirror=True)
+    assert other is not first and prepare_layout(LAYOUT, mirror=True) is other
+    # an equal but distinct layout is prepared afresh, to the same shapes
+    twin = prepare_layout(dataclasses.replace(LAYOUT))
+    assert twin is not first
+    for mine, theirs in zip(first.layers, twin.layers, strict=True):
+        assert len(mine.rings) == len(theirs.rings)
+        assert all(np.array_equal(p, q) for p, q in zip(mine.rings, theirs.rings, strict=True))
+    # shared arrays cannot be changed by one writer behind another's back
+    with pytest.raises(ValueError):
+        first.layers[0].rings[0][0, 0] = 1.0

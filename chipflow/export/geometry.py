@@ -29,6 +29,7 @@ Examples
 from __future__ import annotations
 
 import math
+import weakref
 from collections.abc import Iterator
 from dataclasses import dataclass
 
@@ -427,7 +428,33 @@ def prepare_layout(
         from the chrome side of the mask).
     holes : {"split", "keyhole"}
         How islands inside a shape are written (see the module notes).
+
+    Notes
+    -----
+    The result for the last few layouts is kept while the layout object lives, so that the
+    DXF and GDSII writers of one build prepare the chip once. A layout is a frozen dataclass
+    of immutable shapes, so the same object always prepares to the same result.
     """
+    key = (id(layout), polarity, mirror, holes)
+    hit = _PREPARED.get(key)
+    if hit is not None and hit[0]() is layout:
+        return hit[1]
+    prepared = _prepare_layout(layout, polarity, mirror, holes)
+    try:
+        ref = weakref.ref(layout)
+    except TypeError:  # pragma: no cover - a layout-like object without weak references
+        return prepared
+    while len(_PREPARED) >= _PREPARED_KEEP:
+        del _PREPARED[next(iter(_PREPARED))]
+    _PREPARED[key] = (ref, prepared)
+    return prepared
+
+
+_PREPARED: dict[tuple, tuple[weakref.ref, PreparedLayout]] = {}
+_PREPARED_KEEP = 4
+
+
+def _prepare_layout(layout: Layout, polarity: str, mirror: bool, holes: str) -> PreparedLayout:
     if polarity not in POLARITIES:
         raise ExportError(f"unknown polarity {polarity!r} (valid: {', '.join(POLARITIES)})")
     grid = layout.grid
@@ -466,4 +493,11 @@ def prepare_layout(
         (p.name, circle_ring(c[0], c[1], p.diameter / 2 / grid))
         for p, c in zip(layout.ports, centres, strict=True)
     )
+    for array in (
+        outline_ring,
+        centres,
+        *(ring for _, ring in ports),
+        *(ring for layer in layers for ring in layer.rings),
+    ):
+        array.flags.writeable = False  # shared by the writers of a build (see prepare_layout)
     return PreparedLayout(nm, tuple(layers), outline_ring, ports, centres, mirror, polarity)
