@@ -130,6 +130,18 @@ def _offset_ring(trace: _Trace, width: float) -> np.ndarray:
     return np.concatenate((left, right[::-1]))
 
 
+def _split(trace: _Trace, cut: float) -> tuple[_Trace, _Trace]:
+    """``trace`` cut ``cut`` [m] before its end, inside its last straight run along +x.
+
+    Both parts share the very same cut point, so their outlines share two exact vertices.
+    """
+    point = trace.xy[-1] - (cut, 0.0)
+    head_xy = np.concatenate((trace.xy[:-1], point[None]))
+    tail_xy = np.stack((point, trace.xy[-1]))
+    head = _Trace(head_xy, trace.heading, trace.length - cut, trace.bends)
+    return head, _Trace(tail_xy, trace.heading[-2:], cut, 0)
+
+
 def _fork(a: float, radius: float) -> tuple[float, float]:
     """Exit angle [rad] and straight lead [m] of a child offset sideways by ``a``."""
     if a >= radius:
@@ -218,6 +230,29 @@ def _plan(design: TreeDesign, chip: Chip, rules: LayoutRules, runs: int) -> _Pla
         height,
         2 * bend_len,
     )
+
+
+def _cuts(design: TreeDesign, plan: _Plan, rules: LayoutRules) -> list[float | None]:
+    """Where to cut the channels of each generation 0..n-1 for merging the mask layers.
+
+    A channel of generation g ends with a straight run along +x into the junction of
+    generation g (the trunk is all straight; its collecting mirror starts with it). It is cut
+    across that run, ``cut`` [m] before the junction, clear of everything drawn around the
+    junction: the children's flat ends and the disc (half the widest width) and the
+    alignment overlap (plus ``alignment_margin``). All None when some run is too short.
+    """
+    n = design.generations
+    coll = {lv.generation: lv for lv in design.collection}
+    width = [max(design.distribution[g].width, coll[g].width) for g in range(n)]
+    width.append(design.bed.width)
+    cuts: list[float | None] = []
+    for g in range(n):
+        run = plan.trunk if g == 0 else float(plan.straight[g])
+        clear = max(width[g], width[g + 1]) / 2 + rules.alignment_margin
+        if not clear + rules.grid < run:
+            return [None] * n
+        cuts.append(0.5 * (clear + run))
+    return cuts
 
 
 def _choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> _Plan:
@@ -312,23 +347,48 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     bed = design.bed
 
     parts: list[dict] = []  # one entry per level, in channel order
+    # fragments of the mask layers: (polygons, depth, node whose neighbourhood they join)
+    frags: list[tuple[np.ndarray, float, np.ndarray]] = []
+    cuts = _cuts(design, plan, rules)
 
-    def add(role, level, traces, starts, node_a, node_b, index, mirror=False):
-        """All channels of one level from its up/down templates, vectorised."""
+    def add(role, level, traces, starts, node_a, node_b, index, mirror=False, cut=None):
+        """All channels of one level from its up/down templates, vectorised.
+
+        ``cut`` (distance from the template's end [m], within its last straight run along
+        +x) splits each outline into two fragments for the mask layers: the part up to the
+        cut joins the junction where the template starts, the rest the one where it ends.
+        """
         sign = np.asarray(traces["sign"])  # (count,) +1 upper, -1 lower
         up, down = traces[1], traces[-1]
         xy = np.where(sign[:, None, None] > 0, up.xy[None], down.xy[None]) + starts[:, None, :]
-        ring_up, ring_down = _offset_ring(up, level.width), _offset_ring(down, level.width)
-        ring = np.where(sign[:, None, None] > 0, ring_up[None], ring_down[None])
-        ring = ring + starts[:, None, :]
+
+        def rings(tr_up, tr_down):
+            ring_up, ring_down = (
+                _offset_ring(tr_up, level.width),
+                _offset_ring(tr_down, level.width),
+            )
+            ring = np.where(sign[:, None, None] > 0, ring_up[None], ring_down[None])
+            ring = ring + starts[:, None, :]
+            if mirror:  # collection: mirror about x_mid, lift by the serpentine rise
+                ring = np.stack((2 * x_mid - ring[..., 0], ring[..., 1] + rise), axis=-1)
+            return shapely.polygons(ring)
+
         if mirror:  # collection: mirror about x_mid, lift by the serpentine rise, reverse
             xy = np.stack((2 * x_mid - xy[..., 0], xy[..., 1] + rise), axis=-1)[:, ::-1]
-            ring = np.stack((2 * x_mid - ring[..., 0], ring[..., 1] + rise), axis=-1)
+        outline = rings(up, down)
+        # the template starts at node_a (node_b when mirrored, as the flow runs backwards)
+        first, last = (node_b, node_a) if mirror else (node_a, node_b)
+        if cut is None:
+            frags.append((outline, level.depth, first))
+        else:
+            (head_up, tail_up), (head_down, tail_down) = _split(up, cut), _split(down, cut)
+            frags.append((rings(head_up, head_down), level.depth, first))
+            frags.append((rings(tail_up, tail_down), level.depth, last))
         count = sign.size
         parts.append(
             dict(
                 centreline=shapely.linestrings(xy),
-                outline=shapely.polygons(ring),
+                outline=outline,
                 length=np.full(count, up.length),
                 width=np.full(count, level.width),
                 depth=np.full(count, level.depth),
@@ -353,12 +413,13 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     trunk[-1] = trunk[1]
     dist_nodes = [d0 + level_start[k] + np.arange(2**k) for k in range(n)]
     coll_nodes = [c0 + level_start[k] + np.arange(2**k) for k in range(n)]
-    add("distribution", dist[0], trunk, node_xy[[0]], np.array([0]), dist_nodes[0], np.array([0]))
+    trunk_nodes = (np.array([0]), dist_nodes[0], np.array([0]))
+    add("distribution", dist[0], trunk, node_xy[[0]], *trunk_nodes, cut=cuts[0])
     for g in range(1, n):
         i = np.arange(2**g)
         tr = tree_traces(g, i.size)
         parent = dist_nodes[g - 1][i // 2]
-        add("distribution", dist[g], tr, node_xy[parent], parent, dist_nodes[g], i)
+        add("distribution", dist[g], tr, node_xy[parent], parent, dist_nodes[g], i, cut=cuts[g])
     # bed
     i = np.arange(n_bed)
     th, lead, r = plan.theta[n], plan.lead_in[n], plan.radius[n]
@@ -392,6 +453,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
             coll_nodes[g - 1][i // 2],
             i,
             mirror=True,
+            cut=cuts[g],
         )
     add(
         "collection",
@@ -402,6 +464,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         np.array([1]),
         np.array([0]),
         mirror=True,
+        cut=cuts[0],
     )
 
     cat = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
@@ -409,13 +472,6 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     # layers
     depths = np.unique(np.round(cat["depth"], 12))
     layer = np.searchsorted(depths, np.round(cat["depth"], 12))
-    n_layers = depths.size
-    empty = shapely.Polygon()
-    # per layer: each channel's piece (its outline, or an alignment overlap of it) and each
-    # node's extra (junction disc, port pad); merged below subtree by subtree
-    piece = np.full((n_layers, layer.size), empty, dtype=object)
-    piece[layer, np.arange(layer.size)] = cat["outline"]
-    extra = np.full((n_layers, node_xy.shape[0]), empty, dtype=object)
 
     # junction discs and alignment overlaps, node by node level (vectorised per level)
     node_pts = shapely.points(node_xy)
@@ -424,17 +480,16 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         nodes = np.unique(cat["node_b"][a_sel])
         wa, wb = cat["width"][a_sel][0], cat["width"][b_sel][0]
         da, db = cat["depth"][a_sel][0], cat["depth"][b_sel][0]
-        deep = layer[a_sel][0] if da >= db else layer[b_sel][0]
+        deep = max(da, db)
         radius = max(wa, wb) / 2
         if plan.theta[k + 1] < math.pi / 2 - 1e-9:  # a Y: blunt the wall tip between children
-            extra[deep, nodes] = shapely.buffer(node_pts[nodes], radius, quad_segs=16)
+            frags.append((shapely.buffer(node_pts[nodes], radius, quad_segs=16), deep, nodes))
         if not math.isclose(da, db, rel_tol=1e-9):
             shallow = np.flatnonzero(b_sel if da > db else a_sel)
             # the overlap reaches alignment_margin past the junction disc along each channel
             ends = cat["node_a"][shallow] if da > db else cat["node_b"][shallow]
             reach = shapely.buffer(node_pts[ends], radius + rules.alignment_margin, quad_segs=16)
-            stub = shapely.intersection(cat["outline"][shallow], reach)
-            piece[deep, shallow] = shapely.union(piece[deep, shallow], stub)
+            frags.append((shapely.intersection(cat["outline"][shallow], reach), deep, ends))
 
     # ports: hole-sized pads joined to their channel
     ports = (
@@ -445,11 +500,21 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         half, rim = cat["width"][ch] / 2, node_xy[node, 0]
         neck = shapely.box(min(port.x, rim), port.y - half, max(port.x, rim), port.y + half)
         pad = shapely.union(shapely.Point(port.x, port.y).buffer(r_hole, quad_segs=32), neck)
-        extra[layer[ch], node] = pad
+        frags.append((np.array([pad]), cat["depth"][ch], np.array([node])))
 
+    # every fragment joins the neighbourhood of one junction; the two ends of a pair of bed
+    # channels form one neighbourhood (the pair encloses the wall between them)
+    hood = np.arange(node_xy.shape[0])
+    hood[coll_nodes[n - 1]] = dist_nodes[n - 1]
+    geoms = np.concatenate([f[0] for f in frags])
+    f_layer = np.concatenate(
+        [np.full(f[0].size, np.searchsorted(depths, np.round(f[1], 12))) for f in frags]
+    )
+    f_hood = np.concatenate([hood[f[2]] for f in frags])
     layers = []
     for li, depth in enumerate(depths):
-        merged = _merge_layer(piece[li], extra[li])
+        sel = f_layer == li
+        merged = _merge_layer(geoms[sel], f_hood[sel] if cuts[0] is not None else None)
         merged = _snap_to_grid(merged, grid)
         layers.append(MaskLayer(layer_name(li + 1, float(depth)), float(depth), merged))
 
@@ -507,16 +572,139 @@ def _snap(value: float, grid: float) -> float:
     return round(value / grid) * grid
 
 
-def _merge_layer(piece: np.ndarray, extra: np.ndarray) -> shapely.Geometry:
-    """Union of one layer: channel pieces and node extras (discs, pads) [m].
+def _merge_layer(geoms: np.ndarray, hood: np.ndarray | None) -> shapely.Geometry:
+    """Union of the fragments of one mask layer [m], in linear time.
 
-    GEOS's cascaded union already merges neighbours first (it groups by an R-tree); tried
-    alternatives (merging subtree by subtree, the two hole-free half trees joined once, or
-    snapping each piece to the grid before the union) measured slower: the cost lies in
-    overlaying polygons with many holes (the walls between the bed channels).
+    Fragments overlap only near the junction whose neighbourhood ``hood`` they join, and
+    neighbourhoods meet only along the cuts across straight runs, where both sides share the
+    same two vertices (see :func:`_cuts`). So each neighbourhood is merged on its own (a
+    handful of small polygons), and the merged neighbourhoods, which then form a polygonal
+    coverage, are joined by a coverage union, which only drops their shared edges. One big
+    overlay of the whole layer is superlinear: the walls between bed channels make thousands
+    of holes. Should the pieces not form a clean coverage (or ``hood`` is None, when a cut
+    did not fit), the plain union of all fragments is taken instead.
     """
-    geoms = np.concatenate((piece, extra))
-    return shapely.union_all(geoms[~shapely.is_empty(geoms)])
+    geoms = np.asarray(geoms, dtype=object)
+    keep = ~shapely.is_empty(geoms)
+    geoms = geoms[keep]
+    if hood is None or geoms.size == 0:
+        return shapely.union_all(geoms)
+    hood = hood[keep]
+    order = np.argsort(hood, kind="stable")
+    _, start, count = np.unique(hood[order], return_index=True, return_counts=True)
+    table = np.full((start.size, int(count.max())), None, dtype=object)
+    column = np.arange(order.size) - np.repeat(start, count)
+    table[np.repeat(np.arange(start.size), count), column] = geoms[order]
+    local = shapely.union_all(table, axis=1)
+    merged = _stitch(local)
+    area = shapely.area(local).sum()
+    if merged is not None and merged.is_valid and abs(merged.area - area) <= 1e-9 * area:
+        return merged
+    return shapely.union_all(geoms)
+
+
+def _stitch(local: np.ndarray) -> shapely.Geometry | None:
+    """Join polygons that meet only along whole shared edges (a coverage) [m], in numpy.
+
+    Every ring edge shared by two polygons (run once each way) is dropped, the other edges
+    are chained into rings vertex to vertex, and each ring goes to the polygon of its
+    connected group, as shell (the orientation of the input shells) or hole. Vertices that
+    only served the shared edges and lie on a straight run are dropped too. None when the
+    input is no such coverage (a vertex with two ways on).
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    local = local[~shapely.is_empty(local)]
+    polys = shapely.get_parts(local)
+    rings, ring_poly = shapely.get_rings(polys, return_index=True)
+    xy, ring_of = shapely.get_coordinates(rings, return_index=True)
+    # edges a -> b inside each closed ring
+    last = np.r_[ring_of[1:] != ring_of[:-1], True]
+    a_xy, b_xy = xy[:-1][~last[:-1]], xy[1:][~last[:-1]]
+    edge_poly = ring_poly[ring_of[:-1][~last[:-1]]]
+    ends = np.concatenate((a_xy, b_xy))
+    # vertices compared exactly: a complex number sorts by x, then y
+    vert, vid = np.unique(ends[:, 0] + 1j * ends[:, 1], return_inverse=True)
+    vert, vid = np.column_stack((vert.real, vert.imag)), vid.ravel()
+    a, b = vid[: a_xy.shape[0]], vid[a_xy.shape[0] :]
+    nv = vert.shape[0]
+    # shared edges: the same pair of vertices, once each way
+    key = np.minimum(a, b).astype(np.int64) * nv + np.maximum(a, b)
+    _, inv, cnt = np.unique(key, return_inverse=True, return_counts=True)
+    shared = cnt[inv] == 2
+    if np.any(cnt > 2):
+        return None
+    # polygons joined by shared edges form one output polygon
+    sa = np.flatnonzero(shared)
+    order = np.argsort(key[sa], kind="stable")
+    pairs = sa[order].reshape(-1, 2)
+    sb = edge_poly[pairs]
+    n_poly = polys.size
+    link = coo_matrix((np.ones(len(sb)), (sb[:, 0], sb[:, 1])), shape=(n_poly, n_poly))
+    _, group = connected_components(link, directed=False)
+    keep = ~shared
+    a, b, e_group = a[keep], b[keep], group[edge_poly[keep]]
+    succ = np.full(nv, -1)
+    succ[a] = b
+    if np.bincount(a, minlength=nv).max() > 1 or np.bincount(b, minlength=nv).max() > 1:
+        return None
+    grp_of_v = np.full(nv, -1)
+    grp_of_v[a] = e_group
+    # drop vertices that only served shared edges and lie on a straight horizontal run
+    pred = np.full(nv, -1)
+    pred[b] = a
+    on_cut = np.zeros(nv, dtype=bool)
+    on_cut[np.concatenate((vid[: a_xy.shape[0]][shared], vid[a_xy.shape[0] :][shared]))] = True
+    used = succ >= 0
+    flat = used & on_cut
+    flat[flat] = (vert[pred[flat], 1] == vert[flat, 1]) & (vert[succ[flat], 1] == vert[flat, 1])
+    # rings: cycles of succ; label them, start each at its smallest vertex, rank by doubling
+    verts = np.flatnonzero(used)
+    cyc = coo_matrix((np.ones(verts.size), (verts, succ[verts])), shape=(nv, nv))
+    _, label = connected_components(cyc, directed=True, connection="strong")
+    first = np.full(label.max() + 1, nv)
+    np.minimum.at(first, label[verts], verts)
+    nxt = succ.copy()
+    nxt[pred[first[label[verts]]][np.isin(verts, first)]] = -1  # break each cycle before start
+    tail = np.flatnonzero(used & (nxt < 0))
+    nxt[tail] = tail
+    rank = np.where(used, 1, 0)
+    rank[tail] = 0
+    while True:
+        jump = nxt[nxt]
+        if np.array_equal(jump, nxt):
+            break
+        rank = rank + np.where(used, rank[nxt], 0)
+        nxt = jump
+    sel = verts[~flat[verts]]
+    sel = sel[np.lexsort((-rank[sel], label[sel]))]
+    ring_label = label[sel]
+    # orientation of each output ring; shells turn as the input shells do
+    ring_ids, start, count = np.unique(ring_label, return_index=True, return_counts=True)
+    if np.any(count < 3):
+        return None
+    x, y = vert[sel, 0], vert[sel, 1]
+    nxt_i = np.arange(sel.size) + 1
+    nxt_i[start + count - 1] = start
+    area = np.add.reduceat(x * y[nxt_i] - x[nxt_i] * y, start) / 2
+    ext = shapely.get_coordinates(shapely.get_exterior_ring(polys[0]))
+    shell_sign = np.sign(np.sum(ext[:-1, 0] * ext[1:, 1] - ext[1:, 0] * ext[:-1, 1]))
+    is_shell = np.sign(area) == shell_sign
+    r_group = grp_of_v[sel[start]]
+    shells_per_group = np.bincount(r_group[is_shell], minlength=group.max() + 1)
+    if np.any(shells_per_group != 1):
+        return None
+    # polygons: shell first, then holes, ordered by the shell's first vertex
+    shell_rank = np.full(group.max() + 1, 0)
+    shell_rank[r_group[is_shell]] = np.argsort(np.argsort(sel[start][is_shell]))
+    ring_order = np.lexsort((~is_shell, shell_rank[r_group]))
+    ring_geoms = shapely.linearrings(
+        np.column_stack((x, y)), indices=np.repeat(np.arange(ring_ids.size), count)
+    )
+    ring_geoms = ring_geoms[ring_order]
+    out = shapely.polygons(ring_geoms, indices=shell_rank[r_group][ring_order])
+    return out[0] if out.size == 1 else shapely.multipolygons(out)
 
 
 def _junction_pairs(cat: dict, n: int):
