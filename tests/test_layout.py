@@ -243,3 +243,30 @@ def test_rules_from_fabrication_duck_typed():
         3.0,
         1e-3,
     )
+
+
+@pytest.mark.parametrize("depths", [[50e-6] * 5, [80e-6, 80e-6, 80e-6, 40e-6, 40e-6]])
+def test_mask_layers_match_a_plain_union_of_the_drawn_pieces(depths):
+    # the layers are merged junction by junction and stitched along shared edges; the
+    # reference here is one overlay of all channel outlines of the layer by GEOS (shapely)
+    design = tree(4, [400e-6, 300e-6, 200e-6, 150e-6, 100e-6], depths, 5e-3)
+    layout = draw(design)
+    ch = layout.channels
+    for li, layer in enumerate(layout.layers):
+        geometry = layer.geometry
+        assert geometry.is_valid
+        reference = shapely.union_all(ch.outline[ch.layer == li])
+        # the layer adds only port pads, junction discs and alignment overlaps
+        missing = shapely.difference(reference, geometry).area
+        # grid snapping moves each vertex by at most half a grid step: a band along the edges
+        assert missing <= 0.5 * layout.grid * reference.length
+        # the walls between bed channels are holes of the bed's layer: one wall between each
+        # two neighbouring bed channels of the same shallow subtree (counted by hand: one
+        # subtree of 16 bed channels, or four subtrees of 4 below the 80 um generations)
+        if li == ch.layer[ch.role == "bed"][0]:
+            holes = sum(len(p.interiors) for p in getattr(geometry, "geoms", [geometry]))
+            assert holes == (16 - 1 if len(layout.layers) == 1 else 4 * (4 - 1))
+    # the same design draws the same vertices in the same order
+    again = draw(design)
+    for a, b in zip(layout.layers, again.layers, strict=True):
+        assert shapely.to_wkb(a.geometry) == shapely.to_wkb(b.geometry)
