@@ -67,7 +67,7 @@ def design_text(n: int) -> str:
         n=n,
         flow=round(2**n * 0.1, 6),
         width=max(75.0, 2**n * 0.1 + 60),
-        height=max(25.0, 2**n * 0.06 + 20),
+        height=max(25.0, 2**n * 0.065 + 20),
     )
 
 
