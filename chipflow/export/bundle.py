@@ -163,7 +163,7 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     """
     from chipflow.export.dxf import write_dxf
     from chipflow.export.gds import write_gds
-    from chipflow.export.preview import write_preview
+    from chipflow.export.preview import write_previews
     from chipflow.report import profile_figure, svg_text, write_report
 
     progress = progress or (lambda stage: None)
@@ -180,8 +180,7 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             progress("previews")
             shear = build.solution.wall_shear_floor[: layout.channels.length.size]
             for stem, values in (("layout", None), ("shear", shear)):
-                for suffix in ("svg", "png"):
-                    write_preview(layout, stage / f"{stem}.{suffix}", values=values)
+                write_previews(layout, [stage / f"{stem}.svg", stage / f"{stem}.png"], values)
             figures["The chip as drawn"] = (stage / "layout.svg").read_text(encoding="utf-8")
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
                 encoding="utf-8"
