@@ -49,9 +49,10 @@ def test_example_json_structure_and_values() -> None:
     q = 5e-9 / 60  # the syringe pump's 5 uL/min
     assert ports["pump"]["flow"] == pytest.approx(q, rel=1e-12)
     assert ports["reservoir"]["flow"] == pytest.approx(-q, rel=1e-12)
-    # Outlet reservoir 1 cm of liquid: rho g h (standard gravity 9.80665 m/s^2).
+    # Outlet reservoir 1 cm of liquid: rho g h, analytic hydrostatics (source of g: standard
+    # gravity 9.80665 m/s^2, CGPM 1901).
     assert nodes["reservoir"] == pytest.approx(rho * 9.80665 * 0.01, rel=1e-12)
-    # Feed tubing: Hagen-Poiseuille, 128 mu L Q / (pi d^4), 30 cm of 0.51 mm bore.
+    # Feed tubing: Hagen-Poiseuille (analytic), 128 mu L Q / (pi d^4), 30 cm of 0.51 mm bore.
     dp = 128 * mu * 0.30 * q / (math.pi * 0.51e-3**4)
     assert channels["feed tubing"]["pressure_drop"] == pytest.approx(dp, rel=1e-9)
     assert nodes["pump"] - nodes["inlet"] == pytest.approx(dp, rel=1e-9)

@@ -154,5 +154,6 @@ def test_design_file_round_trip() -> None:
     assert d.network.round.tolist() == [True, False]
     assert d.network.width[0] == d.network.depth[0] == pytest.approx(0.5e-3)
     # Gravity reservoir: rho g h with the fluid's density and standard gravity.
+    # analytic hydrostatics rho g h; source of g: standard gravity 9.80665 m/s^2 (CGPM 1901)
     assert d.pressures == {"a": pytest.approx(d.fluid.density * 9.80665 * 0.02), "b": 0.0}
     assert d.flows == {} and d.supplies["a"].label == "gravity reservoir"

@@ -35,11 +35,13 @@ def test_json_width_reproduces_target():
     )
     out = json.loads(result.output)
     mu = water(298.15).viscosity
-    assert out["viscosity"] == pytest.approx(890.02e-6, rel=1e-4)  # IAPWS 2008 at 25 C
+    assert out["viscosity"] == pytest.approx(
+        890.02e-6, rel=1e-4
+    )  # source: IAPWS 2008 at 25 C (REFERENCES.md)
     tau = duct.wall_shear_floor(out["width"], 20e-6, 20e-9 / 60, mu)
     assert tau == pytest.approx(1.0, rel=1e-3)
     plates = 6 * mu * (20e-9 / 60) / (1.0 * (20e-6) ** 2)
-    assert out["width"] == pytest.approx(plates, rel=0.02)  # h/w ~ 0.003: plates within 2 %
+    assert out["width"] == pytest.approx(plates, rel=0.02)  # analytic limit: plates, h/w ~ 0.003
     assert out["units"]["width"] == "m"
 
 

@@ -11,7 +11,7 @@ from hypothesis import strategies as st
 from chipflow.errors import ChipflowError, UnitError
 from chipflow.units import from_si, to_si, ureg
 
-# Conversion factors are exact SI definitions (BIPM SI brochure): 1 uL = 1e-9 m^3,
+# Source: exact SI definitions (BIPM SI brochure): 1 uL = 1e-9 m^3,
 # 1 dyn/cm^2 = 0.1 Pa, 0 degC = 273.15 K.
 CASES = [
     ("50 um", "length", 50e-6),
