@@ -32,6 +32,7 @@ import numpy as np
 
 from chipflow.network.model import Network
 from chipflow.network.solver import Solution
+from chipflow.physics.duct import cross_section_area
 
 __all__ = ["GenerationRow", "generation_rows", "level_groups", "level_rows", "ROLE_ORDER"]
 
@@ -157,7 +158,7 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
         p_in = np.where(forward, p_a, p_b)
         p_out = np.where(forward, p_b, p_a)
         w, h = net.width[members], net.depth[members]
-        area = np.where(net.round[members], np.pi / 4 * w * w, w * h)
+        area = cross_section_area(w, h, net.round[members])
         rows.append(
             {
                 "generation": int(generation),
