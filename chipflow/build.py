@@ -257,7 +257,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
         window,
     )
     results["fabrication"] = _fabrication_dict(layout, export, findings)
-    results["warnings"] = list(design.warnings)
+    results["warnings"] = [*design.warnings, *layout.warnings]
     return Build(
         source,
         spec.name,

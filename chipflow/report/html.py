@@ -58,7 +58,7 @@ _CSS = """
   --warn: #8a5a00; --fail: #a3262a; --pass-bg: #e3f2e8; --warn-bg: #fbefd5;
   --fail-bg: #f8dede; --band: #f5f7f9; }
 body { font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
-  color: var(--ink); max-width: 60rem; margin: 2rem auto; padding: 0 1.2rem; }
+  color: var(--ink); max-width: 76rem; margin: 2rem auto; padding: 0 1.2rem; }
 h1 { font-size: 1.6rem; margin-bottom: 0.2rem; }
 h2 { font-size: 1.15rem; border-bottom: 2px solid var(--rule); padding-bottom: 0.2rem;
   margin-top: 2.2rem; }
@@ -78,6 +78,7 @@ tr.bed td { background: #fbf5e8; }
 .source { color: var(--muted); font-size: 0.78rem; }
 figure { margin: 1rem 0; }
 figure svg { max-width: 100%; height: auto; }
+.wide { overflow-x: auto; }
 figcaption { color: var(--muted); font-size: 0.85rem; }
 .cautions { border-left: 4px solid var(--warn); background: var(--warn-bg);
   padding: 0.4rem 1rem; }
@@ -139,18 +140,24 @@ def _check_value(value: Any, limit: Any, unit: str) -> tuple[str, str]:
 def _table(
     header: list[str],
     rows: list[list[str]],
-    text_columns: int = 1,
+    text_columns: int | tuple[int, ...] = 1,
     row_classes: list[str] | None = None,
 ) -> str:
+    """An HTML table; ``text_columns`` (the first n, or these indices) are left-aligned text."""
+    text = set(range(text_columns)) if isinstance(text_columns, int) else set(text_columns)
+
     def cell(tag: str, i: int, content: str) -> str:
-        cls = ' class="text"' if i < text_columns else ""
+        cls = ' class="text"' if i in text else ""
         return f"<{tag}{cls}>{content}</{tag}>"
 
-    out = ["<table>", "<tr>" + "".join(cell("th", i, h) for i, h in enumerate(header)) + "</tr>"]
+    out = [
+        '<div class="wide"><table>',
+        "<tr>" + "".join(cell("th", i, h) for i, h in enumerate(header)) + "</tr>",
+    ]
     for k, row in enumerate(rows):
         cls = f' class="{row_classes[k]}"' if row_classes and row_classes[k] else ""
         out.append(f"<tr{cls}>" + "".join(cell("td", i, c) for i, c in enumerate(row)) + "</tr>")
-    out.append("</table>")
+    out.append("</table></div>")
     return "\n".join(out)
 
 
@@ -293,7 +300,16 @@ def _checks(results: Mapping[str, Any]) -> str:
         classes.append("")
     if not rows:
         return "<p>No checks were run.</p>"
-    return _table(["status", "check", "value", "limit", "finding"], rows, text_columns=2)
+    return _table(["status", "check", "value", "limit", "finding"], rows, text_columns=(0, 1, 4))
+
+
+def _notes(results: Mapping[str, Any]) -> str:
+    """Sizing and drawing notes: targets met only at a limit, lengths the drawing changed."""
+    notes = results.get("warnings") or []
+    if not notes:
+        return ""
+    items = "".join(f"<li>{_e(n)}</li>" for n in notes)
+    return f'<h3>Notes from sizing and drawing</h3>\n<ul class="notes">{items}</ul>'
 
 
 def _figures(figures: Mapping[str, str]) -> str:
@@ -364,6 +380,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _operating_point(results),
         "<h2>Generations, inlet to outlet</h2>",
         _generations(results),
+        _notes(results),
         "<h2>Checks</h2>",
         _window(results),
         _checks(results),
