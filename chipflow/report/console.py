@@ -78,15 +78,15 @@ def console_summary(results: Mapping[str, Any]) -> str:
         lines += [format_table(table, header, "l" + "r" * (len(_COLUMNS) - 1)), ""]
     totals = results.get("totals", {})
     if totals.get("total_flow"):
-        lines.append(
+        line = (
             f"supply pressure {totals['inlet_pressure']:.4g} Pa, total flow "
             f"{totals['total_flow'] * 6e10:.4g} uL/min"
-            + (
-                f", inlet-to-outlet transit {totals['transit_time']:.3g} s"
-                if totals.get("transit_time")
-                else ""
-            )
         )
+        if totals.get("transit_time"):
+            line += f", transit through the chip {totals['transit_time']:.3g} s"
+        if totals.get("tubing_transit_time"):
+            line += f" (plus {totals['tubing_transit_time']:.3g} s in the tubing)"
+        lines.append(line)
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")
     checks = list(results.get("checks") or [])
