@@ -27,30 +27,18 @@ from typing import Any
 
 import numpy as np
 
-from chipflow.checks import (
-    CheckResult,
-    check_bond_pressure,
-    check_entrance_length,
-    check_floor_shear,
-    check_oxygen_diffusion,
-    check_oxygen_supply,
-    check_pump_pressure,
-    check_residence_time,
-    check_reynolds,
-    check_uniformity,
-    fabrication_results,
-    worst_status,
-)
+from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
+from chipflow.checks.suite import culture_checks, pressure_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
-from chipflow.network import Network, Solution, solve
-from chipflow.network.summary import level_rows
-from chipflow.network.supply import Supply, boundary_conditions
+from chipflow.network import Solution, solve
+from chipflow.network.summary import level_rows, port_pressure_range
+from chipflow.network.supply import Supply, boundary_conditions, with_tubing
 from chipflow.physics.fluid import Fluid
-from chipflow.spec.culture import Culture, Limits, read_culture, read_limits
+from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.reader import Table, parse_design_text
@@ -231,7 +219,12 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     rules = LayoutRules.from_fabrication(design.fabrication, **keepout)
     layout = draw(design, chip, rules)
     progress("extract")
-    network, feed, drain = _with_tubing(extract_network(layout), supply)
+    network, feed, drain = with_tubing(
+        extract_network(layout),
+        supply.tubing_diameter,
+        supply.inlet_tubing,
+        supply.outlet_tubing,
+    )
     progress("solve")
     pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
     solution = solve(network, spec.fluid, pressures, flows)
@@ -241,8 +234,8 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
     checks = (
-        *_culture_checks(solution, generations, culture, window, residence_target),
-        *_pressure_checks(solution, limits),
+        *culture_checks(solution, generations, culture, window, residence_target),
+        *pressure_checks(solution, limits),
         *fabrication_results(findings),
     )
     results = _results(
@@ -280,45 +273,6 @@ def _targets_window(spec) -> ShearWindow | None:
     return ShearWindow("design targets", t.minimum, t.maximum, source)
 
 
-def _with_tubing(chip: Network, supply: SupplySpec) -> tuple[Network, str, str]:
-    """The chip network with the supply's tubing, and the names of the two driven nodes.
-
-    Tubing runs from a new node "pump" to the "inlet" port and from the "outlet" port to a new
-    node "drain". A side without tubing is driven at its port directly.
-    """
-    names = list(chip.node_names)
-    inlet, outlet = chip.node_index("inlet"), chip.node_index("outlet")
-    a, b, length, tags = [], [], [], []
-    feed, drain = "inlet", "outlet"
-    if supply.inlet_tubing > 0:
-        feed = "pump"
-        names.append(feed)
-        a.append(len(names) - 1), b.append(inlet), length.append(supply.inlet_tubing)
-        tags.append("inlet tubing")
-    if supply.outlet_tubing > 0:
-        drain = "drain"
-        names.append(drain)
-        a.append(outlet), b.append(len(names) - 1), length.append(supply.outlet_tubing)
-        tags.append("outlet tubing")
-    if not a:
-        return chip, feed, drain
-    d = supply.tubing_diameter
-    n = len(a)
-    network = Network.from_arrays(
-        np.concatenate([chip.node_a, np.asarray(a, dtype=chip.node_a.dtype)]),
-        np.concatenate([chip.node_b, np.asarray(b, dtype=chip.node_b.dtype)]),
-        np.concatenate([chip.width, np.full(n, d)]),
-        np.concatenate([chip.depth, np.full(n, d)]),
-        np.concatenate([chip.length, np.asarray(length, dtype=float)]),
-        round=np.concatenate([chip.round, np.ones(n, dtype=bool)]),
-        names=None if chip.names is None else (*chip.names, *tags),
-        generation=np.concatenate([chip.generation, np.full(n, -1)]),
-        role=np.concatenate([chip.role, np.full(n, "tubing")]),
-        node_names=names,
-    )
-    return network, feed, drain
-
-
 # -- explicit networks ---------------------------------------------------------------------------
 def _build_network(source: DesignSource, progress: Progress) -> Build:
     top = source.top
@@ -329,8 +283,8 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     progress("check")
     generations = level_rows(solution)
     checks = (
-        *_culture_checks(solution, generations, culture, culture.window, culture.residence_time),
-        *_pressure_checks(solution, limits),
+        *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
+        *pressure_checks(solution, limits),
     )
     supply = {
         "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
@@ -367,88 +321,6 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
 
 
 # -- results ---------------------------------------------------------------------------------------
-def _labels(rows: list[dict[str, Any]]) -> list[str]:
-    from chipflow.report import generation_labels
-
-    return generation_labels(rows)
-
-
-def _culture_checks(
-    solution: Solution,
-    rows: list[dict[str, Any]],
-    culture: Culture,
-    window: ShearWindow | None,
-    residence_target: float | None,
-) -> list[CheckResult]:
-    net = solution.network
-    out: list[CheckResult] = []
-    if not rows:
-        return out
-    labels = _labels(rows)
-    shear = np.array([r["wall_shear_floor"] for r in rows])
-    beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
-    seeded = beds if culture.seeded == "bed" and beds else list(range(len(rows)))
-    if window is not None:
-        out += check_floor_shear([labels[i] for i in seeded], shear[seeded], window)
-    if beds:
-        bed = rows[beds[0]]
-        if residence_target is not None:
-            out.append(check_residence_time(bed["residence_time"], residence_target))
-        out.append(
-            check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
-        )
-        floor_area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
-        out.append(
-            check_oxygen_supply(
-                max(r["flow_total"] for r in rows),
-                floor_area,
-                culture.cell_density,
-                culture.o2_consumption,
-                culture.o2_inlet,
-                consumption_source=culture.o2_consumption_source,
-                density_source=culture.cell_density_source,
-            )
-        )
-        out.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
-    out.append(check_reynolds(labels, np.array([r["reynolds"] for r in rows])))
-    out.append(
-        check_entrance_length(
-            labels,
-            np.array([r["width"] for r in rows]),
-            np.array([r["depth"] for r in rows]),
-            np.array([r["length"] for r in rows]),
-            np.array([r["reynolds"] for r in rows]),
-        )
-    )
-    return out
-
-
-def _port_pressures(solution: Solution) -> tuple[float, float]:
-    """Highest and lowest port pressure [Pa]: what the pump gives and where the liquid leaves."""
-    nodes = [solution.network.node_index(name) for name in solution.port_flow]
-    values = solution.pressure[nodes]
-    return float(values.max()), float(values.min())
-
-
-def _pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:
-    net = solution.network
-    supply_pressure, _ = _port_pressures(solution)
-    on_chip = net.role != "tubing"
-    chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
-    chip_peak = float(solution.pressure[chip_nodes].max())
-    out = [
-        check_bond_pressure(
-            chip_peak,
-            limits.bond_pressure,
-            safety_factor=limits.safety_factor,
-            source=limits.bond_source,
-        )
-    ]
-    if limits.pump_pressure is not None:
-        out.append(check_pump_pressure(supply_pressure, limits.pump_pressure))
-    return out
-
-
 def _supply_dict(supply: SupplySpec) -> dict[str, Any]:
     """The supply as results: a one-line ``mode`` for people and the values in SI."""
 
@@ -496,7 +368,7 @@ def _results(
     window: ShearWindow | None,
 ) -> dict[str, Any]:
     net = solution.network
-    p_in, p_out = _port_pressures(solution)
+    p_in, p_out = port_pressure_range(solution)
     port_flows = np.array(list(solution.port_flow.values()), dtype=float)
     total_flow = float(port_flows[port_flows > 0].sum())
     # transit along one path through the chip (the sum of level residence times), and the

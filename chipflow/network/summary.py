@@ -34,7 +34,14 @@ from chipflow.network.model import Network
 from chipflow.network.solver import Solution
 from chipflow.physics.duct import cross_section_area
 
-__all__ = ["GenerationRow", "generation_rows", "level_groups", "level_rows", "ROLE_ORDER"]
+__all__ = [
+    "GenerationRow",
+    "generation_rows",
+    "level_groups",
+    "level_rows",
+    "port_pressure_range",
+    "ROLE_ORDER",
+]
 
 #: Order of roles along the path from inlet to outlet.
 ROLE_ORDER = ("tubing", "port", "distribution", "bed", "collection")
@@ -182,3 +189,10 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
             }
         )
     return rows
+
+
+def port_pressure_range(solution: Solution) -> tuple[float, float]:
+    """Highest and lowest port pressure [Pa]: what the pump gives and where the liquid leaves."""
+    nodes = [solution.network.node_index(name) for name in solution.port_flow]
+    values = solution.pressure[nodes]
+    return float(values.max()), float(values.min())

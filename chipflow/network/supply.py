@@ -32,7 +32,10 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 
+import numpy as np
+
 from chipflow.errors import NetworkError
+from chipflow.network.model import Network
 from chipflow.physics.fluid import Fluid
 
 __all__ = [
@@ -44,6 +47,7 @@ __all__ = [
     "reservoir",
     "atmosphere",
     "boundary_conditions",
+    "with_tubing",
 ]
 
 #: Standard acceleration of gravity [m/s^2] (CGPM 1901, exact by definition).
@@ -157,3 +161,51 @@ def boundary_conditions(
         kind, value = supply.boundary(fluid, gravity)
         (pressures if kind == "pressure" else flows)[node] = value
     return pressures, flows
+
+
+def with_tubing(
+    chip: Network, diameter: float, inlet_length: float, outlet_length: float
+) -> tuple[Network, str, str]:
+    """The chip network with supply tubing, and the names of the two nodes to drive.
+
+    Tubing of inner ``diameter`` [m] runs ``inlet_length`` [m] from a new node "pump" to the
+    chip's "inlet" node and ``outlet_length`` [m] from its "outlet" node to a new node "drain".
+    A side of zero length has no tubing and is driven at its port directly.
+
+    Returns
+    -------
+    network : Network
+    feed, drain : str
+        The node names to put the inlet and outlet supplies on.
+    """
+    names = list(chip.node_names)
+    inlet, outlet = chip.node_index("inlet"), chip.node_index("outlet")
+    a, b, length, tags = [], [], [], []
+    feed, drain = "inlet", "outlet"
+    if inlet_length > 0:
+        feed = "pump"
+        names.append(feed)
+        a.append(len(names) - 1), b.append(inlet), length.append(inlet_length)
+        tags.append("inlet tubing")
+    if outlet_length > 0:
+        drain = "drain"
+        names.append(drain)
+        a.append(outlet), b.append(len(names) - 1), length.append(outlet_length)
+        tags.append("outlet tubing")
+    if not a:
+        return chip, feed, drain
+    d = diameter
+    n = len(a)
+    network = Network.from_arrays(
+        np.concatenate([chip.node_a, np.asarray(a, dtype=chip.node_a.dtype)]),
+        np.concatenate([chip.node_b, np.asarray(b, dtype=chip.node_b.dtype)]),
+        np.concatenate([chip.width, np.full(n, d)]),
+        np.concatenate([chip.depth, np.full(n, d)]),
+        np.concatenate([chip.length, np.asarray(length, dtype=float)]),
+        round=np.concatenate([chip.round, np.ones(n, dtype=bool)]),
+        names=None if chip.names is None else (*chip.names, *tags),
+        generation=np.concatenate([chip.generation, np.full(n, -1)]),
+        role=np.concatenate([chip.role, np.full(n, "tubing")]),
+        node_names=names,
+    )
+    return network, feed, drain
