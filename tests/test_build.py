@@ -225,3 +225,19 @@ def test_a_piped_build_keeps_stderr_empty(tmp_path: Path) -> None:
     # progress is shown only on a terminal; CliRunner's stderr is not one
     result = run("build", str(DEMO), "-o", str(tmp_path / "out"))
     assert result.exit_code == 0 and result.stderr == ""
+
+
+def test_supply_tubing_drop_is_hagen_poiseuille(built) -> None:
+    # Analytic: Hagen-Poiseuille, dp = 128 mu L Q / (pi d^4), for the demo's 30 cm of 0.5 mm
+    # tubing between the syringe pump and the inlet port.
+    import math
+
+    build, _ = built[DEMO.name]
+    sol = build.solution
+    net = sol.network
+    mu, q = build.fluid.viscosity, build.results["totals"]["total_flow"]
+    drop = sol.pressure[net.node_index("pump")] - sol.pressure[net.node_index("inlet")]
+    assert drop == pytest.approx(128 * mu * 0.30 * q / (math.pi * 0.5e-3**4), rel=1e-12)
+    assert build.results["totals"]["inlet_pressure"] == pytest.approx(
+        sol.pressure[net.node_index("pump")], rel=1e-12
+    )
