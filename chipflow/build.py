@@ -44,43 +44,11 @@ from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import SupplySpec, read_supply
 from chipflow.spec.tree import load_tree_spec
+from chipflow.units import RESULT_UNITS
 
 __all__ = ["Build", "DesignSource", "read_design_source", "build_design", "RESULT_UNITS"]
 
 #: Units of the SI values in the results (keys as they appear anywhere in the dict).
-RESULT_UNITS = {
-    "viscosity": "Pa*s",
-    "density": "kg/m^3",
-    "temperature": "K",
-    "flow": "m^3/s",
-    "pressure": "Pa",
-    "head": "m",
-    "inlet_pressure": "Pa",
-    "chip_inlet_pressure": "Pa",
-    "outlet_pressure": "Pa",
-    "total_flow": "m^3/s",
-    "total_resistance": "Pa*s/m^3",
-    "transit_time": "s",
-    "tubing_transit_time": "s",
-    "width": "m",
-    "depth": "m",
-    "length": "m",
-    "total_area": "m^2",
-    "flow_per_channel": "m^3/s",
-    "flow_total": "m^3/s",
-    "mean_velocity": "m/s",
-    "wall_shear_floor": "Pa",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "reynolds": "1",
-    "residence_time": "s",
-    "pressure_drop": "Pa",
-    "pressure_in": "Pa",
-    "pressure_out": "Pa",
-    "grid": "m",
-    "x": "m",
-    "y": "m",
-}
 
 Progress = Callable[[str], None]
 

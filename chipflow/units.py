@@ -31,7 +31,16 @@ import pint
 
 from chipflow.errors import UnitError
 
-__all__ = ["ureg", "KINDS", "Kind", "to_si", "from_si", "format_quantity"]
+__all__ = [
+    "ureg",
+    "KINDS",
+    "Kind",
+    "to_si",
+    "from_si",
+    "format_quantity",
+    "RESULT_UNITS",
+    "units_of",
+]
 
 #: The one unit registry of chipflow. Offset temperatures ("37 degC") convert on their own.
 ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
@@ -193,3 +202,67 @@ def format_quantity(value: float, unit: str, digits: int = 4) -> str:
     '5 uL/min'
     """
     return f"{from_si(value, unit):.{digits}g} {unit}"
+
+
+#: The SI unit of every named quantity chipflow reports (results.json, channels.csv, the
+#: ``--json`` outputs); ``"1"`` marks a plain number.
+RESULT_UNITS: dict[str, str] = {
+    # fluid and supply
+    "viscosity": "Pa*s",
+    "density": "kg/m^3",
+    "temperature": "K",
+    "head": "m",
+    "tubing_diameter": "m",
+    "inlet_tubing": "m",
+    "outlet_tubing": "m",
+    # totals
+    "inlet_pressure": "Pa",
+    "chip_inlet_pressure": "Pa",
+    "outlet_pressure": "Pa",
+    "total_flow": "m^3/s",
+    "total_resistance": "Pa*s/m^3",
+    "transit_time": "s",
+    "tubing_transit_time": "s",
+    "mass_residual": "1",
+    # geometry
+    "count": "1",
+    "width": "m",
+    "depth": "m",
+    "length": "m",
+    "aspect_ratio": "1",
+    "total_area": "m^2",
+    "hydraulic_diameter": "m",
+    "grid": "m",
+    "x": "m",
+    "y": "m",
+    # flow
+    "pressure": "Pa",
+    "flow": "m^3/s",
+    "flow_per_channel": "m^3/s",
+    "flow_total": "m^3/s",
+    "hydraulic_resistance": "Pa*s/m^3",
+    "pressure_drop": "Pa",
+    "pressure_in": "Pa",
+    "pressure_out": "Pa",
+    "mean_velocity": "m/s",
+    "max_velocity": "m/s",
+    "wall_shear_floor": "Pa",
+    "wall_shear_mean": "Pa",
+    "wall_shear_max": "Pa",
+    "target_shear": "Pa",
+    "shear_target": "Pa",
+    "shear_min": "Pa",
+    "shear_max": "Pa",
+    "reynolds": "1",
+    "residence_time": "s",
+    "entrance_length": "m",
+}
+
+
+def units_of(*keys: str) -> dict[str, str]:
+    """The SI units of ``keys``, in that order (see :data:`RESULT_UNITS`).
+
+    >>> units_of("flow", "wall_shear_floor")
+    {'flow': 'm^3/s', 'wall_shear_floor': 'Pa'}
+    """
+    return {key: RESULT_UNITS[key] for key in keys}

@@ -10,25 +10,26 @@ from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.errors import SpecError
 from chipflow.physics.duct import DuctFlow, flow_state, resistance
 from chipflow.physics.fluid import Fluid
+from chipflow.units import units_of
 
 __all__ = ["command", "channel_report", "SI_UNITS"]
 
 #: Keys of ``chipflow channel --json`` and their SI units.
-SI_UNITS = {
-    "hydraulic_resistance": "Pa*s/m^3",
-    "flow": "m^3/s",
-    "pressure_drop": "Pa",
-    "mean_velocity": "m/s",
-    "max_velocity": "m/s",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "reynolds": "1",
-    "hydraulic_diameter": "m",
-    "residence_time": "s",
-    "entrance_length": "m",
-    "viscosity": "Pa*s",
-    "density": "kg/m^3",
-}
+SI_UNITS = units_of(
+    "hydraulic_resistance",
+    "flow",
+    "pressure_drop",
+    "mean_velocity",
+    "max_velocity",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "reynolds",
+    "hydraulic_diameter",
+    "residence_time",
+    "entrance_length",
+    "viscosity",
+    "density",
+)
 
 
 def channel_report(

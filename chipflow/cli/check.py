@@ -18,23 +18,24 @@ from chipflow.errors import SpecError
 from chipflow.network import Solution, generation_rows, solve
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
 from chipflow.spec.reader import Table, read_design_file
+from chipflow.units import units_of
 
 __all__ = ["command", "check_network", "network_report", "SI_UNITS"]
 
 #: Units of the SI values in ``chipflow check --json``.
-SI_UNITS = {
-    "pressure": "Pa",
-    "flow": "m^3/s",
-    "pressure_drop": "Pa",
-    "mean_velocity": "m/s",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "reynolds": "1",
-    "residence_time": "s",
-    "viscosity": "Pa*s",
-    "density": "kg/m^3",
-    "temperature": "K",
-}
+SI_UNITS = units_of(
+    "pressure",
+    "flow",
+    "pressure_drop",
+    "mean_velocity",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "reynolds",
+    "residence_time",
+    "viscosity",
+    "density",
+    "temperature",
+)
 
 _UL_MIN = 6e10  # m^3/s -> uL/min
 

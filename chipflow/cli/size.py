@@ -8,25 +8,26 @@ import click
 
 from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.design.sizing import size_channel
+from chipflow.units import units_of
 
 __all__ = ["command", "SI_UNITS"]
 
 #: Keys of ``chipflow size --json`` and their SI units.
-SI_UNITS = {
-    "width": "m",
-    "depth": "m",
-    "flow": "m^3/s",
-    "target_shear": "Pa",
-    "wall_shear_floor": "Pa",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "mean_velocity": "m/s",
-    "max_velocity": "m/s",
-    "reynolds": "1",
-    "aspect_ratio": "1",
-    "viscosity": "Pa*s",
-    "density": "kg/m^3",
-}
+SI_UNITS = units_of(
+    "width",
+    "depth",
+    "flow",
+    "target_shear",
+    "wall_shear_floor",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "mean_velocity",
+    "max_velocity",
+    "reynolds",
+    "aspect_ratio",
+    "viscosity",
+    "density",
+)
 
 _ROWS = (
     ("width", "width", "um", 1e6),

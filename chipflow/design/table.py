@@ -17,6 +17,7 @@ from chipflow.network import Solution
 from chipflow.network.summary import level_rows
 from chipflow.report.console import format_table
 from chipflow.spec.reader import Table
+from chipflow.units import units_of
 
 __all__ = [
     "generation_table",
@@ -27,27 +28,27 @@ __all__ = [
 ]
 
 #: SI unit of every numeric column.
-SI_UNITS = {
-    "count": "1",
-    "width": "m",
-    "depth": "m",
-    "length": "m",
-    "flow_per_channel": "m^3/s",
-    "total_area": "m^2",
-    "mean_velocity": "m/s",
-    "wall_shear_floor": "Pa",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "reynolds": "1",
-    "residence_time": "s",
-    "pressure_drop": "Pa",
-    "flow_total": "m^3/s",
-    "pressure_in": "Pa",
-    "pressure_out": "Pa",
-    "shear_target": "Pa",
-    "shear_min": "Pa",
-    "shear_max": "Pa",
-}
+SI_UNITS = units_of(
+    "count",
+    "width",
+    "depth",
+    "length",
+    "flow_per_channel",
+    "total_area",
+    "mean_velocity",
+    "wall_shear_floor",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "reynolds",
+    "residence_time",
+    "pressure_drop",
+    "flow_total",
+    "pressure_in",
+    "pressure_out",
+    "shear_target",
+    "shear_min",
+    "shear_max",
+)
 
 _KIND_FIELD = {"floor": "wall_shear_floor", "mean": "wall_shear_mean", "max": "wall_shear_max"}
 

@@ -33,30 +33,31 @@ import numpy as np
 
 from chipflow.build import Build
 from chipflow.export.outdir import staged_folder
+from chipflow.units import RESULT_UNITS
 
 __all__ = ["write_build", "output_names", "CSV_COLUMNS"]
 
-#: Columns of channels.csv and their units.
-CSV_COLUMNS = {
-    "channel": "",
-    "role": "",
-    "generation": "",
-    "from": "",
-    "to": "",
-    "width": "m",
-    "depth": "m",
-    "length": "m",
-    "round": "",
-    "flow": "m^3/s",
-    "pressure_in": "Pa",
-    "pressure_out": "Pa",
-    "mean_velocity": "m/s",
-    "wall_shear_floor": "Pa",
-    "wall_shear_mean": "Pa",
-    "wall_shear_max": "Pa",
-    "reynolds": "1",
-    "residence_time": "s",
-}
+#: Columns of channels.csv; numeric ones carry their SI unit in the header.
+CSV_COLUMNS = (
+    "channel",
+    "role",
+    "generation",
+    "from",
+    "to",
+    "width",
+    "depth",
+    "length",
+    "round",
+    "flow",
+    "pressure_in",
+    "pressure_out",
+    "mean_velocity",
+    "wall_shear_floor",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "reynolds",
+    "residence_time",
+)
 
 
 def _slug(name: str) -> str:
@@ -133,7 +134,7 @@ def channels_csv(build: Build) -> str:
     }
     text = io.StringIO()
     writer = csv.writer(text, lineterminator="\n")
-    writer.writerow(f"{k} [{u}]" if u else k for k, u in CSV_COLUMNS.items())
+    writer.writerow(f"{k} [{RESULT_UNITS[k]}]" if k in RESULT_UNITS else k for k in CSV_COLUMNS)
     writer.writerows(zip(*(_csv_column(v) for v in columns.values()), strict=True))
     return text.getvalue()
 

@@ -413,7 +413,7 @@ def flow_state(
     tau_floor = np.where(rnd, tube_shear, np.where(w >= h, factors.c_long, factors.c_short) * scale)
     u_max = np.where(rnd, 2.0 * u, factors.c_umax * flow / (a * b))
     re = density * np.abs(u) * d_h / viscosity
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", over="ignore"):  # a still channel: infinite time
         residence = np.where(flow != 0, length / np.abs(np.where(flow != 0, u, 1.0)), np.inf)
     return DuctFlow(
         flow=_out(flow),
