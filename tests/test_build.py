@@ -241,3 +241,16 @@ def test_supply_tubing_drop_is_hagen_poiseuille(built) -> None:
     assert build.results["totals"]["inlet_pressure"] == pytest.approx(
         sol.pressure[net.node_index("pump")], rel=1e-12
     )
+
+
+def test_round_tube_trees_are_refused_by_the_drawing(tmp_path: Path) -> None:
+    # Round channels size a Murray's-law comparison; a moulded chip cannot have them.
+    design = tmp_path / "round.toml"
+    design.write_text(
+        DEMO.read_text().replace('rule = "equal-shear"', 'rule = "equal-shear"\nshape = "round"')
+    )
+    result = run("build", str(design), "-o", str(tmp_path / "out"))
+    assert result.exit_code == 2
+    assert "round.toml" in result.stderr and "cannot be drawn" in result.stderr
+    assert not (tmp_path / "out").exists()
+    assert run("check", str(design)).exit_code == 0  # the comparison itself still works

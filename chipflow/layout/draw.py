@@ -301,6 +301,12 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     n = design.generations
     if n < 1:
         raise LayoutError(f"design '{design.name}': a tree needs at least one generation")
+    if any(level.round for level in design.levels):
+        raise LayoutError(
+            f"design '{design.name}': round channels (tree.shape = \"round\") cannot be drawn "
+            "on a moulded chip; they size a comparison with Murray's law. Use chipflow check "
+            'for the comparison, or shape = "rectangular" to build a chip'
+        )
     plan = _choose_plan(design, chip, rules)
     grid = rules.grid
     tol = grid / 4
