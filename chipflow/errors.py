@@ -18,6 +18,7 @@ __all__ = [
     "DesignError",
     "LayoutError",
     "ExportError",
+    "ArgumentError",
 ]
 
 
@@ -47,3 +48,7 @@ class LayoutError(ChipflowError, ValueError):
 
 class ExportError(ChipflowError):
     """A mask or report file could not be written."""
+
+
+class ArgumentError(ChipflowError, ValueError):
+    """A library function was called with an argument it cannot use (wrong type or value)."""

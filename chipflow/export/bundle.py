@@ -24,6 +24,7 @@ import csv
 import io
 import json
 import math
+import os
 import re
 from collections.abc import Callable
 from pathlib import Path
@@ -32,6 +33,8 @@ from typing import Any
 import numpy as np
 
 from chipflow.build import Build
+from chipflow.errors import ArgumentError
+from chipflow.export._files import atomic_write
 from chipflow.export.outdir import staged_folder
 from chipflow.units import RESULT_UNITS
 
@@ -146,6 +149,10 @@ def _csv_column(values: np.ndarray) -> list[str]:
     return [str(v) for v in values.tolist()]
 
 
+def _write_text(path: Path, text: str, what: str) -> None:
+    atomic_write(path, lambda tmp: tmp.write_bytes(text.encode("utf-8")), what)
+
+
 def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None] | None = None):
     """Write every output of ``build`` into ``outdir`` (created if needed), all or nothing.
 
@@ -153,7 +160,8 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     ----------
     build : Build
     outdir : str or path-like
-        Output folder. Files of a previous build are replaced; other files are left alone.
+        Output folder. It is replaced as a whole (see :mod:`chipflow.export.outdir`): no file
+        of a previous build survives beside the new ones.
     progress : callable, optional
         Called with the name of each writing stage.
 
@@ -167,6 +175,10 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     from chipflow.export.preview import write_previews
     from chipflow.report import profile_figure, svg_text, write_report
 
+    if not isinstance(build, Build):
+        raise ArgumentError(f"write_build needs a Build (from build_design), got {build!r:.80}")
+    if not isinstance(outdir, str | os.PathLike) or not str(outdir):
+        raise ArgumentError(f"write_build needs an output folder path, got {outdir!r:.80}")
     progress = progress or (lambda stage: None)
     outdir = Path(outdir)
     figures: dict[str, str] = {}
@@ -190,10 +202,10 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
         profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
         if profile is not None:
             figures = {"Profile from inlet to outlet": profile, **figures}
-            (stage / "profile.svg").write_bytes(profile.encode("utf-8"))
+            _write_text(stage / "profile.svg", profile, "profile figure")
         write_report(build.results, stage / "report.html", figures)
-        (stage / "results.json").write_bytes(results_json(build).encode("utf-8"))
-        (stage / "channels.csv").write_bytes(channels_csv(build).encode("utf-8"))
+        _write_text(stage / "results.json", results_json(build), "results")
+        _write_text(stage / "channels.csv", channels_csv(build), "channel table")
     return [outdir / n for n in output_names(build)]
 
 
