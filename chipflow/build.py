@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -198,11 +199,21 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
-    window = culture.window or _targets_window(spec)
+    targets = _targets_window(spec)
+    window = culture.window or targets
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
     checks = (
-        *culture_checks(solution, generations, culture, window, residence_target),
+        *culture_checks(
+            solution,
+            generations,
+            culture,
+            culture.window,
+            residence_target,
+            targets=targets,
+            target_kind=spec.targets.kind,
+            target_levels=spec.targets.levels,
+        ),
         *pressure_checks(solution, limits),
         *fabrication_results(findings),
     )
@@ -234,11 +245,15 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
 
 
 def _targets_window(spec) -> ShearWindow | None:
+    """The ``[targets]`` window, one-sided when only one bound is given (None when the
+    targets are the ``[culture]`` cell type's window, checked as such, or give no bound)."""
     t = spec.targets
-    if t.minimum is None or t.maximum is None:
+    if t.cell is not None or (t.minimum is None and t.maximum is None):
         return None
-    source = f"design file {Path(spec.source).name}"
-    return ShearWindow("design targets", t.minimum, t.maximum, source)
+    source = f"design file {Path(spec.source).name} [targets]"
+    low = 0.0 if t.minimum is None else t.minimum
+    high = math.inf if t.maximum is None else t.maximum
+    return ShearWindow("design targets", low, high, source)
 
 
 # -- explicit networks ---------------------------------------------------------------------------

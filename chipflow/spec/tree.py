@@ -65,6 +65,7 @@ depth of 50 um are common practice for single-layer SU-8 moulds, not measured va
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from chipflow.physics.fluid import Fluid
@@ -362,7 +363,9 @@ def _culture_targets(top: Table) -> Targets:
     window = read_culture(top).window
     if window is None:
         return Targets()
-    return Targets(minimum=window.min, maximum=window.max, cell=window.cell_type)
+    low = window.min if window.min > 0.0 else None
+    high = window.max if math.isfinite(window.max) else None
+    return Targets(minimum=low, maximum=high, cell=window.cell_type)
 
 
 def _read_targets(top: Table, n: int) -> Targets:
