@@ -82,7 +82,7 @@ def read_design_source(path: str | Path) -> DesignSource:
     from chipflow.spec.reader import read_design_bytes
 
     raw = read_design_bytes(path)
-    top = parse_design_text(raw.decode("utf-8"), str(path))
+    top = parse_design_text(raw.decode("utf-8-sig"), str(path))
     return DesignSource(str(path), top, hashlib.sha256(raw).hexdigest())
 
 

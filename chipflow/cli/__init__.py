@@ -16,8 +16,13 @@ from chipflow.errors import ChipflowError
 __all__ = ["main"]
 
 
+#: Longest error line printed [characters]; messages quote user text, which may be huge.
+MAX_MESSAGE = 500
+
+
 def _one_line(text: str) -> str:
-    return " ".join(str(text).split())
+    line = " ".join(str(text)[: 4 * MAX_MESSAGE].split())
+    return line if len(line) <= MAX_MESSAGE else line[: MAX_MESSAGE - 3] + "..."
 
 
 class _Group(click.Group):

@@ -26,6 +26,7 @@ import json
 import math
 import os
 import re
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -182,7 +183,10 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     progress = progress or (lambda stage: None)
     outdir = Path(outdir)
     figures: dict[str, str] = {}
-    with staged_folder(outdir) as stage:
+    with staged_folder(outdir) as stage, warnings.catch_warnings():
+        # a design name in a script the figure font lacks is drawn as boxes, not warned about
+        # once per character
+        warnings.filterwarnings("ignore", r"Glyph \d+ .* missing from", UserWarning)
         layout = build.layout
         if layout is not None:
             slug = _slug(build.name)

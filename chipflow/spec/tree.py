@@ -314,6 +314,16 @@ class TreeSpec:
     source: str = "<design>"
 
 
+def _picometre(depth: float | None) -> float | None:
+    """A depth [m] rounded to 1 pm, so that one depth written in two units ("50 um",
+    "0.05 mm") is one number.
+
+    >>> _picometre(0.05e-3) == _picometre(50e-6) == 5e-05
+    True
+    """
+    return None if depth is None else round(depth * 1e12) / 1e12
+
+
 def read_fabrication(top: Table) -> Fabrication:
     """Read ``[fabrication]`` from the top-level table (defaults when absent).
 
@@ -327,9 +337,9 @@ def read_fabrication(top: Table) -> Fabrication:
         return Fabrication()
     table.only(FABRICATION_KEYS)
     base = Fabrication()
-    depths = table.quantities("depths", "length", list(base.depths))
+    depths = [_picometre(d) for d in table.quantities("depths", "length", list(base.depths))]
     if len(set(depths)) != len(depths):
-        raise table.error("depths", "a depth is listed twice")
+        raise table.error("depths", "a depth is listed twice (perhaps in different units)")
     min_feature = table.quantity("min_feature", "length", base.min_feature)
     fab = Fabrication(
         depths=tuple(sorted(depths)),
@@ -457,7 +467,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     shape = tree.choice("shape", SHAPES, "rectangular")
     targets = _read_targets(top, n)
     trunk_width = tree.quantity("trunk_width", "length", None)
-    trunk_depth = tree.quantity("trunk_depth", "length", None)
+    trunk_depth = _picometre(tree.quantity("trunk_depth", "length", None))
     if shape == "round":
         if trunk_depth is not None:
             raise tree.error("trunk_depth", "a round tube has only a diameter: use trunk_width")
@@ -489,7 +499,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     widths = depths = None
     if rule == "table":
         widths = tuple(tree.quantities("widths", "length"))
-        depths = tuple(tree.quantities("depths", "length"))
+        depths = tuple(_picometre(d) for d in tree.quantities("depths", "length"))
         for key, values in (("widths", widths), ("depths", depths)):
             if len(values) != n + 1:
                 raise tree.error(
@@ -519,8 +529,8 @@ def load_tree_spec(top: Table) -> TreeSpec:
         lengths = (tree.quantity("length", "length", 3e-3),) * n
     fluid = read_fluid(top)
     return TreeSpec(
-        name=top.string("name", "tree"),
-        description=top.string("description", ""),
+        name=top.label("name", "tree"),
+        description=top.text("description", ""),
         fluid=fluid,
         flow=tree.quantity("flow", "flow"),
         generations=n,
