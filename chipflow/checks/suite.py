@@ -159,21 +159,23 @@ def culture_checks(
 def pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:
     """The peak on-chip pressure against the bond and the supply pressure against the pump.
 
-    Tubing is not on the chip: its pressure loads the pump, not the bond.
+    Tubing is not on the chip: its pressure loads the pump, not the bond (a network of tubing
+    only has no bond check).
     """
     net = solution.network
     supply_pressure, _ = port_pressure_range(solution)
     on_chip = net.role != "tubing"
     chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
-    chip_peak = float(solution.pressure[chip_nodes].max())
-    out = [
-        check_bond_pressure(
-            chip_peak,
-            limits.bond_pressure,
-            safety_factor=limits.safety_factor,
-            source=limits.bond_source,
+    out = []
+    if chip_nodes.size:  # a network of tubing only has no bond to load
+        out.append(
+            check_bond_pressure(
+                float(solution.pressure[chip_nodes].max()),
+                limits.bond_pressure,
+                safety_factor=limits.safety_factor,
+                source=limits.bond_source,
+            )
         )
-    ]
     if limits.pump_pressure is not None:
         out.append(check_pump_pressure(supply_pressure, limits.pump_pressure))
     return out
