@@ -129,7 +129,12 @@ def _noop(stage: str) -> None:
     return None
 
 
-def build_design(source: DesignSource | str | Path, progress: Progress | None = None) -> Build:
+def build_design(
+    source: DesignSource | str | Path,
+    progress: Progress | None = None,
+    *,
+    allow_large: bool = False,
+) -> Build:
     """Run every stage on a design file.
 
     Parameters
@@ -138,6 +143,9 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
         The design file.
     progress : callable, optional
         Called with the name of each stage as it starts.
+    allow_large : bool, optional
+        Draw a tree even when it needs more memory than the machine can spare (see
+        :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
 
     Returns
     -------
@@ -147,7 +155,8 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
     ------
     ChipflowError
         Bad input (SpecError), targets that cannot be met (DesignError), a design that does
-        not fit on the chip (LayoutError), an unsolvable network (NetworkError).
+        not fit on the chip (LayoutError) or in memory (TooLargeError), an unsolvable network
+        (NetworkError).
     """
     progress = progress or _noop
     if not isinstance(source, DesignSource):
@@ -156,7 +165,7 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
     top = source.top
     try:
         if "tree" in top:
-            return _build_tree(source, progress)
+            return _build_tree(source, progress, allow_large)
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
@@ -171,8 +180,9 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
 
 
 # -- tree designs -------------------------------------------------------------------------------
-def _build_tree(source: DesignSource, progress: Progress) -> Build:
+def _build_tree(source: DesignSource, progress: Progress, allow_large: bool = False) -> Build:
     from chipflow.layout import LayoutRules, check_rules, draw, extract_network
+    from chipflow.layout.budget import check_size
     from chipflow.spec.chip import read_chip
 
     top = source.top
@@ -183,6 +193,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     progress("size")
     design = size_tree(spec)
+    check_size(sum(level.count for level in design.levels), allow_large=allow_large)
     progress("layout")
     keepout = {} if port_keepout is None else {"port_keepout": port_keepout}
     rules = LayoutRules.from_fabrication(design.fabrication, **keepout)

@@ -19,6 +19,7 @@ __all__ = [
     "LayoutError",
     "ExportError",
     "ArgumentError",
+    "TooLargeError",
 ]
 
 
@@ -52,3 +53,7 @@ class ExportError(ChipflowError):
 
 class ArgumentError(ChipflowError, ValueError):
     """A library function was called with an argument it cannot use (wrong type or value)."""
+
+
+class TooLargeError(LayoutError):
+    """The design would need more memory to draw than the machine can spare."""

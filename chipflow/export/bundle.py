@@ -217,6 +217,8 @@ def build_to_folder(
     design: str | Path,
     outdir: str | Path | None = None,
     progress: Callable[[str], None] | None = None,
+    *,
+    allow_large: bool = False,
 ) -> tuple[Build, list[Path]]:
     """Build a design file and write all its outputs (the whole job of ``chipflow build``).
 
@@ -228,6 +230,8 @@ def build_to_folder(
         Output folder; by default a folder named after the design, in the current folder.
     progress : callable, optional
         Called with the name of each stage.
+    allow_large : bool, optional
+        Build a tree even when it needs more memory than the machine can spare.
 
     Returns
     -------
@@ -237,6 +241,6 @@ def build_to_folder(
     """
     from chipflow.build import build_design
 
-    build = build_design(design, progress)
+    build = build_design(design, progress, allow_large=allow_large)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)
