@@ -117,7 +117,7 @@ def check_size(
     >>> check_size(2**21, memory=8 * 2**30)  # doctest: +ELLIPSIS
     Traceback (most recent call last):
     ...
-    chipflow.errors.TooLargeError: 2097152 channels (about 62.9 million mask vertices) need ...
+    chipflow.errors.TooLargeError: 2,097,152 channels (about 62,914,560 mask vertices) need ...
     """
     size = estimate_size(channels)
     memory = total_memory() if memory is None else memory
@@ -127,12 +127,16 @@ def check_size(
     if size.memory > limit:
         place = f"{where}: " if where else ""
         raise TooLargeError(
-            f"{place}{size.channels} channels (about {size.vertices / 1e6:.3g} million mask "
-            f"vertices) need about {size.memory / 1e9:.3g} GB to draw and write, more than "
-            f"{MEMORY_SHARE:.0%} of this machine's {memory / 2**30:.3g} GiB; use fewer "
-            "generations or bed channels, or pass --allow-large to build anyway"
+            f"{place}{size.channels:,} channels (about {size.vertices:,} mask vertices) need "
+            f"about {_bytes(size.memory, 1e9, 'GB', 1e6, 'MB')} to draw and write, more than "
+            f"{MEMORY_SHARE:.0%} of this machine's {_bytes(memory, 2**30, 'GiB', 2**20, 'MiB')}"
+            "; use fewer generations or bed channels, or pass --allow-large to build anyway"
         )
     return size
+
+
+def _bytes(value: float, big: float, big_unit: str, small: float, small_unit: str) -> str:
+    return f"{value / big:.3g} {big_unit}" if value >= big else f"{value / small:.3g} {small_unit}"
 
 
 def count_vertices(layout) -> int:
