@@ -279,23 +279,27 @@ def staged_folder(target: str | os.PathLike) -> Iterator[Path]:
         raise ExportError(f"{raw}: the root folder cannot be an output folder")
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
+        beside = _writable(target.parent)
+        if not beside:
+            target.mkdir(exist_ok=True)
     except OSError as exc:
         raise ExportError(f"{raw}: cannot create the output folder ({_why(exc)})") from None
-    inside = _in_place(target)
-    if inside:
-        try:
-            target.mkdir(exist_ok=True)
-        except OSError as exc:
-            raise ExportError(f"{raw}: cannot create the output folder ({_why(exc)})") from None
-    home, prefix = (target, _TAG) if inside else (target.parent, f".{target.name}{_TAG}")
+    # one lock per output folder whichever way it is then updated: beside it, or inside it
+    # where its parent cannot be written
+    lock_path = target.parent / f".{target.name}{_TAG}lock" if beside else target / f"{_TAG}lock"
     tag = f"{os.getpid()}-{os.urandom(4).hex()}"
-    stage, old = home / f"{prefix}stage-{tag}", home / f"{prefix}old-{tag}"
-    lock_path = home / (f"{_TAG}lock" if inside else f".{target.name}{_TAG}lock")
     try:
         with _signals_clean_up(), _lock(lock_path):
+            if target.is_dir():
+                _roll_back(target)  # an in-place update killed part-way
+                _remove_stale(target, _TAG, target)
+            if beside:
+                _remove_stale(target.parent, f".{target.name}{_TAG}", target)
+            inside = _in_place(target)
             if inside:
-                _roll_back(target)
-            _remove_stale(home, prefix, target)
+                target.mkdir(exist_ok=True)
+            home, prefix = (target, _TAG) if inside else (target.parent, f".{target.name}{_TAG}")
+            stage, old = home / f"{prefix}stage-{tag}", home / f"{prefix}old-{tag}"
             stage.mkdir()
             try:
                 yield stage
@@ -310,7 +314,7 @@ def staged_folder(target: str | os.PathLike) -> Iterator[Path]:
                     with contextlib.suppress(OSError, KeyError):
                         _roll_back(target)  # a move failed part-way: put the old build back
                 shutil.rmtree(stage, ignore_errors=True)
-                if not (target / _JOURNAL).exists():
+                if not (inside and (target / _JOURNAL).exists()):
                     shutil.rmtree(old, ignore_errors=True)
     except OSError as exc:
         name = f" {exc.filename}" if getattr(exc, "filename", None) else ""
