@@ -234,3 +234,18 @@ def test_flow_checks_cover_every_channel_of_a_large_network():
     worst = int(np.argmax(sol.reynolds))
     assert worst == 12345 and "channel c12345" in checks["Reynolds number"].message
     assert checks["Reynolds number"].value == pytest.approx(sol.reynolds.max())
+
+
+def test_check_command_warns_for_networks():
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "one.toml"
+        path.write_text(ONE_CHANNEL.format(flow="500 mL/min"))
+        text = CliRunner().invoke(main, ["check", str(path)])
+        data = json.loads(CliRunner().invoke(main, ["check", str(path), "--json"]).output)
+    lines = [line for line in text.output.splitlines() if line.startswith("warning:")]
+    assert len(lines) == 2 and "channel big" in lines[0] and "laminar limit" in lines[0]
+    assert data["warnings"] == [line.removeprefix("warning: ") for line in lines]
+    quiet = CliRunner().invoke(main, ["check", str(ROOT / "designs" / "bench_loop_network.toml")])
+    assert "warning:" not in quiet.output  # Re below 1, entrance lengths of a few um

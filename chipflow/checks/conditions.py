@@ -12,10 +12,18 @@ Thresholds (chipflow's own choices)
 
 from __future__ import annotations
 
+import numpy as np
+
 from chipflow.checks.flow import ENTRANCE_SHARE_WARN, REYNOLDS_FAIL, REYNOLDS_WARN
 from chipflow.checks.result import CheckResult
 
-__all__ = ["TEMPERATURE_RANGE", "check_temperature", "temperature_note", "channel_warnings"]
+__all__ = [
+    "TEMPERATURE_RANGE",
+    "check_temperature",
+    "temperature_note",
+    "channel_warnings",
+    "network_warnings",
+]
 
 #: Fluid temperatures that pass [K]: 15-40 degC (chipflow's own).
 TEMPERATURE_RANGE = (288.15, 313.15)
@@ -110,3 +118,31 @@ def channel_warnings(
     if note is not None:
         out.append(note)
     return out
+
+
+def network_warnings(solution) -> list[str]:
+    """The warnings of :func:`channel_warnings` for a solved network: its channel of largest
+    Reynolds number and its channel of largest entrance-length share (vectorised).
+
+    Parameters
+    ----------
+    solution : chipflow.network.Solution
+    """
+    net = solution.network
+    if net.n_channels == 0:
+        return []
+    from chipflow.physics.duct import entrance_length, hydraulic_diameter
+
+    re = np.abs(solution.reynolds)
+    d_h = hydraulic_diameter(net.width, net.depth, net.round)
+    entrance = np.atleast_1d(entrance_length(d_h, re))
+    worst_re = int(np.argmax(re))
+    worst_share = int(np.argmax(entrance / net.length))
+    out = []
+    for line in channel_warnings(float(re[worst_re]), 0.0, 1.0):
+        out.append(f"channel {net.channel_name(worst_re)}: {line}")
+    i = worst_share
+    for line in channel_warnings(0.0, float(entrance[i]), float(net.length[i])):
+        out.append(f"channel {net.channel_name(i)}: {line}")
+    note = temperature_note(solution.fluid.temperature)
+    return out + ([note] if note else [])
