@@ -249,3 +249,12 @@ def test_check_command_warns_for_networks():
     assert data["warnings"] == [line.removeprefix("warning: ") for line in lines]
     quiet = CliRunner().invoke(main, ["check", str(ROOT / "designs" / "bench_loop_network.toml")])
     assert "warning:" not in quiet.output  # Re below 1, entrance lengths of a few um
+
+
+def test_report_states_a_one_sided_window(vessel_low_max):
+    from chipflow.report import profile_figure, svg_text
+    from chipflow.report.html import report_html
+
+    html = report_html(vessel_low_max.results, {})
+    assert "floor wall shear window at most 0.1 Pa" in html
+    assert "<svg" in svg_text(profile_figure(vessel_low_max.results))  # draws the open window

@@ -270,13 +270,23 @@ def _generations(results: Mapping[str, Any]) -> str:
     return _table(header, rows, text_columns=2, row_classes=classes)
 
 
+def _window_text(window: Mapping[str, Any]) -> str:
+    """ "0.5&ndash;1 Pa", "at most 2 Pa" or "at least 0.5 Pa" (one-sided windows)."""
+    low, high = window.get("min"), window.get("max")
+    if low is None and high is not None:
+        return f"at most {_num(high)} Pa"
+    if high is None and low is not None:
+        return f"at least {_num(low)} Pa"
+    return f"{_num(low)}&ndash;{_num(high)} Pa"
+
+
 def _window(results: Mapping[str, Any]) -> str:
     window = results.get("shear_window")
     if not window:
         return "<p>No cell type or shear window is given in the design: no shear check.</p>"
     return (
         f"<p>Cells: <strong>{_e(window.get('cell_type', ''))}</strong>; floor wall shear "
-        f"window {_num(window.get('min'))}&ndash;{_num(window.get('max'))} Pa.<br>"
+        f"window {_window_text(window)}.<br>"
         f'<span class="source">Source: {_e(window.get("source", ""))}</span></p>'
     )
 
