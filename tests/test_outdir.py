@@ -278,3 +278,21 @@ def test_sigkill_at_random_points_never_leaves_a_mixed_folder(tmp_path, referenc
     shutil.rmtree(pristine)
     assert leftovers(tmp_path) == []
     assert snapshot(out) == references["network"]
+
+
+def test_a_folder_whose_parent_cannot_be_written_is_updated_inside(tmp_path, monkeypatch):
+    """`-o DIR` where DIR's parent is read-only (as `-o .` in a folder of a read-only parent):
+    the staging folder and the lock go inside DIR, never beside it."""
+    out = tmp_path / "out"
+    out.mkdir()
+    with staged_folder(out) as stage:
+        (stage / "old.dxf").write_text("old")
+    real = outdir_module._writable
+    monkeypatch.setattr(outdir_module, "_writable", lambda f: f != tmp_path and real(f))
+    seen = []
+    with staged_folder(out) as stage:
+        seen = sorted(p.name for p in tmp_path.iterdir())
+        assert stage.parent == out and (out / ".chipflow-lock").exists()
+        (stage / "new.gds").write_text("new")
+    assert seen == ["out"]  # nothing beside the folder
+    assert sorted(p.name for p in out.iterdir()) == [MANIFEST, "new.gds"]
