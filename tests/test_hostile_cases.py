@@ -114,29 +114,6 @@ def test_a_byte_order_mark_is_accepted(tmp_path):
     assert (tmp_path / "out" / "report.html").exists()
 
 
-def test_a_network_of_tubing_only_builds(tmp_path):
-    text = """
-name = "tubes"
-[fluid]
-kind = "water"
-[[tubes]]
-name = "t1"
-from = "a"
-to = "b"
-diameter = "0.5 mm"
-length = "10 cm"
-[[ports]]
-node = "a"
-flow = "10 uL/min"
-[[ports]]
-node = "b"
-pressure = "0 Pa"
-"""
-    result = build_file(tmp_path, text)
-    assert result.exit_code == 0, result.output
-    assert "Reynolds number" in (tmp_path / "out" / "report.html").read_text()
-
-
 def test_unicode_name_builds_without_font_warnings(tmp_path):
     text = DEMO.replace('name = "', 'name = "\u4e2d\u6587-', 1)
     with warnings.catch_warnings():
