@@ -233,19 +233,21 @@ def _start_build(design: Path, out: Path) -> subprocess.Popen:
     )
 
 
-def test_sigterm_cleans_up(tmp_path, references):
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+def test_signals_clean_up(tmp_path, references, sig):
     out = tmp_path / "out"
     assert build([str(NETWORK), "-o", str(out)]).exit_code in (0, 1)
     proc = _start_build(TREE, out)
     deadline = time.monotonic() + 60
     while not leftovers(tmp_path) and proc.poll() is None and time.monotonic() < deadline:
         time.sleep(0.02)  # wait until the build holds its lock and stages
-    proc.send_signal(signal.SIGTERM)
+    proc.send_signal(sig)
     _, err = proc.communicate(timeout=60)
     if proc.returncode in (0, 1):
         pytest.skip("the build finished before the signal")  # very fast machine
-    assert proc.returncode == 128 + signal.SIGTERM
+    assert proc.returncode == 128 + sig
     assert b"Traceback" not in err and len(err.splitlines()) == 1
+    assert f"stopped by {sig.name}".encode() in err
     assert snapshot(out) == references["network"]
     assert leftovers(tmp_path) == []
 

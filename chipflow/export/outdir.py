@@ -144,20 +144,23 @@ def _lock(path: Path) -> Iterator[None]:
 
 @contextlib.contextmanager
 def _signals_clean_up() -> Iterator[None]:
-    """Turn SIGTERM into an exit that unwinds (so ``finally`` blocks remove staging folders)."""
+    """Turn SIGTERM and SIGINT (Ctrl-C) into an exit that unwinds, so that ``finally`` blocks
+    remove the staging folder, with one line on stderr."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
 
     def stop(signum, frame):
-        os.write(2, b"chipflow: stopped by SIGTERM; the output folder is left as it was\n")
+        name = signal.Signals(signum).name
+        os.write(2, f"chipflow: stopped by {name}; the output folder is left as it was\n".encode())
         raise SystemExit(128 + signum)
 
-    old = signal.signal(signal.SIGTERM, stop)
+    previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGINT)}
     try:
         yield
     finally:
-        signal.signal(signal.SIGTERM, old)
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
 
 
 def _remove_stale(folder: Path, prefix: str, target: Path) -> None:
