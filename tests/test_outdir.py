@@ -39,7 +39,9 @@ def build(args: list[str]):
 
 
 def snapshot(folder: Path) -> dict[str, str]:
-    """Every entry of a folder with the hash of its bytes."""
+    """Every entry of a folder with the hash of its bytes (none for a missing folder)."""
+    if not folder.exists():
+        return {}
     return {
         p.name: hashlib.sha256(p.read_bytes()).hexdigest() if p.is_file() else "dir"
         for p in sorted(folder.iterdir())
@@ -298,3 +300,74 @@ def test_a_folder_whose_parent_cannot_be_written_is_updated_inside(tmp_path, mon
         (stage / "new.gds").write_text("new")
     assert seen == ["out"]  # nothing beside the folder
     assert sorted(p.name for p in out.iterdir()) == [MANIFEST, "new.gds"]
+
+
+def _update(target: Path) -> None:
+    with staged_folder(target) as stage:
+        (stage / "a.txt").write_text("new a")
+        (stage / "c.txt").write_text("new c")
+
+
+@pytest.mark.parametrize("mode", ["exchange", "two renames", "in place"])
+def test_killed_at_every_step_of_the_swap(tmp_path, mode):
+    """A child process is killed (``os._exit``, no clean-up) at each rename of the swap in
+    turn. The atomic exchange leaves OUTDIR entirely old or entirely new at once; without it
+    (two renames) and in place, OUTDIR is so once the next build has recovered (put the old
+    folder back, or rolled back the journal). No staging folder survives the next build."""
+    in_place = mode == "in place"
+    pristine = tmp_path / "pristine"
+    with staged_folder(pristine) as stage:
+        (stage / "a.txt").write_text("old a")
+        (stage / "b.txt").write_text("old b")
+    if in_place:
+        (pristine / "mine.txt").write_text("not chipflow's: updated in place")
+    expected_new = tmp_path / "expected"
+    shutil.copytree(pristine, expected_new)
+    _update(expected_new)
+    old, new = snapshot(pristine), snapshot(expected_new)
+    assert old != new and ("b.txt" in new) is False
+    target = tmp_path / "out"
+    real = {"replace": os.replace, "rename": os.rename, "exchange": outdir_module._exchange}
+    for k in range(1, 20):
+        shutil.rmtree(target, ignore_errors=True)
+        shutil.copytree(pristine, target)
+        pid = os.fork()
+        if pid == 0:  # the child: count the renames, die at the k-th
+
+            def dying(fn, count=[0], k=k):  # noqa: B006 (one counter shared on purpose)
+                def step(*args, **kwargs):
+                    count[0] += 1
+                    if count[0] == k:
+                        os._exit(9)
+                    return fn(*args, **kwargs)
+
+                return step
+
+            os.replace, os.rename = dying(real["replace"]), dying(real["rename"])
+            exchange = real["exchange"] if mode == "exchange" else (lambda a, b: False)
+            outdir_module._exchange = dying(exchange)
+            try:
+                _update(target)
+            except BaseException:
+                os._exit(3)
+            os._exit(0)
+        _, status = os.waitpid(pid, 0)
+        code = os.waitstatus_to_exitcode(status)
+        assert code in (0, 9), code
+        state = snapshot(target)
+        if mode == "exchange":
+            assert state in (old, new), (k, sorted(state))
+        # the next build into the folder first recovers, then cleans up
+        with pytest.raises(RuntimeError):
+            with staged_folder(target) as stage:
+                recovered = {n: h for n, h in snapshot(target).items() if n != stage.name}
+                assert recovered in (old, new), (k, sorted(recovered))
+                raise RuntimeError("stop")
+        assert snapshot(target) in (old, new)
+        assert leftovers(tmp_path) == [] and leftovers(target) == [outdir_module.MANIFEST]
+        if code == 0:
+            assert snapshot(target) == new
+            break
+    else:
+        pytest.fail("the swap never completed")
+    assert k >= (4 if in_place else 1)  # the kills did land inside the swap

@@ -177,6 +177,8 @@ def _remove_stale(folder: Path, prefix: str, target: Path) -> None:
         for entry in folder.iterdir():
             if entry.name.startswith(prefix) and _STAGE_RE.search(entry.name):
                 shutil.rmtree(entry, ignore_errors=True)
+    with contextlib.suppress(OSError):
+        (target / f"{_JOURNAL}.tmp").unlink(missing_ok=True)  # a journal never completed
 
 
 def _roll_back(target: Path) -> None:
