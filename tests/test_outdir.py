@@ -371,3 +371,13 @@ def test_killed_at_every_step_of_the_swap(tmp_path, mode):
     else:
         pytest.fail("the swap never completed")
     assert k >= (4 if in_place else 1)  # the kills did land inside the swap
+
+
+def test_a_deleted_current_folder_is_one_line(tmp_path, monkeypatch):
+    gone = tmp_path / "gone"
+    gone.mkdir()
+    monkeypatch.chdir(gone)
+    gone.rmdir()
+    result = build([str(NETWORK), "-o", "x"])
+    assert result.exit_code == 2 and len(result.stderr.splitlines()) == 1
+    assert "cannot locate the output folder" in result.stderr

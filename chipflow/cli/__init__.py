@@ -42,6 +42,11 @@ class _Group(click.Group):
         except ChipflowError as exc:
             click.echo(f"chipflow: error: {_one_line(exc)}", err=True)
             sys.exit(2)
+        except OSError as exc:  # the system refused something the library did not expect
+            text = f"{exc.filename}: " if exc.filename else ""
+            text += exc.strerror or str(exc)
+            click.echo(f"chipflow: error: {_one_line(text)}", err=True)
+            sys.exit(2)
         if not standalone_mode:
             return result
         sys.exit(result if isinstance(result, int) else 0)

@@ -279,7 +279,10 @@ def staged_folder(target: str | os.PathLike) -> Iterator[Path]:
     raw = Path(target)
     if raw.exists() and not raw.is_dir():
         raise ExportError(f"{raw}: exists and is not a folder; choose another output folder")
-    target = raw.resolve()
+    try:
+        target = raw.resolve()
+    except OSError as exc:  # e.g. the current folder was deleted
+        raise ExportError(f"{raw}: cannot locate the output folder ({_why(exc)})") from None
     if target.parent == target:
         raise ExportError(f"{raw}: the root folder cannot be an output folder")
     try:
