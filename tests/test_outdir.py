@@ -98,7 +98,7 @@ def test_a_second_build_into_a_locked_folder_fails_in_one_line(tmp_path):
         os.close(fd)
     assert result.exit_code == 2
     assert len(result.stderr.splitlines()) == 1
-    assert "another chipflow build is writing the same output folder" in result.stderr
+    assert "another chipflow build is writing this output folder" in result.stderr
     assert not out.exists()
     with pytest.raises(BuildLocked):  # the API raises the same error, a ChipflowError
         fd = os.open(lock, os.O_RDWR | os.O_CREAT)

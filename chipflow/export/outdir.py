@@ -113,8 +113,9 @@ def _in_place(target: Path) -> bool:
 
 
 @contextlib.contextmanager
-def _lock(path: Path) -> Iterator[None]:
-    """Hold an exclusive lock on ``path`` (created if needed) or raise :class:`BuildLocked`."""
+def _lock(path: Path, target: Path) -> Iterator[None]:
+    """Hold an exclusive lock on ``path`` (created if needed) or raise :class:`BuildLocked`
+    naming the output folder ``target``."""
     import fcntl
 
     while True:
@@ -124,8 +125,8 @@ def _lock(path: Path) -> Iterator[None]:
         except BlockingIOError:
             os.close(fd)
             raise BuildLocked(
-                f"{path.parent}: another chipflow build is writing the same output folder "
-                f"(it holds {path.name}); wait for it to finish or choose another folder"
+                f"{target}: another chipflow build is writing this output folder (it holds "
+                f"{path}); wait for it to finish or choose another folder"
             ) from None
         try:
             same = os.path.samestat(os.fstat(fd), os.stat(path))
@@ -297,7 +298,7 @@ def staged_folder(target: str | os.PathLike) -> Iterator[Path]:
     lock_path = target.parent / f".{target.name}{_TAG}lock" if beside else target / f"{_TAG}lock"
     tag = f"{os.getpid()}-{os.urandom(4).hex()}"
     try:
-        with _signals_clean_up(), _lock(lock_path):
+        with _signals_clean_up(), _lock(lock_path, target):
             if target.is_dir():
                 _roll_back(target)  # an in-place update killed part-way
                 _remove_stale(target, _TAG, target)
