@@ -51,7 +51,7 @@ from chipflow.design.model import TreeDesign
 from chipflow.errors import LayoutError
 from chipflow.layout.merge import merge_layer, snap_to_grid
 from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
-from chipflow.layout.plan import choose_plan, merge_cuts
+from chipflow.layout.plan import choose_plan, drawn_width, half_offset, merge_cuts
 from chipflow.layout.rules import Chip, LayoutRules
 from chipflow.layout.trace import offset_ring, split_trace, trace
 
@@ -107,7 +107,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
             "on a moulded chip; they size a comparison with Murray's law. Use chipflow check "
             'for the comparison, or shape = "rectangular" to build a chip'
         )
-    plan = choose_plan(design, chip, rules)
+    plan, fold_warnings = choose_plan(design, chip, rules)
     grid = rules.grid
     tol = grid / 4
     n_bed = 2**n
@@ -115,19 +115,16 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     keep = chip.punch_diameter / 2 + rules.port_keepout
     r_hole = chip.punch_diameter / 2
 
-    # x positions: centre the drawing on the chip; the inlet side is on the grid, the outlet
-    # side is its exact mirror image about the middle of the bed
+    # x positions: centre the drawing on the chip, the port on the grid; each junction's x
+    # has the wall parity of the children leaving it (see Plan); the outlet side is the exact
+    # mirror image about the middle of the bed, whose x extent is a whole number of steps
     x_in = _snap(chip.width / 2 - plan.width_needed / 2 + chip.margin + keep, grid)
     x_rim = x_in + r_hole
-    x_node = np.empty(n)
-    x_node[0] = x_rim + plan.trunk
-    for k in range(1, n):
-        x_node[k] = _snap(x_node[k - 1] + plan.advance[k], grid)
-    bed_extent = 2 * plan.radius[n] * math.sin(plan.theta[n]) + plan.run_length + 2 * plan.lead
-    x_mid = x_node[n - 1] + bed_extent / 2
-    # y positions: centre the bed lanes
-    y_lane0 = _snap(chip.height / 2 - ((n_bed - 1) * plan.pitch + rise) / 2, grid)
-    y_in = y_lane0 + (n_bed - 1) * plan.pitch / 2
+    x_node = x_rim + plan.trunk + np.r_[0.0, np.cumsum(plan.advance[1:n])]
+    x_mid = x_node[n - 1] + plan.bed_extent / 2
+    # y positions: the trunk's axis has its wall parity; every child's axis lies
+    # plan.offset[g] above or below its parent's
+    y_in = _snap(chip.height / 2 - rise / 2, grid) + half_offset(plan.width[0], grid)
 
     # nodes: 0 inlet, 1 outlet, distribution levels, collection levels
     level_start = np.cumsum([0] + [2**k for k in range(n)])
@@ -138,7 +135,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     node_xy[1] = (2 * x_mid - x_rim, y_in + rise)
     for k in range(n):
         i = np.arange(2**k)
-        y = y_lane0 + (i * 2 ** (n - k) + (2 ** (n - k) - 1) / 2) * plan.pitch
+        y = y_in + _side_offsets(i, k, plan.offset)
         sl = slice(level_start[k], level_start[k + 1])
         node_xy[d0 + sl.start : d0 + sl.stop] = np.column_stack((np.full(i.size, x_node[k]), y))
         node_xy[c0 + sl.start : c0 + sl.stop] = np.column_stack(
@@ -157,6 +154,8 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     frags: list[tuple[np.ndarray, float, np.ndarray]] = []
     cuts = merge_cuts(design, plan, rules)
 
+    drawn = {}  # (role, generation) -> (designed, drawn) width where the grid changed it
+
     def add(role, level, traces, starts, node_a, node_b, index, mirror=False, cut=None):
         """All channels of one level from its up/down templates, vectorised.
 
@@ -165,13 +164,16 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         cut joins the junction where the template starts, the rest the one where it ends.
         """
         sign = np.asarray(traces["sign"])  # (count,) +1 upper, -1 lower
+        width = drawn_width(level.width, grid)
+        if not math.isclose(width, level.width, rel_tol=0, abs_tol=1e-12):
+            drawn[(role, level.generation)] = (level.width, width)
         up, down = traces[1], traces[-1]
         xy = np.where(sign[:, None, None] > 0, up.xy[None], down.xy[None]) + starts[:, None, :]
 
         def rings(tr_up, tr_down):
             ring_up, ring_down = (
-                offset_ring(tr_up, level.width),
-                offset_ring(tr_down, level.width),
+                offset_ring(tr_up, width),
+                offset_ring(tr_down, width),
             )
             ring = np.where(sign[:, None, None] > 0, ring_up[None], ring_down[None])
             ring = ring + starts[:, None, :]
@@ -199,7 +201,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
                 centreline=shapely.linestrings(xy),
                 outline=outline,
                 length=np.full(count, up.length),
-                width=np.full(count, level.width),
+                width=np.full(count, width),
                 depth=np.full(count, level.depth),
                 generation=np.full(count, level.generation),
                 role=np.full(count, role, dtype=object),
@@ -341,11 +343,16 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         outline=cat["outline"],
         bends=cat["bends"].astype(int),
     )
-    warnings = ()
+    warnings = list(fold_warnings)
     if bed.length < plan.bed_min_length - 1e-12:
-        warnings = (
+        warnings.append(
             f"bed channels drawn {plan.bed_min_length * 1e6:.0f} um long instead of the "
-            f"designed {bed.length * 1e6:.0f} um: their two bends alone need that length",
+            f"designed {bed.length * 1e6:.0f} um: their two bends alone need that length"
+        )
+    for (role, g), (designed, width) in drawn.items():
+        warnings.append(
+            f"{role} generation {g}: width {designed * 1e6:.4g} um is not a whole number of "
+            f"{grid * 1e6:g} um grid steps; drawn and solved {width * 1e6:.4g} um wide"
         )
     return Layout(
         name=design.name,
@@ -357,12 +364,25 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         channels=channels,
         node_xy=node_xy,
         node_names=tuple(names),
-        warnings=warnings,
+        warnings=tuple(warnings),
     )
 
 
 def _snap(value: float, grid: float) -> float:
     return round(value / grid) * grid
+
+
+def _side_offsets(i: np.ndarray, k: int, offset: np.ndarray) -> np.ndarray:
+    """Sideways position [m] of the nodes ``i`` of level ``k`` from the trunk's axis.
+
+    Node ``i`` of level ``k`` took the upper branch at level ``g`` (1..k) when bit ``k - g``
+    of ``i`` is set (odd children turn up), and every branch moves by ``offset[g]``.
+    """
+    y = np.zeros(i.size)
+    for g in range(1, k + 1):  # loop over levels, vectorised over nodes
+        up = (i >> (k - g)) & 1
+        y += np.where(up == 1, 1.0, -1.0) * offset[g]
+    return y
 
 
 def _junction_pairs(cat: dict, n: int):
