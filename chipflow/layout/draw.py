@@ -42,6 +42,7 @@ that narrows the channel. The shallow layer draws its channel up to the junction
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -54,6 +55,7 @@ from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
 from chipflow.layout.plan import choose_plan, drawn_width, half_offset, merge_cuts
 from chipflow.layout.rules import Chip, LayoutRules
 from chipflow.layout.trace import offset_ring, split_trace, trace
+from chipflow.layout.widths import check_mask_widths
 
 __all__ = ["draw", "layer_name"]
 
@@ -343,6 +345,9 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         outline=cat["outline"],
         bends=cat["bends"].astype(int),
     )
+    # what is drawn is what is solved: every wall where the solved width puts it
+    mask = check_mask_widths(channels, tuple(layers), min(1e-9, grid * 1e-3))
+    channels = dataclasses.replace(channels, mask_width=mask)
     warnings = list(fold_warnings)
     if bed.length < plan.bed_min_length - 1e-12:
         warnings.append(

@@ -84,6 +84,10 @@ class DrawnChannels:
         ends at the nodes), before merging into the mask layers [m].
     bends : numpy.ndarray of int or None
         Number of bends (circular arcs) along each channel.
+    mask_width : numpy.ndarray or None
+        Width measured on the merged, grid-snapped mask polygons across the middle of each
+        channel's longest straight run along x [m] (see :mod:`chipflow.layout.widths`); the
+        drawing checks that it equals ``width`` to 1 nm.
     """
 
     centreline: np.ndarray
@@ -98,6 +102,7 @@ class DrawnChannels:
     layer: np.ndarray
     outline: np.ndarray | None = None
     bends: np.ndarray | None = None
+    mask_width: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
