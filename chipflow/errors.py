@@ -18,6 +18,7 @@ __all__ = [
     "DesignError",
     "LayoutError",
     "ExportError",
+    "FieldError",
 ]
 
 
@@ -47,3 +48,7 @@ class LayoutError(ChipflowError, ValueError):
 
 class ExportError(ChipflowError):
     """A mask or report file could not be written."""
+
+
+class FieldError(ChipflowError, ValueError):
+    """A mask cannot be meshed or solved as a flow field (no ports, disconnected, ...)."""
