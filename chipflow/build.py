@@ -393,6 +393,8 @@ def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[
             "height": float(layout.outline.bounds[3] - layout.outline.bounds[1]),
         },
         "layers": [{"name": layer.name, "depth": layer.depth} for layer in layout.layers],
+        # width of every drawn channel on the mask polygons, in the order of channels.csv
+        "mask_width": [float(w) for w in layout.channels.mask_width],
         "findings": [_finding_dict(f) for f in findings],
     }
 

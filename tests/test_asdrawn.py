@@ -160,3 +160,35 @@ def test_max_straight_length_folds_the_bed_into_equal_runs():
 def test_a_fold_forced_by_the_chip_width_is_warned():
     layout = draw(tree([300e-6, 150e-6, 80e-6], 50e-6, 120e-3))
     assert any("to fit the chip's width" in w for w in layout.warnings)
+
+
+def test_demo_reports_the_bed_spread_of_its_drawn_widths():
+    import csv
+    import dataclasses
+    import io
+
+    from chipflow.build import build_design
+    from chipflow.export.bundle import channels_csv
+    from chipflow.network import solve
+    from chipflow.network.supply import boundary_conditions, with_tubing
+    from chipflow.spec.supply import read_supply
+
+    build = build_design(Path(__file__).parents[1] / "designs" / "demo_endothelial_bed.toml")
+    rows = list(csv.DictReader(io.StringIO(channels_csv(build))))
+    chip = [r for r in rows if r["role"] != "tubing"]
+    mask = np.array([float(r["mask_width [m]"]) for r in chip])
+    np.testing.assert_array_equal(mask, [float(r["width [m]"]) for r in chip])
+    np.testing.assert_array_equal(mask, build.results["fabrication"]["mask_width"])
+    # re-solve with the widths measured on the mask: the bed spread is the reported one
+    supply = read_supply(build.source.top, build.design.total_flow)
+    drawn = dataclasses.replace(extract_network(build.layout), width=mask)
+    net, feed, drain = with_tubing(
+        drawn, supply.tubing_diameter, supply.inlet_tubing, supply.outlet_tubing
+    )
+    pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, build.fluid)
+    again = solve(net, build.fluid, pressures, flows)
+    bed = net.role == "bed"
+    reported = next(c for c in build.results["checks"] if c["name"] == "bed flow uniformity")
+    cv_again = np.std(again.flow[bed]) / np.mean(again.flow[bed])
+    assert abs(reported["value"] - cv_again) < 1e-12
+    assert cv_again < 1e-9  # the drawing is symmetric and exact: every bed channel alike

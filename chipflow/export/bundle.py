@@ -45,6 +45,7 @@ CSV_COLUMNS = (
     "from",
     "to",
     "width",
+    "mask_width",
     "depth",
     "length",
     "round",
@@ -112,6 +113,11 @@ def channels_csv(build: Build) -> str:
     nodes = np.asarray(net.node_names, dtype=object)
     forward = sol.flow >= 0
     p_a, p_b = sol.pressure[net.node_a], sol.pressure[net.node_b]
+    # the width on the written mask polygons, measured after drawing (empty for tubing)
+    mask = np.full(net.n_channels, np.nan)
+    drawn = None if build.layout is None else build.layout.channels.mask_width
+    if drawn is not None:
+        mask[: drawn.size] = drawn
     columns = {
         "channel": np.asarray(net.channel_names(), dtype=object),
         "role": net.role,
@@ -119,6 +125,7 @@ def channels_csv(build: Build) -> str:
         "from": nodes[net.node_a],
         "to": nodes[net.node_b],
         "width": net.width,
+        "mask_width": mask,
         "depth": net.depth,
         "length": net.length,
         "round": np.where(net.round, "yes", "no"),
