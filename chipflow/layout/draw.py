@@ -50,6 +50,7 @@ import shapely
 
 from chipflow.design.model import TreeDesign
 from chipflow.errors import LayoutError
+from chipflow.layout.junctions import Junction
 from chipflow.layout.merge import merge_layer, snap_to_grid
 from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
 from chipflow.layout.plan import choose_plan, drawn_width, half_offset, merge_cuts
@@ -288,6 +289,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
 
     # junction discs and alignment overlaps, node by node level (vectorised per level)
     node_pts = shapely.points(node_xy)
+    junctions: list[tuple[str, int, Junction]] = []
     for k, a_sel, b_sel in _junction_pairs(cat, n):
         # a_sel: channels ending at the junctions; b_sel: channels starting there
         nodes = np.unique(cat["node_b"][a_sel])
@@ -295,8 +297,29 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         da, db = cat["depth"][a_sel][0], cat["depth"][b_sel][0]
         deep = max(da, db)
         radius = max(wa, wb) / 2
-        if plan.theta[k + 1] < math.pi / 2 - 1e-9:  # a Y: blunt the wall tip between children
+        is_y = plan.theta[k + 1] < math.pi / 2 - 1e-9
+        if is_y:  # a Y: blunt the wall tip between children
             frags.append((shapely.buffer(node_pts[nodes], radius, quad_segs=16), deep, nodes))
+        # the parent is the channel on the trunk's side of the junction
+        dist_side = cat["role"][a_sel][0] == "distribution" and cat["generation"][a_sel][0] == k
+        (pw, pd, ps), (cw, cd) = (
+            ((wa, da, a_sel), (wb, db)) if dist_side else ((wb, db, b_sel), (wa, da))
+        )
+        junctions.append(
+            (
+                str(cat["role"][ps][0]),
+                k,
+                Junction(
+                    float(pw),
+                    float(pd),
+                    float(cw),
+                    float(cd),
+                    float(plan.theta[k + 1]),
+                    radius if is_y else 0.0,
+                    0.0 if math.isclose(da, db, rel_tol=1e-9) else radius + rules.alignment_margin,
+                ),
+            )
+        )
         if not math.isclose(da, db, rel_tol=1e-9):
             shallow = np.flatnonzero(b_sel if da > db else a_sel)
             # the overlap reaches alignment_margin past the junction disc along each channel
@@ -370,6 +393,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
         node_xy=node_xy,
         node_names=tuple(names),
         warnings=tuple(warnings),
+        junctions=tuple(junctions),
     )
 
 

@@ -131,6 +131,10 @@ class Layout:
         Node names ("inlet", "outlet", junction names).
     warnings : tuple of str
         Soft misses found while drawing (e.g. bed channels drawn longer than designed).
+    junctions : tuple of (str, int, Junction)
+        The junction geometry at the end of each tree level that splits or merges: the
+        parent channel's role and generation and the :class:`~chipflow.layout.junctions.
+        Junction` drawn there (one per level; every junction of a level is alike).
     """
 
     name: str
@@ -143,3 +147,4 @@ class Layout:
     node_xy: np.ndarray
     node_names: tuple[str, ...]
     warnings: tuple[str, ...] = ()
+    junctions: tuple = ()
