@@ -391,6 +391,7 @@ def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[
         "chip": {
             "width": float(layout.outline.bounds[2] - layout.outline.bounds[0]),
             "height": float(layout.outline.bounds[3] - layout.outline.bounds[1]),
+            "margin": layout.margin,
         },
         "layers": [{"name": layer.name, "depth": layer.depth} for layer in layout.layers],
         # width of every drawn channel on the mask polygons, in the order of channels.csv

@@ -227,6 +227,7 @@ RESULT_UNITS: dict[str, str] = {
     # geometry
     "count": "1",
     "width": "m",
+    "margin": "m",
     "mask_width": "m",
     "depth": "m",
     "length": "m",
