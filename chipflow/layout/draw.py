@@ -9,13 +9,29 @@ each child leaves the junction at an angle ``theta`` (90 degrees - a T - when th
 offset allows it, less otherwise), turns back to +x on one circular arc of centreline radius
 ``bend_radius * width`` and runs straight to the next junction. Every channel of a generation
 is the same shape, mirrored for the lower child, so every inlet-to-bed path has the same
-length and the same bends. The bed channels lie side by side at a uniform pitch (at least
-width + gap, more if a wider upper generation needs it), run along +x and are met by the
-collecting tree, which is the distribution tree mirrored about the middle of the bed.
+length and the same bends. The bed channels lie side by side, at least width + ``[bed].gap``
+apart (more if a wider upper generation needs it), run along +x and are met by the collecting
+tree, which is the distribution tree mirrored about the middle of the bed.
 
-A bed channel longer than the room between the trees folds into a serpentine of an odd number
-of runs joined by half-turns (every bed channel folds alike, stacked upwards in its own lane);
-the collecting tree and the outlet then sit higher by the serpentine's rise.
+A bed channel longer than ``max_straight_length``, or than the room between the trees, folds
+into a serpentine of an odd number of equal runs joined by half-turns (every bed channel folds
+alike, stacked upwards in its own lane, its runs ``gap`` apart); the collecting tree and the
+outlet then sit higher by the serpentine's rise. A fold that only the chip's width forces is
+said in the layout's warnings.
+
+On the grid without moving a wall
+---------------------------------
+Every straight run's axis sits where both its walls fall on the mask grid: on the grid for a
+width of an even number of grid steps, half a step off for an odd number (see
+:class:`~chipflow.layout.plan.Plan`). A child whose parity differs from its parent's leaves
+half a step further sideways (so the lanes of the bed may differ from a uniform pitch by a few
+half steps, never below the gap), each generation advances along x by a length of its
+children's parity, and the bed's x extent is a whole number of steps, so the mirrored
+collecting side lands on the grid too. Rounding the outlines to the grid then moves only arc
+vertices and points along the walls, never a wall; widths that are not a whole number of grid
+steps are drawn (and solved) at the nearest one, with a warning. After merging, every
+channel's width on the mask is measured (:mod:`chipflow.layout.widths`) and must equal its
+solved width to 1 nm.
 
 Where the children leave at 90 degrees the junction is a T with a flat far wall. Where they
 leave at a smaller angle (a Y), the junction gets a disc as wide as the widest channel meeting
@@ -27,8 +43,10 @@ Lengths and junctions
 ---------------------
 Centrelines run from junction centre to junction centre (the inlet and outlet channels start
 at the rim of the port hole, since the punched hole itself has no resistance). Each channel's
-``length`` is the exact length of its centreline with its arcs as true circles; the junction
-area is thus shared out half to each side of the node, and no length is counted twice or lost.
+``length`` is the exact length of its centreline with its arcs as true circles. The layout
+also records the geometry of each level's junction (:class:`~chipflow.layout.junctions.
+Junction`), from which the network takes each junction's equivalent-length correction, so
+that the junction area is counted once (see :mod:`chipflow.layout.extract`).
 
 Mask layers
 -----------
