@@ -159,25 +159,28 @@ def assemble_system(
     local = (depth * lateral)[:, None, None] * stiff + (depth * friction * area)[
         :, None, None
     ] * m_ref
-    nn = space.n_nodes
-    rows = np.repeat(space.nodes, 6, axis=1)
-    cols = np.tile(space.nodes, (1, 6))
-    r = np.concatenate([rows.ravel(), rows.ravel() + nn])
-    c = np.concatenate([cols.ravel(), cols.ravel() + nn])
-    v = np.concatenate([local.ravel(), local.ravel()])
-    # B: int h phi_a d(lambda_k)/dx_d; int phi_a = 0 for vertices, area / 3 for edges
-    integral = np.zeros((len(area), 6))
-    integral[:, 3:] = (depth * area / 3.0)[:, None]
-    b_rows, b_cols, b_vals = [], [], []
-    for d in range(2):
-        vals = grads[:, :, d][:, :, None] * integral[:, None, :]  # (n, 3 pressure, 6 nodes)
-        b_rows.append(np.repeat(triangles, 6, axis=1).ravel())
-        b_cols.append((np.tile(space.nodes, (1, 3)) + d * nn).ravel())
-        b_vals.append(vals.ravel())
-    br, bc, bv = np.concatenate(b_rows), np.concatenate(b_cols), np.concatenate(b_vals)
-    offset = 2 * nn
-    rr = np.concatenate([r, br + offset, bc])
-    cc = np.concatenate([c, bc, br + offset])
-    vv = np.concatenate([v, bv, bv])
-    n = offset + space.n_points
-    return sparse.coo_matrix((vv, (rr, cc)), shape=(n, n)).tocsr()
+    nn, npts = space.n_nodes, space.n_points
+    nodes = space.nodes.astype(np.int32)
+    rows = np.repeat(nodes, 6, axis=1).ravel()
+    cols = np.tile(nodes, (1, 6)).ravel()
+    scalar = sparse.csr_matrix((local.ravel(), (rows, cols)), shape=(nn, nn))
+    # B: int h phi_a d(lambda_k)/dx_d; int phi_a = 0 for vertices, area / 3 for edges, so
+    # only the three edge nodes of each triangle enter
+    weight = (depth * area / 3.0)[:, None, None]
+    b_rows = np.repeat(triangles.astype(np.int32), 3, axis=1).ravel()
+    b_cols = np.tile(nodes[:, 3:], (1, 3)).ravel()
+    blocks = [
+        sparse.csr_matrix(
+            ((grads[:, :, d][:, :, None] * weight).repeat(3, axis=2).ravel(), (b_rows, b_cols)),
+            shape=(npts, nn),
+        )
+        for d in range(2)
+    ]
+    return sparse.bmat(
+        [
+            [scalar, None, blocks[0].T],
+            [None, scalar, blocks[1].T],
+            [blocks[0], blocks[1], None],
+        ],
+        format="csr",
+    )

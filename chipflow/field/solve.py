@@ -21,6 +21,7 @@ References
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -30,7 +31,14 @@ from chipflow.field.calibration import floor_factor, friction, lateral_factor
 from chipflow.field.mesh import build_mesh
 from chipflow.field.model import FieldMesh, FieldPort, FieldRegion, FieldSolution
 
-__all__ = ["solve_field", "solve_on_mesh", "velocity_at"]
+__all__ = [
+    "FieldSystem",
+    "field_system",
+    "solve_field",
+    "solve_on_mesh",
+    "solve_reduced",
+    "velocity_at",
+]
 
 
 def solve_field(
@@ -80,13 +88,40 @@ def solve_field(
     return sol
 
 
-def solve_on_mesh(
-    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float, *, solver: str = "splu"
-) -> FieldSolution:
-    """Solve the flow on a given mesh with the given port pressures [Pa]."""
-    from scipy.sparse.linalg import splu, spsolve
+@dataclass(frozen=True)
+class FieldSystem:
+    """The assembled problem of one mesh, with the fixed values in place.
 
-    t0 = time.perf_counter()
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_matrix
+        The full saddle-point matrix, velocity dofs first, then the pressures.
+    reduced : scipy.sparse.csc_matrix
+        The matrix of the free unknowns.
+    rhs : numpy.ndarray
+        Right-hand side of the free unknowns (from the port pressures).
+    free : numpy.ndarray
+        Indices of the free unknowns.
+    x : numpy.ndarray
+        Full solution vector holding the fixed values (wall velocities, port pressures).
+    space : P2Space
+    port_nodes : dict of str to numpy.ndarray
+        Pressure nodes of each port.
+    """
+
+    matrix: object
+    reduced: object
+    rhs: np.ndarray
+    free: np.ndarray
+    x: np.ndarray
+    space: object
+    port_nodes: dict
+
+
+def field_system(
+    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float
+) -> FieldSystem:
+    """Assemble the problem on ``mesh`` with the port pressures [Pa] and viscosity [Pa s]."""
     space = p2_space(mesh.points, mesh.triangles)
     lateral = viscosity * lateral_factor(mesh.depth, mesh.width)
     k = assemble_system(
@@ -111,19 +146,42 @@ def solve_on_mesh(
     k_free = k[free]
     kff = k_free[:, free].tocsc()
     rhs = -(k_free[:, fixed_dofs] @ x[fixed_dofs])
-    t1 = time.perf_counter()
+    return FieldSystem(k, kff, rhs, free, x, space, port_nodes)
+
+
+def solve_reduced(system: FieldSystem, solver: str = "splu") -> np.ndarray:
+    """Solve the reduced system; returns the free unknowns.
+
+    ``splu`` factorises with a minimum-degree ordering of the symmetrised pattern and no
+    row pivoting preference (the matrix is symmetric); ``spsolve`` is scipy's plain call.
+    """
+    from scipy.sparse.linalg import splu, spsolve
+
     if solver == "splu":
         lu = splu(
-            kff,
+            system.reduced,
             permc_spec="MMD_AT_PLUS_A",
             diag_pivot_thresh=0.0,
             options={"SymmetricMode": True},
         )
-        x[free] = lu.solve(rhs)
-    elif solver == "spsolve":
-        x[free] = spsolve(kff, rhs)
-    else:
-        raise FieldError(f"unknown field solver {solver!r} (valid: splu, spsolve)")
+        return lu.solve(system.rhs)
+    if solver == "spsolve":
+        return spsolve(system.reduced, system.rhs)
+    raise FieldError(f"unknown field solver {solver!r} (valid: splu, spsolve)")
+
+
+def solve_on_mesh(
+    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float, *, solver: str = "splu"
+) -> FieldSolution:
+    """Solve the flow on a given mesh with the given port pressures [Pa]."""
+    t0 = time.perf_counter()
+    system = field_system(mesh, port_pressures, viscosity)
+    k, free, space, port_nodes = system.matrix, system.free, system.space, system.port_nodes
+    x = system.x.copy()
+    nn = space.n_nodes
+    nu_dofs = 2 * nn
+    t1 = time.perf_counter()
+    x[free] = solve_reduced(system, solver)
     if not np.all(np.isfinite(x)):
         raise FieldError("the field solve failed (singular system): check the ports and walls")
     t2 = time.perf_counter()
