@@ -18,10 +18,11 @@ Stages report their name to an optional ``progress`` callable, for the command l
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -105,6 +106,9 @@ class Build:
         Mask-file options (None when there is nothing to draw).
     results : dict
         JSON-able results in SI units (see :data:`RESULT_UNITS`).
+    field : FieldRun or None
+        The field solve of the drawing and its comparison with the network (None when it
+        was not run).
     """
 
     source: DesignSource
@@ -116,7 +120,8 @@ class Build:
     solution: Solution
     checks: tuple[CheckResult, ...]
     export: ExportSettings | None
-    results: dict[str, Any] = field(repr=False)
+    results: dict[str, Any] = dataclasses.field(repr=False)
+    field: Any = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -128,7 +133,12 @@ def _noop(stage: str) -> None:
     return None
 
 
-def build_design(source: DesignSource | str | Path, progress: Progress | None = None) -> Build:
+def build_design(
+    source: DesignSource | str | Path,
+    progress: Progress | None = None,
+    *,
+    field: bool | None = None,
+) -> Build:
     """Run every stage on a design file.
 
     Parameters
@@ -137,6 +147,11 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
         The design file.
     progress : callable, optional
         Called with the name of each stage as it starts.
+    field : bool, optional
+        Solve the 2D field of the drawing and compare it with the network. By default only
+        when the chip is small enough to solve in seconds
+        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
+        no field.
 
     Returns
     -------
@@ -155,7 +170,7 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
     top = source.top
     try:
         if "tree" in top:
-            return _build_tree(source, progress)
+            return _build_tree(source, progress, field)
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
@@ -170,7 +185,7 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
 
 
 # -- tree designs -------------------------------------------------------------------------------
-def _build_tree(source: DesignSource, progress: Progress) -> Build:
+def _build_tree(source: DesignSource, progress: Progress, run_field: bool | None) -> Build:
     from chipflow.layout import LayoutRules, check_rules, draw, extract_network
     from chipflow.spec.chip import read_chip
 
@@ -219,6 +234,17 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     )
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings]
+    field_run = None
+    if run_field is None:
+        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+    if run_field:
+        from chipflow.field.run import run_field as solve_chip_field
+
+        progress("field")
+        field_run = solve_chip_field(layout, solution, spec.fluid.viscosity, window, culture.seeded)
+    results["field"] = None if field_run is None else field_run.results
     return Build(
         source,
         spec.name,
@@ -230,6 +256,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
         tuple(checks),
         export,
         results,
+        field_run,
     )
 
 
@@ -274,6 +301,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     results["fabrication"] = None
     results["warnings"] = []
+    results["field"] = None
     return Build(
         source,
         design.name,

@@ -38,10 +38,10 @@ class _StageLine:
             self.stream.flush()
 
 
-def _run(design: str | Path, outdir: str | None) -> int:
+def _run(design: str | Path, outdir: str | None, field: bool | None = None) -> int:
     stages = _StageLine()
     try:
-        build, files = build_to_folder(design, outdir, stages)
+        build, files = build_to_folder(design, outdir, stages, field=field)
     finally:
         stages.done()
     click.echo(console_summary(build.results))
@@ -59,7 +59,13 @@ def _run(design: str | Path, outdir: str | None) -> int:
     type=click.Path(file_okay=False, path_type=str),
     help="Output folder (default: a folder named after the design).",
 )
-def command(design: str, outdir: str | None) -> int:
+@click.option(
+    "--field/--no-field",
+    default=None,
+    help="Solve the 2D flow field of the drawing and compare it with the network (default: "
+    "only for chips small enough to solve in seconds).",
+)
+def command(design: str, outdir: str | None, field: bool | None) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
 
     \b
@@ -70,7 +76,7 @@ def command(design: str, outdir: str | None) -> int:
     a check failed (the outputs are written and the failure is marked in them), 2 for bad
     input (nothing is written).
     """
-    return _run(design, outdir)
+    return _run(design, outdir, field)
 
 
 @click.command("demo")

@@ -84,6 +84,8 @@ def output_names(build: Build) -> list[str]:
             "shear.svg",
             "shear.png",
         ]
+    if build.field is not None:
+        names.append("field.svg")
     if build.results["generations"]:
         names.append("profile.svg")
     return names + ["report.html", "results.json", "channels.csv"]
@@ -193,6 +195,14 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
                 encoding="utf-8"
             )
+        if build.field is not None:
+            from chipflow.report.field_figure import field_shear_figure
+
+            progress("field figure")
+            run = build.field
+            text = svg_text(field_shear_figure(run.solution, run.window, run.zoom(layout)))
+            (stage / "field.svg").write_bytes(text.encode("utf-8"))
+            figures["Floor wall shear of the 2D field, against the cell window"] = text
         progress("report")
         profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
         if profile is not None:
@@ -208,6 +218,8 @@ def build_to_folder(
     design: str | Path,
     outdir: str | Path | None = None,
     progress: Callable[[str], None] | None = None,
+    *,
+    field: bool | None = None,
 ) -> tuple[Build, list[Path]]:
     """Build a design file and write all its outputs (the whole job of ``chipflow build``).
 
@@ -219,6 +231,8 @@ def build_to_folder(
         Output folder; by default a folder named after the design, in the current folder.
     progress : callable, optional
         Called with the name of each stage.
+    field : bool, optional
+        Solve the 2D field (see :func:`chipflow.build.build_design`; default: small chips).
 
     Returns
     -------
@@ -228,6 +242,6 @@ def build_to_folder(
     """
     from chipflow.build import build_design
 
-    build = build_design(design, progress)
+    build = build_design(design, progress, field=field)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)

@@ -16,22 +16,29 @@ References
 ----------
 .. [1] C. Taylor and P. Hood, "A numerical solution of the Navier-Stokes equations using the
    finite element technique", Computers & Fluids 1 (1973) 73-100.
-.. [2] T. Gustafsson and G. D. McBain, "scikit-fem: A Python package for finite element
-   assembly", J. Open Source Software 5 (2020) 2369.
 """
 
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 
 import numpy as np
 
 from chipflow.errors import FieldError
+from chipflow.field.assemble import assemble_system, p2_space, p2_values
 from chipflow.field.calibration import floor_factor, friction, lateral_factor
 from chipflow.field.mesh import build_mesh
 from chipflow.field.model import FieldMesh, FieldPort, FieldRegion, FieldSolution
 
-__all__ = ["solve_field", "solve_on_mesh", "assemble", "velocity_at"]
+__all__ = [
+    "FieldSystem",
+    "field_system",
+    "solve_field",
+    "solve_on_mesh",
+    "solve_reduced",
+    "velocity_at",
+]
 
 
 def solve_field(
@@ -81,85 +88,100 @@ def solve_field(
     return sol
 
 
-def assemble(mesh: FieldMesh, viscosity: float):
-    """The saddle-point matrix ``[[A, B^T], [B, 0]]`` and its function spaces.
+@dataclass(frozen=True)
+class FieldSystem:
+    """The assembled problem of one mesh, with the fixed values in place.
 
-    Returns
-    -------
-    K : scipy.sparse.csr_matrix
-        Full matrix, velocity dofs first.
-    vbasis, pbasis : skfem bases
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_matrix
+        The full saddle-point matrix, velocity dofs first, then the pressures.
+    reduced : scipy.sparse.csc_matrix
+        The matrix of the free unknowns.
+    rhs : numpy.ndarray
+        Right-hand side of the free unknowns (from the port pressures).
+    free : numpy.ndarray
+        Indices of the free unknowns.
+    x : numpy.ndarray
+        Full solution vector holding the fixed values (wall velocities, port pressures).
+    space : P2Space
+    port_nodes : dict of str to numpy.ndarray
+        Pressure nodes of each port.
     """
-    import skfem
-    from scipy import sparse
-    from skfem.helpers import ddot, dot, grad
 
-    m = skfem.MeshTri(mesh.points.T.copy(), mesh.triangles.T.copy())
-    vbasis = skfem.Basis(m, skfem.ElementVector(skfem.ElementTriP2()), intorder=4)
-    pbasis = vbasis.with_element(skfem.ElementTriP1())
-    nqp = vbasis.X.shape[1]
-    h = np.repeat(mesh.depth[:, None], nqp, axis=1)
-    nu = np.repeat((viscosity * lateral_factor(mesh.depth, mesh.width))[:, None], nqp, axis=1)
-    kmu = np.repeat((viscosity * friction(mesh.depth))[:, None], nqp, axis=1)
-
-    @skfem.BilinearForm
-    def a_form(u, v, w):
-        return w["h"] * (w["nu"] * ddot(grad(u), grad(v)) + w["kmu"] * dot(u, v))
-
-    @skfem.BilinearForm
-    def b_form(u, q, w):
-        return w["h"] * dot(u, grad(q))
-
-    a = a_form.assemble(vbasis, h=h, nu=nu, kmu=kmu)
-    b = b_form.assemble(vbasis, pbasis, h=h)
-    k = sparse.bmat([[a, b.T], [b, None]], format="csr")
-    return k, vbasis, pbasis, m
+    matrix: object
+    reduced: object
+    rhs: np.ndarray
+    free: np.ndarray
+    x: np.ndarray
+    space: object
+    port_nodes: dict
 
 
-def _facet_index(m, edges: np.ndarray) -> np.ndarray:
-    f = np.sort(m.facets, axis=0)
-    n = m.p.shape[1]
-    key = f[0].astype(np.int64) * n + f[1]
-    order = np.argsort(key)
-    e = np.sort(edges, axis=1)
-    want = e[:, 0].astype(np.int64) * n + e[:, 1]
-    pos = np.searchsorted(key[order], want)
-    return order[pos]
-
-
-def solve_on_mesh(
-    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float, *, solver: str = "splu"
-) -> FieldSolution:
-    """Solve the flow on a given mesh with the given port pressures [Pa]."""
-    from scipy.sparse.linalg import splu, spsolve
-
-    t0 = time.perf_counter()
-    k, vbasis, pbasis, m = assemble(mesh, viscosity)
-    nu_dofs = vbasis.N
+def field_system(
+    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float
+) -> FieldSystem:
+    """Assemble the problem on ``mesh`` with the port pressures [Pa] and viscosity [Pa s]."""
+    space = p2_space(mesh.points, mesh.triangles)
+    lateral = viscosity * lateral_factor(mesh.depth, mesh.width)
+    k = assemble_system(
+        mesh.points, mesh.triangles, space, mesh.depth, lateral, viscosity * friction(mesh.depth)
+    )
+    nn = space.n_nodes
+    nu_dofs = 2 * nn
     n = k.shape[0]
-    wall = vbasis.get_dofs(facets=_facet_index(m, mesh.wall_edges)).all()
+    wall_nodes = space.edge_nodes(mesh.wall_edges)
     x = np.zeros(n)
-    fixed = [wall]
+    fixed = [wall_nodes, wall_nodes + nn]
     port_nodes = {}
     for name, edges in mesh.port_edges.items():
         nodes = np.unique(edges)
         port_nodes[name] = nodes
         x[nu_dofs + nodes] = port_pressures[name]
         fixed.append(nu_dofs + nodes)
-    fixed_dofs = np.unique(np.concatenate(fixed))
-    free = np.setdiff1d(np.arange(n), fixed_dofs)
-    kff = k[free][:, free].tocsc()
-    rhs = -(k[free][:, fixed_dofs] @ x[fixed_dofs])
-    t1 = time.perf_counter()
+    is_fixed = np.zeros(n, bool)
+    is_fixed[np.concatenate(fixed)] = True
+    free = np.nonzero(~is_fixed)[0]
+    fixed_dofs = np.nonzero(is_fixed)[0]
+    k_free = k[free]
+    kff = k_free[:, free].tocsc()
+    rhs = -(k_free[:, fixed_dofs] @ x[fixed_dofs])
+    return FieldSystem(k, kff, rhs, free, x, space, port_nodes)
+
+
+def solve_reduced(system: FieldSystem, solver: str = "splu") -> np.ndarray:
+    """Solve the reduced system; returns the free unknowns.
+
+    ``splu`` factorises with a minimum-degree ordering of the symmetrised pattern and no
+    row pivoting preference (the matrix is symmetric); ``spsolve`` is scipy's plain call.
+    """
+    from scipy.sparse.linalg import splu, spsolve
+
     if solver == "splu":
         lu = splu(
-            kff, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True}
+            system.reduced,
+            permc_spec="MMD_AT_PLUS_A",
+            diag_pivot_thresh=0.0,
+            options={"SymmetricMode": True},
         )
-        x[free] = lu.solve(rhs)
-    elif solver == "spsolve":
-        x[free] = spsolve(kff, rhs)
-    else:
-        raise FieldError(f"unknown field solver {solver!r} (valid: splu, spsolve)")
+        return lu.solve(system.rhs)
+    if solver == "spsolve":
+        return spsolve(system.reduced, system.rhs)
+    raise FieldError(f"unknown field solver {solver!r} (valid: splu, spsolve)")
+
+
+def solve_on_mesh(
+    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float, *, solver: str = "splu"
+) -> FieldSolution:
+    """Solve the flow on a given mesh with the given port pressures [Pa]."""
+    t0 = time.perf_counter()
+    system = field_system(mesh, port_pressures, viscosity)
+    k, free, space, port_nodes = system.matrix, system.free, system.space, system.port_nodes
+    x = system.x.copy()
+    nn = space.n_nodes
+    nu_dofs = 2 * nn
+    t1 = time.perf_counter()
+    x[free] = solve_reduced(system, solver)
     if not np.all(np.isfinite(x)):
         raise FieldError("the field solve failed (singular system): check the ports and walls")
     t2 = time.perf_counter()
@@ -167,12 +189,13 @@ def solve_on_mesh(
     u, p = x[:nu_dofs], x[nu_dofs:]
     residual = k[nu_dofs:, :] @ x  # continuity rows: flux out through each pressure node
     flows = {name: float(-residual[nodes].sum()) for name, nodes in port_nodes.items()}
-    uq = np.asarray(vbasis.interpolate(u))  # (2, n_elements, n_qp)
-    dx = vbasis.dx
-    vel = (uq * dx).sum(axis=-1) / dx.sum(axis=-1)
-    vel = vel.T
-    nodal = vbasis.nodal_dofs
-    vel_vertices = np.column_stack([u[nodal[0]], u[nodal[1]]])
+    ux, uy = u[:nn], u[nn:]
+    # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values
+    vel = np.column_stack(
+        [ux[space.nodes[:, 3:]].mean(axis=1), uy[space.nodes[:, 3:]].mean(axis=1)]
+    )
+    npts = space.n_points
+    vel_vertices = np.column_stack([ux[:npts], uy[:npts]])
     speed = np.hypot(vel[:, 0], vel[:, 1])
     shear = floor_factor(mesh.depth, mesh.width) * viscosity * speed / mesh.depth
     stats = {
@@ -183,7 +206,6 @@ def solve_on_mesh(
     }
     return FieldSolution(
         mesh=mesh,
-        dofs=u,
         viscosity=viscosity,
         pressure=p,
         velocity=vel,
@@ -191,16 +213,40 @@ def solve_on_mesh(
         floor_shear=shear,
         port_flows=flows,
         port_pressures=dict(port_pressures),
+        dofs=u,
         stats=stats,
     )
 
 
 def velocity_at(solution: FieldSolution, xy: np.ndarray) -> np.ndarray:
-    """Depth-averaged velocity at points ``xy`` (n, 2) inside the domain [m/s], shape (n, 2)."""
-    import skfem
+    """Depth-averaged velocity at points ``xy`` (n, 2) inside the domain [m/s], shape (n, 2).
+
+    Points outside every triangle get NaN.
+    """
+    from scipy.spatial import cKDTree
 
     mesh = solution.mesh
-    m = skfem.MeshTri(mesh.points.T.copy(), mesh.triangles.T.copy())
-    vbasis = skfem.Basis(m, skfem.ElementVector(skfem.ElementTriP2()))
-    values = vbasis.probes(np.asarray(xy, float).T) @ solution.dofs
-    return values.reshape(2, -1).T if values.size == 2 * len(xy) else values
+    xy = np.asarray(xy, float).reshape(-1, 2)
+    space = p2_space(mesh.points, mesh.triangles)
+    tri_pts = mesh.points[mesh.triangles]
+    k = min(16, len(mesh.triangles))
+    _, cand = cKDTree(tri_pts.mean(axis=1)).query(xy, k=k)
+    cand = cand.reshape(len(xy), k)
+    p0 = tri_pts[cand, 0]
+    j1, j2 = tri_pts[cand, 1] - p0, tri_pts[cand, 2] - p0
+    det = j1[..., 0] * j2[..., 1] - j1[..., 1] * j2[..., 0]
+    d = xy[:, None, :] - p0
+    l1 = (d[..., 0] * j2[..., 1] - d[..., 1] * j2[..., 0]) / det
+    l2 = (j1[..., 0] * d[..., 1] - j1[..., 1] * d[..., 0]) / det
+    lam = np.stack([1.0 - l1 - l2, l1, l2], axis=-1)
+    inside = lam.min(axis=-1)
+    best = np.argmax(inside, axis=1)
+    rows = np.arange(len(xy))
+    tri = cand[rows, best]
+    phi = p2_values(lam[rows, best])
+    nodes = space.nodes[tri]
+    nn = space.n_nodes
+    u = solution.dofs
+    out = np.column_stack([(phi * u[nodes]).sum(axis=1), (phi * u[nodes + nn]).sum(axis=1)])
+    out[inside[rows, best] < -1e-9] = np.nan
+    return out
