@@ -192,3 +192,11 @@ def test_demo_reports_the_bed_spread_of_its_drawn_widths():
     cv_again = np.std(again.flow[bed]) / np.mean(again.flow[bed])
     assert abs(reported["value"] - cv_again) < 1e-12
     assert cv_again < 1e-9  # the drawing is symmetric and exact: every bed channel alike
+
+
+def test_a_bed_too_short_to_fold_is_drawn_straight_with_a_warning():
+    # 3.8 mm of 120 um bed channel: a serpentine's two half-turns and leads alone need more
+    layout = draw(tree([240e-6, 120e-6], 50e-6, 3.8e-3, max_straight=3e-3))
+    bed = layout.channels.role == "bed"
+    assert np.all(layout.channels.bends[bed] == 2)
+    assert any("too short to fold" in w for w in layout.warnings)

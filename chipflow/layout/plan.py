@@ -201,49 +201,51 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
     ``max_straight_length`` and fits the chip, and the warnings about the fold.
 
     A bed folded further than ``max_straight_length`` asks, only to fit the chip's width, is
-    said in a warning. Raises :class:`LayoutError` when no fold fits.
+    said in a warning; so is a bed too short to fold (its half-turns and leads would need more
+    length than it has), which is then drawn with the fewest runs that fit. Raises
+    :class:`LayoutError` when no fold fits the chip.
     """
     limit = design.max_straight_length
-    first = plan_layout(design, chip, rules, 1)
-    asked = None  # fewest runs that keep every run within max_straight_length
-    last = first
+    plans = []
     for runs in range(1, MAX_RUNS + 1, 2):
-        plan = first if runs == 1 else plan_layout(design, chip, rules, runs)
+        plan = plan_layout(design, chip, rules, runs)
         if plan.height_needed > chip.height + 1e-12 or plan.run_length < 0:
             break
-        last = plan
-        if limit is not None and plan.run_length > limit + 1e-12:
-            continue
-        asked = runs if asked is None else asked
-        if plan.width_needed <= chip.width + 1e-12:
-            return plan, _fold_warnings(plan, asked, limit, chip)
-    size = f"{chip.width * 1e3:g} x {chip.height * 1e3:g} mm chip"
-    if limit is not None and asked is None:
+        plans.append(plan)
+    fits = [p for p in plans if p.width_needed <= chip.width + 1e-12]
+    if not fits:
+        first = plans[0] if plans else plan_layout(design, chip, rules, 1)
         raise LayoutError(
-            f"design '{design.name}': bed channels {design.bed.length * 1e3:.3g} mm long cannot "
-            f"be folded into runs of at most max_straight_length = {limit * 1e3:g} mm on the "
-            f"{size}: the shortest runs that fit are {last.run_length * 1e3:.3g} mm "
-            f"({last.runs} runs); allow longer runs, a taller chip or a shorter bed"
+            f"design '{design.name}' with {2**first.n} bed channels does not fit on the "
+            f"{chip.width * 1e3:g} x {chip.height * 1e3:g} mm chip: drawn with straight bed "
+            f"channels it needs at least {first.width_needed * 1e3:.1f} x "
+            f"{first.height_needed * 1e3:.1f} mm (folding the bed into a serpentine did not "
+            "help); use a larger chip, fewer generations, or shorter or narrower bed channels"
         )
-    raise LayoutError(
-        f"design '{design.name}' with {2**first.n} bed channels does not fit on the "
-        f"{size}: drawn with straight bed channels it needs at least "
-        f"{first.width_needed * 1e3:.1f} x {first.height_needed * 1e3:.1f} mm (folding the bed "
-        "into a serpentine did not help); use a larger chip, fewer generations, or shorter or "
-        "narrower bed channels"
-    )
-
-
-def _fold_warnings(plan: Plan, asked: int, limit: float | None, chip: Chip) -> tuple[str, ...]:
-    if plan.runs <= asked:
-        return ()
+    within = [p for p in plans if limit is None or p.run_length <= limit + 1e-12]
+    chosen = next((p for p in fits if limit is None or p.run_length <= limit + 1e-12), None)
+    if chosen is None:  # the limit cannot be met on this chip: the fewest runs that fit
+        chosen = fits[0]
+        why = (
+            f"max_straight_length {limit * 1e3:g} mm would need more room than the chip has"
+            if within
+            else f"the bed is too short to fold into runs of at most {limit * 1e3:g} mm "
+            "(the half-turns and leads of a serpentine need more length)"
+        )
+        return chosen, (
+            f"bed channels drawn in {chosen.runs} run(s) of {chosen.run_length * 1e3:.3g} mm, "
+            f"longer than max_straight_length: {why}",
+        )
+    asked = within[0].runs
+    if chosen.runs <= asked:
+        return chosen, ()
     why = (
         f"max_straight_length {limit * 1e3:g} mm needs only {asked}"
         if limit is not None
         else "no max_straight_length is set"
     )
-    return (
-        f"bed channels folded into {plan.runs} runs of {plan.run_length * 1e3:.3g} mm to fit "
-        f"the chip's width of {chip.width * 1e3:g} mm ({why}); the serpentine adds "
-        f"{plan.runs - 1} half-turns to every bed channel",
+    return chosen, (
+        f"bed channels folded into {chosen.runs} runs of {chosen.run_length * 1e3:.3g} mm to "
+        f"fit the chip's width of {chip.width * 1e3:g} mm ({why}); the serpentine adds "
+        f"{chosen.runs - 1} half-turns to every bed channel",
     )
