@@ -201,15 +201,18 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
     ``max_straight_length`` and fits the chip, and the warnings about the fold.
 
     A bed folded further than ``max_straight_length`` asks, only to fit the chip's width, is
-    said in a warning; so is a bed too short to fold (its half-turns and leads would need more
-    length than it has), which is then drawn with the fewest runs that fit. Raises
+    said in a warning; so is a limit that cannot be met (a bed too short to fold, its half-turns
+    and leads needing more length than it has, or more folds than the chip holds), and the
+    bed is then drawn with the shortest runs that fit. Raises
     :class:`LayoutError` when no fold fits the chip.
     """
     limit = design.max_straight_length
     plans = []
+    too_short = False  # the folding stopped because the bed ran out of length (not height)
     for runs in range(1, MAX_RUNS + 1, 2):
         plan = plan_layout(design, chip, rules, runs)
-        if plan.height_needed > chip.height + 1e-12 or plan.run_length < 0:
+        too_short = plan.run_length < 0
+        if plan.height_needed > chip.height + 1e-12 or too_short:
             break
         plans.append(plan)
     fits = [p for p in plans if p.width_needed <= chip.width + 1e-12]
@@ -224,13 +227,14 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
         )
     within = [p for p in plans if limit is None or p.run_length <= limit + 1e-12]
     chosen = next((p for p in fits if limit is None or p.run_length <= limit + 1e-12), None)
-    if chosen is None:  # the limit cannot be met on this chip: the fewest runs that fit
-        chosen = fits[0]
+    if chosen is None:  # the limit cannot be met on this chip: the shortest runs that fit
+        chosen = fits[-1]
         why = (
-            f"max_straight_length {limit * 1e3:g} mm would need more room than the chip has"
-            if within
-            else f"the bed is too short to fold into runs of at most {limit * 1e3:g} mm "
-            "(the half-turns and leads of a serpentine need more length)"
+            f"the bed is too short to fold into runs of at most {limit * 1e3:g} mm (the "
+            "half-turns and leads of a serpentine need more length)"
+            if too_short and not within
+            else f"runs of at most {limit * 1e3:g} mm need more folds than the chip's height "
+            "or width allows"
         )
         return chosen, (
             f"bed channels drawn in {chosen.runs} run(s) of {chosen.run_length * 1e3:.3g} mm, "
