@@ -68,7 +68,7 @@ import shapely
 
 from chipflow.design.model import TreeDesign
 from chipflow.errors import LayoutError
-from chipflow.layout.junctions import Junction
+from chipflow.layout.junctions import STUB_WIDTHS, Junction
 from chipflow.layout.merge import merge_layer, snap_to_grid
 from chipflow.layout.model import DrawnChannels, Layout, MaskLayer, PortMark
 from chipflow.layout.plan import choose_plan, drawn_width, half_offset, merge_cuts
@@ -335,6 +335,8 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
                     float(plan.theta[k + 1]),
                     radius if is_y else 0.0,
                     0.0 if math.isclose(da, db, rel_tol=1e-9) else radius + rules.alignment_margin,
+                    min(float(plan.lead_in[k + 1]), STUB_WIDTHS * float(cw)),
+                    float(plan.radius[k + 1]),
                 ),
             )
         )

@@ -11,16 +11,23 @@ compound geometries). It is usually negative here: the junction area offers the 
 room than two straight channels meeting at a point.
 
 How it is obtained: the junction as drawn (parent end, the two children leaving at their exit
-angle, the disc that blunts a Y, the deeper layer's overlap at a depth step), with straight
-stubs of a few channel widths on each side, is solved in 2D with the depth-averaged Stokes
+angle with their straight lead and their bend back to the parent's direction, the disc that
+blunts a Y, the deeper layer's overlap at a depth step), with straight stubs of a few channel
+widths on each side, is solved in 2D with the depth-averaged Stokes
 model with Brinkman friction of :mod:`chipflow.field` (a Hele-Shaw model with the lateral
 viscous term, calibrated so that a straight channel has the exact duct resistance; REFERENCES
 section "Second round"). The parent stub's end is held at a pressure, the children's ends at
 zero (the tree is symmetric, so both children end at the same pressure). The 1D resistance of
-the stubs' centrelines (parent stub plus the two children in parallel, exact duct series) is
-subtracted and the rest divided by the parent's resistance per unit length:
+the centrelines (parent stub plus the two children in parallel, each with its lead, arc and
+stub; exact duct series) is subtracted and the rest divided by the parent's resistance per
+unit length:
 
-    dL = (R_2D - R_parent(L_s) - R_child(L_s) / 2) / R'_parent
+    dL = (R_2D - R_parent(L_s) - R_child(L_child) / 2) / R'_parent
+
+The children's bends are part of the solve because in a Y they start at the junction itself;
+a T's lead is cut to a few widths (further on the junction no longer matters). So the
+correction holds the junction and its children's bends; the half-turns of a folded bed are
+counted at their centreline length (their excess is about -1 % of the arc's length).
 
 It does not depend on the viscosity or the flow (Stokes flow is linear). A tree repeats one
 junction geometry per generation, so there are at most as many solves as generations (cached
@@ -68,6 +75,12 @@ class Junction:
     overlap : float
         How far the deeper layer covers the shallower channel past the junction centre [m]
         (0 when both have the same depth).
+    lead : float
+        Straight run of each child before its bend [m] (as drawn, at most a few widths: the
+        junction's influence has died out further on).
+    radius : float
+        Centreline radius of the child's bend back to the parent's direction [m] (0: the
+        children run straight on).
     """
 
     parent_width: float
@@ -77,6 +90,8 @@ class Junction:
     theta: float
     disc: float = 0.0
     overlap: float = 0.0
+    lead: float = 0.0
+    radius: float = 0.0
 
     def key(self) -> tuple[float, ...]:
         """The geometry rounded to 1 pm and 1e-12 rad, for caching."""
@@ -88,6 +103,8 @@ class Junction:
             self.theta,
             self.disc,
             self.overlap,
+            self.lead,
+            self.radius,
         )
         return tuple(round(v, 12) for v in values)
 
@@ -100,16 +117,33 @@ def _stub(start: np.ndarray, heading: float, length: float, width: float):
     return shapely.Polygon(ring), shapely.LineString([end + n * width / 2, end - n * width / 2])
 
 
-def junction_regions(j: Junction, stub: float):
-    """The junction with stubs of ``stub`` [m]: field regions and ports (parent ``"in"`` at
-    1 Pa, children ``"up"``/``"down"`` at 0)."""
-    from chipflow.field import FieldPort, FieldRegion
+def _child_trace(j: Junction, side: float, stub: float):
+    from chipflow.layout.trace import trace
 
-    origin = np.zeros(2)
+    pieces = [("L", j.lead)]
+    if j.radius > 0:
+        pieces.append(("A", j.radius, -side * j.theta))
+    pieces.append(("L", stub))
+    return trace(side * j.theta, pieces, max(j.radius, j.child_width) * 1e-4)
+
+
+def junction_regions(j: Junction, stub: float):
+    """The junction as drawn, with a straight parent stub of ``stub`` [m] and the children
+    (their lead, their bend back to the parent's direction, then ``stub``): field regions and
+    ports (parent ``"in"`` at 1 Pa, children ``"up"``/``"down"`` at 0)."""
+    from chipflow.field import FieldPort, FieldRegion
+    from chipflow.layout.trace import offset_ring
+
     parent = shapely.box(-stub, -j.parent_width / 2, 0.0, j.parent_width / 2)
     p_end = shapely.LineString([(-stub, j.parent_width / 2), (-stub, -j.parent_width / 2)])
-    children = [_stub(origin, s * j.theta, stub, j.child_width) for s in (1.0, -1.0)]
-    child_poly = shapely.union_all([c[0] for c in children])
+    children, ends = [], []
+    for side in (1.0, -1.0):
+        path = _child_trace(j, side, stub)
+        ring = offset_ring(path, j.child_width)
+        m = path.xy.shape[0]
+        children.append(shapely.Polygon(ring))
+        ends.append(shapely.LineString([ring[m - 1], ring[m]]))
+    child_poly = shapely.union_all(children)
     deep = max(j.parent_depth, j.child_depth)
     regions = [FieldRegion(parent, j.parent_depth), FieldRegion(child_poly, j.child_depth)]
     if j.disc > 0:
@@ -121,8 +155,8 @@ def junction_regions(j: Junction, stub: float):
         regions.append(FieldRegion(shapely.intersection(shallow, reach), deep))
     ports = [
         FieldPort("in", p_end, 1.0),
-        FieldPort("up", children[0][1], 0.0),
-        FieldPort("down", children[1][1], 0.0),
+        FieldPort("up", ends[0], 0.0),
+        FieldPort("down", ends[1], 0.0),
     ]
     return regions, ports
 
@@ -146,4 +180,5 @@ def _excess(key: tuple) -> float:
     r_2d = 1.0 / sol.port_flows["in"]
     r_p = float(resistance(j.parent_width, j.parent_depth, 1.0, mu))
     r_c = float(resistance(j.child_width, j.child_depth, 1.0, mu))
-    return (r_2d - r_p * stub - r_c * stub / 2) / r_p
+    child = _child_trace(j, 1.0, stub).length  # its centreline: lead, arc, stub
+    return (r_2d - r_p * stub - r_c * child / 2) / r_p
