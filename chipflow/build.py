@@ -18,11 +18,12 @@ Stages report their name to an optional ``progress`` callable, for the command l
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import math
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -106,6 +107,9 @@ class Build:
         Mask-file options (None when there is nothing to draw).
     results : dict
         JSON-able results in SI units (see :data:`RESULT_UNITS`).
+    field : FieldRun or None
+        The field solve of the drawing and its comparison with the network (None when it
+        was not run).
     """
 
     source: DesignSource
@@ -117,7 +121,8 @@ class Build:
     solution: Solution
     checks: tuple[CheckResult, ...]
     export: ExportSettings | None
-    results: dict[str, Any] = field(repr=False)
+    results: dict[str, Any] = dataclasses.field(repr=False)
+    field: Any = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -134,6 +139,7 @@ def build_design(
     progress: Progress | None = None,
     *,
     allow_large: bool = False,
+    field: bool | None = None,
 ) -> Build:
     """Run every stage on a design file.
 
@@ -146,6 +152,11 @@ def build_design(
     allow_large : bool, optional
         Draw a tree even when it needs more memory than the machine can spare (see
         :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
+    field : bool, optional
+        Solve the 2D field of the drawing and compare it with the network. By default only
+        when the chip is small enough to solve in seconds
+        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
+        no field.
 
     Returns
     -------
@@ -165,7 +176,7 @@ def build_design(
     top = source.top
     try:
         if "tree" in top:
-            return _build_tree(source, progress, allow_large)
+            return _build_tree(source, progress, allow_large, field)
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
@@ -180,7 +191,12 @@ def build_design(
 
 
 # -- tree designs -------------------------------------------------------------------------------
-def _build_tree(source: DesignSource, progress: Progress, allow_large: bool = False) -> Build:
+def _build_tree(
+    source: DesignSource,
+    progress: Progress,
+    allow_large: bool = False,
+    run_field: bool | None = None,
+) -> Build:
     from chipflow.layout import LayoutRules, check_rules, draw, extract_network
     from chipflow.layout.budget import check_size
     from chipflow.spec.chip import read_chip
@@ -241,6 +257,17 @@ def _build_tree(source: DesignSource, progress: Progress, allow_large: bool = Fa
     )
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings]
+    field_run = None
+    if run_field is None:
+        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+    if run_field:
+        from chipflow.field.run import run_field as solve_chip_field
+
+        progress("field")
+        field_run = solve_chip_field(layout, solution, spec.fluid.viscosity, window, culture.seeded)
+    results["field"] = None if field_run is None else field_run.results
     return Build(
         source,
         spec.name,
@@ -252,6 +279,7 @@ def _build_tree(source: DesignSource, progress: Progress, allow_large: bool = Fa
         tuple(checks),
         export,
         results,
+        field_run,
     )
 
 
@@ -300,6 +328,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     results["fabrication"] = None
     results["warnings"] = []
+    results["field"] = None
     return Build(
         source,
         design.name,
@@ -417,8 +446,11 @@ def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[
         "chip": {
             "width": float(layout.outline.bounds[2] - layout.outline.bounds[0]),
             "height": float(layout.outline.bounds[3] - layout.outline.bounds[1]),
+            "margin": layout.margin,
         },
         "layers": [{"name": layer.name, "depth": layer.depth} for layer in layout.layers],
+        # width of every drawn channel on the mask polygons, in the order of channels.csv
+        "mask_width": [float(w) for w in layout.channels.mask_width],
         "findings": [_finding_dict(f) for f in findings],
     }
 

@@ -20,6 +20,7 @@ __all__ = [
     "ExportError",
     "ArgumentError",
     "TooLargeError",
+    "FieldError",
 ]
 
 
@@ -57,3 +58,7 @@ class ArgumentError(ChipflowError, ValueError):
 
 class TooLargeError(LayoutError):
     """The design would need more memory to draw than the machine can spare."""
+
+
+class FieldError(ChipflowError, ValueError):
+    """A mask cannot be meshed or solved as a flow field (no ports, disconnected, ...)."""

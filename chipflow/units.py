@@ -312,6 +312,8 @@ RESULT_UNITS: dict[str, str] = {
     # geometry
     "count": "1",
     "width": "m",
+    "margin": "m",
+    "mask_width": "m",
     "depth": "m",
     "length": "m",
     "aspect_ratio": "1",
@@ -341,6 +343,23 @@ RESULT_UNITS: dict[str, str] = {
     "reynolds": "1",
     "residence_time": "s",
     "entrance_length": "m",
+    # field solve
+    "resistance": "Pa*s/m^3",
+    "network_resistance": "Pa*s/m^3",
+    "p05": "Pa",
+    "p50": "Pa",
+    "p95": "Pa",
+    "field_shear": "Pa",
+    "network_shear": "Pa",
+    "seeded_area": "m^2",
+    "area_outside_window": "1",
+    "below_window": "1",
+    "above_window": "1",
+    "mesh_triangles": "1",
+    "max_deviation": "1",
+    "field_cv": "1",
+    "network_cv": "1",
+    "area": "m^2",
 }
 
 

@@ -38,10 +38,15 @@ class _StageLine:
             self.stream.flush()
 
 
-def _run(design: str | Path, outdir: str | None, allow_large: bool = False) -> int:
+def _run(
+    design: str | Path,
+    outdir: str | None,
+    allow_large: bool = False,
+    field: bool | None = None,
+) -> int:
     stages = _StageLine()
     try:
-        build, files = build_to_folder(design, outdir, stages, allow_large=allow_large)
+        build, files = build_to_folder(design, outdir, stages, allow_large=allow_large, field=field)
     finally:
         stages.done()
     click.echo(console_summary(build.results))
@@ -65,7 +70,13 @@ def _run(design: str | Path, outdir: str | None, allow_large: bool = False) -> i
     is_flag=True,
     help="Build even a tree that needs more memory than this machine can spare.",
 )
-def command(design: str, outdir: str | None, allow_large: bool) -> int:
+@click.option(
+    "--field/--no-field",
+    default=None,
+    help="Solve the 2D flow field of the drawing and compare it with the network (default: "
+    "only for chips small enough to solve in seconds).",
+)
+def command(design: str, outdir: str | None, allow_large: bool, field: bool | None) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
 
     \b
@@ -77,7 +88,7 @@ def command(design: str, outdir: str | None, allow_large: bool) -> int:
     input, a tree too large for this machine's memory, or an output folder that cannot be
     written (nothing is written).
     """
-    return _run(design, outdir, allow_large)
+    return _run(design, outdir, allow_large, field)
 
 
 @click.command("demo")

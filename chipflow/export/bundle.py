@@ -49,6 +49,7 @@ CSV_COLUMNS = (
     "from",
     "to",
     "width",
+    "mask_width",
     "depth",
     "length",
     "round",
@@ -87,6 +88,8 @@ def output_names(build: Build) -> list[str]:
             "shear.svg",
             "shear.png",
         ]
+    if build.field is not None:
+        names.append("field.svg")
     if build.results["generations"]:
         names.append("profile.svg")
     return names + ["report.html", "results.json", "channels.csv"]
@@ -116,6 +119,11 @@ def channels_csv(build: Build) -> str:
     nodes = np.asarray(net.node_names, dtype=object)
     forward = sol.flow >= 0
     p_a, p_b = sol.pressure[net.node_a], sol.pressure[net.node_b]
+    # the width on the written mask polygons, measured after drawing (empty for tubing)
+    mask = np.full(net.n_channels, np.nan)
+    drawn = None if build.layout is None else build.layout.channels.mask_width
+    if drawn is not None:
+        mask[: drawn.size] = drawn
     columns = {
         "channel": np.asarray(net.channel_names(), dtype=object),
         "role": net.role,
@@ -123,6 +131,7 @@ def channels_csv(build: Build) -> str:
         "from": nodes[net.node_a],
         "to": nodes[net.node_b],
         "width": net.width,
+        "mask_width": mask,
         "depth": net.depth,
         "length": net.length,
         "round": np.where(net.round, "yes", "no"),
@@ -202,6 +211,14 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
                 encoding="utf-8"
             )
+        if build.field is not None:
+            from chipflow.report.field_figure import field_shear_figure
+
+            progress("field figure")
+            run = build.field
+            text = svg_text(field_shear_figure(run.solution, run.window, run.zoom(layout)))
+            (stage / "field.svg").write_bytes(text.encode("utf-8"))
+            figures["Floor wall shear of the 2D field, against the cell window"] = text
         progress("report")
         profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
         if profile is not None:
@@ -219,6 +236,7 @@ def build_to_folder(
     progress: Callable[[str], None] | None = None,
     *,
     allow_large: bool = False,
+    field: bool | None = None,
 ) -> tuple[Build, list[Path]]:
     """Build a design file and write all its outputs (the whole job of ``chipflow build``).
 
@@ -232,6 +250,8 @@ def build_to_folder(
         Called with the name of each stage.
     allow_large : bool, optional
         Build a tree even when it needs more memory than the machine can spare.
+    field : bool, optional
+        Solve the 2D field (see :func:`chipflow.build.build_design`; default: small chips).
 
     Returns
     -------
@@ -241,6 +261,6 @@ def build_to_folder(
     """
     from chipflow.build import build_design
 
-    build = build_design(design, progress, allow_large=allow_large)
+    build = build_design(design, progress, allow_large=allow_large, field=field)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)

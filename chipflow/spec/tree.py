@@ -212,9 +212,14 @@ class BedSpec:
     length : float or None
         Bed channel length [m] (exactly one of ``length`` and ``residence_time`` is set).
     max_straight_length : float or None
-        Longest straight run [m]; longer channels are folded by the layout.
+        Longest straight run of a bed channel [m]; longer bed channels are folded by the
+        layout into a serpentine of equal runs no longer than this (None: folded only when
+        the chip is too short for a straight bed).
     gap : float or None
-        Wall between neighbouring bed channels [m] (None: ``Fabrication.min_gap``).
+        Wall between neighbouring bed channels and between the runs of a folded bed channel
+        [m], at least ``Fabrication.min_gap`` (None: ``Fabrication.min_gap``). The drawing
+        keeps at least this wall; a wider upper generation or half-grid steps that keep the
+        walls on the grid may widen it.
     """
 
     residence_time: float | None = None
@@ -417,11 +422,18 @@ def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
     length = table.quantity("length", "length", None)
     if (residence is None) == (length is None):
         raise table.error(None, "give exactly one of residence_time and length")
+    gap = table.quantity("gap", "length", fab.min_gap)
+    if gap < fab.min_gap * (1 - 1e-9):
+        raise table.error(
+            "gap",
+            f"a wall of {gap * 1e6:.4g} um is thinner than [fabrication].min_gap "
+            f"{fab.min_gap * 1e6:.4g} um; give at least that, or lower min_gap",
+        )
     return BedSpec(
         residence_time=residence,
         length=length,
         max_straight_length=table.quantity("max_straight_length", "length", None),
-        gap=table.quantity("gap", "length", fab.min_gap),
+        gap=gap,
     )
 
 
