@@ -70,7 +70,8 @@ def level_figure(
         low, high = min(low, float(window["min"])), max(high, float(window["max"]))
     pad = 0.05 * (high - low) if high > low else 0.05 * max(abs(high), 1e-12)
     bins = np.linspace(low - pad, high + pad, _BINS + 1)
-    ax.hist(values, bins=bins, color=_TEAL, alpha=0.85, zorder=2)
+    counts, _ = np.histogram(values, bins=bins)
+    ax.stairs(counts, bins, fill=True, color=_TEAL, alpha=0.85, zorder=2)
     p = level["floor_shear"]
     for key, style in (("p05", ":"), ("p50", "-"), ("p95", ":")):
         ax.axvline(p[key], color=_INK, ls=style, lw=1.1, zorder=3)
@@ -89,7 +90,7 @@ def level_figure(
     ax.legend(loc="upper right", fontsize=7, frameon=False)
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
-    fig.tight_layout()
+    fig.subplots_adjust(left=0.12, right=0.97, bottom=0.17, top=0.88)
     return fig
 
 

@@ -25,6 +25,8 @@ __all__ = ["run_tasks", "default_workers"]
 Progress = Callable[[int, int], None]
 
 _SHARED: Any = None
+#: How long to try to reach a Dask scheduler.
+CONNECT_TIMEOUT = "10s"
 
 
 def default_workers() -> int:
@@ -106,7 +108,7 @@ def _run_dask(
             "--scheduler needs dask.distributed: pip install 'dask[distributed]'"
         ) from None
     try:
-        client = Client(address, timeout="10s", set_as_default=False)
+        client = Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
         raise ChipflowError(
             f"--scheduler {address}: cannot reach the Dask scheduler ({exc})"
