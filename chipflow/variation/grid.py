@@ -34,24 +34,14 @@ from typing import Any
 import numpy as np
 
 from chipflow.errors import SpecError
+from chipflow.spec.tree import TOP_KEYS
 
 __all__ = ["Axis", "parse_axis", "grid_points", "with_values", "value_text", "MAX_POINTS"]
 
 #: Largest grid accepted.
 MAX_POINTS = 10_000
 #: Design-file sections whose numeric keys may be swept.
-SECTIONS = (
-    "fluid",
-    "tree",
-    "bed",
-    "targets",
-    "fabrication",
-    "chip",
-    "supply",
-    "culture",
-    "limits",
-    "export",
-)
+SECTIONS = tuple(k for k in TOP_KEYS if k not in ("name", "description", "tolerances"))
 
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 _INT = re.compile(r"^[-+]?\d+$")

@@ -233,8 +233,8 @@ def _fill_reducing_positions(
     # a diagonally dominant stand-in with the same pattern: the ordering depends on it alone
     values = np.concatenate([np.full(free.size, 4.0 * n), -np.ones(2 * int(both.sum()))])
     pattern = sp.csc_matrix((values, (rows, cols)), shape=(free.size, free.size))
-    order = splu(pattern, permc_spec="MMD_AT_PLUS_A").perm_c
-    position[free[order]] = np.arange(free.size)
+    # SuperLU factors A Pc with Pc[i, perm_c[i]] = 1: old unknown i becomes unknown perm_c[i]
+    position[free] = splu(pattern, permc_spec="MMD_AT_PLUS_A").perm_c
     return position
 
 
