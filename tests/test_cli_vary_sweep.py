@@ -70,7 +70,10 @@ def test_vary_json_prints_the_results_and_nothing_on_stderr(tmp_path: Path) -> N
 
 
 def test_tolerances_section_gives_the_defaults_and_options_override(tmp_path: Path) -> None:
-    section = '\n[tolerances]\ndepth = "8 %"\nflow = "3 %"\nsamples = 30\nseed = 4\n'
+    section = (
+        '\n[tolerances]\ndepth = "8 %"\nwidth = "1.5 um"\nflow = "3 %"\nviscosity = 0.04\n'
+        'distribution = "normal"\nsamples = 30\nseed = 4\n'
+    )
     text = DEMO.read_text() + section
     design = tmp_path / "d.toml"
     design.write_text(text)
@@ -80,6 +83,30 @@ def test_tolerances_section_gives_the_defaults_and_options_override(tmp_path: Pa
     assert data["samples"] == 30 and data["seed"] == 4
     assert data["tolerances"]["depth"] == pytest.approx(0.08)
     assert data["tolerances"]["flow"] == pytest.approx(0.01)
+    assert data["tolerances"]["width"] == pytest.approx(1.5e-6)
+    assert data["tolerances"]["viscosity"] == pytest.approx(0.04)
+    assert data["distribution"] == "normal"
+
+
+BAD_SECTION = {
+    'depth = "-1 %"': "cannot be negative",
+    'depth = "1.2"': "below 100 %",
+    'depth = "5 uL/min"': "fraction such as",
+    'width = "3 %"': "expected a length",
+    'flow = "2 um"': "wrong kind of unit",
+    'viscosity = "100 %"': "below 100 %",
+    'distribution = "flat"': "unknown value",
+    "samples = 0": "at least 1",
+    "samples = 2.5": "whole number",
+    "seed = -1": "at least 0",
+}
+
+
+@pytest.mark.parametrize("line", BAD_SECTION)
+def test_tolerances_section_values_are_validated(line: str) -> None:
+    top = parse_design_text(f"[tolerances]\n{line}\n", "t.toml")
+    with pytest.raises(SpecError, match=BAD_SECTION[line]):
+        read_tolerances(top)
 
 
 @pytest.mark.parametrize("path", TREE_DESIGNS, ids=lambda p: p.stem)
@@ -237,3 +264,15 @@ def test_vary_refuses_an_explicit_network_and_a_bad_section(tmp_path: Path) -> N
 def test_vary_unreachable_scheduler_exits_2(tmp_path: Path, monkeypatch) -> None:
     monkeypatch.setattr("chipflow.variation.execute.CONNECT_TIMEOUT", "1s")
     _bad("vary", ["--samples", "10", "--scheduler", "tcp://127.0.0.1:9"], tmp_path)
+
+
+def test_a_sweep_on_a_dask_cluster_equals_the_local_sweep() -> None:
+    distributed = pytest.importorskip("distributed")
+    axes = [parse_axis("tree.flow=10uL/min..14uL/min:3")]
+    source = read_design_source(DEMO)
+    local = sweep_design(source, axes, workers=1)
+    with distributed.LocalCluster(
+        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
+    ) as cluster:
+        remote = sweep_design(source, axes, scheduler=cluster.scheduler_address)
+    assert remote.rows == local.rows
