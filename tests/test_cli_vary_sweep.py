@@ -266,13 +266,9 @@ def test_vary_unreachable_scheduler_exits_2(tmp_path: Path, monkeypatch) -> None
     _bad("vary", ["--samples", "10", "--scheduler", "tcp://127.0.0.1:9"], tmp_path)
 
 
-def test_a_sweep_on_a_dask_cluster_equals_the_local_sweep() -> None:
-    distributed = pytest.importorskip("distributed")
+def test_a_sweep_on_a_dask_cluster_equals_the_local_sweep(dask_scheduler) -> None:
     axes = [parse_axis("tree.flow=10uL/min..14uL/min:3")]
     source = read_design_source(DEMO)
     local = sweep_design(source, axes, workers=1)
-    with distributed.LocalCluster(
-        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
-    ) as cluster:
-        remote = sweep_design(source, axes, scheduler=cluster.scheduler_address)
+    remote = sweep_design(source, axes, scheduler=dask_scheduler)
     assert remote.rows == local.rows

@@ -217,14 +217,10 @@ def test_local_processes_give_the_same_numbers_as_one_process(demo) -> None:
     assert np.array_equal(one.samples.supply_pressure, two.samples.supply_pressure)
 
 
-def test_a_dask_cluster_gives_the_same_numbers_as_local_execution(demo) -> None:
-    distributed = pytest.importorskip("distributed")
+def test_a_dask_cluster_gives_the_same_numbers_as_local_execution(demo, dask_scheduler) -> None:
     tol = Tolerances(depth=0.1, width=2e-6, flow=0.02, samples=7000, seed=5)
     local = vary_build(demo, tol, workers=1)
-    with distributed.LocalCluster(
-        n_workers=1, threads_per_worker=2, processes=False, dashboard_address=None
-    ) as cluster:
-        remote = vary_build(demo, tol, scheduler=cluster.scheduler_address)
+    remote = vary_build(demo, tol, scheduler=dask_scheduler)
     assert remote.results == local.results
     assert np.array_equal(remote.samples.shear, local.samples.shear)
 
