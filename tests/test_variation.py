@@ -225,6 +225,32 @@ def test_a_dask_cluster_gives_the_same_numbers_as_local_execution(demo, dask_sch
     assert np.array_equal(remote.samples.shear, local.samples.shear)
 
 
+def test_a_pressure_supply_tolerance_scales_pressures_and_shear_linearly(tmp_path: Path) -> None:
+    """Driven by a pressure controller into an open outlet, the network is linear (Stokes flow):
+    every pressure and flow scales with the supply pressure. A supply error uniform on [-t, t]
+    therefore gives p-quantiles of P0 (1 + t (2p - 1)) for the supply pressure and
+    tau0 (1 + t (2p - 1)) for every floor shear (analytic)."""
+    text = DEMO.read_text().replace('inlet = "syringe"', 'inlet = "pressure"\npressure = "600 Pa"')
+    design = tmp_path / "pressure.toml"
+    design.write_text(text)
+    build = build_design(design)
+    assert build.results["supply"]["inlet"]["pressure"] == 600.0
+    t, n = 0.05, 2000
+    v = vary_build(build, Tolerances(flow=t, samples=n, seed=2), workers=1)
+    uniform = standard_draws(n, v.problem.n_factors, seed=2)[:, v.problem.n_levels + 1]
+    for p in (5, 50, 95):
+        factor = 1.0 + t * float(np.percentile(uniform, p))  # the same draws, linear map
+        assert v.results["supply_pressure"][f"p{p:02d}"] == pytest.approx(600.0 * factor, rel=1e-12)
+        for level, row in zip(v.results["levels"], build.results["generations"], strict=True):
+            expected = row["wall_shear_floor"] * factor
+            assert level["floor_shear"][f"p{p:02d}"] == pytest.approx(expected, rel=1e-11)
+    # and the draws themselves follow the uniform law within Monte Carlo error
+    for p in (5, 50, 95):
+        exact = 2.0 * p / 100 - 1.0
+        standard_error = np.sqrt(p / 100 * (1 - p / 100) / n) * 2.0  # density 1/2 on [-1, 1]
+        assert abs(np.percentile(uniform, p) - exact) < 4 * standard_error
+
+
 def test_normal_distribution_has_the_tolerance_as_standard_deviation() -> None:
     z = standard_draws(20000, 2, seed=0, distribution="normal")
     assert abs(z.std() - 1.0) < 0.02 and abs(z).max() <= 4.0

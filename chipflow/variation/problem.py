@@ -80,7 +80,7 @@ class Problem:
         (-1: not perturbed).
     level_depths : numpy.ndarray
         Nominal depth of each mould level [m].
-    viscosity, density : float
+    viscosity : float
     n_nodes : int
     free, position : numpy.ndarray
         The free node of each row of the reduced system, and each node's row (-1 where the
@@ -128,7 +128,6 @@ class Problem:
     class_level: np.ndarray
     level_depths: np.ndarray
     viscosity: float
-    density: float
     n_nodes: int
     free: np.ndarray
     position: np.ndarray
@@ -336,7 +335,6 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
         class_level=class_level.astype(np.int64),
         level_depths=level_depths,
         viscosity=float(build.fluid.viscosity),
-        density=float(build.fluid.density),
         n_nodes=n,
         free=free,
         position=position,
