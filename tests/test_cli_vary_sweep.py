@@ -48,7 +48,12 @@ def test_vary_writes_report_results_and_a_figure_per_level(tmp_path: Path) -> No
         assert p["p05"] <= p["p50"] <= p["p95"]
         assert (out / f"shear-{level['label']}.svg").is_file()
     assert data["units"]["floor_shear"] == "Pa"
-    assert "Yield" in (out / "report.html").read_text()
+    page = (out / "report.html").read_text()
+    assert "Yield" in page
+    for table in re.findall(r"<table>(.*?)</table>", page, flags=re.DOTALL):
+        header, *rows = re.findall(r"<tr[^>]*>(.*?)</tr>", table, flags=re.DOTALL)
+        width = header.count("<th")
+        assert rows and all(row.count("<td") == width for row in rows), header
     # the same seed gives the same bytes
     again = tmp_path / "again"
     assert run("vary", *args, "-o", str(again)).exit_code == 0

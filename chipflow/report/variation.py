@@ -147,7 +147,7 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
         ["bed flow spread (CV) [%]", *_spread(results["bed_flow_spread"], 100.0)],
     ]
     if results.get("shear_margin"):
-        overall.append(["window margin [%]", *_spread(results["shear_margin"], 100.0), "&ndash;"])
+        overall.append(["window margin [%]", *_spread(results["shear_margin"], 100.0)])
     corner = results["worst_corner"]
     corner_rows = [[_e(k), factor_text(k, v)] for k, v in corner["factors"].items()]
     corner_rows += [
