@@ -277,3 +277,15 @@ def test_a_sweep_on_a_dask_cluster_equals_the_local_sweep(dask_scheduler) -> Non
     local = sweep_design(source, axes, workers=1)
     remote = sweep_design(source, axes, scheduler=dask_scheduler)
     assert remote.rows == local.rows
+
+
+def test_the_starter_design_carries_tolerances_that_vary_uses(tmp_path: Path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    assert run("new", "mychip").exit_code == 0
+    result = run("vary", "mychip.toml", "--samples", "20", "--json", "-o", "tol")
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    assert data["tolerances"]["depth"] == pytest.approx(0.10)
+    assert data["tolerances"]["width"] == pytest.approx(2e-6)
+    assert data["tolerances"]["flow"] == pytest.approx(0.02)
+    assert data["tolerances"]["viscosity"] == pytest.approx(0.05)
