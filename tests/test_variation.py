@@ -3,6 +3,7 @@ the network solver, analytic elasticities, the nominal build, and across executi
 
 from __future__ import annotations
 
+import dataclasses
 from pathlib import Path
 
 import numpy as np
@@ -147,6 +148,30 @@ def test_batch_solve_equals_the_network_solver_sample_by_sample(two_level) -> No
             sol.wall_shear_floor[bed].mean(), rel=1e-11
         )
         assert batch.bed_flow[s] == pytest.approx(np.abs(sol.flow[bed]).mean(), rel=1e-11)
+
+
+def test_resistance_the_solver_adds_is_held_as_an_equivalent_length(demo) -> None:
+    """A network whose solver sees longer distribution channels than are drawn (as junction
+    corrections would make them): the nominal sample reproduces that solution, not the bare
+    drawing."""
+    net = demo.solution.network
+    longer = np.where(net.role == "distribution", 1.2 * net.length, net.length)
+    corrected = Network.from_arrays(
+        net.node_a, net.node_b, net.width, net.depth, longer, round=net.round,
+        generation=net.generation, role=net.role, node_names=net.node_names,
+    )  # fmt: skip
+    sol = demo.solution
+    flows = {n: sol.port_flow[n] for n in sol.port_flow if n not in sol.port_pressure}
+    solved = solve(corrected, demo.fluid, sol.port_pressure, flows)
+    # the same pressures and flows, reported on the network as drawn
+    shown = dataclasses.replace(solved, network=net)
+    build = dataclasses.replace(demo, solution=shown)
+    problem = variation_problem(build, Tolerances())
+    distribution = net.role == "distribution"
+    assert np.allclose(problem.hydraulic_length[distribution], longer[distribution], rtol=1e-12)
+    nominal = solve_batch(problem, np.zeros((1, problem.n_factors)))
+    assert nominal.supply_pressure[0] == pytest.approx(solved.pressure.max(), rel=1e-12)
+    assert solved.pressure.max() > sol.pressure.max() * 1.01  # the correction matters
 
 
 def test_the_two_mould_levels_get_independent_errors(two_level) -> None:

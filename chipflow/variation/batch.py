@@ -106,7 +106,7 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
     unit_tau = np.asarray(wall_shear_floor(width, depth, 1.0, 1.0, tube))
     area = np.asarray(cross_section_area(width, depth, tube))
     cls = problem.cls
-    r = unit_r[:, cls] * (mu[:, None] * problem.length)
+    r = unit_r[:, cls] * (mu[:, None] * problem.hydraulic_length)
     g = 1.0 / r
 
     # boundary values of each sample: the inlet supply scaled, the rest nominal

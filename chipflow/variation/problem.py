@@ -13,9 +13,12 @@ What a sample changes, following the tolerances model (:mod:`chipflow.spec.toler
 - the inlet supply's imposed value (flow of a syringe pump, pressure of a controller, pressure
   of a reservoir) and the viscosity by one error each.
 
-Tubing keeps its size. Channel lengths are those of the drawing and stay nominal: an
-equivalent length that the network may carry for its junctions is therefore held at its
-nominal value under perturbation.
+Tubing keeps its size. Channel lengths stay as drawn. Each channel's resistance is taken
+from the nominal solution as a *hydraulic length*, ``1 / (g mu r1)`` with ``g`` the conductance
+the solver used (flow over pressure drop) and ``r1`` the duct resistance per unit length and
+viscosity: equal to the drawn length for a plain duct, longer where the network adds junction
+corrections. Under perturbation that length is held, so junction corrections keep their
+nominal equivalent lengths while the cross-sections change.
 """
 
 from __future__ import annotations
@@ -29,6 +32,7 @@ from chipflow.build import Build
 from chipflow.checks.pressure import PUMP_MARGIN
 from chipflow.errors import SpecError
 from chipflow.network.summary import level_groups
+from chipflow.physics.duct import resistance
 from chipflow.report.figures import generation_labels
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.tolerances import Tolerances
@@ -74,7 +78,9 @@ class Problem:
     Attributes
     ----------
     node_a, node_b, length, cls : numpy.ndarray
-        Channel ends, lengths and cross-section class.
+        Channel ends, drawn lengths and cross-section class.
+    hydraulic_length : numpy.ndarray
+        Length that gives each channel its nominal resistance (see the module notes) [m].
     class_width, class_depth, class_round, class_level : numpy.ndarray
         Nominal width and depth of each class, whether it is a tube, and its mould level
         (-1: not perturbed).
@@ -121,6 +127,7 @@ class Problem:
     node_a: np.ndarray
     node_b: np.ndarray
     length: np.ndarray
+    hydraulic_length: np.ndarray
     cls: np.ndarray
     class_width: np.ndarray
     class_depth: np.ndarray
@@ -179,6 +186,18 @@ class Problem:
         else:
             depth = tolerances.depth / self.level_depths
         return np.concatenate([depth, [tolerances.width, tolerances.flow, tolerances.viscosity]])
+
+
+def _hydraulic_length(build: Build) -> np.ndarray:
+    """The length [m] that gives each channel the resistance the nominal solve used."""
+    sol = build.solution
+    net = sol.network
+    drop = sol.pressure[net.node_a] - sol.pressure[net.node_b]
+    unit = np.asarray(resistance(net.width, net.depth, 1.0, 1.0, net.round))
+    moving = (sol.flow != 0) & (drop != 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        used = np.where(moving, drop / sol.flow / (unit * sol.fluid.viscosity), net.length)
+    return np.asarray(used, dtype=float)
 
 
 def _check_range(problem: Problem, tolerances: Tolerances) -> None:
@@ -328,6 +347,7 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
         node_a=a,
         node_b=b,
         length=np.asarray(net.length, dtype=float),
+        hydraulic_length=_hydraulic_length(build),
         cls=cls.astype(np.int64).ravel(),
         class_width=classes[:, 0],
         class_depth=classes[:, 1],

@@ -8,8 +8,8 @@ per level the 5th, 50th and 95th percentiles of floor shear, residence time and 
 the supply and chip pressures; the spread of the bed flows; the yield; the worst corner; and
 the ranking of the tolerances by how much they move the shear.
 
-Channel lengths stay as drawn: junction corrections, if the network carries them as
-equivalent lengths, are held at their nominal values under perturbation.
+Channel lengths stay as drawn; junction corrections, if the network adds them, are held at
+their nominal equivalent lengths (see :mod:`chipflow.variation.problem`).
 
 The samples are split into batches of a size fixed by the network alone, so the same seed gives
 the same numbers whichever way the batches are executed.
@@ -63,8 +63,9 @@ VARY_UNITS = {
 
 MODEL_NOTE = (
     "One depth error per mould level, one width bias for the whole mask, one supply and one "
-    "viscosity error per chip, independent; tubing keeps its size and channel lengths stay as "
-    "drawn (junction corrections, if any, are held at their nominal values)."
+    "viscosity error per chip, independent; tubing keeps its size, channel lengths stay as "
+    "drawn and any resistance the network adds to a channel (junction corrections) is held as "
+    "its nominal equivalent length."
 )
 
 Progress = Callable[[int, int], None]
