@@ -102,10 +102,6 @@ def batch_size(problem: Problem) -> int:
     return int(max(1, min(4096, BATCH_ELEMENTS // max(1, problem.n_channels))))
 
 
-def _batch(problem: Problem, params: np.ndarray) -> BatchResult:
-    return solve_batch(problem, params)
-
-
 def vary_build(
     build: Build,
     tolerances: Tolerances,
@@ -151,14 +147,13 @@ def vary_build(
     size = batch_size(problem)
     chunks = [params[i : i + size] for i in range(0, params.shape[0], size)]
     parts = run_tasks(
-        _batch, problem, chunks, scheduler=scheduler, workers=workers, progress=progress
+        solve_batch, problem, chunks, scheduler=scheduler, workers=workers, progress=progress
     )
     samples = concatenate(parts)
     passes = sample_passes(problem, samples)
 
     # designed rows, solved here: nominal, small steps, each tolerance alone, every corner
-    steps = tol.copy()
-    steps[:] = ELASTICITY_STEP
+    steps = np.full(problem.n_factors, ELASTICITY_STEP)
     steps[problem.n_levels] = ELASTICITY_STEP * float(problem.level_widths.min())
     active = np.flatnonzero(tol > 0)
     corner_rows = np.zeros((2**active.size, problem.n_factors))
