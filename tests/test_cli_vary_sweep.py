@@ -222,6 +222,7 @@ BAD_VARY = {
     "depth tolerance deeper than the mould": ["--depth-tolerance", "50um"],
     "width bias wider than a channel": ["--width-tolerance", "40um"],
     "zero samples": ["--samples", "0"],
+    "empty scheduler address": ["--scheduler", " "],
     "unknown distribution": ["--distribution", "triangular"],
 }
 BAD_SWEEP = {

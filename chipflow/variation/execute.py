@@ -107,6 +107,8 @@ def _run_dask(
         raise ChipflowError(
             "--scheduler needs dask.distributed: pip install 'dask[distributed]'"
         ) from None
+    if not address.strip():  # an empty address would start a new local cluster instead
+        raise ChipflowError("--scheduler: give the address of a running Dask scheduler")
     try:
         client = Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:
