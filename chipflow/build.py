@@ -45,6 +45,7 @@ from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import SupplySpec, read_supply
+from chipflow.spec.tolerances import read_tolerances
 from chipflow.spec.tree import load_tree_spec
 from chipflow.units import RESULT_UNITS
 
@@ -207,6 +208,7 @@ def _build_tree(
     supply = read_supply(top, spec.flow)
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
+    read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
     progress("size")
     design = size_tree(spec)
     check_size(sum(level.count for level in design.levels), allow_large=allow_large)

@@ -27,8 +27,15 @@ ROOT = Path(__file__).parents[1]
 DEMO = tomllib.loads((ROOT / "designs" / "demo_endothelial_bed.toml").read_text())
 TWO_LEVEL = {"fabrication": {"depths": ["30 um", "100 um"], "max_width_to_depth": 12}}
 
+VARIED = {
+    "tolerances": {
+        "depth": "5 %", "width": "2 um", "flow": "2 %", "viscosity": "5 %", "samples": 30,
+    }
+}  # fmt: skip
+
 # (section, key): (context changes, the change, what shows it)
 #   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
+#   "vary": the results of chipflow vary;
 #   "sizing": the sized design (the key matters where nothing is drawn, e.g. chipflow check)
 CASES = {
     ("", "name"): ({}, {"name": "another-bed"}, "build"),
@@ -196,6 +203,14 @@ CASES = {
     ("export", "polarity"): ({}, {"export": {"polarity": "inverse"}}, "dxf"),
     ("export", "mirror"): ({}, {"export": {"mirror": True}}, "dxf"),
     ("export", "gds_vertex_limit"): ({}, {"export": {"gds_vertex_limit": 199}}, "gds"),
+    # [tolerances] feeds chipflow vary: its results must change
+    ("tolerances", "depth"): (VARIED, {"tolerances": {"depth": "8 %"}}, "vary"),
+    ("tolerances", "width"): (VARIED, {"tolerances": {"width": "1 um"}}, "vary"),
+    ("tolerances", "flow"): (VARIED, {"tolerances": {"flow": "3 %"}}, "vary"),
+    ("tolerances", "viscosity"): (VARIED, {"tolerances": {"viscosity": "2 %"}}, "vary"),
+    ("tolerances", "distribution"): (VARIED, {"tolerances": {"distribution": "normal"}}, "vary"),
+    ("tolerances", "samples"): (VARIED, {"tolerances": {"samples": 40}}, "vary"),
+    ("tolerances", "seed"): (VARIED, {"tolerances": {"seed": 1}}, "vary"),
 }
 
 # words in the table that are values or section names, not keys
@@ -203,6 +218,7 @@ VALUES = {
     "medium", "water", "custom", "equal-shear", "shear-target", "area-growth", "table",
     "rectangular", "round", "floor", "mean", "max", "all", "bed", "syringe", "pressure",
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
+    "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"',
 }  # fmt: skip
 
 
@@ -252,6 +268,12 @@ def fingerprint(data: dict, what: str, tmp_path: Path) -> bytes:
         design = size_tree(load_tree_spec(source.top))
         return repr(design.levels).encode()
     build = build_design(source)
+    if what == "vary":
+        from chipflow.spec.tolerances import read_tolerances
+        from chipflow.variation.vary import vary_build
+
+        variation = vary_build(build, read_tolerances(source.top), workers=1)
+        return json.dumps(variation.results, sort_keys=True, default=str).encode()
     if what == "build":
         results = dict(build.results)
         results["design"] = {k: v for k, v in results["design"].items() if k != "sha256"}

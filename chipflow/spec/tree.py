@@ -88,8 +88,8 @@ RULES = ("equal-shear", "shear-target", "area-growth", "table")
 SHAPES = ("rectangular", "round")
 SHEAR_KINDS = ("floor", "mean", "max")
 
-#: Top-level keys of a tree design file; the last five belong to the build (layout, supply,
-#: checks, export) and are read by their own modules.
+#: Top-level keys of a tree design file; the last six belong to the build (layout, supply,
+#: checks, export) and to ``chipflow vary`` (tolerances) and are read by their own modules.
 TOP_KEYS = (
     "name",
     "description",
@@ -103,6 +103,7 @@ TOP_KEYS = (
     "culture",
     "limits",
     "export",
+    "tolerances",
 )
 TREE_KEYS = (
     "flow",
