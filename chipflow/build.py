@@ -37,10 +37,13 @@ from chipflow.layout.model import Layout
 from chipflow.network import Solution, solve
 from chipflow.network.summary import level_rows, port_pressure_range
 from chipflow.network.supply import Supply, boundary_conditions, with_tubing
+from chipflow.operation import Operation, operate, steady_boundary
+from chipflow.operation.run import attach
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
+from chipflow.spec.operation import read_tree_operation
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import SupplySpec, read_supply
 from chipflow.spec.tree import load_tree_spec
@@ -105,6 +108,8 @@ class Build:
         Mask-file options (None when there is nothing to draw).
     results : dict
         JSON-able results in SI units (see :data:`RESULT_UNITS`).
+    operation : Operation or None
+        Time-varying operation: pulsation, draining, rocking, wall deformation.
     """
 
     source: DesignSource
@@ -117,6 +122,7 @@ class Build:
     checks: tuple[CheckResult, ...]
     export: ExportSettings | None
     results: dict[str, Any] = field(repr=False)
+    operation: Operation | None = field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -177,7 +183,8 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     top = source.top
     spec = load_tree_spec(top)
     culture, limits = read_culture(top), read_limits(top)
-    supply = read_supply(top, spec.flow)
+    timing = read_tree_operation(top, spec.flow)
+    supply = read_supply(top, timing.inlet_flow(spec.flow))
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     progress("size")
@@ -195,15 +202,19 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     )
     progress("solve")
     pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
+    timing = timing.renamed({"inlet": feed, "outlet": drain})
+    pressures, flows = steady_boundary(timing, network, spec.fluid, pressures, flows, feed, drain)
     solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
     window = culture.window or _targets_window(spec)
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
+    operation = operate(timing, solution, generations, window, culture.seeded, feed, drain)
     checks = (
         *culture_checks(solution, generations, culture, window, residence_target),
         *pressure_checks(solution, limits),
+        *operation.checks,
         *fabrication_results(findings),
     )
     results = _results(
@@ -217,6 +228,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
         checks,
         window,
     )
+    attach(results, operation)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings]
     return Build(
@@ -230,6 +242,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
         tuple(checks),
         export,
         results,
+        operation,
     )
 
 
@@ -250,9 +263,11 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     solution = solve(design.network, design.fluid, design.pressures, design.flows)
     progress("check")
     generations = level_rows(solution)
+    operation = operate(design.operation, solution, generations, culture.window, culture.seeded)
     checks = (
         *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
         *pressure_checks(solution, limits),
+        *operation.checks,
     )
     supply = {
         "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
@@ -272,6 +287,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         checks,
         culture.window,
     )
+    attach(results, operation)
     results["fabrication"] = None
     results["warnings"] = []
     return Build(
@@ -285,6 +301,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         tuple(checks),
         None,
         results,
+        operation,
     )
 
 

@@ -102,6 +102,7 @@ TOP_KEYS = (
     "culture",
     "limits",
     "export",
+    "walls",
 )
 TREE_KEYS = (
     "flow",

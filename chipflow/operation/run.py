@@ -1,0 +1,420 @@
+"""Time-varying operation of a solved network: one call for the build.
+
+:func:`operate` reads the steady solution and the :class:`~chipflow.operation.model.OperationSpec`
+and returns an :class:`Operation`: per-channel and per-level statistics of the flow and the
+floor shear over time, the wall deformation, the compliances, the checks and a JSON-able
+results dict. :func:`steady_boundary` gives the steady supply a rocking platform stands for.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from chipflow.checks.cell_types import ShearWindow
+from chipflow.checks.operation import (
+    check_deformation,
+    check_drain,
+    check_flow_reversal,
+    check_inertia,
+    check_rocker,
+    check_time_in_window,
+)
+from chipflow.checks.result import CheckResult
+from chipflow.errors import SpecError
+from chipflow.network import Solution, solve
+from chipflow.network.model import Network
+from chipflow.network.summary import level_groups
+from chipflow.network.supply import STANDARD_GRAVITY
+from chipflow.operation.compliance import (
+    air_compliance,
+    plate_rigidity,
+    roof_compliance,
+    tube_compliance,
+    womersley_number,
+)
+from chipflow.operation.deformation import deflection_scale, resistance_ratio
+from chipflow.operation.frequency import harmonic_response
+from chipflow.operation.model import OperationSpec
+from chipflow.operation.reservoirs import drain_reservoirs, port_response, rocker_cycle
+from chipflow.operation.waveform import harmonic_series
+from chipflow.physics.duct import wall_shear_floor
+from chipflow.report.figures import generation_labels
+
+__all__ = ["Operation", "operate", "steady_boundary", "node_compliance", "attach", "SAMPLES"]
+
+#: Instants per period at which the flow and shear are evaluated.
+SAMPLES = 128
+
+
+@dataclass(frozen=True, eq=False)
+class Operation:
+    """What time-varying operation gives.
+
+    Attributes
+    ----------
+    mode : str
+        "pulsatile", "draining", "rocker" or "steady".
+    time : numpy.ndarray
+        Instants [s] of the columns of ``flow``.
+    flow : numpy.ndarray, shape (channels, instants) or (channels, 0)
+        Channel flows over time [m^3/s].
+    shear_per_flow : numpy.ndarray
+        Floor wall shear per unit flow of every channel [Pa s/m^3].
+    level_fields : list of dict
+        Keys to add to each per-level row of the results, in row order.
+    checks : tuple of CheckResult
+    results : dict
+        JSON-able summary (``results["operation"]``).
+    """
+
+    mode: str
+    time: np.ndarray
+    flow: np.ndarray
+    shear_per_flow: np.ndarray
+    level_fields: list[dict[str, Any]] = field(default_factory=list)
+    checks: tuple[CheckResult, ...] = ()
+    results: dict[str, Any] = field(default_factory=dict)
+
+
+def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray, dict]:
+    """Compliance from every node to the surroundings [m^3/Pa] and the totals by source.
+
+    Half of each soft channel's or tube's compliance sits at each of its ends.
+    """
+    net, n = solution.network, solution.network.n_nodes
+    per_channel = np.zeros(net.n_channels)
+    totals = {"channels": 0.0, "tubing": 0.0, "lumped": 0.0, "air": 0.0}
+    rect = ~net.round
+    if spec.walls is not None:
+        b = plate_rigidity(spec.walls.modulus, spec.walls.roof_thickness, spec.walls.poisson_ratio)
+        per_channel[rect] = roof_compliance(net.width[rect], net.length[rect], b)
+        totals["channels"] = float(per_channel[rect].sum())
+    if spec.tubing is not None:
+        tube = net.round
+        if np.any(spec.tubing.outer_diameter <= net.width[tube]):
+            raise SpecError(
+                "supply.tubing_outer_diameter: must be larger than the tubing's inner diameter"
+            )
+        per_channel[tube] = tube_compliance(
+            net.width[tube],
+            spec.tubing.outer_diameter,
+            net.length[tube],
+            spec.tubing.modulus,
+            spec.tubing.poisson_ratio,
+        )
+        totals["tubing"] = float(per_channel[tube].sum())
+    c = np.bincount(net.node_a, per_channel / 2, n) + np.bincount(net.node_b, per_channel / 2, n)
+    for node, value in spec.compliances.items():
+        c[net.node_index(node)] += value
+        totals["lumped"] += value
+    for node, volume in spec.air_volumes.items():
+        i = net.node_index(node)
+        value = float(air_compliance(volume, solution.pressure[i]))
+        c[i] += value
+        totals["air"] += value
+    return c, totals
+
+
+def _ports(solution: Solution) -> tuple[dict[str, float], dict[str, float]]:
+    pressures = dict(solution.port_pressure)
+    flows = {n: solution.port_flow[n] for n in solution.port_flow if n not in pressures}
+    return pressures, flows
+
+
+def _total_resistance(network: Network, fluid, inlet: str, outlet: str) -> float:
+    unit = solve(network, fluid, {inlet: 1.0, outlet: 0.0})
+    return 1.0 / unit.port_flow[inlet]
+
+
+def steady_boundary(
+    spec: OperationSpec,
+    network: Network,
+    fluid,
+    pressures: Mapping[str, float],
+    flows: Mapping[str, float],
+    inlet: str,
+    outlet: str,
+) -> tuple[dict, dict]:
+    """The steady supply the results table stands for.
+
+    A rocking platform is solved at the time average of the head that drives it in either
+    direction, so that the steady table shows the time-averaged flow and floor shear
+    magnitudes (the shear is proportional to the flow). Other modes keep their supply.
+    """
+    if spec.rocker is None:
+        return dict(pressures), dict(flows)
+    r = spec.rocker
+    cycle = rocker_cycle(
+        _total_resistance(network, fluid, inlet, outlet),
+        r.area,
+        r.spacing,
+        r.tilt_angle,
+        r.period,
+        fluid.density,
+    )
+    rho_g = fluid.density * STANDARD_GRAVITY
+    mean_head = float(np.abs(cycle.head_difference).mean())
+    return {inlet: rho_g * (r.head + mean_head), outlet: rho_g * r.head}, {}
+
+
+def operate(
+    spec: OperationSpec,
+    solution: Solution,
+    rows: list[dict[str, Any]],
+    window: ShearWindow | None,
+    seeded: str = "all",
+    inlet: str = "inlet",
+    outlet: str = "outlet",
+) -> Operation:
+    """Time-varying operation of the solved network (see the module documentation).
+
+    Parameters
+    ----------
+    spec : OperationSpec
+        Port keys already mapped onto node names.
+    solution : Solution
+        The steady solution (the mean of a pulsatile supply, the start of draining).
+    rows : list of dict
+        Per-level rows (:func:`chipflow.network.summary.level_rows`).
+    window : ShearWindow or None
+    seeded : {"all", "bed"}
+        Which levels carry cells.
+    inlet, outlet : str
+        The supply nodes of a tree design (rocking platform).
+    """
+    net, fluid = solution.network, solution.fluid
+    shear_per_flow = np.asarray(
+        wall_shear_floor(net.width, net.depth, np.ones(net.n_channels), fluid.viscosity, net.round)
+    )
+    groups = level_groups(net)
+    labels = generation_labels(rows)
+    fields: list[dict[str, Any]] = [{} for _ in rows]
+    checks: list[CheckResult] = []
+    out: dict[str, Any] = {"mode": spec.mode}
+    beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
+    seeded_rows = beds if seeded == "bed" and beds else list(range(len(rows)))
+
+    compliance, totals = node_compliance(spec, solution)
+    out["compliance"] = {k: v for k, v in totals.items()}
+    if spec.walls is not None:
+        out["walls"] = {
+            "material": spec.walls.material,
+            "modulus": spec.walls.modulus,
+            "poisson_ratio": spec.walls.poisson_ratio,
+            "roof_thickness": spec.walls.roof_thickness,
+            "source": spec.walls.source,
+        }
+        change = _deformation(spec, solution)
+        for f, (_, _, m) in zip(fields, groups, strict=True):
+            f["resistance_change"] = float(change[m].mean())
+        level_change = np.array([f["resistance_change"] for f in fields])
+        if rows:
+            checks.append(check_deformation(labels, level_change))
+        out["resistance_change_max"] = float(change.max(initial=0.0))
+
+    time = np.zeros(0)
+    flow_t = np.zeros((net.n_channels, 0))
+    mode = spec.mode
+    if mode == "pulsatile":
+        time, flow_t, extra = _pulsatile(spec, solution, compliance, groups, fields, shear_per_flow)
+        out.update(extra)
+        if rows:
+            checks.append(check_inertia(labels, np.array([f["womersley"] for f in fields])))
+            checks.append(
+                check_flow_reversal(
+                    [labels[i] for i in seeded_rows],
+                    np.array([fields[i]["flow_min"] for i in seeded_rows]),
+                )
+            )
+    elif mode == "rocker":
+        time, flow_t, extra = _rocker(spec, solution, inlet, outlet)
+        out.update(extra)
+    elif mode == "draining":
+        time, flow_t, extra = _draining(spec, solution)
+        out.update(extra)
+
+    if flow_t.shape[1]:
+        shear_t = shear_per_flow[:, None] * flow_t
+        sign = np.where(solution.flow < 0, -1.0, 1.0)  # forward = the steady direction
+        signed = shear_t * sign[:, None]
+        magnitude = np.abs(shear_t)
+        for f, (_, _, m) in zip(fields, groups, strict=True):
+            f["min"] = float(signed[m].min())
+            f["max"] = float(signed[m].max())
+            f["time_averaged_shear"] = float(magnitude[m].mean())
+            if window is not None:
+                inside = (magnitude[m] >= window.min) & (magnitude[m] <= window.max)
+                f["time_in_window"] = float(inside.mean())
+        if window is not None and rows:
+            fraction = np.array([fields[i]["time_in_window"] for i in seeded_rows])
+            averaged = np.array([fields[i]["time_averaged_shear"] for i in seeded_rows])
+            names = [labels[i] for i in seeded_rows]
+            if mode == "rocker":
+                checks += check_rocker(names, averaged, fraction, window)
+            elif mode == "draining":
+                checks.append(check_drain(names, fraction, window, spec.refill_interval))
+            else:
+                checks.append(check_time_in_window(names, fraction, window))
+    out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
+    return Operation(mode, time, flow_t, shear_per_flow, fields, tuple(checks), out)
+
+
+def _deformation(spec: OperationSpec, solution: Solution) -> np.ndarray:
+    """Relative fall of each channel's resistance from the roof's bulge [1] (0 for tubes)."""
+    net, walls = solution.network, spec.walls
+    b = plate_rigidity(walls.modulus, walls.roof_thickness, walls.poisson_ratio)
+    phi = deflection_scale(net.width, b)
+    ratio = resistance_ratio(
+        solution.pressure[net.node_a], solution.pressure[net.node_b], net.depth, phi
+    )
+    return np.where(net.round, 0.0, 1.0 - ratio)
+
+
+def _pulsatile(spec, solution, compliance, groups, fields, shear_per_flow):
+    net, fluid = solution.network, solution.fluid
+    pressures, flows = _ports(solution)
+    driven = dict(spec.pulsatile)
+    frequency = {p.waveform.frequency for p in driven.values()}
+    if len(frequency) > 1:
+        raise SpecError("pulsatile supplies at different frequencies are not supported")
+    f0 = frequency.pop()
+    omega = 2.0 * np.pi * f0
+    k_max = max(len(p.waveform.harmonics) for p in driven.values())
+    amplitudes = np.zeros((net.n_channels, k_max), dtype=complex)
+    port_amplitude = np.zeros((len(driven), k_max), dtype=complex)
+    pressure_amplitude = np.zeros((net.n_nodes, k_max), dtype=complex)
+    for k in range(1, k_max + 1):
+        p_hat = {node: 0.0 for node in pressures}
+        q_hat = {}
+        for node, p in driven.items():
+            c = p.waveform.harmonics[k - 1] if k <= len(p.waveform.harmonics) else 0.0
+            (p_hat if p.kind == "pressure" else q_hat)[node] = c
+        response = harmonic_response(net, fluid, k * omega, compliance, p_hat, q_hat)
+        amplitudes[:, k - 1] = response.flow
+        pressure_amplitude[:, k - 1] = response.pressure
+        for j, node in enumerate(driven):
+            i = net.node_index(node)
+            leaving = response.flow[net.node_a == i].sum() - response.flow[net.node_b == i].sum()
+            stored = 1j * k * omega * compliance[i] * response.pressure[i]
+            port_amplitude[j, k - 1] = leaving + stored
+    time = np.arange(SAMPLES) / SAMPLES / f0
+    flow_t = solution.flow[:, None] + harmonic_series(amplitudes, SAMPLES)
+    pressure_t = solution.pressure[:, None] + harmonic_series(pressure_amplitude, SAMPLES)
+    mean_port = np.array([solution.port_flow[n] for n in driven])
+    inlet_pulsation = float(np.max(np.abs(port_amplitude[:, 0]) / np.abs(mean_port)))
+    q_mean = np.abs(solution.flow)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        pulsation = np.where(q_mean > 0, np.abs(amplitudes[:, 0]) / q_mean, np.inf)
+    sign = np.where(solution.flow < 0, -1.0, 1.0)
+    forward = flow_t * sign[:, None]
+    womersley = womersley_number(
+        net.width, net.depth, omega, fluid.density, fluid.viscosity, net.round
+    )
+    for f, (_, _, m) in zip(fields, groups, strict=True):
+        f["pulsation"] = float(pulsation[m].mean())
+        f["damping"] = f["pulsation"] / inlet_pulsation if inlet_pulsation > 0 else None
+        f["flow_mean"] = float(q_mean[m].mean())
+        f["flow_amplitude"] = float(np.abs(amplitudes[m, 0]).mean())
+        f["flow_min"] = float(forward[m].min())
+        f["flow_max"] = float(forward[m].max())
+        f["wall_shear_floor_amplitude"] = float(
+            (np.abs(amplitudes[m, 0]) * shear_per_flow[m]).mean()
+        )
+        f["womersley"] = float(womersley[m].max())
+    on_chip = net.role != "tubing"
+    chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
+    extra = {
+        "frequency": f0,
+        "harmonics": k_max,
+        "inlet_pulsation": inlet_pulsation,
+        "peak_chip_pressure": float(pressure_t[chip_nodes].max()),
+        "supplies": {
+            node: {
+                "mode": p.label,
+                "kind": p.kind,
+                "mean": p.waveform.mean,
+                "pulsation": p.waveform.pulsation,
+            }
+            for node, p in driven.items()
+        },
+        "reversal": bool(np.any(forward.min(axis=1) < 0)),
+    }
+    return time, flow_t, extra
+
+
+def _rocker(spec, solution, inlet, outlet):
+    net, fluid, r = solution.network, solution.fluid, spec.rocker
+    resistance = _total_resistance(net, fluid, inlet, outlet)
+    cycle = rocker_cycle(resistance, r.area, r.spacing, r.tilt_angle, r.period, fluid.density)
+    lowest = r.head - float(np.abs(cycle.level_change).max())
+    if lowest <= 0:
+        moved = float(np.abs(cycle.level_change).max()) * r.area
+        raise SpecError(
+            f"supply: the rocking platform moves {moved * 1e9:.3g} uL out of a reservoir that "
+            f"holds {r.head * r.area * 1e9:.3g} uL: it runs dry; fill it higher or use wider "
+            "reservoirs"
+        )
+    unit = solve(net, fluid, {inlet: 1.0, outlet: 0.0})
+    per_pressure = unit.flow  # channel flow per pascal across the chip
+    rho_g = fluid.density * STANDARD_GRAVITY
+    flow_t = per_pressure[:, None] * (rho_g * cycle.head_difference)[None, :]
+    extra = {
+        "period": r.period,
+        "tilt_angle": r.tilt_angle,
+        "reservoir_spacing": r.spacing,
+        "reservoir_area": r.area,
+        "head": r.head,
+        "time_constant": cycle.time_constant,
+        "peak_flow": float(np.abs(cycle.flow).max()),
+        "peak_head_difference": float(np.abs(cycle.head_difference).max()),
+        "lowest_level": lowest,
+        "reversal": bool(np.any(cycle.flow < 0) and np.any(cycle.flow > 0)),
+    }
+    return cycle.time, flow_t, extra
+
+
+def _draining(spec, solution):
+    net, fluid = solution.network, solution.fluid
+    pressures, flows = _ports(solution)
+    nodes = list(spec.drain_areas)
+    rho_g = fluid.density * STANDARD_GRAVITY
+    conductance, offset = port_response(net, fluid, pressures, flows, nodes)
+    heads = np.array([pressures[n] / rho_g for n in nodes])
+    areas = np.array([spec.drain_areas[n] for n in nodes])
+    # the time to level over six time constants, the shear over one refill interval
+    level = drain_reservoirs(conductance, offset, areas, heads, fluid.density)
+    drain = drain_reservoirs(
+        conductance, offset, areas, heads, fluid.density, span=spec.refill_interval
+    )
+    # channel flows are linear in the port pressures (the other supplies fixed)
+    base = solve(net, fluid, {**pressures, **{n: 0.0 for n in nodes}}, flows).flow
+    per_port = np.stack(
+        [solve(net, fluid, {**{k: 0.0 for k in pressures}, n: 1.0}).flow for n in nodes], axis=1
+    )
+    flow_t = base[:, None] + per_port @ (rho_g * drain.heads)
+    lowest = drain.heads.min(axis=1)
+    if np.any(lowest < 0):
+        raise SpecError("supply: a draining reservoir runs dry before the refill interval ends")
+    extra = {
+        "time_constant": level.time_constant,
+        "time_to_level": level.time_to_level,
+        "refill_interval": spec.refill_interval,
+        "reservoirs": {
+            n: {"area": float(a), "head": float(h0), "head_at_refill": float(h[-1])}
+            for n, a, h0, h in zip(nodes, areas, heads, drain.heads, strict=True)
+        },
+        "reversal": False,
+    }
+    return drain.time, flow_t, extra
+
+
+def attach(results: dict[str, Any], operation: Operation) -> None:
+    """Add an operation's per-level keys to ``results["generations"]`` and its summary as
+    ``results["operation"]`` (in place; the build's results dict)."""
+    for row, extra in zip(results["generations"], operation.level_fields, strict=True):
+        row.update(extra)
+    results["operation"] = operation.results
