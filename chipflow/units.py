@@ -86,6 +86,7 @@ KINDS: dict[str, Kind] = {
     "areal_density": Kind("cells per area", "1/m**2", "1e5 cell/cm^2"),
     "frequency": Kind("frequency", "1/s", "1 Hz"),
     "volume": Kind("volume", "m**3", "2 uL"),
+    "angle": Kind("angle", "radian", "10 deg"),
     "compliance": Kind("hydraulic compliance", "m**3/Pa", "1e-15 m^3/Pa"),
     "dimensionless": Kind("plain number", "dimensionless", "0.5"),
 }
@@ -296,6 +297,9 @@ RESULT_UNITS: dict[str, str] = {
     "lowest_level": "m",
     "peak_flow": "m^3/s",
     "peak_head_difference": "m",
+    "time": "s",
+    "heads": "m",
+    "head_difference": "m",
 }
 
 

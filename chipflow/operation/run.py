@@ -190,16 +190,11 @@ def operate(
     shear_per_flow = np.asarray(
         wall_shear_floor(net.width, net.depth, np.ones(net.n_channels), fluid.viscosity, net.round)
     )
-    groups = level_groups(net)
-    labels = generation_labels(rows)
-    fields: list[dict[str, Any]] = [{} for _ in rows]
-    checks: list[CheckResult] = []
     out: dict[str, Any] = {"mode": spec.mode}
-    beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
-    seeded_rows = beds if seeded == "bed" and beds else list(range(len(rows)))
+    per: dict[str, np.ndarray] = {}  # per-channel statistics, vectorised
 
     compliance, totals = node_compliance(spec, solution)
-    out["compliance"] = {k: v for k, v in totals.items()}
+    out["compliance"] = dict(totals)
     if spec.walls is not None:
         out["walls"] = {
             "material": spec.walls.material,
@@ -208,59 +203,84 @@ def operate(
             "roof_thickness": spec.walls.roof_thickness,
             "source": spec.walls.source,
         }
-        change = _deformation(spec, solution)
-        for f, (_, _, m) in zip(fields, groups, strict=True):
-            f["resistance_change"] = float(change[m].mean())
-        level_change = np.array([f["resistance_change"] for f in fields])
-        if rows:
-            checks.append(check_deformation(labels, level_change))
-        out["resistance_change_max"] = float(change.max(initial=0.0))
+        per["resistance_change"] = _deformation(spec, solution)
+        out["resistance_change_max"] = float(per["resistance_change"].max(initial=0.0))
 
     time = np.zeros(0)
     flow_t = np.zeros((net.n_channels, 0))
     mode = spec.mode
     if mode == "pulsatile":
-        time, flow_t, extra = _pulsatile(spec, solution, compliance, groups, fields, shear_per_flow)
-        out.update(extra)
-        if rows:
-            checks.append(check_inertia(labels, np.array([f["womersley"] for f in fields])))
-            checks.append(
-                check_flow_reversal(
-                    [labels[i] for i in seeded_rows],
-                    np.array([fields[i]["flow_min"] for i in seeded_rows]),
-                )
-            )
+        time, flow_t, extra = _pulsatile(spec, solution, compliance, per, shear_per_flow)
     elif mode == "rocker":
         time, flow_t, extra = _rocker(spec, solution, inlet, outlet)
-        out.update(extra)
     elif mode == "draining":
         time, flow_t, extra = _draining(spec, solution)
-        out.update(extra)
-
+    else:
+        extra = {}
+    out.update(extra)
     if flow_t.shape[1]:
-        shear_t = shear_per_flow[:, None] * flow_t
         sign = np.where(solution.flow < 0, -1.0, 1.0)  # forward = the steady direction
-        signed = shear_t * sign[:, None]
-        magnitude = np.abs(shear_t)
-        for f, (_, _, m) in zip(fields, groups, strict=True):
-            f["min"] = float(signed[m].min())
-            f["max"] = float(signed[m].max())
-            f["time_averaged_shear"] = float(magnitude[m].mean())
-            if window is not None:
-                inside = (magnitude[m] >= window.min) & (magnitude[m] <= window.max)
-                f["time_in_window"] = float(inside.mean())
-        if window is not None and rows:
-            fraction = np.array([fields[i]["time_in_window"] for i in seeded_rows])
-            averaged = np.array([fields[i]["time_averaged_shear"] for i in seeded_rows])
-            names = [labels[i] for i in seeded_rows]
-            if mode == "rocker":
-                checks += check_rocker(names, averaged, fraction, window)
-            elif mode == "draining":
-                checks.append(check_drain(names, fraction, window, spec.refill_interval))
-            else:
-                checks.append(check_time_in_window(names, fraction, window))
-    out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
+        signed = shear_per_flow[:, None] * flow_t * sign[:, None]
+        magnitude = np.abs(signed)
+        per["min"], per["max"] = signed.min(axis=1), signed.max(axis=1)
+        per["time_averaged_shear"] = magnitude.mean(axis=1)
+        if window is not None:
+            inside = (magnitude >= window.min) & (magnitude <= window.max)
+            per["time_in_window"] = inside.mean(axis=1)
+
+    if "series" in out and rows:  # the floor shear of the bed (or the first level) over time
+        bed = next((m for r, g, m in level_groups(net) if r == "bed"), level_groups(net)[0][2])
+        series = (shear_per_flow[bed, None] * flow_t[bed]).mean(axis=0)
+        out["series"]["wall_shear_floor"] = _thin(series)
+
+    # per level (tree generations) or, for a network without generations, per channel
+    if rows:
+        labels = generation_labels(rows)
+        groups = [m for _, _, m in level_groups(net)]
+        stats = {key: np.array([_AGGREGATE.get(key, np.mean)(v[m]) for m in groups])
+                 for key, v in per.items()}  # fmt: skip
+        beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
+        chosen = beds if seeded == "bed" and beds else list(range(len(rows)))
+    else:
+        labels, stats, chosen = list(net.channel_names()), per, list(range(net.n_channels))
+    fields = [{k: _json(v[i]) for k, v in stats.items()} for i in range(len(rows))]
+    checks = _checks(spec, mode, labels, stats, chosen, window)
+    if rows:
+        out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
+    else:
+        out["channels"] = {"name": labels, **{k: [_json(x) for x in v] for k, v in per.items()}}
     return Operation(mode, time, flow_t, shear_per_flow, fields, tuple(checks), out)
+
+
+#: How per-channel statistics combine into a level's (default: the mean over its channels).
+_AGGREGATE = {"min": np.min, "max": np.max, "flow_min": np.min, "flow_max": np.max,
+              "womersley": np.max}  # fmt: skip
+
+
+def _json(value) -> float | None:
+    value = float(value)
+    return value if np.isfinite(value) else None
+
+
+def _checks(spec, mode, labels, stats, chosen, window) -> list[CheckResult]:
+    checks: list[CheckResult] = []
+    if not labels:
+        return checks
+    names = [labels[i] for i in chosen]
+    if "resistance_change" in stats:
+        checks.append(check_deformation(labels, stats["resistance_change"]))
+    if mode == "pulsatile":
+        checks.append(check_inertia(labels, stats["womersley"]))
+        checks.append(check_flow_reversal(names, stats["flow_min"][chosen]))
+    if window is not None and "time_in_window" in stats:
+        fraction = stats["time_in_window"][chosen]
+        if mode == "rocker":
+            checks += check_rocker(names, stats["time_averaged_shear"][chosen], fraction, window)
+        elif mode == "draining":
+            checks.append(check_drain(names, fraction, window, spec.refill_interval))
+        else:
+            checks.append(check_time_in_window(names, fraction, window))
+    return checks
 
 
 def _deformation(spec: OperationSpec, solution: Solution) -> np.ndarray:
@@ -274,7 +294,7 @@ def _deformation(spec: OperationSpec, solution: Solution) -> np.ndarray:
     return np.where(net.round, 0.0, 1.0 - ratio)
 
 
-def _pulsatile(spec, solution, compliance, groups, fields, shear_per_flow):
+def _pulsatile(spec, solution, compliance, per, shear_per_flow):
     net, fluid = solution.network, solution.fluid
     pressures, flows = _ports(solution)
     driven = dict(spec.pulsatile)
@@ -307,24 +327,21 @@ def _pulsatile(spec, solution, compliance, groups, fields, shear_per_flow):
     mean_port = np.array([solution.port_flow[n] for n in driven])
     inlet_pulsation = float(np.max(np.abs(port_amplitude[:, 0]) / np.abs(mean_port)))
     q_mean = np.abs(solution.flow)
+    first = np.abs(amplitudes[:, 0])
     with np.errstate(divide="ignore", invalid="ignore"):
-        pulsation = np.where(q_mean > 0, np.abs(amplitudes[:, 0]) / q_mean, np.inf)
+        per["pulsation"] = np.where(q_mean > 0, first / q_mean, np.inf)
+    per["damping"] = (
+        per["pulsation"] / inlet_pulsation if inlet_pulsation > 0 else per["pulsation"] * np.nan
+    )
     sign = np.where(solution.flow < 0, -1.0, 1.0)
     forward = flow_t * sign[:, None]
-    womersley = womersley_number(
-        net.width, net.depth, omega, fluid.density, fluid.viscosity, net.round
+    per["flow_mean"] = q_mean
+    per["flow_amplitude"] = first
+    per["flow_min"], per["flow_max"] = forward.min(axis=1), forward.max(axis=1)
+    per["wall_shear_floor_amplitude"] = first * shear_per_flow
+    per["womersley"] = np.asarray(
+        womersley_number(net.width, net.depth, omega, fluid.density, fluid.viscosity, net.round)
     )
-    for f, (_, _, m) in zip(fields, groups, strict=True):
-        f["pulsation"] = float(pulsation[m].mean())
-        f["damping"] = f["pulsation"] / inlet_pulsation if inlet_pulsation > 0 else None
-        f["flow_mean"] = float(q_mean[m].mean())
-        f["flow_amplitude"] = float(np.abs(amplitudes[m, 0]).mean())
-        f["flow_min"] = float(forward[m].min())
-        f["flow_max"] = float(forward[m].max())
-        f["wall_shear_floor_amplitude"] = float(
-            (np.abs(amplitudes[m, 0]) * shear_per_flow[m]).mean()
-        )
-        f["womersley"] = float(womersley[m].max())
     on_chip = net.role != "tubing"
     chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
     extra = {
@@ -373,6 +390,12 @@ def _rocker(spec, solution, inlet, outlet):
         "peak_head_difference": float(np.abs(cycle.head_difference).max()),
         "lowest_level": lowest,
         "reversal": bool(np.any(cycle.flow < 0) and np.any(cycle.flow > 0)),
+        "series": {
+            "time": _thin(cycle.time),
+            "tilt_angle": _thin(cycle.tilt),
+            "head_difference": _thin(cycle.head_difference),
+            "flow": _thin(cycle.flow),
+        },
     }
     return cycle.time, flow_t, extra
 
@@ -408,8 +431,19 @@ def _draining(spec, solution):
             for n, a, h0, h in zip(nodes, areas, heads, drain.heads, strict=True)
         },
         "reversal": False,
+        "series": {
+            "time": _thin(drain.time),
+            "heads": {n: _thin(h) for n, h in zip(nodes, drain.heads, strict=True)},
+            "flow": _thin(drain.flow),
+        },
     }
     return drain.time, flow_t, extra
+
+
+def _thin(values: np.ndarray, count: int = 65) -> list[float]:
+    """About ``count`` evenly spaced samples of a time series, for results.json."""
+    step = max(1, len(values) // (count - 1))
+    return [float(v) for v in values[::step]]
 
 
 def attach(results: dict[str, Any], operation: Operation) -> None:

@@ -15,7 +15,7 @@ Tree designs say it in ``[supply]`` (see :mod:`chipflow.spec.supply` for the ste
     # inlet = "pulsatile-pressure": pressure (mean), pressure_amplitude, frequency
     # inlet = "reservoir" with reservoir_area: the reservoir drains (outlet_area for an
     #   outlet reservoir that fills; refill_interval, default 1 day)
-    # inlet = "rocker": tilt_angle, period, reservoir_spacing, reservoir_area, head
+    # inlet = "rocker": tilt_angle ("15 deg"), period, reservoir_spacing, reservoir_area, head
 
     tubing_outer_diameter = "1.6 mm"   # elastic tubing: outer diameter and modulus
     tubing_modulus = "2 MPa"
@@ -103,8 +103,15 @@ def read_tree_operation(top: Table, design_flow: float) -> OperationSpec:
             walls, tubing, {"inlet": Pulsatile("pressure", wave, "pulsatile pressure controller")}
         )
     if kind == "rocker":
+        tilt = table.quantity(
+            "tilt_angle", "angle", positive=False, minimum=0.0, maximum=math.pi / 4
+        )
+        if not tilt > 0:
+            raise table.error(
+                "tilt_angle", "must be greater than 0 deg: a level platform drives no flow"
+            )
         rocker = Rocker(
-            tilt_angle=math.radians(table.number("tilt_angle", minimum=0.0, maximum=45.0)),
+            tilt_angle=tilt,
             period=table.quantity("period", "time", maximum=1e6),
             spacing=table.quantity("reservoir_spacing", "length", maximum=1.0),
             area=table.quantity("reservoir_area", "area", maximum=1.0),
