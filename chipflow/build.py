@@ -210,7 +210,7 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     window = culture.window or _targets_window(spec)
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
-    operation = operate(timing, solution, generations, window, culture.seeded, feed, drain)
+    operation = operate(timing, solution, generations, window, culture.seeded, feed, drain, limits)
     checks = (
         *culture_checks(solution, generations, culture, window, residence_target),
         *pressure_checks(solution, limits),
@@ -263,7 +263,9 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     solution = solve(design.network, design.fluid, design.pressures, design.flows)
     progress("check")
     generations = level_rows(solution)
-    operation = operate(design.operation, solution, generations, culture.window, culture.seeded)
+    operation = operate(
+        design.operation, solution, generations, culture.window, culture.seeded, limits=limits
+    )
     checks = (
         *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
         *pressure_checks(solution, limits),

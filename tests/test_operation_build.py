@@ -61,6 +61,11 @@ def test_pulsation_per_generation_is_the_tubing_low_pass(pulsatile) -> None:
     names = {c.name: c.status for c in b.checks}
     assert names["flow reversal"] == "pass" and names["liquid inertia"] == "pass"
     assert names["wall deformation"] == "pass"
+    # the pulse raises the on-chip pressure above its mean by the pressure amplitude
+    peak = b.results["operation"]["peak_chip_pressure"]
+    mean = b.results["totals"]["chip_inlet_pressure"]
+    assert mean < peak < mean * (1 + expected) * 1.01
+    assert names["pulse peak pressure vs bond"] == "pass"
 
 
 def test_pulsatile_outputs_carry_units_and_bands(pulsatile, tmp_path: Path) -> None:
@@ -243,3 +248,76 @@ def test_a_level_rocker_is_refused(tmp_path: Path) -> None:
         main, ["build", str(tmp_path / "flat.toml"), "-o", str(tmp_path / "o")]
     )
     assert result.exit_code == 2 and "supply.tilt_angle" in result.stderr
+
+
+def test_a_tree_fed_by_draining_reservoirs(tmp_path: Path) -> None:
+    text = PULSATILE.read_text()
+    start, end = text.index("[supply]"), text.index("[limits]")
+    supply = """[supply]
+inlet = "reservoir"
+head = "3 cm"
+reservoir_area = "30 mm^2"
+outlet = "reservoir"
+outlet_head = "5 mm"
+outlet_area = "60 mm^2"
+refill_interval = "6 h"
+
+"""
+    (tmp_path / "drain.toml").write_text(text[:start] + supply + text[end:])
+    b = build_design(tmp_path / "drain.toml")
+    op = b.results["operation"]
+    rho_g = b.fluid.density * STANDARD_GRAVITY
+    r = b.results["totals"]["total_resistance"]
+    # A1 dh1/dt = -Q, A2 dh2/dt = Q, Q = rho g (h1 - h2) / R: tau = R / (rho g (1/A1 + 1/A2))
+    tau = r / (rho_g * (1 / 30e-6 + 1 / 60e-6))
+    assert op["mode"] == "draining" and op["refill_interval"] == pytest.approx(6 * 3600)
+    assert op["time_constant"] == pytest.approx(tau, rel=1e-6)
+    assert op["time_to_level"] == pytest.approx(tau * math.log(10), rel=1e-3)
+    # volume conservation: the common level is the area-weighted mean head
+    level = (30 * 0.03 + 60 * 0.005) / 90
+    inlet, outlet = op["reservoirs"].values()
+    left = 6 * 3600 / tau
+    assert inlet["head_at_refill"] - level == pytest.approx(
+        (0.03 - level) * math.exp(-left), abs=1e-7
+    )
+    assert outlet["head_at_refill"] < level
+    assert "draining: time in window" in [c.name for c in b.checks]
+
+
+def test_a_lumped_compliance_in_m3_per_pa(tmp_path: Path) -> None:
+    path = _network(
+        tmp_path,
+        '[[compliances]]\nnode = "in"\ncompliance = "2e-13 m^3/Pa"',
+        'flow = "10 uL/min"\namplitude = "2 uL/min"\nfrequency = "1 Hz"',
+    )
+    b = build_design(path)
+    r = float(resistance(400e-6, 30e-6, 10e-3, b.fluid.viscosity))
+    ell = float(inertance(400e-6, 30e-6, 10e-3, b.fluid.density))
+    w, c = 2 * math.pi, 2e-13
+    expected = 0.2 * abs(1 / (1 - w**2 * ell * c + 1j * w * r * c))  # RLC divider
+    channels = b.results["operation"]["channels"]
+    assert channels["name"] == ["c"]
+    assert channels["pulsation"][0] == pytest.approx(expected, rel=1e-9)
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "where"),
+    [
+        (
+            'roof_thickness = "1 mm"',
+            'roof_thickness = "1 mm"\npoisson_ratio = 0.7',
+            "poisson_ratio",
+        ),
+        ("pulsation = 0.4 ", "pulsation = -0.4 ", "supply.pulsation"),
+        ('material = "PDMS"', 'material = "custom"', "walls.modulus"),
+        ('tubing_modulus = "1.5 MPa"', "", "supply.tubing_modulus"),
+    ],
+)
+def test_more_bad_operation_input_exits_2(tmp_path, old, new, where) -> None:
+    text = PULSATILE.read_text()
+    assert old in text
+    (tmp_path / "bad.toml").write_text(text.replace(old, new, 1))
+    out = tmp_path / "o"
+    result = CliRunner().invoke(main, ["build", str(tmp_path / "bad.toml"), "-o", str(out)])
+    assert result.exit_code == 2 and where in result.stderr
+    assert result.stderr.count("\n") == 1

@@ -9,7 +9,7 @@ results dict. :func:`steady_boundary` gives the steady supply a rocking platform
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -23,6 +23,7 @@ from chipflow.checks.operation import (
     check_rocker,
     check_time_in_window,
 )
+from chipflow.checks.pressure import check_bond_pressure
 from chipflow.checks.result import CheckResult
 from chipflow.errors import SpecError
 from chipflow.network import Solution, solve
@@ -43,6 +44,7 @@ from chipflow.operation.reservoirs import drain_reservoirs, port_response, rocke
 from chipflow.operation.waveform import harmonic_series
 from chipflow.physics.duct import wall_shear_floor
 from chipflow.report.figures import generation_labels
+from chipflow.spec.culture import Limits
 
 __all__ = ["Operation", "operate", "steady_boundary", "node_compliance", "attach", "SAMPLES"]
 
@@ -169,6 +171,7 @@ def operate(
     seeded: str = "all",
     inlet: str = "inlet",
     outlet: str = "outlet",
+    limits: Limits | None = None,
 ) -> Operation:
     """Time-varying operation of the solved network (see the module documentation).
 
@@ -185,6 +188,8 @@ def operate(
         Which levels carry cells.
     inlet, outlet : str
         The supply nodes of a tree design (rocking platform).
+    limits : Limits, optional
+        The bond's limit, for the peak pressure of a pulsatile supply.
     """
     net, fluid = solution.network, solution.fluid
     shear_per_flow = np.asarray(
@@ -245,6 +250,15 @@ def operate(
         labels, stats, chosen = list(net.channel_names()), per, list(range(net.n_channels))
     fields = [{k: _json(v[i]) for k, v in stats.items()} for i in range(len(rows))]
     checks = _checks(spec, mode, labels, stats, chosen, window)
+    if limits is not None and "peak_chip_pressure" in out:
+        peak = check_bond_pressure(
+            out["peak_chip_pressure"],
+            limits.bond_pressure,
+            safety_factor=limits.safety_factor,
+            source=limits.bond_source,
+        )
+        words = peak.message.replace("inlet pressure", "peak on-chip pressure during a pulse", 1)
+        checks.append(replace(peak, name="pulse peak pressure vs bond", message=words))
     if rows:
         out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
     else:
