@@ -78,6 +78,16 @@ def test_pulsatile_outputs_carry_units_and_bands(pulsatile, tmp_path: Path) -> N
     assert data["units"]["pulsation"] == "1" and data["units"]["min"] == "Pa"
     svg = (tmp_path / "out" / "profile.svg").read_text()
     assert "min-max over time" in svg
+    report = (tmp_path / "out" / "report.html").read_text()
+    pulsation = data["generations"][0]["pulsation"]
+    assert "Time-varying operation" in report and f"{pulsation * 100:.3g}" in report
+
+
+def test_steady_reports_have_no_operation_section(tmp_path: Path) -> None:
+    from chipflow.report.operation import operation_html
+
+    b = build_design(ROOT / "designs" / "demo_endothelial_bed.toml")
+    assert b.results["operation"]["mode"] == "steady" and operation_html(b.results) == ""
 
 
 def test_rocker_design_reports_time_in_window_and_reversal() -> None:

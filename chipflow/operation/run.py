@@ -259,9 +259,9 @@ def operate(
         )
         words = peak.message.replace("inlet pressure", "peak on-chip pressure during a pulse", 1)
         checks.append(replace(peak, name="pulse peak pressure vs bond", message=words))
-    if rows:
+    if rows and per:
         out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
-    else:
+    elif per:
         out["channels"] = {"name": labels, **{k: [_json(x) for x in v] for k, v in per.items()}}
     return Operation(mode, time, flow_t, shear_per_flow, fields, tuple(checks), out)
 
