@@ -271,3 +271,36 @@ def test_a_single_reservoir_drains_into_an_open_outlet() -> None:
     tau = r * 10e-6 / (FLUID.density * STANDARD_GRAVITY)  # R A / (rho g)
     assert drain.time_constant == pytest.approx(tau, rel=1e-9)
     assert drain.heads[0] == pytest.approx(0.01 * np.exp(-drain.time / tau), abs=1e-9)
+
+
+def test_operation_checks_grade_at_their_limits() -> None:
+    from chipflow.checks.cell_types import ShearWindow
+    from chipflow.checks.operation import (
+        check_deformation,
+        check_drain,
+        check_flow_reversal,
+        check_inertia,
+        check_rocker,
+        check_time_in_window,
+    )
+
+    window = ShearWindow("endothelial", 0.5, 1.0, "Dewey et al. 1981")
+    # deformation: warn above 5 % (chipflow default)
+    assert check_deformation(["a"], [0.05]).status == "pass"
+    assert check_deformation(["a", "b"], [0.01, 0.0501]).status == "warn"
+    # Womersley number: quasi-steady below 1 (common practice)
+    assert check_inertia(["a"], [0.99]).status == "pass"
+    assert check_inertia(["a"], [1.0]).status == "warn"
+    assert check_flow_reversal(["a"], [-1e-15]).status == "warn"
+    assert check_flow_reversal(["a"], [0.0]).status == "pass"
+    statuses = [check_time_in_window(["a"], [f], window).status for f in (1.0, 0.6, 0.1, 0.09)]
+    assert statuses == ["pass", "warn", "warn", "fail"]
+    assert check_drain(["a"], [0.99], window, 3600.0).status == "warn"
+    rocker = [check_rocker(["a"], [0.75], [f], window)[1].status for f in (0.5, 0.49, 0.09)]
+    assert rocker == ["pass", "warn", "fail"]
+    # time-averaged shear graded like the steady floor shear (20 % band warns)
+    assert [check_rocker(["a"], [t], [0.5], window)[0].status for t in (0.75, 0.45, 0.3)] == [
+        "pass",
+        "warn",
+        "fail",
+    ]

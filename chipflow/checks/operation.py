@@ -3,7 +3,9 @@
 Limits are chipflow defaults unless a source is named: a resistance change above 5 % from a
 bulging roof means the rigid-channel numbers are off by about as much as the mould's depth
 tolerance; a Womersley number above 1 means the liquid's inertia shapes the pulsation
-(common practice); cells should see floor shear inside their window at least half of the time.
+(common practice). Under a pump or a draining reservoir the floor shear should stay inside the
+window all the time (warn otherwise); on a rocking platform, whose flow reverses, at least
+half of the time; below a tenth of the time fails.
 
 Examples
 --------
@@ -19,7 +21,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from chipflow.checks.cell_types import ShearWindow
-from chipflow.checks.result import CheckResult
+from chipflow.checks.culture import shear_status
+from chipflow.checks.result import STATUSES, CheckResult
 
 __all__ = [
     "check_deformation",
@@ -108,9 +111,17 @@ def check_flow_reversal(labels: Sequence[str], flow_min: ArrayLike) -> CheckResu
 
 
 def _fraction_status(value: float) -> str:
+    """A rocking platform's grade: pass from half the time in the window, fail below 10 %."""
     if value < WINDOW_FRACTION_FAIL:
         return "fail"
     return "warn" if value < WINDOW_FRACTION_WARN else "pass"
+
+
+def _always_status(value: float) -> str:
+    """A pump's or a reservoir's grade: pass only all the time in the window, fail below 10 %."""
+    if value >= 1.0 - 1e-12:
+        return "pass"
+    return "fail" if value < WINDOW_FRACTION_FAIL else "warn"
 
 
 def check_time_in_window(
@@ -118,7 +129,7 @@ def check_time_in_window(
 ) -> CheckResult:
     """The smallest fraction of a pulse period that a seeded level spends in the window."""
     where, value = _worst(labels, np.asarray(fraction, dtype=float), largest=False)
-    status = "pass" if value >= 1.0 - 1e-12 else _fraction_status(value)
+    status = _always_status(value)
     if status == "pass":
         message = "the floor shear of every seeded level stays inside the window through the pulse"
     else:
@@ -127,26 +138,24 @@ def check_time_in_window(
             f"{window.min:g}-{window.max:g} Pa window; the pulsation carries its floor shear "
             "out of it"
         )
-    if status == "pass":
-        limit = 1.0
-    else:
-        limit = WINDOW_FRACTION_WARN
-    return CheckResult("pulsatile shear in window", status, value, limit, "1", _DEFAULT, message)
+    return CheckResult("pulsatile shear in window", status, value, 1.0, "1", _DEFAULT, message)
 
 
 def check_rocker(
     labels: Sequence[str], averaged: ArrayLike, fraction: ArrayLike, window: ShearWindow
 ) -> list[CheckResult]:
-    """Rocking platform: time-averaged floor shear against the window, time spent in it,
-    and the bidirectional flow."""
+    """Rocking platform: time-averaged floor shear against the window (graded as the steady
+    floor shear is, :func:`~chipflow.checks.culture.shear_status`), the time spent in it, and
+    the bidirectional flow."""
     avg = np.asarray(averaged, dtype=float)
     inside = (avg >= window.min) & (avg <= window.max)
     where_low, low = _worst(labels, avg, largest=False)
     where_high, high = _worst(labels, avg)
+    grades = shear_status(avg, window.min, window.max)
     out = [
         CheckResult(
             "rocking: time-averaged floor shear",
-            "pass" if inside.all() else "warn",
+            STATUSES[max(STATUSES.index(str(g)) for g in grades)],
             low if low < window.min or inside.all() else high,
             window.min if low < window.min else window.max,
             "Pa",
@@ -177,12 +186,12 @@ def check_drain(
 ) -> CheckResult:
     """Draining reservoirs: the fraction of the refill interval a seeded level stays in window."""
     where, value = _worst(labels, np.asarray(fraction, dtype=float), largest=False)
-    status = "pass" if value >= 1.0 - 1e-12 else _fraction_status(value)
+    status = _always_status(value)
     return CheckResult(
         "draining: time in window",
         status,
         value,
-        1.0 if status == "pass" else WINDOW_FRACTION_WARN,
+        1.0,
         "1",
         _DEFAULT,
         f"as the reservoirs level out, {where} keeps its floor shear inside the "

@@ -89,12 +89,12 @@ def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray
     """
     net, n = solution.network, solution.network.n_nodes
     per_channel = np.zeros(net.n_channels)
-    totals = {"channels": 0.0, "tubing": 0.0, "lumped": 0.0, "air": 0.0}
+    totals = {"roofs": 0.0, "tubing_walls": 0.0, "lumped": 0.0, "trapped_air": 0.0}
     rect = ~net.round
     if spec.walls is not None:
         b = plate_rigidity(spec.walls.modulus, spec.walls.roof_thickness, spec.walls.poisson_ratio)
         per_channel[rect] = roof_compliance(net.width[rect], net.length[rect], b)
-        totals["channels"] = float(per_channel[rect].sum())
+        totals["roofs"] = float(per_channel[rect].sum())
     if spec.tubing is not None:
         tube = net.round
         if np.any(spec.tubing.outer_diameter <= net.width[tube]):
@@ -108,7 +108,7 @@ def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray
             spec.tubing.modulus,
             spec.tubing.poisson_ratio,
         )
-        totals["tubing"] = float(per_channel[tube].sum())
+        totals["tubing_walls"] = float(per_channel[tube].sum())
     c = np.bincount(net.node_a, per_channel / 2, n) + np.bincount(net.node_b, per_channel / 2, n)
     for node, value in spec.compliances.items():
         c[net.node_index(node)] += value
@@ -117,7 +117,7 @@ def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray
         i = net.node_index(node)
         value = float(air_compliance(volume, solution.pressure[i]))
         c[i] += value
-        totals["air"] += value
+        totals["trapped_air"] += value
     return c, totals
 
 
@@ -367,7 +367,7 @@ def _pulsatile(spec, solution, compliance, per, shear_per_flow):
             node: {
                 "mode": p.label,
                 "kind": p.kind,
-                "mean": p.waveform.mean,
+                f"mean_{p.kind}": p.waveform.mean,
                 "pulsation": p.waveform.pulsation,
             }
             for node, p in driven.items()
