@@ -321,6 +321,7 @@ def test_a_lumped_compliance_in_m3_per_pa(tmp_path: Path) -> None:
         ("pulsation = 0.4 ", "pulsation = -0.4 ", "supply.pulsation"),
         ('material = "PDMS"', 'material = "custom"', "walls.modulus"),
         ('tubing_modulus = "1.5 MPa"', "", "supply.tubing_modulus"),
+        ("rpm = 10", "rmp = 10", "did you mean 'rpm'"),
     ],
 )
 def test_more_bad_operation_input_exits_2(tmp_path, old, new, where) -> None:

@@ -92,6 +92,8 @@ def check_inertia(labels: Sequence[str], womersley: ArrayLike) -> CheckResult:
 def check_flow_reversal(labels: Sequence[str], flow_min: ArrayLike) -> CheckResult:
     """Whether the flow in any seeded level runs backwards during a pulse."""
     low = np.asarray(flow_min, dtype=float)
+    if low.size == 0:
+        return CheckResult("flow reversal", "pass", None, 0.0, "m^3/s", _DEFAULT, "no channels")
     backwards = [label for label, q in zip(labels, low, strict=True) if q < 0]
     if backwards:
         return CheckResult(

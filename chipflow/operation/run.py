@@ -246,10 +246,11 @@ def operate(
                  for key, v in per.items()}  # fmt: skip
         beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
         chosen = beds if seeded == "bed" and beds else list(range(len(rows)))
-    else:
-        labels, stats, chosen = list(net.channel_names()), per, list(range(net.n_channels))
+    else:  # as the steady checks: no shear window without generations; tubing carries no cells
+        labels, stats = list(net.channel_names()), per
+        chosen = np.flatnonzero(net.role != "tubing").tolist()
     fields = [{k: _json(v[i]) for k, v in stats.items()} for i in range(len(rows))]
-    checks = _checks(spec, mode, labels, stats, chosen, window)
+    checks = _checks(spec, mode, labels, stats, chosen, window if rows else None)
     if limits is not None and "peak_chip_pressure" in out:
         peak = check_bond_pressure(
             out["peak_chip_pressure"],

@@ -85,6 +85,9 @@ def read_tree_operation(top: Table, design_flow: float) -> OperationSpec:
     table = top.table("supply", None)
     if table is None:
         return OperationSpec(walls=walls)
+    from chipflow.spec.supply import SUPPLY_KEYS  # here: spec.supply imports this module
+
+    table.only(SUPPLY_KEYS)  # a typo gets its "did you mean" before anything else
     kind = table.string("inlet", "syringe")
     for keys in _KIND_KEYS.values():
         for key in keys:
