@@ -71,6 +71,8 @@ class Operation:
     checks : tuple of CheckResult
     results : dict
         JSON-able summary (``results["operation"]``).
+    spec : OperationSpec or None
+        What was asked for (port keys as node names), e.g. to re-run with changes.
     """
 
     mode: str
@@ -80,6 +82,7 @@ class Operation:
     level_fields: list[dict[str, Any]] = field(default_factory=list)
     checks: tuple[CheckResult, ...] = ()
     results: dict[str, Any] = field(default_factory=dict)
+    spec: OperationSpec | None = None
 
 
 def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray, dict]:
@@ -264,7 +267,7 @@ def operate(
         out["levels"] = [{"label": label, **f} for label, f in zip(labels, fields, strict=True)]
     elif per:
         out["channels"] = {"name": labels, **{k: [_json(x) for x in v] for k, v in per.items()}}
-    return Operation(mode, time, flow_t, shear_per_flow, fields, tuple(checks), out)
+    return Operation(mode, time, flow_t, shear_per_flow, fields, tuple(checks), out, spec)
 
 
 #: How per-channel statistics combine into a level's (default: the mean over its channels).
