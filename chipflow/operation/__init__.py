@@ -3,7 +3,8 @@
 Modules: ``compliance`` (soft roofs, tubing, trapped air, inertance, Womersley number),
 ``deformation`` (steady bulging of a soft roof), ``waveform`` (periodic supplies as
 harmonics), ``frequency`` (complex nodal solve per harmonic), ``reservoirs`` (draining and
-rocking ODEs), ``model`` (what the design file says), ``run`` (one call for the build).
+rocking ODEs), ``model`` (what the design file says), ``modes`` (each mode's flows over
+time), ``run`` (one call for the build).
 """
 
 from chipflow.operation.model import OperationSpec, Pulsatile, Rocker, TubingWall, Walls

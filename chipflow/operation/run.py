@@ -26,7 +26,7 @@ from chipflow.checks.operation import (
 from chipflow.checks.pressure import check_bond_pressure
 from chipflow.checks.result import CheckResult
 from chipflow.errors import SpecError
-from chipflow.network import Solution, solve
+from chipflow.network import Solution
 from chipflow.network.model import Network
 from chipflow.network.summary import level_groups
 from chipflow.network.supply import STANDARD_GRAVITY
@@ -35,21 +35,23 @@ from chipflow.operation.compliance import (
     plate_rigidity,
     roof_compliance,
     tube_compliance,
-    womersley_number,
 )
 from chipflow.operation.deformation import deflection_scale, resistance_ratio
-from chipflow.operation.frequency import harmonic_response
 from chipflow.operation.model import OperationSpec
-from chipflow.operation.reservoirs import drain_reservoirs, port_response, rocker_cycle
-from chipflow.operation.waveform import harmonic_series
+from chipflow.operation.modes import (
+    SAMPLES,
+    draining_mode,
+    pulsatile_mode,
+    rocker_mode,
+    thin,
+    total_resistance,
+)
+from chipflow.operation.reservoirs import rocker_cycle
 from chipflow.physics.duct import wall_shear_floor
 from chipflow.report.figures import generation_labels
 from chipflow.spec.culture import Limits
 
 __all__ = ["Operation", "operate", "steady_boundary", "node_compliance", "attach", "SAMPLES"]
-
-#: Instants per period at which the flow and shear are evaluated.
-SAMPLES = 128
 
 
 @dataclass(frozen=True, eq=False)
@@ -124,17 +126,6 @@ def node_compliance(spec: OperationSpec, solution: Solution) -> tuple[np.ndarray
     return c, totals
 
 
-def _ports(solution: Solution) -> tuple[dict[str, float], dict[str, float]]:
-    pressures = dict(solution.port_pressure)
-    flows = {n: solution.port_flow[n] for n in solution.port_flow if n not in pressures}
-    return pressures, flows
-
-
-def _total_resistance(network: Network, fluid, inlet: str, outlet: str) -> float:
-    unit = solve(network, fluid, {inlet: 1.0, outlet: 0.0})
-    return 1.0 / unit.port_flow[inlet]
-
-
 def steady_boundary(
     spec: OperationSpec,
     network: Network,
@@ -154,7 +145,7 @@ def steady_boundary(
         return dict(pressures), dict(flows)
     r = spec.rocker
     cycle = rocker_cycle(
-        _total_resistance(network, fluid, inlet, outlet),
+        total_resistance(network, fluid, inlet, outlet),
         r.area,
         r.spacing,
         r.tilt_angle,
@@ -218,11 +209,11 @@ def operate(
     flow_t = np.zeros((net.n_channels, 0))
     mode = spec.mode
     if mode == "pulsatile":
-        time, flow_t, extra = _pulsatile(spec, solution, compliance, per, shear_per_flow)
+        time, flow_t, extra = pulsatile_mode(spec, solution, compliance, per, shear_per_flow)
     elif mode == "rocker":
-        time, flow_t, extra = _rocker(spec, solution, inlet, outlet)
+        time, flow_t, extra = rocker_mode(spec, solution, inlet, outlet)
     elif mode == "draining":
-        time, flow_t, extra = _draining(spec, solution)
+        time, flow_t, extra = draining_mode(spec, solution)
     else:
         extra = {}
     out.update(extra)
@@ -239,7 +230,7 @@ def operate(
     if "series" in out and rows:  # the floor shear of the bed (or the first level) over time
         bed = next((m for r, g, m in level_groups(net) if r == "bed"), level_groups(net)[0][2])
         series = (shear_per_flow[bed, None] * flow_t[bed]).mean(axis=0)
-        out["series"]["wall_shear_floor"] = _thin(series)
+        out["series"]["wall_shear_floor"] = thin(series)
 
     # per level (tree generations) or, for a network without generations, per channel
     if rows:
@@ -310,158 +301,6 @@ def _deformation(spec: OperationSpec, solution: Solution) -> np.ndarray:
         solution.pressure[net.node_a], solution.pressure[net.node_b], net.depth, phi
     )
     return np.where(net.round, 0.0, 1.0 - ratio)
-
-
-def _pulsatile(spec, solution, compliance, per, shear_per_flow):
-    net, fluid = solution.network, solution.fluid
-    pressures, flows = _ports(solution)
-    driven = dict(spec.pulsatile)
-    frequency = {p.waveform.frequency for p in driven.values()}
-    if len(frequency) > 1:
-        raise SpecError("pulsatile supplies at different frequencies are not supported")
-    f0 = frequency.pop()
-    omega = 2.0 * np.pi * f0
-    k_max = max(len(p.waveform.harmonics) for p in driven.values())
-    amplitudes = np.zeros((net.n_channels, k_max), dtype=complex)
-    port_amplitude = np.zeros((len(driven), k_max), dtype=complex)
-    pressure_amplitude = np.zeros((net.n_nodes, k_max), dtype=complex)
-    for k in range(1, k_max + 1):
-        p_hat = {node: 0.0 for node in pressures}
-        q_hat = {}
-        for node, p in driven.items():
-            c = p.waveform.harmonics[k - 1] if k <= len(p.waveform.harmonics) else 0.0
-            (p_hat if p.kind == "pressure" else q_hat)[node] = c
-        response = harmonic_response(net, fluid, k * omega, compliance, p_hat, q_hat)
-        amplitudes[:, k - 1] = response.flow
-        pressure_amplitude[:, k - 1] = response.pressure
-        for j, node in enumerate(driven):
-            i = net.node_index(node)
-            leaving = response.flow[net.node_a == i].sum() - response.flow[net.node_b == i].sum()
-            stored = 1j * k * omega * compliance[i] * response.pressure[i]
-            port_amplitude[j, k - 1] = leaving + stored
-    time = np.arange(SAMPLES) / SAMPLES / f0
-    flow_t = solution.flow[:, None] + harmonic_series(amplitudes, SAMPLES)
-    pressure_t = solution.pressure[:, None] + harmonic_series(pressure_amplitude, SAMPLES)
-    mean_port = np.array([solution.port_flow[n] for n in driven])
-    inlet_pulsation = float(np.max(np.abs(port_amplitude[:, 0]) / np.abs(mean_port)))
-    q_mean = np.abs(solution.flow)
-    first = np.abs(amplitudes[:, 0])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        per["pulsation"] = np.where(q_mean > 0, first / q_mean, np.inf)
-    per["damping"] = (
-        per["pulsation"] / inlet_pulsation if inlet_pulsation > 0 else per["pulsation"] * np.nan
-    )
-    sign = np.where(solution.flow < 0, -1.0, 1.0)
-    forward = flow_t * sign[:, None]
-    per["flow_mean"] = q_mean
-    per["flow_amplitude"] = first
-    per["flow_min"], per["flow_max"] = forward.min(axis=1), forward.max(axis=1)
-    per["wall_shear_floor_amplitude"] = first * shear_per_flow
-    per["womersley"] = np.asarray(
-        womersley_number(net.width, net.depth, omega, fluid.density, fluid.viscosity, net.round)
-    )
-    on_chip = net.role != "tubing"
-    chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
-    extra = {
-        "frequency": f0,
-        "harmonics": k_max,
-        "inlet_pulsation": inlet_pulsation,
-        "peak_chip_pressure": float(pressure_t[chip_nodes].max()),
-        "supplies": {
-            node: {
-                "mode": p.label,
-                "kind": p.kind,
-                f"mean_{p.kind}": p.waveform.mean,
-                "pulsation": p.waveform.pulsation,
-            }
-            for node, p in driven.items()
-        },
-        "reversal": bool(np.any(forward.min(axis=1) < 0)),
-    }
-    return time, flow_t, extra
-
-
-def _rocker(spec, solution, inlet, outlet):
-    net, fluid, r = solution.network, solution.fluid, spec.rocker
-    resistance = _total_resistance(net, fluid, inlet, outlet)
-    cycle = rocker_cycle(resistance, r.area, r.spacing, r.tilt_angle, r.period, fluid.density)
-    lowest = r.head - float(np.abs(cycle.level_change).max())
-    if lowest <= 0:
-        moved = float(np.abs(cycle.level_change).max()) * r.area
-        raise SpecError(
-            f"supply: the rocking platform moves {moved * 1e9:.3g} uL out of a reservoir that "
-            f"holds {r.head * r.area * 1e9:.3g} uL: it runs dry; fill it higher or use wider "
-            "reservoirs"
-        )
-    unit = solve(net, fluid, {inlet: 1.0, outlet: 0.0})
-    per_pressure = unit.flow  # channel flow per pascal across the chip
-    rho_g = fluid.density * STANDARD_GRAVITY
-    flow_t = per_pressure[:, None] * (rho_g * cycle.head_difference)[None, :]
-    extra = {
-        "period": r.period,
-        "tilt_angle": r.tilt_angle,
-        "reservoir_spacing": r.spacing,
-        "reservoir_area": r.area,
-        "head": r.head,
-        "time_constant": cycle.time_constant,
-        "peak_flow": float(np.abs(cycle.flow).max()),
-        "peak_head_difference": float(np.abs(cycle.head_difference).max()),
-        "lowest_level": lowest,
-        "reversal": bool(np.any(cycle.flow < 0) and np.any(cycle.flow > 0)),
-        "series": {
-            "time": _thin(cycle.time),
-            "tilt_angle": _thin(cycle.tilt),
-            "head_difference": _thin(cycle.head_difference),
-            "flow": _thin(cycle.flow),
-        },
-    }
-    return cycle.time, flow_t, extra
-
-
-def _draining(spec, solution):
-    net, fluid = solution.network, solution.fluid
-    pressures, flows = _ports(solution)
-    nodes = list(spec.drain_areas)
-    rho_g = fluid.density * STANDARD_GRAVITY
-    conductance, offset = port_response(net, fluid, pressures, flows, nodes)
-    heads = np.array([pressures[n] / rho_g for n in nodes])
-    areas = np.array([spec.drain_areas[n] for n in nodes])
-    # the time to level over six time constants, the shear over one refill interval
-    level = drain_reservoirs(conductance, offset, areas, heads, fluid.density)
-    drain = drain_reservoirs(
-        conductance, offset, areas, heads, fluid.density, span=spec.refill_interval
-    )
-    # channel flows are linear in the port pressures (the other supplies fixed)
-    base = solve(net, fluid, {**pressures, **{n: 0.0 for n in nodes}}, flows).flow
-    per_port = np.stack(
-        [solve(net, fluid, {**{k: 0.0 for k in pressures}, n: 1.0}).flow for n in nodes], axis=1
-    )
-    flow_t = base[:, None] + per_port @ (rho_g * drain.heads)
-    lowest = drain.heads.min(axis=1)
-    if np.any(lowest < 0):
-        raise SpecError("supply: a draining reservoir runs dry before the refill interval ends")
-    extra = {
-        "time_constant": level.time_constant,
-        "time_to_level": level.time_to_level,
-        "refill_interval": spec.refill_interval,
-        "reservoirs": {
-            n: {"area": float(a), "head": float(h0), "head_at_refill": float(h[-1])}
-            for n, a, h0, h in zip(nodes, areas, heads, drain.heads, strict=True)
-        },
-        "reversal": False,
-        "series": {
-            "time": _thin(drain.time),
-            "heads": {n: _thin(h) for n, h in zip(nodes, drain.heads, strict=True)},
-            "flow": _thin(drain.flow),
-        },
-    }
-    return drain.time, flow_t, extra
-
-
-def _thin(values: np.ndarray, count: int = 65) -> list[float]:
-    """About ``count`` evenly spaced samples of a time series, for results.json."""
-    step = max(1, len(values) // (count - 1))
-    return [float(v) for v in values[::step]]
 
 
 def attach(results: dict[str, Any], operation: Operation) -> None:
