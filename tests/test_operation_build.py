@@ -332,3 +332,25 @@ def test_more_bad_operation_input_exits_2(tmp_path, old, new, where) -> None:
     result = CliRunner().invoke(main, ["build", str(tmp_path / "bad.toml"), "-o", str(out)])
     assert result.exit_code == 2 and where in result.stderr
     assert result.stderr.count("\n") == 1
+
+
+def test_a_pulsatile_pressure_controller_on_rigid_walls_passes_its_pulse(tmp_path: Path) -> None:
+    """Without compliance the network is a resistor: every channel's flow pulses by the
+    controller's pressure amplitude over its mean (inertia is negligible, Womersley < 0.1)."""
+    text = PULSATILE.read_text()
+    start, end = text.index("[walls]"), text.index("[limits]")
+    supply = """[supply]
+inlet = "pulsatile-pressure"
+pressure = "400 Pa"
+pressure_amplitude = "100 Pa"
+frequency = "2 Hz"
+
+"""
+    (tmp_path / "p.toml").write_text(text[:start] + supply + text[end:])
+    b = build_design(tmp_path / "p.toml")
+    op = b.results["operation"]
+    assert op["supplies"]["inlet"]["mean_pressure"] == pytest.approx(400.0)
+    assert op["compliance"]["tubing_walls"] == 0.0 and "walls" not in op
+    for row in b.results["generations"]:
+        assert row["pulsation"] == pytest.approx(0.25, rel=1e-4)
+    assert op["peak_chip_pressure"] == pytest.approx(500.0, rel=1e-9)
