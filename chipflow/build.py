@@ -39,10 +39,13 @@ from chipflow.layout.model import Layout
 from chipflow.network import Solution, solve
 from chipflow.network.summary import level_rows, port_pressure_range
 from chipflow.network.supply import Supply, boundary_conditions, with_tubing
+from chipflow.operation import Operation, operate, steady_boundary
+from chipflow.operation.run import attach
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
+from chipflow.spec.operation import read_tree_operation
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import SupplySpec, read_supply
 from chipflow.spec.tolerances import read_tolerances
@@ -111,6 +114,8 @@ class Build:
     field : FieldRun or None
         The field solve of the drawing and its comparison with the network (None when it
         was not run).
+    operation : Operation or None
+        Time-varying operation: pulsation, draining, rocking, wall deformation.
     """
 
     source: DesignSource
@@ -124,6 +129,7 @@ class Build:
     export: ExportSettings | None
     results: dict[str, Any] = dataclasses.field(repr=False)
     field: Any = dataclasses.field(default=None, repr=False)
+    operation: Operation | None = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -205,7 +211,8 @@ def _build_tree(
     top = source.top
     spec = load_tree_spec(top)
     culture, limits = read_culture(top), read_limits(top)
-    supply = read_supply(top, spec.flow)
+    timing = read_tree_operation(top, spec.flow)
+    supply = read_supply(top, timing.inlet_flow(spec.flow))
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
@@ -225,6 +232,8 @@ def _build_tree(
     )
     progress("solve")
     pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
+    timing = timing.renamed({"inlet": feed, "outlet": drain})
+    pressures, flows = steady_boundary(timing, network, spec.fluid, pressures, flows, feed, drain)
     solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
@@ -232,6 +241,7 @@ def _build_tree(
     window = culture.window or targets
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
+    operation = operate(timing, solution, generations, window, culture.seeded, feed, drain, limits)
     checks = (
         *culture_checks(
             solution,
@@ -244,6 +254,7 @@ def _build_tree(
             target_levels=spec.targets.levels,
         ),
         *pressure_checks(solution, limits),
+        *operation.checks,
         *fabrication_results(findings),
     )
     results = _results(
@@ -257,6 +268,7 @@ def _build_tree(
         checks,
         window,
     )
+    attach(results, operation)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings]
     field_run = None
@@ -282,6 +294,7 @@ def _build_tree(
         export,
         results,
         field_run,
+        operation,
     )
 
 
@@ -306,9 +319,13 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     solution = solve(design.network, design.fluid, design.pressures, design.flows)
     progress("check")
     generations = level_rows(solution)
+    operation = operate(
+        design.operation, solution, generations, culture.window, culture.seeded, limits=limits
+    )
     checks = (
         *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
         *pressure_checks(solution, limits),
+        *operation.checks,
     )
     supply = {
         "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
@@ -328,6 +345,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         checks,
         culture.window,
     )
+    attach(results, operation)
     results["fabrication"] = None
     results["warnings"] = []
     results["field"] = None
@@ -342,6 +360,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         tuple(checks),
         None,
         results,
+        operation=operation,
     )
 
 

@@ -33,6 +33,29 @@ VARIED = {
     }
 }  # fmt: skip
 
+# time-varying supplies: the README's second table names the [supply] inlet in its first column
+PERISTALTIC = {"supply": {"inlet": "peristaltic", "rpm": 10, "rollers": 3, "pulsation": 0.4}}
+PULSING = {
+    "supply": {
+        "inlet": "pulsatile-pressure", "pressure": "500 Pa", "pressure_amplitude": "100 Pa",
+        "frequency": "1 Hz",
+    }
+}  # fmt: skip
+DRAINING = {"supply": {"inlet": "reservoir", "head": "5 cm", "reservoir_area": "100 mm^2"}}
+ROCKING = {
+    "supply": {
+        "inlet": "rocker", "tilt_angle": "25 deg", "period": "1 min",
+        "reservoir_spacing": "60 mm", "reservoir_area": "200 mm^2", "head": "8 mm",
+        "outlet": None, "inlet_tubing": None, "tubing_diameter": None,
+    }
+}  # fmt: skip
+WALLS = {"walls": {"material": "PDMS", "roof_thickness": "1 mm"}, **PERISTALTIC}
+CUSTOM_WALLS = {
+    "walls": {"material": "custom", "modulus": "2 MPa", "roof_thickness": "1 mm"},
+    **PERISTALTIC,
+}
+WAVEFORM = str(ROOT / "tests" / "data" / "pump_period.csv")
+
 # (section, key): (context changes, the change, what shows it)
 #   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
 #   "vary": the results of chipflow vary;
@@ -203,6 +226,50 @@ CASES = {
     ("export", "polarity"): ({}, {"export": {"polarity": "inverse"}}, "dxf"),
     ("export", "mirror"): ({}, {"export": {"mirror": True}}, "dxf"),
     ("export", "gds_vertex_limit"): ({}, {"export": {"gds_vertex_limit": 199}}, "gds"),
+    ("peristaltic", "flow"): (PERISTALTIC, {"supply": {"flow": "8 uL/min"}}, "build"),
+    ("peristaltic", "rpm"): (PERISTALTIC, {"supply": {"rpm": 20}}, "build"),
+    ("peristaltic", "rollers"): (PERISTALTIC, {"supply": {"rollers": 4}}, "build"),
+    ("peristaltic", "pulsation"): (PERISTALTIC, {"supply": {"pulsation": 0.2}}, "build"),
+    ("peristaltic", "waveform"): (
+        PERISTALTIC,
+        {"supply": {"rpm": None, "rollers": None, "pulsation": None, "waveform": WAVEFORM}},
+        "build",
+    ),
+    ("pulsatile-pressure", "pressure_amplitude"): (
+        PULSING,
+        {"supply": {"pressure_amplitude": "50 Pa"}},
+        "build",
+    ),
+    ("pulsatile-pressure", "frequency"): (PULSING, {"supply": {"frequency": "2 Hz"}}, "build"),
+    ("reservoir", "head"): (DRAINING, {"supply": {"head": "6 cm"}}, "build"),
+    ("reservoir", "reservoir_area"): (
+        DRAINING,
+        {"supply": {"reservoir_area": "50 mm^2"}},
+        "build",
+    ),
+    ("reservoir", "outlet_area"): (
+        {"supply": {**DRAINING["supply"], "outlet": "reservoir", "outlet_head": "1 cm"}},
+        {"supply": {"outlet_area": "100 mm^2"}},
+        "build",
+    ),
+    ("reservoir", "refill_interval"): (
+        DRAINING,
+        {"supply": {"refill_interval": "12 h"}},
+        "build",
+    ),
+    ("rocker", "tilt_angle"): (ROCKING, {"supply": {"tilt_angle": "15 deg"}}, "build"),
+    ("rocker", "period"): (ROCKING, {"supply": {"period": "2 min"}}, "build"),
+    ("rocker", "reservoir_spacing"): (
+        ROCKING,
+        {"supply": {"reservoir_spacing": "40 mm"}},
+        "build",
+    ),
+    ("rocker", "reservoir_area"): (ROCKING, {"supply": {"reservoir_area": "100 mm^2"}}, "build"),
+    ("rocker", "head"): (ROCKING, {"supply": {"head": "5 mm"}}, "build"),
+    ("walls", "material"): (WALLS, CUSTOM_WALLS, "build"),
+    ("walls", "modulus"): (CUSTOM_WALLS, {"walls": {"modulus": "3 MPa"}}, "build"),
+    ("walls", "poisson_ratio"): (CUSTOM_WALLS, {"walls": {"poisson_ratio": 0.4}}, "build"),
+    ("walls", "roof_thickness"): (WALLS, {"walls": {"roof_thickness": "2 mm"}}, "build"),
     # [tolerances] feeds chipflow vary: its results must change
     ("tolerances", "depth"): (VARIED, {"tolerances": {"depth": "8 %"}}, "vary"),
     ("tolerances", "width"): (VARIED, {"tolerances": {"width": "1 um"}}, "vary"),
@@ -218,7 +285,8 @@ VALUES = {
     "medium", "water", "custom", "equal-shear", "shear-target", "area-growth", "table",
     "rectangular", "round", "floor", "mean", "max", "all", "bed", "syringe", "pressure",
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
-    "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"',
+    "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
+    "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]",
 }  # fmt: skip
 
 

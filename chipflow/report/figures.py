@@ -76,6 +76,24 @@ def _steps(ax, x: np.ndarray, y: np.ndarray, **style) -> None:
     ax.plot(xs, np.repeat(y, 2), **style)
 
 
+def _band(ax, x: np.ndarray, low: np.ndarray, high: np.ndarray, label: str | None) -> None:
+    """Shade ``low``..``high`` as one flat step per generation (a time-varying supply's range)."""
+    xs = np.repeat(x, 2) + np.tile([-0.5, 0.5], x.size)
+    ax.fill_between(
+        xs, np.repeat(low, 2), np.repeat(high, 2), color=_TEAL, alpha=0.22, lw=0, label=label
+    )
+
+
+def _swing(generations: Sequence[Mapping[str, Any]]) -> tuple[np.ndarray, np.ndarray] | None:
+    """Per level, the lowest and highest floor shear over time relative to the table's value
+    (the flow and the velocity swing by the same factors); None for a steady supply."""
+    if not generations or any(g.get("min") is None for g in generations):
+        return None
+    mean = _column(generations, "wall_shear_floor")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return _column(generations, "min") / mean, _column(generations, "max") / mean
+
+
 def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_height: float = 1.55):
     """Stacked panels along the path from inlet to outlet, one step per generation.
 
@@ -83,6 +101,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     and total flow (uL/min), total cross-section (mm^2), mean velocity (mm/s), floor wall shear
     (Pa; mean and peak shear too, the cell type's window shaded) and residence time (s). Axes
     whose values span more than a factor of 30 are logarithmic. The bed is shaded in every panel.
+    For a time-varying supply (results rows with ``min``/``max``) the flow, velocity and floor
+    shear panels shade the range each level sweeps over time around the table's value.
 
     Parameters
     ----------
@@ -125,6 +145,9 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     # flow per channel and total
     q = _column(generations, "flow_per_channel") * 6e10  # m^3/s -> uL/min
     q_total = q * count
+    swing = _swing(generations)
+    if swing is not None:
+        _band(axes[1], x, q * swing[0], q * swing[1], "per channel, min-max over time")
     _steps(axes[1], x, q, color=_INK, lw=1.6, label="per channel")
     _steps(axes[1], x, q_total, color=_TEAL, lw=1.6, ls="--", label="total")
     axes[1].set_ylabel("flow\n[uL/min]")
@@ -138,6 +161,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         (5, _column(generations, "residence_time"), "residence\ntime [s]"),
     ]
     for row, values, ylabel in series:
+        if swing is not None and row == 3:
+            _band(axes[row], x, values * swing[0], values * swing[1], None)
         _steps(axes[row], x, values, color=_INK, lw=1.6)
         axes[row].set_ylabel(ylabel)
         if _use_log(values):
@@ -160,6 +185,10 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
             low, high, color=_WINDOW, zorder=0, label=f"window ({window.get('cell_type', 'cells')})"
         )
         shown.append(np.array(bounds))
+    if swing is not None:
+        low, high = _column(generations, "min"), _column(generations, "max")
+        _band(ax, x, low, high, "floor, min-max over time")
+        shown += [low[low > 0], high[high > 0]]
     _steps(ax, x, floor, color=_INK, lw=1.6, label="floor")
     _steps(ax, x, peak, color=_TEAL, lw=1.0, ls=":", label="peak")
     ax.set_ylabel("wall shear\n[Pa]")

@@ -17,6 +17,7 @@ from typing import Any
 from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
 from chipflow.report.figures import generation_labels
+from chipflow.report.operation import operation_html
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
 
@@ -464,6 +465,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         "<h2>Generations, inlet to outlet</h2>",
         _generations(results),
         _notes(results),
+        operation_html(results),
         "<h2>Checks</h2>",
         _window(results),
         _checks(results),

@@ -47,6 +47,7 @@ from pathlib import Path
 from chipflow.errors import NetworkError
 from chipflow.network.model import Network, NetworkBuilder, unknown_name_message
 from chipflow.network.supply import Supply, boundary_conditions
+from chipflow.operation.model import OperationSpec
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.fluid import read_fluid
 from chipflow.spec.reader import MAX_NAME_LENGTH, Table, read_design_file
@@ -71,10 +72,12 @@ TOP_KEYS = (
     "ports",
     "culture",
     "limits",
+    "walls",
+    "compliances",
 )
 _CHANNEL_KEYS = ("name", "from", "to", "width", "depth", "length", "generation", "role")
 _TUBE_KEYS = ("name", "from", "to", "diameter", "length", "role")
-_PORT_KEYS = ("node", "flow", "pressure", "head", "label")
+_PORT_KEYS = ("node", "flow", "pressure", "head", "label", "amplitude", "frequency", "area")
 _SUPPLY_LABELS = {
     "flow": "syringe pump",
     "pressure": "pressure controller",
@@ -112,6 +115,7 @@ class NetworkDesign:
     pressures: Mapping[str, float]
     flows: Mapping[str, float]
     supplies: Mapping[str, Supply] = field(default_factory=dict)
+    operation: OperationSpec = field(default_factory=OperationSpec)
 
 
 def is_network_design(top: Table) -> bool:
@@ -257,7 +261,10 @@ def load_network_design(top: Table) -> NetworkDesign:
         value = item.quantity(key, kind[1], positive=False)
         supplies[node] = Supply(kind[0], value, item.string("label", _SUPPLY_LABELS[key]))
     pressures, flows = boundary_conditions(supplies, fluid)
-    return NetworkDesign(name, description, fluid, network, pressures, flows, supplies)
+    from chipflow.spec.operation import read_network_operation
+
+    operation = read_network_operation(top, network, top.tables("ports", []))
+    return NetworkDesign(name, description, fluid, network, pressures, flows, supplies, operation)
 
 
 def read_network_design(path: str | Path) -> NetworkDesign:

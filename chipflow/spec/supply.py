@@ -28,6 +28,7 @@ from chipflow.network.supply import (
     reservoir,
     syringe_pump,
 )
+from chipflow.spec.operation import OPERATION_INLETS, OPERATION_SUPPLY_KEYS
 from chipflow.spec.reader import Table
 
 __all__ = ["SupplySpec", "read_supply", "SUPPLY_KEYS"]
@@ -42,9 +43,17 @@ SUPPLY_KEYS = (
     "tubing_diameter",
     "inlet_tubing",
     "outlet_tubing",
+    *OPERATION_SUPPLY_KEYS,
 )
-_INLETS = ("syringe", "pressure", "reservoir")
-_INLET_KEY = {"syringe": "flow", "pressure": "pressure", "reservoir": "head"}
+_INLETS = ("syringe", "pressure", "reservoir", *OPERATION_INLETS)
+_INLET_KEY = {
+    "syringe": "flow",
+    "pressure": "pressure",
+    "reservoir": "head",
+    "peristaltic": "flow",
+    "pulsatile-pressure": "pressure",
+    "rocker": "head",
+}
 
 
 @dataclass(frozen=True)
@@ -75,16 +84,38 @@ def read_supply(top: Table, design_flow: float) -> SupplySpec:
         return SupplySpec(syringe_pump(design_flow), atmosphere())
     table.only(SUPPLY_KEYS)
     kind = table.choice("inlet", _INLETS, "syringe")
-    for other_kind, key in _INLET_KEY.items():
-        if other_kind != kind and key in table:
-            needed = _INLET_KEY[kind]
+    needed = _INLET_KEY[kind]
+    for key in set(_INLET_KEY.values()) - {needed}:
+        if key in table:
             raise table.error(key, f"not used with inlet = {kind!r} (it needs '{needed}')")
-    if kind == "syringe":
+    if kind in ("syringe", "peristaltic"):
         inlet = syringe_pump(table.quantity("flow", "flow", design_flow))
-    elif kind == "pressure":
+        if kind == "peristaltic":
+            inlet = Supply("flow", inlet.value, "peristaltic pump (mean)")
+    elif kind in ("pressure", "pulsatile-pressure"):
         inlet = pressure_controller(table.quantity("pressure", "pressure"))
     else:
         inlet = reservoir(table.quantity("head", "length"))
+    if kind == "rocker":
+        # both reservoirs of the platform; the build drives them with the rocking head
+        for key in ("outlet", "outlet_head"):
+            if key in table:
+                raise table.error(
+                    key, "not used with inlet = 'rocker' (its two reservoirs are the supply)"
+                )
+        return SupplySpec(
+            inlet=Supply(
+                "reservoir",
+                inlet.value,
+                "rocking platform, inlet reservoir (time-averaged magnitude)",
+            ),
+            outlet=Supply("reservoir", inlet.value, "rocking platform, outlet reservoir"),
+            tubing_diameter=table.quantity("tubing_diameter", "length", 0.5e-3),
+            inlet_tubing=table.quantity("inlet_tubing", "length", 0.0, positive=False, minimum=0.0),
+            outlet_tubing=table.quantity(
+                "outlet_tubing", "length", 0.0, positive=False, minimum=0.0
+            ),
+        )
     outlet_kind = table.choice("outlet", ("open", "reservoir"), "open")
     if outlet_kind == "open":
         if "outlet_head" in table:

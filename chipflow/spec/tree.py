@@ -104,6 +104,7 @@ TOP_KEYS = (
     "limits",
     "export",
     "tolerances",
+    "walls",
 )
 TREE_KEYS = (
     "flow",
