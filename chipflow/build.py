@@ -21,7 +21,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -29,20 +29,20 @@ import numpy as np
 
 from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
-from chipflow.checks.suite import culture_checks, pressure_checks
+from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
 from chipflow.network import Solution, solve
-from chipflow.network.summary import level_rows, port_pressure_range
+from chipflow.network.summary import channel_rows, level_rows, port_pressure_range
 from chipflow.network.supply import Supply, boundary_conditions, with_tubing
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.reader import Table, parse_design_text
-from chipflow.spec.supply import SupplySpec, read_supply
+from chipflow.spec.supply import AUTO_PRESSURE_LABEL, SupplySpec, read_supply
 from chipflow.spec.tree import load_tree_spec
 from chipflow.units import RESULT_UNITS
 
@@ -159,8 +159,8 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
-        # every message names the design file, whichever stage raised it
-        if str(exc).startswith(source.path):
+        # every message names the design file once, whichever stage raised it
+        if source.path in str(exc):
             raise
         raise type(exc)(f"{source.path}: {exc}") from None
     raise SpecError(
@@ -181,7 +181,14 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     progress("size")
-    design = size_tree(spec)
+    grade = bed_grader(
+        culture,
+        spec.flow,
+        2**spec.generations,
+        spec.bed.residence_time,
+        spec.bed.length,
+    )
+    design = size_tree(spec, bed_grade=grade)
     progress("layout")
     keepout = {} if port_keepout is None else {"port_keepout": port_keepout}
     rules = LayoutRules.from_fabrication(design.fabrication, **keepout)
@@ -196,6 +203,13 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     progress("solve")
     pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
     solution = solve(network, spec.fluid, pressures, flows)
+    if supply.pressure_for_flow is not None:
+        # The network is linear: the pressure at the feed under the design flow is the
+        # pressure a controller must hold to give that flow. Solve again driven by it.
+        held = Supply("pressure", solution.node_pressure(feed), AUTO_PRESSURE_LABEL)
+        supply = replace(supply, inlet=held)
+        pressures, flows = boundary_conditions({feed: held, drain: supply.outlet}, spec.fluid)
+        solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
     window = culture.window or _targets_window(spec)
@@ -272,6 +286,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         checks,
         culture.window,
     )
+    results["channels"] = channel_rows(solution)
     results["fabrication"] = None
     results["warnings"] = []
     return Build(

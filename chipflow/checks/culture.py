@@ -69,8 +69,8 @@ def check_floor_shear(
     Returns
     -------
     list of CheckResult
-        ``value`` is the floor shear; ``limit`` is the bound that was crossed (the nearer
-        bound when inside the window).
+        ``value`` is the floor shear; ``limit_low`` and ``limit`` are the window's bounds,
+        the same for every generation whichever side its value lies on.
     """
     tau = np.asarray(shear, dtype=float).ravel()
     if tau.size != len(labels):
@@ -80,14 +80,12 @@ def check_floor_shear(
     results = []
     for label, value, grade in zip(labels, tau, status, strict=True):  # loop over generations
         if value < window.min:
-            limit, side = window.min, f"below the window {window_text}"
+            side = f"below the window {window_text}"
             advice = "raise the flow or make the channel shallower"
         elif value > window.max:
-            limit, side = window.max, f"above the window {window_text}"
+            side = f"above the window {window_text}"
             advice = "lower the flow or make the channel deeper or wider"
         else:
-            nearer_low = value - window.min <= window.max - value
-            limit = window.min if nearer_low else window.max
             side, advice = f"inside the window {window_text}", ""
         message = f"floor shear {value:.3g} Pa is {side}"
         if grade == "warn":
@@ -96,7 +94,14 @@ def check_floor_shear(
             message += f": {advice}"
         results.append(
             CheckResult(
-                f"floor shear: {label}", str(grade), value, limit, "Pa", window.source, message
+                f"floor shear: {label}",
+                str(grade),
+                value,
+                window.max,
+                "Pa",
+                window.source,
+                message,
+                limit_low=window.min,
             )
         )
     return results

@@ -56,9 +56,9 @@ def main() -> None:
 
 
 def _register() -> None:
-    from chipflow.cli import build, channel, check, new, size
+    from chipflow.cli import build, channel, check, designs, new, size
 
-    for module in (channel, size, check, build, new):
+    for module in (channel, size, check, build, new, designs):
         main.add_command(module.command)
     main.add_command(build.demo_command)
 

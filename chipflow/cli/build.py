@@ -11,6 +11,7 @@ import click
 
 from chipflow.export.bundle import build_to_folder
 from chipflow.report.console import console_summary
+from chipflow.spec.bundled import resolve_design
 
 __all__ = ["command", "demo_command", "DEMO_DESIGN"]
 
@@ -64,13 +65,15 @@ def command(design: str, outdir: str | None) -> int:
 
     \b
     Example:
-      chipflow build designs/demo_endothelial_bed.toml -o demo-out
+      chipflow build tree_vessel -o vessel-out
+
+    DESIGN is a design file, or the name of a bundled design (`chipflow designs`).
 
     Exit status: 0 when every check passes (warnings allowed), 1 when the design was built but
     a check failed (the outputs are written and the failure is marked in them), 2 for bad
     input (nothing is written).
     """
-    return _run(design, outdir)
+    return _run(resolve_design(design), outdir)
 
 
 @click.command("demo")

@@ -9,9 +9,18 @@ from pathlib import Path
 from chipflow.errors import SpecError
 from chipflow.export._files import atomic_write
 
-__all__ = ["starter_text", "write_starter"]
+__all__ = ["starter_text", "write_starter", "check_name"]
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+
+
+def check_name(name: str) -> None:
+    """Refuse a design name that is not a plain file name (SpecError)."""
+    if not _NAME.match(name):
+        raise SpecError(
+            f"design name {name!r}: use letters, digits, '-', '_' or '.', starting with a "
+            "letter or digit (e.g. liver-bed)"
+        )
 
 
 def starter_text(name: str) -> str:
@@ -20,11 +29,7 @@ def starter_text(name: str) -> str:
     >>> 'name = "liver-bed"' in starter_text("liver-bed")
     True
     """
-    if not _NAME.match(name):
-        raise SpecError(
-            f"design name {name!r}: use letters, digits, '-', '_' or '.', starting with a "
-            "letter or digit (e.g. liver-bed)"
-        )
+    check_name(name)
     template = resources.files("chipflow.data").joinpath("starter.toml").read_text("utf-8")
     return template.replace("__NAME__", name)
 
