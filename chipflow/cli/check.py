@@ -17,6 +17,8 @@ from chipflow.cli.common import echo_table
 from chipflow.design.table import tree_check
 from chipflow.errors import SpecError
 from chipflow.network import Solution, generation_rows
+from chipflow.network.summary import channel_rows
+from chipflow.report.console import channel_table
 from chipflow.spec.bundled import resolve_design
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
 from chipflow.spec.reader import Table, read_design_file
@@ -142,48 +144,8 @@ def _echo_text(design: NetworkDesign, solution: Solution) -> None:
         ("node", "pressure [Pa]"),
     )
     click.echo("")
-    click.echo("channels")
-    cols = [
-        net.width * 1e6,
-        net.depth * 1e6,
-        net.length * 1e3,
-        solution.flow * _UL_MIN,
-        solution.pressure_drop,
-        solution.mean_velocity * 1e3,
-        solution.wall_shear_floor,
-        solution.wall_shear_max,
-        solution.reynolds,
-        solution.residence_time,
-    ]
-    values = [c.tolist() for c in cols]
-    names = net.channel_names()
-    rows = [
-        (
-            names[i],
-            net.node_names[a],
-            net.node_names[b],
-            *(_g(col[i]) for col in values),
-        )
-        for i, (a, b) in enumerate(zip(net.node_a.tolist(), net.node_b.tolist(), strict=True))
-    ]
-    echo_table(
-        rows,
-        (
-            "channel",
-            "from",
-            "to",
-            "width [um]",
-            "depth [um]",
-            "length [mm]",
-            "flow [uL/min]",
-            "dp [Pa]",
-            "velocity [mm/s]",
-            "shear floor [Pa]",
-            "shear peak [Pa]",
-            "Re",
-            "residence [s]",
-        ),
-    )
+    click.echo("channels (flow is negative against from -> to)")
+    click.echo(channel_table(channel_rows(solution)))
     generations = generation_rows(solution)
     if generations:
         click.echo("")
