@@ -99,6 +99,40 @@ def node_positions(
     return column, row
 
 
+def _label_places(segments: np.ndarray) -> list[tuple[float, float, str, str]]:
+    """Where each channel's label goes: beside its line, at the middle or a third of the way
+    along, on the side and at the place whose box overlaps no label placed before it.
+
+    Greedy over the labels (at most :data:`LABEL_LIMIT`), in data units: one column of nodes is
+    one unit wide, one row one unit high, and a two-line label about 1.1 x 0.35 units.
+    """
+    box_w, box_h, gap = 1.1, 0.35, 0.06
+    step = segments[:, 1] - segments[:, 0]
+    length = np.hypot(step[:, 0], step[:, 1])
+    unit = step / np.where(length > 0, length, 1.0)[:, None]
+    placed: list[tuple[float, float]] = []  # box centres
+    out = []
+    for i in range(len(segments)):  # labels only, capped at LABEL_LIMIT
+        options = []
+        for t in (0.5, 0.35, 0.65, 0.25, 0.75):
+            for side in (-1.0, 1.0) if i % 2 == 0 else (1.0, -1.0):
+                nx, ny = -unit[i, 1] * side, unit[i, 0] * side
+                if length[i] == 0:
+                    nx, ny = 0.0, -side
+                px, py = segments[i, 0] + t * step[i]
+                h = "left" if nx > 0.3 else "right" if nx < -0.3 else "center"
+                v = "bottom" if ny >= 0 else "top"
+                ax_, ay_ = px + gap * nx, py + gap * ny
+                cx = ax_ + {"left": box_w / 2, "right": -box_w / 2, "center": 0.0}[h]
+                cy = ay_ + (box_h / 2 if v == "bottom" else -box_h / 2)
+                clash = sum(abs(cx - qx) < box_w and abs(cy - qy) < box_h for qx, qy in placed)
+                options.append((clash, (ax_, ay_, h, v), (cx, cy)))
+        clash, place, centre = min(options, key=lambda o: o[0])
+        placed.append(centre)
+        out.append(place)
+    return out
+
+
 def network_schematic(results: Mapping[str, Any], *, width: float = 10.0):
     """The schematic figure of an explicit network (see the module docstring).
 
@@ -172,13 +206,8 @@ def network_schematic(results: Mapping[str, Any], *, width: float = 10.0):
             f"{'-' if c['wall_shear_floor'] is None else format(c['wall_shear_floor'], '.3g')} Pa"
             for c in channels
         ]
-        # labels alternate below and above their line so that neighbours do not overlap
-        below = np.arange(n) % 2 == 0
-        offsets = np.where(below, -8, 8).tolist()
-        aligns = np.where(below, "top", "bottom").tolist()
-        for text, (x, y), dy, va in zip(labels, mid.tolist(), offsets, aligns, strict=True):
-            ax.annotate(text, (x, y), xytext=(0, dy), textcoords="offset points", ha="center",
-                        va=va, fontsize=6, color=_INK, zorder=5)  # fmt: skip
+        for text, (x, y, h, v) in zip(labels, _label_places(segments), strict=True):
+            ax.text(x, y, text, ha=h, va=v, fontsize=6, color=_INK, zorder=5)
     colorbar = fig.colorbar(lines, ax=ax, shrink=0.85, extend="max" if window else "neither")
     colorbar.set_label("floor wall shear [Pa]", fontsize=8)
     colorbar.ax.tick_params(labelsize=7)
