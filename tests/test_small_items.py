@@ -176,3 +176,14 @@ def test_a_single_depth_design_has_no_depth_note() -> None:
 
     build = build_design(ROOT / "designs" / "demo_endothelial_bed.toml")
     assert not [w for w in build.results["warnings"] if w.startswith("depth choice")]
+
+
+def test_report_shows_the_floor_shear_window_as_the_limit_of_every_level(tmp_path: Path) -> None:
+    from chipflow.export.bundle import build_to_folder
+
+    _, files = build_to_folder(ROOT / "designs" / "demo_endothelial_bed.toml", tmp_path / "o")
+    page = (files[0].parent / "report.html").read_text()
+    rows = [r for r in page.split("<tr>") if "floor shear: " in r]
+    assert len(rows) >= 3
+    # endothelial window, Dewey et al. 1981: 0.5-1.0 Pa, the same on every row
+    assert all("<td>0.5 &ndash; 1 Pa</td>" in r for r in rows)
