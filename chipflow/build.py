@@ -23,7 +23,7 @@ import hashlib
 import json
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -31,13 +31,13 @@ import numpy as np
 
 from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
-from chipflow.checks.suite import culture_checks, pressure_checks
+from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
 from chipflow.network import Solution, solve
-from chipflow.network.summary import level_rows, port_pressure_range
+from chipflow.network.summary import channel_rows, level_rows, port_pressure_range
 from chipflow.network.supply import Supply, boundary_conditions, with_tubing
 from chipflow.operation import Operation, operate, steady_boundary
 from chipflow.operation.run import attach
@@ -47,7 +47,7 @@ from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.operation import read_tree_operation
 from chipflow.spec.reader import Table, parse_design_text
-from chipflow.spec.supply import SupplySpec, read_supply
+from chipflow.spec.supply import AUTO_PRESSURE_LABEL, SupplySpec, read_supply
 from chipflow.spec.tolerances import read_tolerances
 from chipflow.spec.tree import load_tree_spec
 from chipflow.units import RESULT_UNITS
@@ -187,8 +187,8 @@ def build_design(
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
-        # every message names the design file, whichever stage raised it
-        if str(exc).startswith(source.path):
+        # every message names the design file once, whichever stage raised it
+        if source.path in str(exc):
             raise
         raise type(exc)(f"{source.path}: {exc}") from None
     raise SpecError(
@@ -217,7 +217,14 @@ def _build_tree(
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
     progress("size")
-    design = size_tree(spec)
+    grade = bed_grader(
+        culture,
+        spec.flow,
+        2**spec.generations,
+        spec.bed.residence_time,
+        spec.bed.length,
+    )
+    design = size_tree(spec, bed_grade=grade)
     check_size(sum(level.count for level in design.levels), allow_large=allow_large)
     progress("layout")
     keepout = {} if port_keepout is None else {"port_keepout": port_keepout}
@@ -235,6 +242,13 @@ def _build_tree(
     timing = timing.renamed({"inlet": feed, "outlet": drain})
     pressures, flows = steady_boundary(timing, network, spec.fluid, pressures, flows, feed, drain)
     solution = solve(network, spec.fluid, pressures, flows)
+    if supply.pressure_for_flow is not None:
+        # The network is linear: the pressure at the feed under the design flow is the
+        # pressure a controller must hold to give that flow. Solve again driven by it.
+        held = Supply("pressure", solution.node_pressure(feed), AUTO_PRESSURE_LABEL)
+        supply = replace(supply, inlet=held)
+        pressures, flows = boundary_conditions({feed: held, drain: supply.outlet}, spec.fluid)
+        solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
     targets = _targets_window(spec)
@@ -346,6 +360,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         culture.window,
     )
     attach(results, operation)
+    results["channels"] = channel_rows(solution)
     results["fabrication"] = None
     results["warnings"] = []
     results["field"] = None

@@ -40,6 +40,8 @@ __all__ = [
     "format_quantity",
     "RESULT_UNITS",
     "units_of",
+    "tidy",
+    "lab_number",
 ]
 
 #: The one unit registry of chipflow. Offset temperatures ("37 degC") convert on their own.
@@ -289,7 +291,26 @@ def format_quantity(value: float, unit: str, digits: int = 4) -> str:
     >>> format_quantity(8.333e-11, "uL/min")
     '5 uL/min'
     """
-    return f"{from_si(value, unit):.{digits}g} {unit}"
+    return f"{lab_number(from_si(value, unit), digits)} {unit}"
+
+
+def lab_number(value: float, digits: int = 4) -> str:
+    """A number for people: ``digits`` significant figures, positional up to 10^7.
+
+    Plain ``g`` formatting writes a 22.4 mm wide channel as ``2.238e+04`` um; lab tables
+    read better as ``22380``. Very large or very small numbers keep the exponent.
+
+    >>> lab_number(22377.5), lab_number(0.5156183), lab_number(5.0), lab_number(1.5e-7)
+    ('22380', '0.5156', '5', '1.5e-07')
+    """
+    number = float(value)
+    if not math.isfinite(number):
+        return "-" if math.isnan(number) else ("inf" if number > 0 else "-inf")
+    if number != 0 and not 1e-4 <= abs(number) < 1e7:
+        return f"{number:.{digits}g}"
+    return np.format_float_positional(
+        number, precision=digits, unique=False, fractional=False, trim="-"
+    )
 
 
 #: The SI unit of every named quantity chipflow reports (results.json, channels.csv, the
@@ -370,8 +391,8 @@ RESULT_UNITS: dict[str, str] = {
     "damping": "1",
     "flow_mean": "m^3/s",
     "flow_amplitude": "m^3/s",
-    "flow_min": "m^3/s",
-    "flow_max": "m^3/s",
+    "flow_min_over_time": "m^3/s",
+    "flow_max_over_time": "m^3/s",
     "wall_shear_floor_amplitude": "Pa",
     "womersley": "1",
     "time_averaged_shear": "Pa",
@@ -404,6 +425,13 @@ RESULT_UNITS: dict[str, str] = {
     "time": "s",
     "heads": "m",
     "head_difference": "m",
+    # per-channel extremes of a level
+    "flow_min": "m^3/s",
+    "flow_max": "m^3/s",
+    "wall_shear_floor_min": "Pa",
+    "wall_shear_floor_max": "Pa",
+    "residence_time_min": "s",
+    "residence_time_max": "s",
 }
 
 
@@ -414,3 +442,18 @@ def units_of(*keys: str) -> dict[str, str]:
     {'flow': 'm^3/s', 'wall_shear_floor': 'Pa'}
     """
     return {key: RESULT_UNITS[key] for key in keys}
+
+
+def tidy(value: float) -> float | None:
+    """A float rounded to 12 significant digits for files people read (CSV, JSON).
+
+    Binary floating point leaves noise such as ``4.9999999999999996e-05`` for 50 um; 12
+    digits are far finer than any measured input and hide it. Infinity and NaN become None
+    (JSON has neither).
+
+    >>> tidy(4.9999999999999996e-05), tidy(0.9999999999999958), tidy(float("inf"))
+    (5e-05, 1.0, None)
+    """
+    if not math.isfinite(value):
+        return None
+    return float(f"{value:.12g}")

@@ -150,10 +150,12 @@ def test_floor_shear_boundaries(tau, status):
     assert result.status == status
     assert result.name == "floor shear: bed (generation 4)"
     assert result.unit == "Pa" and result.source == "Dewey et al. 1981"
+    # the limit is the whole window (Dewey et al. 1981: 0.5-1.0 Pa), whichever side tau is on
+    assert (result.limit_low, result.limit) == (0.5, 1.0)
     if tau < 0.5:
-        assert result.limit == 0.5 and "below" in result.message
+        assert "below" in result.message
     if tau > 1.0:
-        assert result.limit == 1.0 and "above" in result.message
+        assert "above" in result.message
 
 
 def test_floor_shear_one_result_per_generation():

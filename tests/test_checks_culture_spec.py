@@ -83,7 +83,7 @@ def test_window_override():
 @pytest.mark.parametrize(
     ("text", "error", "message"),
     [
-        ('cell_type = "hepatocytes"', SpecError, "did you mean 'hepatocyte'"),
+        ('cell_type = "hepatocyts"', SpecError, "did you mean 'hepatocyte'"),
         ('cell_typ = "hepatocyte"', SpecError, "culture.cell_typ: unknown key; did you mean"),
         ("shear_min = 0.2", UnitError, "missing unit at chip.toml: culture.shear_min"),
         ('cell_density = "1e5 um"', UnitError, "wrong kind of unit"),

@@ -52,8 +52,6 @@ def test_round_tube() -> None:
     result = run(
         [
             "channel",
-            "--width",
-            "1mm",
             "--diameter",
             "0.5mm",
             "--length",
@@ -80,6 +78,18 @@ def test_round_tube() -> None:
         ["channel", "--width", "200", "--depth", "50um", "--length", "10mm", "--flow", "5uL/min"],
         ["channel", "--depth", "50um", "--length", "10mm", "--flow", "5uL/min"],
         [*ARGS, "--fluid", "blood"],
+        # a tube is its diameter alone: a width beside it would be silently ignored
+        [
+            "channel",
+            "--width",
+            "1mm",
+            "--diameter",
+            "0.5mm",
+            "--length",
+            "3cm",
+            "--flow",
+            "1uL/min",
+        ],
     ],
 )
 def test_bad_input_is_one_line_exit_2(args) -> None:
@@ -88,3 +98,29 @@ def test_bad_input_is_one_line_exit_2(args) -> None:
     assert "Traceback" not in result.output
     lines = result.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("chipflow: error:")
+
+
+def test_json_has_the_floor_shear_of_the_text() -> None:
+    data = json.loads(run([*ARGS, "--json", "--viscosity", "1mPa*s"]).output)
+    text = run([*ARGS, "--viscosity", "1mPa*s"]).output
+    assert f"{data['wall_shear_floor']:.4g}" in text
+    # Analytic limit for a round tube: the wall shear is uniform, 4 mu Q / (pi r^3)
+    # (Hagen-Poiseuille), so the floor value equals the mean and the peak.
+    tube = json.loads(
+        run(
+            [
+                "channel",
+                "--diameter",
+                "0.5mm",
+                "--length",
+                "30cm",
+                "--flow",
+                "10uL/min",
+                "--viscosity",
+                "1mPa*s",
+                "--json",
+            ]
+        ).output
+    )
+    expected = 4e-3 * 10e-9 / 60 / (3.141592653589793 * 0.25e-3**3)
+    assert tube["wall_shear_floor"] == pytest.approx(expected, rel=1e-9)

@@ -14,8 +14,8 @@ from chipflow.cli.check import SI_UNITS
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "designs" / "bench_loop_network.toml"
 CHANNEL_KEYS = {
-    "name", "from", "to", "flow", "pressure_drop", "mean_velocity", "wall_shear_mean",
-    "wall_shear_max", "reynolds", "residence_time",
+    "name", "from", "to", "flow", "pressure_drop", "mean_velocity", "wall_shear_floor",
+    "wall_shear_mean", "wall_shear_max", "reynolds", "residence_time",
 }  # fmt: skip
 
 
@@ -25,7 +25,9 @@ def run(*args: str):
 
 def test_example_table_in_lab_units() -> None:
     result = run(str(EXAMPLE))
-    assert result.exit_code == 0, result.output
+    # the example's branches differ on purpose: the uneven bed fails, as in `chipflow build`
+    assert result.exit_code == 1, result.output
+    assert "FAIL bed flow uniformity" in result.output
     out = result.output
     for word in ("feed tubing", "bridge", "culture a", "uL/min", "[um]", "[mm/s]", "[Pa]", "[s]"):
         assert word in out
@@ -34,10 +36,13 @@ def test_example_table_in_lab_units() -> None:
 
 def test_example_json_structure_and_values() -> None:
     result = run(str(EXAMPLE), "--json")
-    assert result.exit_code == 0, result.output
+    assert result.exit_code == 1, result.output
     data = json.loads(result.output)
-    assert set(data) == {"design", "fluid", "nodes", "channels", "ports", "units", "warnings"}
+    assert set(data) == {
+        "design", "fluid", "nodes", "channels", "ports", "units", "checks", "status", "warnings"
+    }  # fmt: skip
     assert data["warnings"] == []
+    assert data["status"] == "fail"
     assert data["design"] == "bench loop"
     assert set(data["fluid"]) >= {"viscosity", "density"}
     assert all(set(c) == CHANNEL_KEYS for c in data["channels"])
@@ -142,3 +147,21 @@ def test_missing_file_exits_2(tmp_path: Path) -> None:
     result = run(str(tmp_path / "absent.toml"), "--json")
     assert result.exit_code == 2
     assert "no such design file" in result.stderr
+
+
+def test_check_and_build_agree_on_every_bundled_design(tmp_path) -> None:
+    """check draws the chip in memory: the same verdict, exit status and chip inlet pressure
+    as build, for trees and explicit networks alike."""
+    from chipflow.export.bundle import build_to_folder
+
+    for path in sorted(EXAMPLE.parent.glob("*.toml")):
+        built, _ = build_to_folder(path, tmp_path / path.stem)
+        checked = run(str(path), "--json")
+        data = json.loads(checked.output)
+        assert data["status"] == built.status, path.name
+        assert checked.exit_code == (1 if built.status == "fail" else 0), path.name
+        if "totals" in data:  # tree designs
+            assert data["totals"]["chip_inlet_pressure"] == pytest.approx(
+                built.results["totals"]["chip_inlet_pressure"], rel=1e-12
+            )
+            assert data["totals"]["inlet_pressure"] > 0

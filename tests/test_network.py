@@ -224,8 +224,10 @@ def boundary(draw, net: Network):
     nodes = draw(st.permutations(range(net.n_nodes)))
     n_p = draw(st.integers(1, max(1, net.n_nodes // 2)))
     n_q = draw(st.integers(0, net.n_nodes - n_p))
-    pressures = {int(k): draw(st.floats(-2e3, 2e3)) for k in nodes[:n_p]}
-    flows = {int(k): draw(st.floats(-1e-9, 1e-9)) for k in nodes[n_p : n_p + n_q]}
+    pressures = {int(k): draw(st.floats(-2e3, 2e3, allow_subnormal=False)) for k in nodes[:n_p]}
+    flows = {
+        int(k): draw(st.floats(-1e-9, 1e-9, allow_subnormal=False)) for k in nodes[n_p : n_p + n_q]
+    }
     return pressures, flows
 
 

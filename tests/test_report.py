@@ -152,12 +152,19 @@ def test_sample_is_consistent(results):
 
 def test_profile_figure_has_the_panels(results):
     fig = profile_figure(results)
-    axes = fig.get_axes()
+    axes = fig.get_axes()[: len(PROFILE_PANELS)]
     titles = [ax.get_title(loc="left") for ax in axes]
     assert titles == list(PROFILE_PANELS)
-    # One x tick per generation, inlet to outlet; the bed in the middle.
-    labels = [t.get_text() for t in axes[-1].get_xticklabels()]
+    # One label per generation on top, inlet to outlet, the bed in the middle, each at the
+    # centre of its stretch of the path: the x axis is the distance from the inlet [mm].
+    (top,) = axes[0].child_axes
+    labels = [t.get_text() for t in top.get_xticklabels()]
     assert labels == ["d0", "d1", "d2", "bed", "c2", "c1", "c0"]
+    lengths_mm = np.array([g["length"] for g in results["generations"]]) * 1e3
+    centres = np.cumsum(lengths_mm) - lengths_mm / 2
+    assert np.allclose(top.get_xticks(), centres)
+    assert axes[-1].get_xlim() == pytest.approx((0.0, lengths_mm.sum()))
+    assert "distance" in axes[-1].get_xlabel()
     # The shear panel shades the window of the cell type: a patch spanning 0.1-0.5 Pa
     # (Dewey et al. 1981 via the table).
     shear_ax = axes[PROFILE_PANELS.index("floor wall shear")]

@@ -57,7 +57,17 @@ _ROW_KEYS = (
     "confidence",
     "o2_consumption",
     "o2_source",
+    "aliases",
 )
+
+
+def _key(name: str) -> str:
+    """A cell-type name as looked up: lower case, spaces and underscores as hyphens.
+
+    >>> _key("HUVEC"), _key("Mouse_ESC"), _key("  primary  hepatocytes ")
+    ('huvec', 'mouse-esc', 'primary-hepatocytes')
+    """
+    return "-".join(name.strip().lower().replace("_", " ").split())
 
 
 @dataclass(frozen=True)
@@ -124,6 +134,8 @@ class CellType:
         Oxygen uptake per cell [mol/s], when known.
     o2_source : str
         Citation of ``o2_consumption`` ("" when unknown).
+    aliases : tuple of str
+        Other names the row is found by (e.g. ``HUVEC`` for ``endothelial``).
     """
 
     name: str
@@ -134,6 +146,7 @@ class CellType:
     confidence: str = ""
     o2_consumption: float | None = None
     o2_source: str = ""
+    aliases: tuple[str, ...] = ()
 
     def window(self) -> ShearWindow:
         """The cited shear window of this cell type."""
@@ -177,6 +190,9 @@ def parse_cell_types(
         o2_source = row.string("o2_source", "")
         if o2 is not None and not o2_source.strip():
             raise row.error("o2_source", "an oxygen uptake needs its citation")
+        aliases = data[name].get("aliases", [])
+        if not isinstance(aliases, list) or not all(isinstance(a, str) for a in aliases):
+            raise row.error("aliases", 'expected a list of names, e.g. ["HUVEC"]')
         rows[name] = CellType(
             name,
             row.string("label", name),
@@ -186,6 +202,7 @@ def parse_cell_types(
             row.string("confidence", ""),
             o2,
             o2_source,
+            tuple(aliases),
         )
     return rows
 
@@ -198,7 +215,11 @@ def cell_types() -> dict[str, CellType]:
 
 
 def cell_type(name: str, *, where: str = "") -> CellType:
-    """Look a cell type up by name, suggesting the nearest name on a miss.
+    """Look a cell type up by name or alias (any case; spaces, hyphens and underscores
+    alike), suggesting the nearest name on a miss.
+
+    >>> cell_type("HUVEC").name, cell_type("primary hepatocytes").name
+    ('endothelial', 'hepatocyte')
 
     Parameters
     ----------
@@ -210,6 +231,10 @@ def cell_type(name: str, *, where: str = "") -> CellType:
     table = cell_types()
     if name in table:
         return table[name]
+    names = {_key(n): row for n, row in table.items()}
+    names.update({_key(a): row for row in table.values() for a in row.aliases})
+    if _key(name) in names:
+        return names[_key(name)]
     near = difflib.get_close_matches(name, list(table), n=1, cutoff=0.6)
     hint = f"; did you mean '{near[0]}'?" if near else ""
     place = f"{where}: " if where else ""

@@ -15,7 +15,6 @@ Examples
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 
 import numpy as np
@@ -78,8 +77,8 @@ def check_floor_shear(
     Returns
     -------
     list of CheckResult
-        ``value`` is the floor shear; ``limit`` is the bound that was crossed (the nearer
-        bound when inside the window).
+        ``value`` is the floor shear; ``limit_low`` and ``limit`` are the window's bounds,
+        the same for every generation whichever side its value lies on.
     """
     tau = np.asarray(shear, dtype=float).ravel()
     if tau.size != len(labels):
@@ -92,19 +91,12 @@ def check_floor_shear(
     results = []
     for label, value, grade in zip(labels, tau, status, strict=True):  # loop over generations
         if value < window.min:
-            limit, side = window.min, f"below {window_text}"
+            side = f"below {window_text}"
             advice = "raise the flow or make the channel shallower"
         elif value > window.max:
-            limit, side = window.max, f"above {window_text}"
+            side = f"above {window_text}"
             advice = "lower the flow or make the channel deeper or wider"
         else:
-            if math.isinf(window.max):
-                limit = window.min
-            elif window.min <= 0.0:
-                limit = window.max
-            else:
-                nearer_low = value - window.min <= window.max - value
-                limit = window.min if nearer_low else window.max
             side, advice = f"inside {window_text}", ""
         message = f"{words} {value:.3g} Pa is {side}"
         if grade == "warn":
@@ -112,6 +104,15 @@ def check_floor_shear(
         elif grade == "fail":
             message += f": {advice}"
         results.append(
-            CheckResult(f"{words}: {label}", str(grade), value, limit, "Pa", window.source, message)
+            CheckResult(
+                f"{words}: {label}",
+                str(grade),
+                value,
+                window.max,
+                "Pa",
+                window.source,
+                message,
+                limit_low=window.min if window.min > 0.0 else None,
+            )
         )
     return results

@@ -36,6 +36,10 @@ class CheckResult:
         Where the limit comes from (a citation, "common practice" or "chipflow default").
     message : str
         One sentence for the designer: what was found and what to do about it.
+    limit_low : float or None
+        For a window (a value that must stay between two bounds): its lower bound, with
+        ``limit`` its upper bound, so the limit shown is the same window whichever side the
+        value lies on. None for a single bound.
 
     Examples
     --------
@@ -55,6 +59,7 @@ class CheckResult:
     unit: str
     source: str
     message: str
+    limit_low: float | None = None
 
     def __post_init__(self) -> None:
         if self.status not in STATUSES:
@@ -62,16 +67,19 @@ class CheckResult:
                 f"check {self.name!r}: status must be one of {', '.join(STATUSES)}, "
                 f"got {self.status!r}"
             )
-        for field in ("value", "limit"):
+        for field in ("value", "limit", "limit_low"):
             number = getattr(self, field)
             if number is not None:
                 object.__setattr__(self, field, float(number))
 
     def to_dict(self) -> dict:
-        """A plain dict for results JSON (non-finite numbers become None)."""
+        """A plain dict for results JSON (non-finite numbers become None); ``limit_low`` only
+        for a window."""
         out = asdict(self)
-        for field in ("value", "limit"):
-            if out[field] is not None and not math.isfinite(out[field]):
+        if out["limit_low"] is None:
+            del out["limit_low"]
+        for field in ("value", "limit", "limit_low"):
+            if out.get(field) is not None and not math.isfinite(out[field]):
                 out[field] = None
         return out
 

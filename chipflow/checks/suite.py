@@ -28,7 +28,7 @@ from chipflow.network.summary import port_pressure_range
 from chipflow.report.figures import generation_labels
 from chipflow.spec.culture import Culture, Limits
 
-__all__ = ["culture_checks", "pressure_checks"]
+__all__ = ["culture_checks", "pressure_checks", "bed_grader"]
 
 
 class _ChannelLabels:
@@ -154,6 +154,70 @@ def culture_checks(
     if temperature is not None:
         out.append(temperature)
     return out
+
+
+def bed_grader(
+    culture: Culture,
+    total_flow: float,
+    bed_count: int,
+    residence_time: float | None,
+    bed_length: float | None,
+):
+    """A ``bed_grade(depth, width) -> (fails, warnings, reason)`` for the depth choice of
+    :func:`chipflow.design.sizing.size_tree`: the bed's oxygen checks at that geometry.
+
+    The bed's residence time is the design's (its length follows from it), or follows from
+    a given ``bed_length`` [m]; its floor area is ``count * width * length``. The checks are
+    the build's own :func:`check_oxygen_diffusion` and :func:`check_oxygen_supply`.
+
+    Parameters
+    ----------
+    culture : Culture
+    total_flow : float
+        Flow through the trunk [m^3/s].
+    bed_count : int
+        Number of bed channels.
+    residence_time, bed_length : float or None
+        The bed's residence time [s] or length [m] (one of them).
+
+    Examples
+    --------
+    Endothelial-like defaults; at 100 um the oxygen needs (1e-4)^2 / (2 * 3e-9) = 1.67 s to
+    cross the depth (Einstein 1905), longer than a 1 s residence time:
+
+    >>> from chipflow.spec.culture import Culture
+    >>> grade = bed_grader(Culture(), 50e-9 / 60, 16, 1.0, None)
+    >>> grade(100e-6, 400e-6)[:2], grade(50e-6, 400e-6)[:2]
+    ((1, 0), (0, 0))
+    """
+
+    def grade(depth: float, width: float) -> tuple[int, int, str]:
+        q = total_flow / bed_count
+        if residence_time is not None:
+            t = residence_time
+            length = t * q / (width * depth)
+        else:
+            length = bed_length
+            t = length * width * depth / q
+        results = [
+            check_oxygen_diffusion(depth, t, culture.o2_diffusivity),
+            check_oxygen_supply(
+                total_flow,
+                bed_count * width * length,
+                culture.cell_density,
+                culture.o2_consumption,
+                culture.o2_inlet,
+            ),
+        ]
+        bad = [r for r in results if r.status != "pass"]
+        reason = "; ".join(f"{r.name} would {r.status}: {r.message}" for r in bad)
+        return (
+            sum(r.status == "fail" for r in results),
+            sum(r.status == "warn" for r in results),
+            reason or "the bed's oxygen checks pass",
+        )
+
+    return grade
 
 
 def pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:

@@ -66,9 +66,9 @@ def main() -> None:
 
 
 def _register() -> None:
-    from chipflow.cli import analyse, build, channel, check, new, size, sweep, vary
+    from chipflow.cli import analyse, build, channel, check, designs, new, size, sweep, vary
 
-    for module in (channel, size, check, build, new, analyse, vary, sweep):
+    for module in (channel, size, check, build, new, designs, analyse, vary, sweep):
         main.add_command(module.command)
     main.add_command(build.demo_command)
 

@@ -11,6 +11,7 @@ import click
 
 from chipflow.export.bundle import build_to_folder
 from chipflow.report.console import console_summary
+from chipflow.spec.bundled import resolve_design
 
 __all__ = ["command", "demo_command", "DEMO_DESIGN"]
 
@@ -81,14 +82,16 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
 
     \b
     Example:
-      chipflow build designs/demo_endothelial_bed.toml -o demo-out
+      chipflow build tree_vessel -o vessel-out
+
+    DESIGN is a design file, or the name of a bundled design (`chipflow designs`).
 
     Exit status: 0 when every check passes (warnings allowed), 1 when the design was built but
     a check failed (the outputs are written and the failure is marked in them), 2 for bad
     input, a tree too large for this machine's memory, or an output folder that cannot be
     written (nothing is written).
     """
-    return _run(design, outdir, allow_large, field)
+    return _run(resolve_design(design), outdir, allow_large, field)
 
 
 @click.command("demo")

@@ -22,6 +22,7 @@ SI_UNITS = units_of(
     "pressure_drop",
     "mean_velocity",
     "max_velocity",
+    "wall_shear_floor",
     "wall_shear_mean",
     "wall_shear_max",
     "reynolds",
@@ -92,9 +93,13 @@ _LAB_ROWS = (
 
 
 @click.command("channel")
-@click.option("--width", type=QUANTITY("length"), required=True, help="Channel width, e.g. 200um.")
+@click.option("--width", type=QUANTITY("length"), help="Channel width, e.g. 200um.")
 @click.option("--depth", type=QUANTITY("length"), help="Channel depth, e.g. 50um.")
-@click.option("--diameter", type=QUANTITY("length"), help="Round tube: inner diameter.")
+@click.option(
+    "--diameter",
+    type=QUANTITY("length"),
+    help="Round tube: inner diameter, e.g. 0.5mm (instead of --width and --depth).",
+)
 @click.option("--length", type=QUANTITY("length"), required=True, help="Length, e.g. 10mm.")
 @click.option("--flow", type=QUANTITY("flow"), help="Imposed flow rate, e.g. 5uL/min.")
 @click.option("--pressure", type=QUANTITY("pressure"), help="Imposed pressure drop, e.g. 2kPa.")
@@ -104,18 +109,23 @@ def command(width, depth, diameter, length, flow, pressure, fluid, as_json):
     """Flow, pressure, velocity and wall shear in one straight channel.
 
     \b
-    Example:
+    Examples:
       chipflow channel --width 200um --depth 50um --length 10mm --flow 5uL/min
+      chipflow channel --diameter 0.5mm --length 30cm --flow 5uL/min
 
     Warnings follow the table (in --json: a "warnings" list): a Reynolds number above 100 or
     above the laminar limit, an entrance length over 10 % of the channel or longer than it,
     a fluid temperature outside 15-40 degC.
     """
-    if (depth is None) == (diameter is None):
-        raise SpecError("give --depth for a rectangular channel, or --diameter for a tube")
     round_tube = diameter is not None
     if round_tube:
+        if width is not None or depth is not None:
+            raise SpecError("a tube is given by --diameter alone: leave out --width and --depth")
         width = depth = diameter
+    elif width is None or depth is None:
+        raise SpecError(
+            "give --width and --depth for a rectangular channel, or --diameter for a tube"
+        )
     values = channel_report(
         width,
         depth,

@@ -2,7 +2,8 @@
 
 The command dispatches on the top-level keys of the design file: explicit networks
 (``[[channels]]`` / ``[[tubes]]``) are handled by :func:`check_network`; tree designs
-(``[tree]``) are sized and tabled by :func:`chipflow.design.table.tree_check`.
+(``[tree]``) are sized, drawn in memory and tabled by :func:`chipflow.design.table.tree_check`;
+both run the checks of a build, so ``check`` and ``build`` agree.
 """
 
 from __future__ import annotations
@@ -16,10 +17,13 @@ from chipflow.checks.conditions import network_warnings
 from chipflow.cli.common import echo_table
 from chipflow.design.table import tree_check
 from chipflow.errors import SpecError
-from chipflow.network import Solution, generation_rows, solve
+from chipflow.network import Solution, generation_rows
+from chipflow.network.summary import channel_rows
+from chipflow.report.console import channel_table
+from chipflow.spec.bundled import resolve_design
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
 from chipflow.spec.reader import Table, read_design_file
-from chipflow.units import units_of
+from chipflow.units import lab_number, tidy, units_of
 
 __all__ = ["command", "check_network", "network_report", "SI_UNITS"]
 
@@ -29,6 +33,7 @@ SI_UNITS = units_of(
     "flow",
     "pressure_drop",
     "mean_velocity",
+    "wall_shear_floor",
     "wall_shear_mean",
     "wall_shear_max",
     "reynolds",
@@ -42,8 +47,9 @@ _UL_MIN = 6e10  # m^3/s -> uL/min
 
 
 def _finite(value: float) -> float | None:
-    """JSON has no infinity: a channel without flow has no residence time (null)."""
-    return float(value) if math.isfinite(value) else None
+    """JSON has no infinity: a channel without flow has no residence time (null); floats are
+    rounded to 12 significant digits."""
+    return tidy(float(value))
 
 
 def network_report(design: NetworkDesign, solution: Solution) -> dict:
@@ -58,6 +64,7 @@ def network_report(design: NetworkDesign, solution: Solution) -> dict:
         "flow",
         "pressure_drop",
         "mean_velocity",
+        "wall_shear_floor",
         "wall_shear_mean",
         "wall_shear_max",
         "reynolds",
@@ -103,7 +110,7 @@ def network_report(design: NetworkDesign, solution: Solution) -> dict:
 
 
 def _g(value: float, scale: float = 1.0) -> str:
-    return f"{value * scale:.4g}" if math.isfinite(value) else "-"
+    return lab_number(value * scale) if math.isfinite(value) else "-"
 
 
 def _echo_text(design: NetworkDesign, solution: Solution) -> None:
@@ -138,48 +145,8 @@ def _echo_text(design: NetworkDesign, solution: Solution) -> None:
         ("node", "pressure [Pa]"),
     )
     click.echo("")
-    click.echo("channels")
-    cols = [
-        net.width * 1e6,
-        net.depth * 1e6,
-        net.length * 1e3,
-        solution.flow * _UL_MIN,
-        solution.pressure_drop,
-        solution.mean_velocity * 1e3,
-        solution.wall_shear_floor,
-        solution.wall_shear_max,
-        solution.reynolds,
-        solution.residence_time,
-    ]
-    values = [c.tolist() for c in cols]
-    names = net.channel_names()
-    rows = [
-        (
-            names[i],
-            net.node_names[a],
-            net.node_names[b],
-            *(_g(col[i]) for col in values),
-        )
-        for i, (a, b) in enumerate(zip(net.node_a.tolist(), net.node_b.tolist(), strict=True))
-    ]
-    echo_table(
-        rows,
-        (
-            "channel",
-            "from",
-            "to",
-            "width [um]",
-            "depth [um]",
-            "length [mm]",
-            "flow [uL/min]",
-            "dp [Pa]",
-            "velocity [mm/s]",
-            "shear floor [Pa]",
-            "shear peak [Pa]",
-            "Re",
-            "residence [s]",
-        ),
-    )
+    click.echo("channels (flow is negative against from -> to)")
+    click.echo(channel_table(channel_rows(solution)))
     generations = generation_rows(solution)
     if generations:
         click.echo("")
@@ -215,18 +182,32 @@ def _echo_text(design: NetworkDesign, solution: Solution) -> None:
     click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
 
 
-def check_network(top: Table, as_json: bool) -> None:
-    """Solve an explicit-network design and print the tables (or the JSON structure)."""
+def check_network(top: Table, as_json: bool) -> bool:
+    """Solve and check an explicit-network design; print the tables (or the JSON structure).
+
+    The checks are the build's (:func:`chipflow.build.build_design`), so ``check`` and
+    ``build`` give the same verdict. Returns False when a check fails.
+    """
+    from chipflow.build import DesignSource, build_design
+    from chipflow.report.console import totals_and_checks
+
     design = load_network_design(top)
-    solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    build = build_design(DesignSource(top.source, top, ""))
+    solution = build.solution
     warnings = network_warnings(solution)
     if as_json:
-        report = {**network_report(design, solution), "warnings": warnings}
+        report = network_report(design, solution)
+        report["checks"] = build.results["checks"]
+        report["status"] = build.status
+        report["warnings"] = warnings
         click.echo(json.dumps(report, indent=2))
     else:
         _echo_text(design, solution)
+        click.echo("")
+        click.echo(totals_and_checks(build.results))
         for line in warnings:
             click.echo(f"warning: {line}")
+    return build.status != "fail"
 
 
 def check_tree(top: Table, as_json: bool) -> bool:
@@ -247,17 +228,21 @@ def command(design: str, as_json: bool) -> None:
 
     \b
     Example:
-      chipflow check designs/bench_loop_network.toml
+      chipflow check bench_loop_network
 
-    Exit status: 0 when every checked level is inside its shear window, 1 when a level of a
-    tree design misses it, 2 for bad input.
+    DESIGN is a design file, or the name of a bundled design (`chipflow designs`).
+
+    A tree design is drawn in memory (nothing is written), so the numbers and the verdict are
+    those of `chipflow build`. Exit status: 0 when every check passes (warnings allowed), 1
+    when a check fails, 2 for bad input.
     """
-    top = read_design_file(design)
+    top = read_design_file(resolve_design(design))
     if "tree" in top:
         if not check_tree(top, as_json):
             click.get_current_context().exit(1)
     elif is_network_design(top):
-        check_network(top, as_json)
+        if not check_network(top, as_json):
+            click.get_current_context().exit(1)
     else:
         raise SpecError(
             f"{top.source}: nothing to check: expected a [tree] table or an explicit network "

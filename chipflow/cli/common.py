@@ -40,9 +40,11 @@ class QUANTITY(click.ParamType):
         return si
 
 
-def echo_table(rows: Sequence[Sequence[str]], header: Sequence[str] | None = None) -> None:
+def echo_table(
+    rows: Sequence[Sequence[str]], header: Sequence[str] | None = None, align: str | None = None
+) -> None:
     """Print :func:`format_table` to stdout."""
-    click.echo(format_table(rows, header))
+    click.echo(format_table(rows, header, align))
 
 
 def fluid_options(command: Callable) -> Callable:

@@ -27,6 +27,10 @@ drawable width is a *compromise* when its shear still lies inside the target win
 Choice rule for the depths (documented in the report): among all subsets of the allowed depths
 that give every generation an exact or compromise width,
 
+0. when the bed can be graded against the culture and transport checks (``bed_grade``: the
+   oxygen diffusion time across its depth against its residence time, the oxygen its cells
+   use against the oxygen the flow brings), the fewest of those checks that fail, then that
+   warn;
 1. the fewest generations with a compromise,
 2. then the fewest distinct depths (each depth is one more mask and SU-8 layer),
 3. then, per generation (trunk first), the shallowest depth of the subset that reaches the best
@@ -43,6 +47,7 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -359,24 +364,75 @@ def spec_target(spec: TreeSpec, g: int) -> float:
     return spec.targets.target(g)
 
 
-def _choose(table: list[list[Candidate]]) -> list[Candidate]:
-    """Apply the choice rule to ``table[g][d]`` (see the module docstring)."""
+#: Grades a bed candidate against the culture and transport checks: ``(depth, width) ->
+#: (fails, warnings, reason)`` (see :func:`size_tree`).
+BedGrade = Callable[[float, float], tuple[int, int, str]]
+
+
+def _choose(
+    table: list[list[Candidate]], bed_grade: BedGrade | None = None
+) -> list[Candidate] | None:
+    """Apply the choice rule to ``table[g][d]`` (see the module docstring); with
+    ``bed_grade``, the bed's (last row's) failed and warned checks come first."""
     n_depths = len(table[0])
+    bed = len(table) - 1
+
+    def grade(g: int, c: Candidate) -> tuple[int, int]:
+        if bed_grade is None or g != bed or c.status == _INFEASIBLE:
+            return (0, 0)
+        fails, warns, _ = bed_grade(c.depth, c.width)
+        return (fails, warns)
+
     best_score, best = None, None
     for k in range(1, n_depths + 1):
         for subset in itertools.combinations(range(n_depths), k):
             picks = []
-            for row in table:
-                status = min(row[d].status for d in subset)
-                if status == _INFEASIBLE:
+            for g, row in enumerate(table):
+                usable = [row[d] for d in subset if row[d].status != _INFEASIBLE]
+                if not usable:
                     break
-                picks.append(next(row[d] for d in subset if row[d].status == status))
+                # best grade, then best status, then the shallowest depth of the subset
+                picks.append(min(usable, key=lambda c, g=g: (grade(g, c), c.status, c.depth)))
             else:
+                graded = [grade(g, c) for g, c in enumerate(picks)]
+                fails, warns = sum(f for f, _ in graded), sum(w for _, w in graded)
                 compromises = sum(c.status == _COMPROMISE for c in picks)
-                score = (compromises, k, tuple(c.depth for c in picks))
+                score = (fails, warns, compromises, k, tuple(c.depth for c in picks))
                 if best_score is None or score < best_score:
                     best_score, best = score, picks
     return best
+
+
+def _depth_note(picks: list[Candidate], plain: list[Candidate], bed_grade: BedGrade | None) -> str:
+    """Why the depths are what they are (for the sizing notes)."""
+    um = [round(c.depth * 1e6, 6) for c in picks]
+    groups: dict[float, list[int]] = {}
+    for g, d in enumerate(um):
+        groups.setdefault(d, []).append(g)
+    bed = len(picks) - 1
+    parts = []
+    for d, gens in groups.items():
+        names = ["bed" if g == bed else str(g) for g in gens]
+        parts.append(f"{d:g} um for generation{'s' if len(gens) > 1 else ''} {', '.join(names)}")
+    note = "depth choice: " + "; ".join(parts)
+    if bed_grade is not None and plain is not None and plain[bed].depth != picks[bed].depth:
+        _, _, reason = bed_grade(plain[bed].depth, plain[bed].width)
+        note += (
+            f". The bed is {picks[bed].depth * 1e6:g} um rather than "
+            f"{plain[bed].depth * 1e6:g} um deep, as the fabrication-only rule would choose, "
+            f"because at {plain[bed].depth * 1e6:g} um {reason}"
+        )
+    else:
+        note += (
+            ": after the fabrication limits, the fewest checks of the bed that fail or warn, "
+            "then the fewest compromises, then the fewest depths (each is one more mask), "
+            "then the shallowest"
+        )
+        if bed_grade is not None:
+            fails, warns, reason = bed_grade(picks[bed].depth, picks[bed].width)
+            if fails or warns:
+                note += f"; even so, at {picks[bed].depth * 1e6:g} um {reason}"
+    return note
 
 
 def _snap(width: float, depth: float, fab: Fabrication) -> float:
@@ -407,7 +463,9 @@ def _size_round(spec: TreeSpec, flows: np.ndarray) -> list[tuple[float, float, f
     return out
 
 
-def size_tree(spec: TreeSpec, *, snap: bool = True) -> TreeDesign:
+def size_tree(
+    spec: TreeSpec, *, snap: bool = True, bed_grade: BedGrade | None = None
+) -> TreeDesign:
     """Size every generation of a tree design.
 
     Parameters
@@ -417,6 +475,12 @@ def size_tree(spec: TreeSpec, *, snap: bool = True) -> TreeDesign:
     snap : bool
         Snap widths to the mask grid (default). ``False`` keeps the exact widths (for
         verification).
+    bed_grade : callable, optional
+        ``bed_grade(depth, width) -> (fails, warnings, reason)``: how many culture and
+        transport checks the bed fails and warns at that depth and width [m], and why in one
+        phrase. When given and several depths are allowed, the depth choice first minimises
+        those (see the module docstring), and the sizing notes say why the depths were
+        chosen. :func:`chipflow.checks.suite.bed_grader` makes one from the design's culture.
 
     Returns
     -------
@@ -461,7 +525,7 @@ def size_tree(spec: TreeSpec, *, snap: bool = True) -> TreeDesign:
             geometry.append((w, h, targets.target(g), False))
         sized_targets = [t for _, _, t, _ in geometry]
     else:
-        geometry = _size_rectangular(spec, flows, windows, warnings)
+        geometry = _size_rectangular(spec, flows, windows, warnings, bed_grade)
         sized_targets = [t for _, _, t, _ in geometry]
 
     widths, depths = [], []
@@ -538,7 +602,7 @@ def size_tree(spec: TreeSpec, *, snap: bool = True) -> TreeDesign:
     )
 
 
-def _size_rectangular(spec, flows, windows, warnings) -> list[tuple]:
+def _size_rectangular(spec, flows, windows, warnings, bed_grade=None) -> list[tuple]:
     """Shear or area rules for rectangular channels: candidates, choice, compromises."""
     n, fab, mu, kind = spec.generations, spec.fabrication, spec.fluid.viscosity, spec.targets.kind
     depths = list(fab.depths)
@@ -593,7 +657,9 @@ def _size_rectangular(spec, flows, windows, warnings) -> list[tuple]:
             )
         table.append(row)
         needs.append(need)
-    picks = _choose(table)
+    picks = _choose(table, bed_grade if area0 is None else None)
+    if len(depths) > 1 and area0 is None:
+        warnings.append(_depth_note(picks, _choose(table), bed_grade))
     out = []
     for g, c in enumerate(picks):
         target = None if area0 is not None else spec_target(spec, g)

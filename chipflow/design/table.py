@@ -17,7 +17,7 @@ from chipflow.network import Solution
 from chipflow.network.summary import level_rows
 from chipflow.report.console import format_table
 from chipflow.spec.reader import Table
-from chipflow.units import units_of
+from chipflow.units import lab_number, units_of
 
 __all__ = [
     "generation_table",
@@ -157,7 +157,7 @@ def generation_table_text(design: TreeDesign, solution: Solution | None = None) 
         cells = []
         for _, key, _, scale in _COLUMNS:
             value = r[key]
-            cells.append(str(value) if scale is None else f"{value * scale:.4g}")
+            cells.append(str(value) if scale is None else lab_number(value * scale))
         low, high = r["shear_min"], r["shear_max"]
         if low is None and high is None:
             window = ""
@@ -178,6 +178,12 @@ def generation_table_text(design: TreeDesign, solution: Solution | None = None) 
 def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
     """What ``chipflow check`` prints for a tree design file (a file with ``[tree]``).
 
+    The design is sized, drawn on the chip (in memory: nothing is written), extracted, fed
+    through its supply and tubing, solved and checked exactly as ``chipflow build`` does, so
+    the numbers and the verdict are the build's: lengths as drawn, not nominal. A round-tube
+    tree (a comparison with Murray's law) cannot be drawn: its table is solved with the
+    nominal lengths and says so.
+
     Parameters
     ----------
     top : Table
@@ -188,25 +194,49 @@ def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
     Returns
     -------
     text : str
-        The table (with sizing warnings) or JSON.
+        The per-level table with its shear windows, then the supply pressure, the sizing and
+        drawing notes and the checks (or the JSON: the table's ``levels``, ``checks`` and
+        the build's ``status``).
     ok : bool
-        True when every level with a shear window passes.
+        False when a check fails (as ``chipflow build`` would exit 1).
 
     Raises
     ------
-    SpecError, DesignError
-        Bad file, or targets that the fabrication limits cannot meet.
+    SpecError, DesignError, LayoutError
+        Bad file, targets that the fabrication limits cannot meet, a tree that does not fit.
     """
     import json
 
+    from chipflow.build import DesignSource, build_design
     from chipflow.design.sizing import size_tree
     from chipflow.design.tree_network import solve_tree
+    from chipflow.report.console import totals_and_checks
     from chipflow.spec.tree import load_tree_spec
 
-    design = size_tree(load_tree_spec(top))
-    solution = solve_tree(design)
-    table = generation_table_dict(design, solution)
-    ok = table["status"] == "pass"
+    spec = load_tree_spec(top)
+    if spec.shape == "round":
+        # a round-tube tree is a comparison with Murray's law and cannot be drawn
+        design = size_tree(spec)
+        solution = solve_tree(design)
+        table = generation_table_dict(design, solution)
+        table["lengths"] = "nominal"
+        ok = table["status"] == "pass"
+        if as_json:
+            return json.dumps(table, indent=2), ok
+        note = (
+            "lengths are nominal: a round-tube tree is not drawn (no supply or tubing either), "
+            "so these numbers are the tree's alone"
+        )
+        return f"{generation_table_text(design, solution)}\n{note}", ok
+    build = build_design(DesignSource(top.source, top, ""))
+    ok = build.status != "fail"
+    table = generation_table_dict(build.design, build.solution)
     if as_json:
+        table["warnings"] = list(build.results["warnings"])
+        table["checks"] = build.results["checks"]
+        table["totals"] = build.results["totals"]
+        table["status"] = build.status
         return json.dumps(table, indent=2), ok
-    return generation_table_text(design, solution), ok
+    text = generation_table_text(build.design, build.solution).split("\nwarning: ")[0]
+    note = "lengths as drawn on the chip, with the supply and tubing (as `chipflow build`)"
+    return f"{text}\n{note}\n\n{totals_and_checks(build.results)}", ok

@@ -10,6 +10,7 @@ when everything succeeded (see :mod:`chipflow.export.outdir`):
 ``shear.svg``/``.png``      the chip coloured by floor wall shear [Pa] (tree designs)
 ``profile.svg``             pressure, flow, cross-section, velocity, shear and residence time
                             along the path from inlet to outlet
+``network.svg``             the graph of an explicit network with flows and floor shear
 ``report.html``             one self-contained report: tables, checks, figures, cautions
 ``results.json``            the results in SI units with a "units" map
 ``channels.csv``            one row per channel, SI units named in the header
@@ -37,32 +38,14 @@ from chipflow.build import Build
 from chipflow.errors import ArgumentError
 from chipflow.export._files import atomic_write
 from chipflow.export.outdir import staged_folder
-from chipflow.units import RESULT_UNITS
+from chipflow.network.summary import CHANNEL_KEYS, channel_columns
+from chipflow.units import RESULT_UNITS, tidy
 
 __all__ = ["write_build", "output_names", "CSV_COLUMNS"]
 
 #: Columns of channels.csv; numeric ones carry their SI unit in the header.
-CSV_COLUMNS = (
-    "channel",
-    "role",
-    "generation",
-    "from",
-    "to",
-    "width",
-    "mask_width",
-    "depth",
-    "length",
-    "round",
-    "flow",
-    "pressure_in",
-    "pressure_out",
-    "mean_velocity",
-    "wall_shear_floor",
-    "wall_shear_mean",
-    "wall_shear_max",
-    "reynolds",
-    "residence_time",
-)
+#: channels.csv columns: every channel key, with the width measured on the mask after the width
+CSV_COLUMNS = (*CHANNEL_KEYS[:6], "mask_width", *CHANNEL_KEYS[6:])
 
 
 def _slug(name: str) -> str:
@@ -92,14 +75,16 @@ def output_names(build: Build) -> list[str]:
         names.append("field.svg")
     if build.results["generations"]:
         names.append("profile.svg")
+    if build.results.get("channels"):
+        names.append("network.svg")
     return names + ["report.html", "results.json", "channels.csv"]
 
 
 def _finite(value: Any) -> Any:
     """JSON has no infinity or NaN: they become null (e.g. the residence time of a still
-    channel)."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
+    channel); floats are rounded to 12 significant digits (:func:`chipflow.units.tidy`)."""
+    if isinstance(value, float):
+        return tidy(value)
     if isinstance(value, dict):
         return {k: _finite(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
@@ -114,48 +99,25 @@ def results_json(build: Build) -> str:
 
 def channels_csv(build: Build) -> str:
     """One row per channel of the solved network (tubing included), SI units in the header."""
-    sol = build.solution
-    net = sol.network
-    nodes = np.asarray(net.node_names, dtype=object)
-    forward = sol.flow >= 0
-    p_a, p_b = sol.pressure[net.node_a], sol.pressure[net.node_b]
+    columns = channel_columns(build.solution)
+    columns["round"] = np.where(columns["round"], "yes", "no")
     # the width on the written mask polygons, measured after drawing (empty for tubing)
-    mask = np.full(net.n_channels, np.nan)
+    mask = np.full(columns["width"].size, np.nan)
     drawn = None if build.layout is None else build.layout.channels.mask_width
     if drawn is not None:
         mask[: drawn.size] = drawn
-    columns = {
-        "channel": np.asarray(net.channel_names(), dtype=object),
-        "role": net.role,
-        "generation": net.generation,
-        "from": nodes[net.node_a],
-        "to": nodes[net.node_b],
-        "width": net.width,
-        "mask_width": mask,
-        "depth": net.depth,
-        "length": net.length,
-        "round": np.where(net.round, "yes", "no"),
-        "flow": sol.flow,
-        "pressure_in": np.where(forward, p_a, p_b),
-        "pressure_out": np.where(forward, p_b, p_a),
-        "mean_velocity": sol.mean_velocity,
-        "wall_shear_floor": sol.wall_shear_floor,
-        "wall_shear_mean": sol.wall_shear_mean,
-        "wall_shear_max": sol.wall_shear_max,
-        "reynolds": sol.reynolds,
-        "residence_time": sol.residence_time,
-    }
+    columns["mask_width"] = mask
     text = io.StringIO()
     writer = csv.writer(text, lineterminator="\n")
     writer.writerow(f"{k} [{RESULT_UNITS[k]}]" if k in RESULT_UNITS else k for k in CSV_COLUMNS)
-    writer.writerows(zip(*(_csv_column(v) for v in columns.values()), strict=True))
+    writer.writerows(zip(*(_csv_column(columns[k]) for k in CSV_COLUMNS), strict=True))
     return text.getvalue()
 
 
 def _csv_column(values: np.ndarray) -> list[str]:
     values = np.asarray(values)
     if values.dtype.kind == "f":
-        return [repr(float(v)) if math.isfinite(v) else "" for v in values.tolist()]
+        return [repr(tidy(v)) if math.isfinite(v) else "" for v in values.tolist()]
     return [str(v) for v in values.tolist()]
 
 
@@ -204,9 +166,19 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             progress("gds")
             write_gds(layout, stage / f"{slug}.gds", build.export.gds)
             progress("previews")
+            from chipflow.report.schematic import shear_scale
+
             shear = build.solution.wall_shear_floor[: layout.channels.length.size]
-            for stem, values in (("layout", None), ("shear", shear)):
-                write_previews(layout, [stage / f"{stem}.svg", stage / f"{stem}.png"], values)
+            window = build.results.get("shear_window") or {}
+            marks = [window[k] for k in ("min", "max") if window.get(k) is not None]
+            write_previews(layout, [stage / "layout.svg", stage / "layout.png"])
+            write_previews(
+                layout,
+                [stage / "shear.svg", stage / "shear.png"],
+                shear,
+                value_range=shear_scale(window, shear),
+                value_marks=marks,
+            )
             figures["The chip as drawn"] = (stage / "layout.svg").read_text(encoding="utf-8")
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
                 encoding="utf-8"
@@ -224,6 +196,12 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
         if profile is not None:
             figures = {"Profile from inlet to outlet": profile, **figures}
             _write_text(stage / "profile.svg", profile, "profile figure")
+        if build.results.get("channels"):
+            from chipflow.report.schematic import network_schematic
+
+            schematic = svg_text(network_schematic(build.results))
+            figures["The network: flows and floor wall shear"] = schematic
+            _write_text(stage / "network.svg", schematic, "network schematic")
         write_report(build.results, stage / "report.html", figures)
         _write_text(stage / "results.json", results_json(build), "results")
         _write_text(stage / "channels.csv", channels_csv(build), "channel table")

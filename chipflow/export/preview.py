@@ -151,6 +151,8 @@ def plot_layout(
     values: np.ndarray | None = None,
     value_label: str = "floor wall shear [Pa]",
     raster_above: int | None = None,
+    value_range: tuple[float, float] | None = None,
+    value_marks: Sequence[float] = (),
 ) -> LayoutPlot:
     """Draw the chip: mask levels, outline, ports with names, a scale bar.
 
@@ -173,6 +175,11 @@ def plot_layout(
         When the mask shapes and channel fills have more vertices than this (default
         :data:`RASTER_VERTICES`), they are marked for rasterising: vector files then embed
         them as an image at the preview resolution.
+    value_range : tuple of float, optional
+        Fixed colour range (e.g. tied to the cells' shear window, so that a few percent of
+        difference shows as a few percent of colour); by default the values' own range.
+    value_marks : sequence of float
+        Values marked by a line on the colour bar (e.g. the window's ends).
 
     Returns
     -------
@@ -228,12 +235,22 @@ def plot_layout(
         rings = shapely.get_exterior_ring(parts)
         xy, idx = shapely.get_coordinates(rings, return_index=True)
         cuts = np.flatnonzero(np.diff(idx)) + 1
-        collection = PolyCollection(np.split(xy * mm, cuts), cmap="viridis", edgecolors="none")
+        # an outline in the fill colour keeps channels narrower than a pixel visible
+        collection = PolyCollection(
+            np.split(xy * mm, cuts), cmap="viridis", edgecolors="face", linewidths=0.6
+        )
         collection.set_array(vals[owner])
+        if value_range is not None:
+            collection.set_clim(*value_range)
         ax.add_collection(collection, autolim=False)
         drawn.append(len(xy))
-        colorbar = ax.figure.colorbar(collection, ax=ax, shrink=0.8)
+        above = value_range is not None and bool(np.nanmax(vals) > value_range[1])
+        colorbar = ax.figure.colorbar(
+            collection, ax=ax, shrink=0.8, extend="max" if above else "neither"
+        )
         colorbar.set_label(value_label)
+        for mark in value_marks:
+            colorbar.ax.axhline(mark, color="white", lw=1.2)
 
     if sum(drawn) > (RASTER_VERTICES if raster_above is None else raster_above):
         for artist in (*patches, collection):
@@ -284,6 +301,8 @@ def write_preview(
     path: str | os.PathLike,
     values: np.ndarray | None = None,
     value_label: str = "floor wall shear [Pa]",
+    value_range: tuple[float, float] | None = None,
+    value_marks: Sequence[float] = (),
 ) -> Path:
     """Write an SVG or PNG preview of the chip (chosen by the file suffix).
 
@@ -300,7 +319,14 @@ def write_preview(
     value_label : str
         Colour-bar label, with its unit.
     """
-    (written,) = write_previews(layout, [path], values=values, value_label=value_label)
+    (written,) = write_previews(
+        layout,
+        [path],
+        values=values,
+        value_label=value_label,
+        value_range=value_range,
+        value_marks=value_marks,
+    )
     return written
 
 
@@ -310,6 +336,8 @@ def write_previews(
     values: np.ndarray | None = None,
     value_label: str = "floor wall shear [Pa]",
     raster_above: int | None = None,
+    value_range: tuple[float, float] | None = None,
+    value_marks: Sequence[float] = (),
 ) -> list[Path]:
     """Draw the chip once and write it to several files, e.g. ``shear.svg`` and ``shear.png``.
 
@@ -325,7 +353,7 @@ def write_previews(
         One value per channel for colouring (see :func:`plot_layout`).
     value_label : str
         Colour-bar label, with its unit.
-    raster_above : int, optional
+    raster_above, value_range, value_marks : optional
         As :func:`plot_layout`.
 
     Returns
@@ -342,7 +370,12 @@ def write_previews(
     written = []
     with matplotlib.rc_context({"svg.hashsalt": "chipflow", "svg.fonttype": "path"}):
         plot = plot_layout(
-            layout, values=values, value_label=value_label, raster_above=raster_above
+            layout,
+            values=values,
+            value_label=value_label,
+            raster_above=raster_above,
+            value_range=value_range,
+            value_marks=value_marks,
         )
         fig = plot.ax.figure
         for path in paths:

@@ -39,6 +39,9 @@ __all__ = [
     "generation_rows",
     "level_groups",
     "level_rows",
+    "channel_rows",
+    "channel_columns",
+    "CHANNEL_KEYS",
     "port_pressure_range",
     "ROLE_ORDER",
 ]
@@ -186,9 +189,89 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
                 "pressure_drop": float(np.abs(solution.pressure_drop[members]).mean()),
                 "pressure_in": float(p_in.mean()),
                 "pressure_out": float(p_out.mean()),
+                # per-channel extremes of the level (equal to the mean in an even tree)
+                "flow_min": float(q.min()),
+                "flow_max": float(q.max()),
+                "wall_shear_floor_min": float(solution.wall_shear_floor[members].min()),
+                "wall_shear_floor_max": float(solution.wall_shear_floor[members].max()),
+                "residence_time_min": float(solution.residence_time[members].min()),
+                "residence_time_max": float(solution.residence_time[members].max()),
             }
         )
     return rows
+
+
+#: Keys of :func:`channel_rows`, in order.
+CHANNEL_KEYS = (
+    "channel",
+    "role",
+    "generation",
+    "from",
+    "to",
+    "width",
+    "depth",
+    "length",
+    "round",
+    "flow",
+    "pressure_in",
+    "pressure_out",
+    "mean_velocity",
+    "wall_shear_floor",
+    "wall_shear_mean",
+    "wall_shear_max",
+    "reynolds",
+    "residence_time",
+)
+
+
+def channel_columns(solution: Solution) -> dict[str, np.ndarray]:
+    """Every channel of the solved network as columns keyed by :data:`CHANNEL_KEYS` (SI).
+
+    ``from``/``to`` are the end nodes as given; ``flow`` is signed (positive from ``from`` to
+    ``to``); ``pressure_in``/``pressure_out`` are the upstream and downstream end pressures.
+    """
+    net = solution.network
+    nodes = np.asarray(net.node_names, dtype=object)
+    forward = solution.flow >= 0
+    p_a, p_b = solution.pressure[net.node_a], solution.pressure[net.node_b]
+    return {
+        "channel": np.asarray(net.channel_names(), dtype=object),
+        "role": net.role,
+        "generation": net.generation,
+        "from": nodes[net.node_a],
+        "to": nodes[net.node_b],
+        "width": net.width,
+        "depth": net.depth,
+        "length": net.length,
+        "round": net.round,
+        "flow": solution.flow,
+        "pressure_in": np.where(forward, p_a, p_b),
+        "pressure_out": np.where(forward, p_b, p_a),
+        "mean_velocity": solution.mean_velocity,
+        "wall_shear_floor": solution.wall_shear_floor,
+        "wall_shear_mean": solution.wall_shear_mean,
+        "wall_shear_max": solution.wall_shear_max,
+        "reynolds": solution.reynolds,
+        "residence_time": solution.residence_time,
+    }
+
+
+def channel_rows(solution: Solution) -> list[dict[str, Any]]:
+    """One JSON-able dict per channel (SI floats), in the network's channel order.
+
+    >>> from chipflow.network import NetworkBuilder, solve
+    >>> from chipflow.physics.fluid import water
+    >>> b = NetworkBuilder()
+    >>> b.channel("a", "in", "out", width=200e-6, depth=50e-6, length=5e-3)
+    >>> row = channel_rows(solve(b.build(), water(), pressures={"in": 100.0, "out": 0.0}))[0]
+    >>> row["channel"], row["from"], row["to"], row["pressure_in"], row["round"]
+    ('a', 'in', 'out', 100.0, False)
+    """
+    columns = {k: v.tolist() for k, v in channel_columns(solution).items()}
+    return [
+        dict(zip(CHANNEL_KEYS, values, strict=True))
+        for values in zip(*columns.values(), strict=True)
+    ]
 
 
 def port_pressure_range(solution: Solution) -> tuple[float, float]:

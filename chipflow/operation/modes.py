@@ -96,7 +96,7 @@ def pulsatile_mode(
     forward = flow_t * sign[:, None]
     per["flow_mean"] = q_mean
     per["flow_amplitude"] = first
-    per["flow_min"], per["flow_max"] = forward.min(axis=1), forward.max(axis=1)
+    per["flow_min_over_time"], per["flow_max_over_time"] = forward.min(axis=1), forward.max(axis=1)
     per["wall_shear_floor_amplitude"] = first * shear_per_flow
     per["womersley"] = np.asarray(
         womersley_number(net.width, net.depth, omega, fluid.density, fluid.viscosity, net.round)

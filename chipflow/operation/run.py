@@ -262,8 +262,10 @@ def operate(
 
 
 #: How per-channel statistics combine into a level's (default: the mean over its channels).
-_AGGREGATE = {"min": np.min, "max": np.max, "flow_min": np.min, "flow_max": np.max,
-              "womersley": np.max}  # fmt: skip
+_AGGREGATE = {
+    "min": np.min, "max": np.max, "flow_min_over_time": np.min, "flow_max_over_time": np.max,
+    "womersley": np.max,
+}  # fmt: skip
 
 
 def _json(value) -> float | None:
@@ -280,7 +282,7 @@ def _checks(spec, mode, labels, stats, chosen, window) -> list[CheckResult]:
         checks.append(check_deformation(labels, stats["resistance_change"]))
     if mode == "pulsatile":
         checks.append(check_inertia(labels, stats["womersley"]))
-        checks.append(check_flow_reversal(names, stats["flow_min"][chosen]))
+        checks.append(check_flow_reversal(names, stats["flow_min_over_time"][chosen]))
     if window is not None and "time_in_window" in stats:
         fraction = stats["time_in_window"][chosen]
         if mode == "rocker":

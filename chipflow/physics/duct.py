@@ -9,7 +9,8 @@ is split into a closed-form part (odd zeta values, Catalan's constant) plus a re
 terms fall like ``exp(-n pi w / h)``; the remainder is summed term by term until the last term
 is below 1e-16 of the result, which converges to better than 1e-12 relative for every aspect
 ratio. Channels share few distinct aspect ratios, so the series are evaluated once per distinct
-ratio.
+ratio. The tests check the series against the friction factors tabulated by Shah and London
+[2]_.
 
 Notation: ``a = max(w, h)`` is the long side, ``b = min(w, h)`` the short side and
 ``alpha = b / a <= 1``. The *floor* is the wall of width ``w`` (cells grow on it); for

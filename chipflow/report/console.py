@@ -6,8 +6,15 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 from chipflow.report.figures import generation_labels
+from chipflow.units import lab_number
 
-__all__ = ["console_summary", "format_table"]
+__all__ = [
+    "console_summary",
+    "totals_and_checks",
+    "format_table",
+    "channel_table",
+    "CHANNEL_COLUMNS",
+]
 
 _COLUMNS = (
     # header, unit, key, scale
@@ -24,6 +31,25 @@ _COLUMNS = (
     ("p_in", "Pa", "pressure_in", 1.0),
 )
 _MARK = {"pass": "ok  ", "warn": "WARN", "fail": "FAIL"}
+
+#: Columns of the per-channel table of an explicit network: header, unit, key, scale.
+#: Flows are magnitudes along the direction ``from -> to`` of the "flow" column's sign.
+CHANNEL_COLUMNS = (
+    ("channel", "", "channel", None),
+    ("from", "", "from", None),
+    ("to", "", "to", None),
+    ("width", "um", "width", 1e6),
+    ("depth", "um", "depth", 1e6),
+    ("length", "mm", "length", 1e3),
+    ("flow", "uL/min", "flow", 6e10),
+    ("u_mean", "mm/s", "mean_velocity", 1e3),
+    ("floor shear", "Pa", "wall_shear_floor", 1.0),
+    ("peak shear", "Pa", "wall_shear_max", 1.0),
+    ("Re", "", "reynolds", 1.0),
+    ("t_res", "s", "residence_time", 1.0),
+    ("p_in", "Pa", "pressure_in", 1.0),
+    ("p_out", "Pa", "pressure_out", 1.0),
+)
 
 
 def format_table(
@@ -59,11 +85,32 @@ def _cell(value: Any, scale: float | None) -> str:
         return "-"
     if scale is None:
         return str(value)
-    return f"{value * scale:.4g}"
+    return lab_number(value * scale)
+
+
+def channel_table(channels: Sequence[Mapping[str, Any]]) -> str:
+    """The per-channel table of an explicit network in lab units (one row per channel).
+
+    A round tube shows its inner diameter as width and depth; a flow against the ``from ->
+    to`` direction is negative.
+
+    >>> text = channel_table([{"channel": "a", "from": "in", "to": "out", "width": 2e-4,
+    ...     "depth": 5e-5, "length": 0.004, "flow": 8.333e-11, "mean_velocity": 0.008333,
+    ...     "wall_shear_floor": 1.1, "wall_shear_max": 1.1, "reynolds": 0.6,
+    ...     "residence_time": 0.48, "pressure_in": 500.0, "pressure_out": 250.0}])
+    >>> text.splitlines()[2].split()
+    ['a', 'in', 'out', '200', '50', '4', '5', '8.333', '1.1', '1.1', '0.6', '0.48', '500', '250']
+    """
+    header = [h for h, *_ in CHANNEL_COLUMNS]
+    table = [[f"[{u}]" if u else "" for _, u, *_ in CHANNEL_COLUMNS]]
+    for row in channels:  # the rows are already formed; this only lays them out
+        table.append([_cell(row.get(k), s) for _, _, k, s in CHANNEL_COLUMNS])
+    return format_table(table, header, "lll" + "r" * (len(CHANNEL_COLUMNS) - 3))
 
 
 def console_summary(results: Mapping[str, Any]) -> str:
-    """Plain-text summary in lab units: the generation table, totals and every check.
+    """Plain-text summary in lab units: the generation table, the per-channel table of an
+    explicit network, totals and every check.
 
     Checks that pass are listed in one line each; warnings and failures carry their message.
     """
@@ -76,6 +123,16 @@ def console_summary(results: Mapping[str, Any]) -> str:
             table.append([label] + [_cell(row.get(k), s) for _, _, k, s in _COLUMNS[1:]])
         header = [h for h, *_ in _COLUMNS]
         lines += [format_table(table, header, "l" + "r" * (len(_COLUMNS) - 1)), ""]
+    channels = list(results.get("channels") or [])
+    if channels:
+        lines += ["channels (flow is negative against from -> to)", channel_table(channels), ""]
+    lines += totals_and_checks(results).splitlines()
+    return "\n".join(lines)
+
+
+def totals_and_checks(results: Mapping[str, Any]) -> str:
+    """The lines under the tables: supply pressure and flow, sizing notes and the checks."""
+    lines: list[str] = []
     totals = results.get("totals", {})
     if totals.get("total_flow"):
         line = (

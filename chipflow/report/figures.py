@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["profile_figure", "svg_text", "generation_labels", "PROFILE_PANELS"]
+__all__ = ["profile_figure", "svg_text", "generation_labels", "path_edges", "PROFILE_PANELS"]
 
 #: Panel titles of the profile figure, top to bottom.
 PROFILE_PANELS = (
@@ -70,15 +70,17 @@ def _use_log(*arrays: np.ndarray) -> bool:
     return float(values.max() / values.min()) > _SPAN_FOR_LOG
 
 
-def _steps(ax, x: np.ndarray, y: np.ndarray, **style) -> None:
-    """Draw one flat step per generation, from x - 0.5 to x + 0.5."""
-    xs = np.repeat(x, 2) + np.tile([-0.5, 0.5], x.size)
+def _steps(ax, start: np.ndarray, end: np.ndarray, y: np.ndarray, **style) -> None:
+    """Draw one flat step per generation, from its start to its end along the path."""
+    xs = np.ravel(np.column_stack([start, end]))
     ax.plot(xs, np.repeat(y, 2), **style)
 
 
-def _band(ax, x: np.ndarray, low: np.ndarray, high: np.ndarray, label: str | None) -> None:
+def _band(
+    ax, start: np.ndarray, end: np.ndarray, low: np.ndarray, high: np.ndarray, label: str | None
+) -> None:
     """Shade ``low``..``high`` as one flat step per generation (a time-varying supply's range)."""
-    xs = np.repeat(x, 2) + np.tile([-0.5, 0.5], x.size)
+    xs = np.ravel(np.column_stack([start, end]))
     ax.fill_between(
         xs, np.repeat(low, 2), np.repeat(high, 2), color=_TEAL, alpha=0.22, lw=0, label=label
     )
@@ -94,8 +96,23 @@ def _swing(generations: Sequence[Mapping[str, Any]]) -> tuple[np.ndarray, np.nda
         return _column(generations, "min") / mean, _column(generations, "max") / mean
 
 
+def path_edges(generations: Sequence[Mapping[str, Any]]) -> np.ndarray:
+    """Distance [m] along one path from the inlet at each generation boundary (n + 1 values).
+
+    Each generation contributes the (mean) length of its channels, so the profile's x axis is
+    the distance the liquid travels.
+
+    >>> path_edges([{"length": 0.002}, {"length": 0.005}, {"length": 0.002}]).tolist()
+    [0.0, 0.002, 0.007, 0.009000000000000001]
+    """
+    lengths = _column(generations, "length")
+    lengths = np.where(np.isfinite(lengths), lengths, 0.0)
+    return np.concatenate([[0.0], np.cumsum(lengths)])
+
+
 def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_height: float = 1.55):
-    """Stacked panels along the path from inlet to outlet, one step per generation.
+    """Stacked panels along the path from inlet to outlet, one step per generation, against
+    the distance along the path (each generation as long as its channels).
 
     Panels (top to bottom): pressure at each generation's ends (kPa or Pa), flow per channel
     and total flow (uL/min), total cross-section (mm^2), mean velocity (mm/s), floor wall shear
@@ -121,8 +138,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     from matplotlib.figure import Figure
 
     generations = list(results["generations"])
-    n = len(generations)
-    x = np.arange(n, dtype=float)
+    edges = path_edges(generations) * 1e3  # mm
+    start, end = edges[:-1], edges[1:]
     labels = generation_labels(generations)
     count = _column(generations, "count")
     fig = Figure(figsize=(width, panel_height * len(PROFILE_PANELS) + 0.8))
@@ -137,7 +154,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     # pressure: a straight fall across each generation
     p_in, p_out = _column(generations, "pressure_in"), _column(generations, "pressure_out")
     p_unit, p_scale = ("kPa", 1e-3) if np.nanmax(np.abs(p_in)) >= 1e3 else ("Pa", 1.0)
-    xs = np.ravel(np.column_stack([x - 0.5, x + 0.5]))
+    xs = np.ravel(np.column_stack([start, end]))
     ps = np.ravel(np.column_stack([p_in, p_out])) * p_scale
     axes[0].plot(xs, ps, color=_INK, lw=1.6, marker="o", ms=2.5)
     axes[0].set_ylabel(f"pressure\n[{p_unit}]")
@@ -147,9 +164,9 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     q_total = q * count
     swing = _swing(generations)
     if swing is not None:
-        _band(axes[1], x, q * swing[0], q * swing[1], "per channel, min-max over time")
-    _steps(axes[1], x, q, color=_INK, lw=1.6, label="per channel")
-    _steps(axes[1], x, q_total, color=_TEAL, lw=1.6, ls="--", label="total")
+        _band(axes[1], start, end, q * swing[0], q * swing[1], "per channel, min-max over time")
+    _steps(axes[1], start, end, q, color=_INK, lw=1.6, label="per channel")
+    _steps(axes[1], start, end, q_total, color=_TEAL, lw=1.6, ls="--", label="total")
     axes[1].set_ylabel("flow\n[uL/min]")
     axes[1].legend(loc="best", fontsize=7, frameon=False)
     if _use_log(q, q_total):
@@ -162,8 +179,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     ]
     for row, values, ylabel in series:
         if swing is not None and row == 3:
-            _band(axes[row], x, values * swing[0], values * swing[1], None)
-        _steps(axes[row], x, values, color=_INK, lw=1.6)
+            _band(axes[row], start, end, values * swing[0], values * swing[1], None)
+        _steps(axes[row], start, end, values, color=_INK, lw=1.6)
         axes[row].set_ylabel(ylabel)
         if _use_log(values):
             axes[row].set_yscale("log")
@@ -187,10 +204,10 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         shown.append(np.array(bounds))
     if swing is not None:
         low, high = _column(generations, "min"), _column(generations, "max")
-        _band(ax, x, low, high, "floor, min-max over time")
+        _band(ax, start, end, low, high, "floor, min-max over time")
         shown += [low[low > 0], high[high > 0]]
-    _steps(ax, x, floor, color=_INK, lw=1.6, label="floor")
-    _steps(ax, x, peak, color=_TEAL, lw=1.0, ls=":", label="peak")
+    _steps(ax, start, end, floor, color=_INK, lw=1.6, label="floor")
+    _steps(ax, start, end, peak, color=_TEAL, lw=1.0, ls=":", label="peak")
     ax.set_ylabel("wall shear\n[Pa]")
     ax.legend(loc="best", fontsize=7, frameon=False)
     if _use_log(*shown):
@@ -200,18 +217,22 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     for axis, title in zip(axes, PROFILE_PANELS, strict=True):
         for i, role in enumerate(roles):  # loop over generations
             if role == "bed":
-                axis.axvspan(i - 0.5, i + 0.5, color=_BED, zorder=-1, lw=0)
+                axis.axvspan(start[i], end[i], color=_BED, zorder=-1, lw=0)
         axis.set_title(title, loc="left", fontsize=8, color=_INK, pad=2)
         axis.tick_params(labelsize=7)
         axis.yaxis.label.set_size(7.5)
         axis.grid(True, which="major", axis="y", color="#dde3e8", lw=0.6)
         for side in ("top", "right"):
             axis.spines[side].set_visible(False)
-    axes[-1].set_xticks(x, labels)
-    axes[-1].set_xlim(-0.5, n - 0.5)
+    axes[-1].set_xlim(edges[0], edges[-1])
     axes[-1].set_xlabel(
-        "generation along the path, inlet to outlet (d: distribution, c: collection)", fontsize=7.5
+        "distance along the path from inlet to outlet [mm]; generations marked on top "
+        "(d: distribution, c: collection)",
+        fontsize=7.5,
     )
+    top = axes[0].secondary_xaxis("top")
+    top.set_xticks((start + end) / 2, labels)
+    top.tick_params(labelsize=6, length=0, pad=1)
     fig.align_ylabels(axes)
     fig.tight_layout(h_pad=0.4)
     return fig

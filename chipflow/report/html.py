@@ -18,6 +18,7 @@ from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
 from chipflow.report.figures import generation_labels
 from chipflow.report.operation import operation_html
+from chipflow.units import lab_number
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
 
@@ -86,6 +87,19 @@ figcaption { color: var(--muted); font-size: 0.85rem; }
 .cautions h3 { font-size: 0.98rem; margin: 0.7rem 0 0.1rem; }
 .cautions p { margin: 0.1rem 0 0.5rem; }
 footer { color: var(--muted); font-size: 0.8rem; margin-top: 2.5rem; }
+@page { size: landscape; margin: 10mm; }
+@media print {
+  body { font-size: 9pt; max-width: none; margin: 0; padding: 0; }
+  h2 { break-after: avoid; margin-top: 1.2rem; }
+  h3 { break-after: avoid; }
+  .wide { overflow: visible; }
+  table { font-size: 6.8pt; width: 100%; }
+  th, td { padding: 0.1rem 0.25rem; }
+  th { white-space: normal; }
+  tr, figure { break-inside: avoid; }
+  figure svg { max-width: 100%; max-height: 165mm; }
+  .verdict, .status, tr.bed td, th { print-color-adjust: exact; -webkit-print-color-adjust: exact; }
+}
 """
 
 
@@ -105,7 +119,7 @@ def _num(value: Any, digits: int = 3) -> str:
         return "&ndash;"
     if math.isinf(number):
         return "&infin;" if number > 0 else "&minus;&infin;"
-    return f"{number:.{digits}g}"
+    return lab_number(number, digits)
 
 
 def _pressure_unit(values: list[float | None]) -> tuple[str, float]:
@@ -281,6 +295,90 @@ def _window_text(window: Mapping[str, Any]) -> str:
     return f"{_num(low)}&ndash;{_num(high)} Pa"
 
 
+def _channels(results: Mapping[str, Any]) -> str:
+    """The per-channel table of an explicit network (every channel, tubing included)."""
+    channels = list(results.get("channels") or [])
+    if not channels:
+        return ""
+    p_unit, p_scale = _pressure_unit([c.get("pressure_in") for c in channels])
+    header = [
+        "channel",
+        "from",
+        "to",
+        "width [um]",
+        "depth [um]",
+        "length [mm]",
+        "flow [uL/min]",
+        "mean velocity [mm/s]",
+        "floor shear [Pa]",
+        "peak shear [Pa]",
+        "Reynolds [-]",
+        "residence time [s]",
+        f"inlet pressure [{p_unit}]",
+        f"outlet pressure [{p_unit}]",
+    ]
+    rows = [
+        [
+            _e(c.get("channel", "")),
+            _e(c.get("from", "")),
+            _e(c.get("to", "")),
+            _scaled(c.get("width"), 1e6, 4),
+            _scaled(c.get("depth"), 1e6, 4),
+            _scaled(c.get("length"), 1e3),
+            _scaled(c.get("flow"), 6e10),
+            _scaled(c.get("mean_velocity"), 1e3),
+            _num(c.get("wall_shear_floor")),
+            _num(c.get("wall_shear_max")),
+            _num(c.get("reynolds")),
+            _num(c.get("residence_time")),
+            _scaled(c.get("pressure_in"), p_scale),
+            _scaled(c.get("pressure_out"), p_scale),
+        ]
+        for c in channels  # an explicit network: tens of channels, written by hand
+    ]
+    classes = ["bed" if c.get("role") == "bed" else "" for c in channels]
+    return (
+        "<h2>Channels</h2>\n<p>Every channel of the network (a flow against the from &rarr; to "
+        "direction is negative; tubing shows its inner diameter as width and depth).</p>\n"
+        + _table(header, rows, text_columns=3, row_classes=classes)
+    )
+
+
+def _extremes(results: Mapping[str, Any]) -> str:
+    """Per level, the lowest and highest channel values: the spread the means hide."""
+    generations = [g for g in results.get("generations", []) if g.get("flow_min") is not None]
+    if not generations:
+        return ""
+    labels = generation_labels(generations)
+    header = [
+        "generation",
+        "channels",
+        "flow per channel, lowest - highest [uL/min]",
+        "floor shear, lowest - highest [Pa]",
+        "residence time, lowest - highest [s]",
+    ]
+
+    def span(g: Mapping[str, Any], key: str, scale: float = 1.0) -> str:
+        return (
+            f"{_scaled(g.get(key + '_min'), scale)} &ndash; {_scaled(g.get(key + '_max'), scale)}"
+        )
+
+    rows = [
+        [
+            _e(label),
+            _num(g.get("count"), 6),
+            span(g, "flow", 6e10),
+            span(g, "wall_shear_floor"),
+            span(g, "residence_time"),
+        ]
+        for label, g in zip(labels, generations, strict=True)  # loop over generations
+    ]
+    classes = ["bed" if g.get("role") == "bed" else "" for g in generations]
+    return "<h3>Per-channel extremes of each generation</h3>\n" + _table(
+        header, rows, text_columns=1, row_classes=classes
+    )
+
+
 def _window(results: Mapping[str, Any]) -> str:
     window = results.get("shear_window")
     if not window:
@@ -298,6 +396,13 @@ def _checks(results: Mapping[str, Any]) -> str:
     for check in results.get("checks", []):  # a few dozen at most
         status = str(check.get("status", ""))
         value, limit = _check_value(check.get("value"), check.get("limit"), check.get("unit", ""))
+        if check.get("limit_low") is not None:  # a window: both bounds, the same on every row
+            low, _ = _check_value(check["limit_low"], check.get("limit"), check.get("unit", ""))
+            limit = (
+                f"{low.split(' ')[0]} &ndash; {limit}"
+                if check.get("limit") is not None
+                else f"at least {low}"
+            )
         rows.append(
             [
                 f'<span class="status {_e(status)}">{_MARK.get(status, _e(status))}</span>',
@@ -464,6 +569,8 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _operating_point(results),
         "<h2>Generations, inlet to outlet</h2>",
         _generations(results),
+        _extremes(results),
+        _channels(results),
         _notes(results),
         operation_html(results),
         "<h2>Checks</h2>",

@@ -10,17 +10,13 @@ from chipflow.errors import SpecError
 from chipflow.export._files import atomic_write
 from chipflow.spec.reader import MAX_NAME_LENGTH
 
-__all__ = ["starter_text", "write_starter"]
+__all__ = ["starter_text", "write_starter", "check_name"]
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 
 
-def starter_text(name: str) -> str:
-    """The commented starter design, named ``name``.
-
-    >>> 'name = "liver-bed"' in starter_text("liver-bed")
-    True
-    """
+def check_name(name: str) -> None:
+    """Refuse a design name that is not a plain file name, or too long (SpecError)."""
     if len(name) > MAX_NAME_LENGTH:
         raise SpecError(
             f"design name {name[:40]!r}...: {len(name)} characters is too long "
@@ -31,6 +27,15 @@ def starter_text(name: str) -> str:
             f"design name {name!r}: use letters, digits, '-', '_' or '.', starting with a "
             "letter or digit (e.g. liver-bed)"
         )
+
+
+def starter_text(name: str) -> str:
+    """The commented starter design, named ``name``.
+
+    >>> 'name = "liver-bed"' in starter_text("liver-bed")
+    True
+    """
+    check_name(name)
     template = resources.files("chipflow.data").joinpath("starter.toml").read_text("utf-8")
     return template.replace("__NAME__", name)
 

@@ -5,7 +5,8 @@
     [supply]
     inlet = "syringe"          # "syringe" (flow), "pressure" (controller) or "reservoir"
     flow = "10 uL/min"         # syringe: default is [tree].flow
-    pressure = "2 kPa"         # pressure controller: gauge pressure at the pump end
+    pressure = "2 kPa"         # pressure controller: gauge pressure at the pump end, or
+                               # "auto": the pressure that gives the design flow ([tree].flow)
     head = "10 cm"             # reservoir: liquid height above the inlet
     outlet = "open"            # "open" (0 Pa gauge) or "reservoir"
     outlet_head = "1 cm"       # outlet reservoir: liquid height above the outlet
@@ -31,7 +32,7 @@ from chipflow.network.supply import (
 from chipflow.spec.operation import OPERATION_INLETS, OPERATION_SUPPLY_KEYS
 from chipflow.spec.reader import Table
 
-__all__ = ["SupplySpec", "read_supply", "SUPPLY_KEYS"]
+__all__ = ["SupplySpec", "read_supply", "SUPPLY_KEYS", "AUTO_PRESSURE_LABEL"]
 
 SUPPLY_KEYS = (
     "inlet",
@@ -68,6 +69,10 @@ class SupplySpec:
         Inner diameter of the tubing [m].
     inlet_tubing, outlet_tubing : float
         Tubing lengths [m]; 0 means no tubing on that side.
+    pressure_for_flow : float or None
+        With ``pressure = "auto"``: the flow [m^3/s] the pressure controller is set to give
+        (the build solves for that pressure); ``inlet`` then holds a syringe pump at that
+        flow until the pressure is known.
     """
 
     inlet: Supply
@@ -75,6 +80,11 @@ class SupplySpec:
     tubing_diameter: float = 0.5e-3
     inlet_tubing: float = 0.0
     outlet_tubing: float = 0.0
+    pressure_for_flow: float | None = None
+
+
+#: Label of a pressure controller whose pressure was solved for the design flow.
+AUTO_PRESSURE_LABEL = "pressure controller set for the design flow"
 
 
 def read_supply(top: Table, design_flow: float) -> SupplySpec:
@@ -92,6 +102,8 @@ def read_supply(top: Table, design_flow: float) -> SupplySpec:
         inlet = syringe_pump(table.quantity("flow", "flow", design_flow))
         if kind == "peristaltic":
             inlet = Supply("flow", inlet.value, "peristaltic pump (mean)")
+    elif kind == "pressure" and table.data.get("pressure") == "auto":
+        inlet = syringe_pump(design_flow)  # until the build knows the pressure
     elif kind in ("pressure", "pulsatile-pressure"):
         inlet = pressure_controller(table.quantity("pressure", "pressure"))
     else:
@@ -129,4 +141,7 @@ def read_supply(top: Table, design_flow: float) -> SupplySpec:
         tubing_diameter=table.quantity("tubing_diameter", "length", 0.5e-3),
         inlet_tubing=table.quantity("inlet_tubing", "length", 0.0, positive=False, minimum=0.0),
         outlet_tubing=table.quantity("outlet_tubing", "length", 0.0, positive=False, minimum=0.0),
+        pressure_for_flow=(
+            design_flow if kind == "pressure" and table.data.get("pressure") == "auto" else None
+        ),
     )

@@ -24,7 +24,8 @@ only); :func:`chipflow.design.sizing.size_tree` turns that into a sized
     growth = 1.5                 # area-growth: total cross-section factor per generation
     velocity_ratio = 20          # area-growth instead of growth: trunk / bed mean velocity
     widths = ["400 um", ...]     # table: one width per generation 0..n (bed last)
-    depths = ["100 um", ...]     # table: one depth per generation 0..n
+    depths = ["100 um", ...]     # table: one depth per generation 0..n, or one for all
+                                 # (optional with a single fabrication depth)
     length = "3 mm"              # nominal length of distribution/collection channels
     lengths = ["4 mm", ...]      # or one per distribution generation 0..n-1
 
@@ -513,7 +514,18 @@ def load_tree_spec(top: Table) -> TreeSpec:
     widths = depths = None
     if rule == "table":
         widths = tuple(tree.quantities("widths", "length"))
-        depths = tuple(_picometre(d) for d in tree.quantities("depths", "length"))
+        if "depths" in tree:
+            depths = tuple(_picometre(d) for d in tree.quantities("depths", "length"))
+        elif len(fab.depths) == 1:
+            depths = fab.depths  # one mould depth: every generation has it
+        else:
+            raise tree.error(
+                "depths",
+                "missing: with several fabrication depths, give one depth per generation "
+                "(or one depth for all)",
+            )
+        if len(depths) == 1:
+            depths = depths * (n + 1)
         for key, values in (("widths", widths), ("depths", depths)):
             if len(values) != n + 1:
                 raise tree.error(
