@@ -88,6 +88,7 @@ def main() -> None:
         print(json.dumps(run_case(args.case, args.max_triangles, args.bare_max_dofs)))
         return
     rows = []
+    print(_header(), flush=True)
     for case in CASES:
         cmd = [sys.executable, __file__, "--case", case, "--max-triangles",
                str(args.max_triangles), "--bare-max-dofs", str(args.bare_max_dofs)]  # fmt: skip
@@ -96,9 +97,7 @@ def main() -> None:
             print(f"{case}: failed: {done.stderr.strip().splitlines()[-1:]}", file=sys.stderr)
             continue
         rows.append(json.loads(done.stdout.strip().splitlines()[-1]))
-        print(_row(rows[-1]), flush=True) if len(rows) > 1 else print(
-            _header() + "\n" + _row(rows[-1]), flush=True
-        )
+        print(_row(rows[-1]), flush=True)
 
 
 def _header() -> str:

@@ -169,7 +169,8 @@ def build_mesh(
     regions : list of FieldRegion
     ports : list of FieldPort
     mesh_size : float, optional
-        Largest triangle edge [m]; by default half the largest channel width.
+        Largest triangle edge [m]; by default twice the largest channel width over
+        ``across``.
     across : float
         Triangle edges across a channel's width [-] (4 by default; tests refine it); triangle
         edges are also at most ``2 depth / across`` long.

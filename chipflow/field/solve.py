@@ -63,8 +63,9 @@ def solve_field(
     mesh_size : float, optional
         Largest triangle edge [m].
     across : float
-        Triangle edges across a channel [-]; 4 gives about 1 % on the resistance of a channel
-        four times wider than deep, 12 about 0.1 %.
+        Triangle edges across a channel [-]; edges are also at most ``2 depth / across``.
+        At 4 (the default) a straight channel's resistance is within 0.4 % of the exact
+        series for h/w from 0.25 to 2 (0.07 % for square channels), at 8 within 0.06 %.
     solver : {"splu", "spsolve"}
         Sparse direct solve of the reduced saddle-point system: ``splu`` factorises with a
         fill-reducing ordering of the symmetrised pattern; ``spsolve`` is the plain call.
