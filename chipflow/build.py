@@ -243,7 +243,14 @@ def _build_tree(source: DesignSource, progress: Progress, run_field: bool | None
         from chipflow.field.run import run_field as solve_chip_field
 
         progress("field")
-        field_run = solve_chip_field(layout, solution, spec.fluid.viscosity, window, culture.seeded)
+        field_run = solve_chip_field(
+            layout,
+            solution,
+            spec.fluid.viscosity,
+            window,
+            culture.seeded,
+            flow_driven=supply.inlet.kind == "flow",
+        )
     results["field"] = None if field_run is None else field_run.results
     return Build(
         source,

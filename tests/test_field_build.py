@@ -53,13 +53,33 @@ def test_field_results_compare_with_the_network(small_build):
     assert units["resistance"] == "Pa*s/m^3" and units["area_outside_window"] == "1"
 
 
-def test_field_flows_balance_and_follow_the_network_pressures(small_build):
+def test_field_runs_at_the_supply_operating_point(small_build):
+    # the demo's syringe pump sets the flow: the field carries the network's flow, at the
+    # inlet pressure its own resistance needs (linear Stokes flow)
     run = small_build.field
     q = run.solution.port_flows
     assert q["inlet"] == pytest.approx(-q["outlet"], rel=1e-9)  # continuity
-    names = list(small_build.solution.network.node_names)
-    p_in = small_build.solution.pressure[names.index("inlet")]
-    assert run.solution.port_pressures["inlet"] == pytest.approx(p_in)
+    assert q["inlet"] == pytest.approx(small_build.results["totals"]["total_flow"], rel=1e-9)
+    dp = run.solution.port_pressures["inlet"] - run.solution.port_pressures["outlet"]
+    assert dp == pytest.approx(q["inlet"] * small_build.results["field"]["resistance"], rel=1e-9)
+
+
+def test_pressure_supply_shares_its_pressure_between_tubing_and_field(tmp_path):
+    # a pressure controller: the chip flow is the supply pressure over the tubing (network)
+    # plus the chip (field) in series, Ohm's law for hydraulic circuits (Bruus 2008, ch. 4)
+    text = open(small_demo(tmp_path, beds=2), encoding="utf-8").read()
+    text = text.replace('inlet = "syringe"', 'inlet = "pressure"\npressure = "500 Pa"')
+    path = tmp_path / "pressure.toml"
+    path.write_text(text, encoding="utf-8")
+    build = build_design(str(path), field=True)
+    field = build.results["field"]
+    q_net = build.results["totals"]["total_flow"]
+    names = list(build.solution.network.node_names)
+    p = build.solution.pressure
+    chip_dp = p[names.index("inlet")] - p[names.index("outlet")]
+    r_tubing = (500.0 - chip_dp) / q_net
+    expected = 500.0 / (r_tubing + field["resistance"])
+    assert build.field.solution.port_flows["inlet"] == pytest.approx(expected, rel=1e-6)
 
 
 def test_build_command_field_switch(tmp_path):

@@ -20,6 +20,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass
 
@@ -37,6 +38,7 @@ __all__ = [
     "solve_field",
     "solve_on_mesh",
     "solve_reduced",
+    "scaled",
     "velocity_at",
 ]
 
@@ -251,3 +253,17 @@ def velocity_at(solution: FieldSolution, xy: np.ndarray) -> np.ndarray:
     out = np.column_stack([(phi * u[nodes]).sum(axis=1), (phi * u[nodes + nn]).sum(axis=1)])
     out[inside[rows, best] < -1e-9] = np.nan
     return out
+
+
+def scaled(solution: FieldSolution, factor: float) -> FieldSolution:
+    """The same field with every pressure, velocity, shear and flow times ``factor``."""
+    return dataclasses.replace(
+        solution,
+        pressure=solution.pressure * factor,
+        velocity=solution.velocity * factor,
+        velocity_vertices=solution.velocity_vertices * factor,
+        floor_shear=solution.floor_shear * abs(factor),
+        port_flows={k: v * factor for k, v in solution.port_flows.items()},
+        port_pressures={k: v * factor for k, v in solution.port_pressures.items()},
+        dofs=None if solution.dofs is None else solution.dofs * factor,
+    )

@@ -366,7 +366,8 @@ def _junctions(results: Mapping[str, Any]) -> str:
     shear = field["floor_shear"]
     intro = (
         f"<p>A 2D depth-averaged solve of the drawn channels ({field['mesh_triangles']} "
-        "triangles), driven by the network's inlet and outlet pressures. The field sees what "
+        "triangles) at the supply's operating point: the pump's flow, or the supply pressure "
+        "shared between the tubing and the field's own resistance. The field sees what "
         "the channel table cannot: the far wall of a junction, the inside of a bend, the ends "
         f"of the bed. Chip resistance: {_quantity(field['resistance'], 'Pa s/uL', 1e-9)} "
         f"against {_quantity(field['network_resistance'], 'Pa s/uL', 1e-9)} in the network "
