@@ -374,7 +374,8 @@ def _junctions(results: Mapping[str, Any]) -> str:
         f"({ratio:+.1%}). Floor shear over the seeded floor: 5 % of the area below "
         f"{_num(shear['p05'])} Pa, median {_num(shear['p50'])} Pa, 5 % above "
         f"{_num(shear['p95'])} Pa; {field['area_outside_window']:.1%} of it lies outside the "
-        "shear window.</p>"
+        "shear window. The floor shear falls to zero along every side wall, so a strip of "
+        "each channel's floor lies below any window; the table says where the rest lies.</p>"
     )
     zones = field["zones"]
     rows = [
