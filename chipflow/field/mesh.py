@@ -85,16 +85,26 @@ def domain_of(
     return domain, pieces
 
 
+def _ring_edges(polygons: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end points of every edge of every ring of ``polygons``, in ring order."""
+    rings = shapely.get_rings(polygons)
+    xy, which = shapely.get_coordinates(rings, return_index=True)
+    same = which[1:] == which[:-1]
+    return xy[:-1][same], xy[1:][same]
+
+
+def _inner_points(polygons: np.ndarray) -> np.ndarray:
+    """A point inside each hole of ``polygons`` (n, 2)."""
+    rings, owner = shapely.get_rings(polygons, return_index=True)
+    first = np.r_[True, owner[1:] != owner[:-1]]  # each polygon's exterior comes first
+    holes = shapely.polygons(rings[~first])
+    return shapely.get_coordinates(shapely.point_on_surface(holes))
+
+
 def _ring_samples(domain: shapely.Geometry, spacing) -> tuple[np.ndarray, ...]:
     """Midpoints, inward normals and edge ids of the outline split to ``spacing``."""
     oriented = shapely.orient_polygons(domain, exterior_cw=False)
-    starts, ends = [], []
-    for poly in _polygons(oriented):
-        for ring in (poly.exterior, *poly.interiors):
-            xy = np.asarray(ring.coords)
-            starts.append(xy[:-1])
-            ends.append(xy[1:])
-    a, b = np.concatenate(starts), np.concatenate(ends)
+    a, b = _ring_edges(np.array(_polygons(oriented), dtype=object))
     d = b - a
     length = np.hypot(d[:, 0], d[:, 1])
     keep = length > 0
@@ -197,37 +207,29 @@ def build_mesh(
     grid = _SNAP * scale
     lines += [shapely.set_precision(p.boundary, grid) for p in ports if not _is_area(p.boundary)]
     noded = shapely.union_all([shapely.force_2d(x) for x in lines])
-    segs = []
-    for line in shapely.get_parts(noded):
-        xy = np.asarray(line.coords)
-        segs.append(np.stack([xy[:-1], xy[1:]], axis=1))
-    seg = np.concatenate(segs)
-    a, b = seg[:, 0], seg[:, 1]
+    xy, which = shapely.get_coordinates(shapely.get_parts(noded), return_index=True)
+    same = which[1:] == which[:-1]
+    a, b = xy[:-1][same], xy[1:][same]
     length = np.hypot(*(b - a).T)
-    seg, a, b, length = seg[length > 0], a[length > 0], b[length > 0], length[length > 0]
+    a, b, length = a[length > 0], b[length > 0], length[length > 0]
     probes = np.concatenate([a, b, 0.5 * (a + b)])
     _, j = tree.query(probes, k=1)
     step = size[j].reshape(3, -1).min(axis=0)
     n = np.maximum(1, np.ceil(length / step - 1e-9).astype(int))
     vertices, segments = _split(a, b, n, grid)
-    holes = []
-    for poly in _polygons(domain):
-        for ring in poly.interiors:
-            holes.append(np.asarray(shapely.Polygon(ring).point_on_surface().coords)[0])
+    holes = _inner_points(np.array(_polygons(domain), dtype=object))
     depths = np.array([d for _, d in pieces])
-    seeds = []
-    for k, (piece, _) in enumerate(pieces):
-        for part in _polygons(piece):
-            xy = np.asarray(part.point_on_surface().coords)[0]
-            seeds.append([xy[0], xy[1], float(k + 1), 0.0])
+    parts = [np.array(_polygons(piece), dtype=object) for piece, _ in pieces]  # one per depth
+    inside = shapely.get_coordinates(shapely.point_on_surface(np.concatenate(parts)))
+    label = np.repeat(np.arange(1, len(parts) + 1), [len(x) for x in parts])
+    seeds = np.column_stack([inside, label.astype(float), np.zeros(len(label))])
     # triangle works in a unit frame (its tolerances are absolute)
     origin = vertices.min(axis=0)
     area_cap = np.sqrt(3.0) / 4.0 * (cap / scale) ** 2
-    seeds = np.array(seeds)
     seeds[:, :2] = (seeds[:, :2] - origin) / scale
     data = {"vertices": (vertices - origin) / scale, "segments": segments, "regions": seeds}
-    if holes:
-        data["holes"] = (np.array(holes) - origin) / scale
+    if len(holes):
+        data["holes"] = (holes - origin) / scale
     out = tr.triangulate(data, f"pq30AQa{area_cap:.17g}")
     if "triangles" not in out:
         raise FieldError("the mask could not be meshed (crossing or overlapping outlines)")
