@@ -124,3 +124,22 @@ def test_depth_step_in_series_adds_the_two_resistances():
     assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
     assert sol.port_flows["in"] == pytest.approx(-sol.port_flows["out"], rel=1e-9)
     assert set(np.unique(sol.mesh.depth)) == {50e-6, 100e-6}
+
+
+def test_overlay_slivers_between_depths_join_a_neighbour():
+    # a deep outline with a slit 0.1 um wide inside it, under a shallow outline covering
+    # everything: the slit is an overlay artefact, meshed as part of the deep piece instead
+    # of refined down to its width; the resistance stays the sum of the two series (Bruus
+    # 2008) and the mesh stays small
+    w, length = 400e-6, 4e-3
+    slit = shapely.box(length / 2, 0.1 * w, length / 2 + 1e-7, 0.9 * w)
+    deep = FieldRegion(shapely.box(0, 0, length, w).difference(slit), 100e-6)
+    shallow = FieldRegion(shapely.box(0, 0, 2 * length, w), 50e-6)
+    ports = [
+        FieldPort("in", shapely.LineString([(0, 0), (0, w)]), 100.0),
+        FieldPort("out", shapely.LineString([(2 * length, 0), (2 * length, w)]), 0.0),
+    ]
+    sol = solve_field([deep, shallow], ports, 1e-3, across=4)
+    expected = duct.resistance(w, 100e-6, length, 1e-3) + duct.resistance(w, 50e-6, length, 1e-3)
+    assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
+    assert len(sol.mesh.triangles) < 20_000

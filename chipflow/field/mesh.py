@@ -73,15 +73,30 @@ def domain_of(
     domain = shapely.union_all(parts) if parts else shapely.Polygon()
     if domain.is_empty:
         raise FieldError("the channels vanish once the port holes are cut out")
-    pieces = []
+    depths = sorted({r.depth for r in regions}, reverse=True)
+    thin = 0.01 * min(depths)  # thinner than this: an overlay sliver, not a channel
+    kept, slivers = [], []
     taken = shapely.Polygon()
-    for depth in sorted({r.depth for r in regions}, reverse=True):
+    for depth in depths:
         same = shapely.union_all([snap(r.polygon) for r in regions if r.depth == depth])
         piece = shapely.intersection(domain, same.difference(taken))
         taken = shapely.union(taken, same)
-        piece = shapely.union_all(_polygons(piece))
-        if not piece.is_empty:
-            pieces.append((piece, depth))
+        parts = np.array(_polygons(piece), dtype=object)
+        ok = shapely.area(parts) >= thin * shapely.length(parts) if len(parts) else parts
+        kept.append([depth, list(parts[ok])])
+        slivers += list(parts[~ok])
+    # a sliver joins the deepest piece it touches; one touching none leaves the domain
+    slivers = np.array(slivers, dtype=object)
+    for entry in kept:
+        if not len(slivers):
+            break
+        mine = shapely.intersects(slivers, shapely.union_all(entry[1])) if entry[1] else None
+        if mine is not None and mine.any():
+            entry[1] += list(slivers[mine])
+            slivers = slivers[~mine]
+    if len(slivers):
+        domain = domain.difference(shapely.union_all(slivers))
+    pieces = [(shapely.union_all(parts), d) for d, parts in kept if parts]
     return domain, pieces
 
 
