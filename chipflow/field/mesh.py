@@ -25,7 +25,7 @@ __all__ = ["build_mesh", "domain_of", "local_width"]
 
 _FACING = 0.8  # cos(37 deg): two wall samples face each other across a channel
 _NEIGHBOURS = 48
-_SNAP = 1e-9  # coordinates are snapped to this fraction of the chip's size
+_SNAP = 1e-7  # coordinates are snapped to this fraction of the chip's size
 
 
 def _is_area(geom: shapely.Geometry) -> bool:
@@ -50,8 +50,8 @@ def domain_of(
     Returns
     -------
     domain : shapely geometry
-        Union of the regions less the port holes, on a grid of a billionth of the chip's size,
-        without slivers thinner than a millionth of it [m].
+        Union of the regions less the port holes, on a grid of a ten-millionth of the chip's
+        size (1 nm on a 1 cm chip), without slivers thinner than a millionth of it [m].
     pieces : list of (geometry, depth)
         Disjoint parts of the domain, one per depth, deepest winning where regions overlap.
     """
@@ -69,7 +69,7 @@ def domain_of(
     cut = shapely.union_all(holes) if holes else shapely.Polygon()
     whole = shapely.union_all([snap(r.polygon) for r in regions]).difference(cut)
     # drop slivers (e.g. what is left between a drawn pad and a punched hole)
-    parts = [p for p in _polygons(whole) if p.area > 1e3 * grid * p.length]
+    parts = [p for p in _polygons(whole) if p.area > 1e-6 * _scale(regions) * p.length]
     domain = shapely.union_all(parts) if parts else shapely.Polygon()
     if domain.is_empty:
         raise FieldError("the channels vanish once the port holes are cut out")
@@ -79,7 +79,7 @@ def domain_of(
     taken = shapely.Polygon()
     for depth in depths:
         same = shapely.union_all([snap(r.polygon) for r in regions if r.depth == depth])
-        piece = shapely.intersection(domain, same.difference(taken))
+        piece = shapely.intersection(domain, same.difference(taken), grid_size=grid)
         taken = shapely.union(taken, same)
         parts = np.array(_polygons(piece), dtype=object)
         ok = shapely.area(parts) >= thin * shapely.length(parts) if len(parts) else parts
