@@ -294,7 +294,14 @@ def _build_tree(
         from chipflow.field.run import run_field as solve_chip_field
 
         progress("field")
-        field_run = solve_chip_field(layout, solution, spec.fluid.viscosity, window, culture.seeded)
+        field_run = solve_chip_field(
+            layout,
+            solution,
+            spec.fluid.viscosity,
+            window,
+            culture.seeded,
+            flow_driven=supply.inlet.kind == "flow",
+        )
     results["field"] = None if field_run is None else field_run.results
     return Build(
         source,

@@ -96,7 +96,9 @@ def test_a_lone_shear_min_is_a_one_sided_check():
     window = ShearWindow("design targets", 0.5, math.inf, "test")
     results = check_floor_shear(["d0", "bed"], [7.0, 0.3], window)
     assert [r.status for r in results] == ["pass", "fail"]  # no upper bound: 7 Pa passes
-    assert results[0].limit == 0.5 and "at least 0.5 Pa" in results[1].message
+    # the window's bounds: a lower one, and no upper one
+    assert results[0].limit_low == 0.5 and math.isinf(results[0].limit)
+    assert "at least 0.5 Pa" in results[1].message
 
 
 def test_culture_override_alone_is_one_sided():

@@ -286,7 +286,7 @@ VALUES = {
     "rectangular", "round", "floor", "mean", "max", "all", "bed", "syringe", "pressure",
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
     "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
-    "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]",
+    "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]", '"auto"',
 }  # fmt: skip
 
 

@@ -53,13 +53,33 @@ def test_field_results_compare_with_the_network(small_build):
     assert units["resistance"] == "Pa*s/m^3" and units["area_outside_window"] == "1"
 
 
-def test_field_flows_balance_and_follow_the_network_pressures(small_build):
+def test_field_runs_at_the_supply_operating_point(small_build):
+    # the demo's syringe pump sets the flow: the field carries the network's flow, at the
+    # inlet pressure its own resistance needs (linear Stokes flow)
     run = small_build.field
     q = run.solution.port_flows
     assert q["inlet"] == pytest.approx(-q["outlet"], rel=1e-9)  # continuity
-    names = list(small_build.solution.network.node_names)
-    p_in = small_build.solution.pressure[names.index("inlet")]
-    assert run.solution.port_pressures["inlet"] == pytest.approx(p_in)
+    assert q["inlet"] == pytest.approx(small_build.results["totals"]["total_flow"], rel=1e-9)
+    dp = run.solution.port_pressures["inlet"] - run.solution.port_pressures["outlet"]
+    assert dp == pytest.approx(q["inlet"] * small_build.results["field"]["resistance"], rel=1e-9)
+
+
+def test_pressure_supply_shares_its_pressure_between_tubing_and_field(tmp_path):
+    # a pressure controller: the chip flow is the supply pressure over the tubing (network)
+    # plus the chip (field) in series, Ohm's law for hydraulic circuits (Bruus 2008, ch. 4)
+    text = open(small_demo(tmp_path, beds=2), encoding="utf-8").read()
+    text = text.replace('inlet = "syringe"', 'inlet = "pressure"\npressure = "500 Pa"')
+    path = tmp_path / "pressure.toml"
+    path.write_text(text, encoding="utf-8")
+    build = build_design(str(path), field=True)
+    field = build.results["field"]
+    q_net = build.results["totals"]["total_flow"]
+    names = list(build.solution.network.node_names)
+    p = build.solution.pressure
+    chip_dp = p[names.index("inlet")] - p[names.index("outlet")]
+    r_tubing = (500.0 - chip_dp) / q_net
+    expected = 500.0 / (r_tubing + field["resistance"])
+    assert build.field.solution.port_flows["inlet"] == pytest.approx(expected, rel=1e-6)
 
 
 def test_build_command_field_switch(tmp_path):
@@ -104,3 +124,22 @@ def test_depth_step_in_series_adds_the_two_resistances():
     assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
     assert sol.port_flows["in"] == pytest.approx(-sol.port_flows["out"], rel=1e-9)
     assert set(np.unique(sol.mesh.depth)) == {50e-6, 100e-6}
+
+
+def test_overlay_slivers_between_depths_join_a_neighbour():
+    # a deep outline with a slit 0.1 um wide inside it, under a shallow outline covering
+    # everything: the slit is an overlay artefact, meshed as part of the deep piece instead
+    # of refined down to its width; the resistance stays the sum of the two series (Bruus
+    # 2008) and the mesh stays small
+    w, length = 400e-6, 4e-3
+    slit = shapely.box(length / 2, 0.1 * w, length / 2 + 1e-7, 0.9 * w)
+    deep = FieldRegion(shapely.box(0, 0, length, w).difference(slit), 100e-6)
+    shallow = FieldRegion(shapely.box(0, 0, 2 * length, w), 50e-6)
+    ports = [
+        FieldPort("in", shapely.LineString([(0, 0), (0, w)]), 100.0),
+        FieldPort("out", shapely.LineString([(2 * length, 0), (2 * length, w)]), 0.0),
+    ]
+    sol = solve_field([deep, shallow], ports, 1e-3, across=4)
+    expected = duct.resistance(w, 100e-6, length, 1e-3) + duct.resistance(w, 50e-6, length, 1e-3)
+    assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
+    assert len(sol.mesh.triangles) < 20_000

@@ -5,6 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import shapely
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from chipflow.errors import FieldError
 from chipflow.field import FieldPort, FieldRegion, solve_field
@@ -81,3 +83,25 @@ def test_bad_inputs_raise_field_errors():
     island = shapely.box(2e-3, 0, 3e-3, 1e-4)
     with pytest.raises(FieldError, match="not connected to any port"):
         solve_field([FieldRegion(poly, 5e-5), FieldRegion(island, 5e-5)], [port], MU)
+
+
+@settings(max_examples=5, deadline=None)
+@given(
+    ratio=st.floats(min_value=0.25, max_value=2.0),
+    width=st.floats(min_value=20e-6, max_value=500e-6),
+    swap=st.booleans(),
+)
+def test_any_straight_channel_matches_the_series_both_ways(ratio, width, swap):
+    # a straight channel has one resistance in every model (series, network, field), at the
+    # default mesh, whichever way it is driven; the flow reverses with the pressure drop
+    depth = ratio * width
+    length = 6 * width
+    poly = shapely.box(0.0, 0.0, length, width)
+    high, low = (100.0, 0.0) if not swap else (0.0, 100.0)
+    ports = [
+        FieldPort("a", shapely.LineString([(0, 0), (0, width)]), high),
+        FieldPort("b", shapely.LineString([(length, 0), (length, width)]), low),
+    ]
+    sol = solve_field([FieldRegion(poly, depth)], ports, MU)
+    exact = duct.resistance(width, depth, length, MU)
+    assert (high - low) / sol.port_flows["a"] == pytest.approx(exact, rel=5e-3)

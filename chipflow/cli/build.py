@@ -102,7 +102,13 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
     type=click.Path(file_okay=False, path_type=str),
     help="Output folder (default: a folder named after the demo design).",
 )
-def demo_command(outdir: str | None) -> int:
+@click.option(
+    "--field/--no-field",
+    default=None,
+    help="Solve the 2D flow field of the drawing (default: only for small chips; the demo "
+    "takes about half a minute).",
+)
+def demo_command(outdir: str | None, field: bool | None) -> int:
     """Build the bundled demo design: an endothelial bed on a slide-sized chip.
 
     \b
@@ -110,4 +116,4 @@ def demo_command(outdir: str | None) -> int:
       chipflow demo -o demo-out
     """
     with resources.as_file(resources.files("chipflow.data") / DEMO_DESIGN) as path:
-        return _run(path, outdir)
+        return _run(path, outdir, field=field)

@@ -6,7 +6,6 @@ and scales every field to the given flow.
 
 from __future__ import annotations
 
-import dataclasses
 from dataclasses import dataclass
 from typing import Any
 
@@ -16,23 +15,9 @@ import shapely
 from chipflow.errors import FieldError
 from chipflow.field.model import FieldPort, FieldRegion, FieldSolution
 from chipflow.field.shear import ShearStats, shear_stats
-from chipflow.field.solve import solve_field
+from chipflow.field.solve import scaled, solve_field
 
 __all__ = ["MaskAnalysis", "analyse_mask", "scaled"]
-
-
-def scaled(solution: FieldSolution, factor: float) -> FieldSolution:
-    """The same field with every pressure, velocity, shear and flow times ``factor``."""
-    return dataclasses.replace(
-        solution,
-        pressure=solution.pressure * factor,
-        velocity=solution.velocity * factor,
-        velocity_vertices=solution.velocity_vertices * factor,
-        floor_shear=solution.floor_shear * abs(factor),
-        port_flows={k: v * factor for k, v in solution.port_flows.items()},
-        port_pressures={k: v * factor for k, v in solution.port_pressures.items()},
-        dofs=None if solution.dofs is None else solution.dofs * factor,
-    )
 
 
 @dataclass(frozen=True)

@@ -183,7 +183,7 @@ def compare_with_network(
     Parameters
     ----------
     solution : FieldSolution
-        The field, solved with the network's inlet and outlet node pressures.
+        The field of the same chip (at any operating point: resistances do not depend on it).
     layout : Layout
     network_solution : chipflow.network.Solution
         The network of the same layout (its first channels are the drawn channels, in order).
@@ -238,7 +238,7 @@ def compare_with_network(
         }
 
     names = list(net.network.node_names)
-    p_in, p_out = (solution.port_pressures[n] for n in ("inlet", "outlet"))
+    p_in, p_out = (float(net.pressure[names.index(n)]) for n in ("inlet", "outlet"))
     q_net = float(np.abs(net.flow[:n_ch][ch.node_a == names.index("inlet")]).sum())
     return FieldComparison(
         resistance=solution.resistance("inlet", "outlet"),

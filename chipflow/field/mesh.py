@@ -25,7 +25,7 @@ __all__ = ["build_mesh", "domain_of", "local_width"]
 
 _FACING = 0.8  # cos(37 deg): two wall samples face each other across a channel
 _NEIGHBOURS = 48
-_SNAP = 1e-9  # coordinates are snapped to this fraction of the chip's size
+_SNAP = 1e-7  # coordinates are snapped to this fraction of the chip's size
 
 
 def _is_area(geom: shapely.Geometry) -> bool:
@@ -50,8 +50,8 @@ def domain_of(
     Returns
     -------
     domain : shapely geometry
-        Union of the regions less the port holes, on a grid of a billionth of the chip's size,
-        without slivers thinner than a millionth of it [m].
+        Union of the regions less the port holes, on a grid of a ten-millionth of the chip's
+        size (1 nm on a 1 cm chip), without slivers thinner than a millionth of it [m].
     pieces : list of (geometry, depth)
         Disjoint parts of the domain, one per depth, deepest winning where regions overlap.
     """
@@ -69,32 +69,57 @@ def domain_of(
     cut = shapely.union_all(holes) if holes else shapely.Polygon()
     whole = shapely.union_all([snap(r.polygon) for r in regions]).difference(cut)
     # drop slivers (e.g. what is left between a drawn pad and a punched hole)
-    parts = [p for p in _polygons(whole) if p.area > 1e3 * grid * p.length]
+    parts = [p for p in _polygons(whole) if p.area > 1e-6 * _scale(regions) * p.length]
     domain = shapely.union_all(parts) if parts else shapely.Polygon()
     if domain.is_empty:
         raise FieldError("the channels vanish once the port holes are cut out")
-    pieces = []
+    depths = sorted({r.depth for r in regions}, reverse=True)
+    thin = 0.01 * min(depths)  # thinner than this: an overlay sliver, not a channel
+    kept, slivers = [], []
     taken = shapely.Polygon()
-    for depth in sorted({r.depth for r in regions}, reverse=True):
+    for depth in depths:
         same = shapely.union_all([snap(r.polygon) for r in regions if r.depth == depth])
-        piece = shapely.intersection(domain, same.difference(taken))
+        piece = shapely.intersection(domain, same.difference(taken), grid_size=grid)
         taken = shapely.union(taken, same)
-        piece = shapely.union_all(_polygons(piece))
-        if not piece.is_empty:
-            pieces.append((piece, depth))
+        parts = np.array(_polygons(piece), dtype=object)
+        ok = shapely.area(parts) >= thin * shapely.length(parts) if len(parts) else parts
+        kept.append([depth, list(parts[ok])])
+        slivers += list(parts[~ok])
+    # a sliver joins the deepest piece it touches; one touching none leaves the domain
+    slivers = np.array(slivers, dtype=object)
+    for entry in kept:
+        if not len(slivers):
+            break
+        mine = shapely.intersects(slivers, shapely.union_all(entry[1])) if entry[1] else None
+        if mine is not None and mine.any():
+            entry[1] += list(slivers[mine])
+            slivers = slivers[~mine]
+    if len(slivers):
+        domain = domain.difference(shapely.union_all(slivers))
+    pieces = [(shapely.union_all(parts), d) for d, parts in kept if parts]
     return domain, pieces
+
+
+def _ring_edges(polygons: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end points of every edge of every ring of ``polygons``, in ring order."""
+    rings = shapely.get_rings(polygons)
+    xy, which = shapely.get_coordinates(rings, return_index=True)
+    same = which[1:] == which[:-1]
+    return xy[:-1][same], xy[1:][same]
+
+
+def _inner_points(polygons: np.ndarray) -> np.ndarray:
+    """A point inside each hole of ``polygons`` (n, 2)."""
+    rings, owner = shapely.get_rings(polygons, return_index=True)
+    first = np.r_[True, owner[1:] != owner[:-1]]  # each polygon's exterior comes first
+    holes = shapely.polygons(rings[~first])
+    return shapely.get_coordinates(shapely.point_on_surface(holes))
 
 
 def _ring_samples(domain: shapely.Geometry, spacing) -> tuple[np.ndarray, ...]:
     """Midpoints, inward normals and edge ids of the outline split to ``spacing``."""
     oriented = shapely.orient_polygons(domain, exterior_cw=False)
-    starts, ends = [], []
-    for poly in _polygons(oriented):
-        for ring in (poly.exterior, *poly.interiors):
-            xy = np.asarray(ring.coords)
-            starts.append(xy[:-1])
-            ends.append(xy[1:])
-    a, b = np.concatenate(starts), np.concatenate(ends)
+    a, b = _ring_edges(np.array(_polygons(oriented), dtype=object))
     d = b - a
     length = np.hypot(d[:, 0], d[:, 1])
     keep = length > 0
@@ -169,7 +194,8 @@ def build_mesh(
     regions : list of FieldRegion
     ports : list of FieldPort
     mesh_size : float, optional
-        Largest triangle edge [m]; by default half the largest channel width.
+        Largest triangle edge [m]; by default twice the largest channel width over
+        ``across``.
     across : float
         Triangle edges across a channel's width [-] (4 by default; tests refine it); triangle
         edges are also at most ``2 depth / across`` long.
@@ -196,37 +222,29 @@ def build_mesh(
     grid = _SNAP * scale
     lines += [shapely.set_precision(p.boundary, grid) for p in ports if not _is_area(p.boundary)]
     noded = shapely.union_all([shapely.force_2d(x) for x in lines])
-    segs = []
-    for line in shapely.get_parts(noded):
-        xy = np.asarray(line.coords)
-        segs.append(np.stack([xy[:-1], xy[1:]], axis=1))
-    seg = np.concatenate(segs)
-    a, b = seg[:, 0], seg[:, 1]
+    xy, which = shapely.get_coordinates(shapely.get_parts(noded), return_index=True)
+    same = which[1:] == which[:-1]
+    a, b = xy[:-1][same], xy[1:][same]
     length = np.hypot(*(b - a).T)
-    seg, a, b, length = seg[length > 0], a[length > 0], b[length > 0], length[length > 0]
+    a, b, length = a[length > 0], b[length > 0], length[length > 0]
     probes = np.concatenate([a, b, 0.5 * (a + b)])
     _, j = tree.query(probes, k=1)
     step = size[j].reshape(3, -1).min(axis=0)
     n = np.maximum(1, np.ceil(length / step - 1e-9).astype(int))
     vertices, segments = _split(a, b, n, grid)
-    holes = []
-    for poly in _polygons(domain):
-        for ring in poly.interiors:
-            holes.append(np.asarray(shapely.Polygon(ring).point_on_surface().coords)[0])
+    holes = _inner_points(np.array(_polygons(domain), dtype=object))
     depths = np.array([d for _, d in pieces])
-    seeds = []
-    for k, (piece, _) in enumerate(pieces):
-        for part in _polygons(piece):
-            xy = np.asarray(part.point_on_surface().coords)[0]
-            seeds.append([xy[0], xy[1], float(k + 1), 0.0])
+    parts = [np.array(_polygons(piece), dtype=object) for piece, _ in pieces]  # one per depth
+    inside = shapely.get_coordinates(shapely.point_on_surface(np.concatenate(parts)))
+    label = np.repeat(np.arange(1, len(parts) + 1), [len(x) for x in parts])
+    seeds = np.column_stack([inside, label.astype(float), np.zeros(len(label))])
     # triangle works in a unit frame (its tolerances are absolute)
     origin = vertices.min(axis=0)
     area_cap = np.sqrt(3.0) / 4.0 * (cap / scale) ** 2
-    seeds = np.array(seeds)
     seeds[:, :2] = (seeds[:, :2] - origin) / scale
     data = {"vertices": (vertices - origin) / scale, "segments": segments, "regions": seeds}
-    if holes:
-        data["holes"] = (np.array(holes) - origin) / scale
+    if len(holes):
+        data["holes"] = (holes - origin) / scale
     out = tr.triangulate(data, f"pq30AQa{area_cap:.17g}")
     if "triangles" not in out:
         raise FieldError("the mask could not be meshed (crossing or overlapping outlines)")

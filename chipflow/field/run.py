@@ -1,4 +1,4 @@
-"""The field step of a build: solve a drawn chip at the network's port pressures, compare."""
+"""The field step of a build: solve a drawn chip at its supply's operating point, compare."""
 
 from __future__ import annotations
 
@@ -10,6 +10,7 @@ import numpy as np
 from chipflow.field.chip import solve_layout
 from chipflow.field.compare import FieldComparison, compare_with_network, comparison_dict
 from chipflow.field.model import FieldSolution
+from chipflow.field.solve import scaled
 from chipflow.layout.model import Layout
 
 __all__ = ["FieldRun", "run_field"]
@@ -47,9 +48,22 @@ class FieldRun:
 
 
 def run_field(
-    layout: Layout, network_solution, viscosity: float, window, seeded: str = "all", **options
+    layout: Layout,
+    network_solution,
+    viscosity: float,
+    window,
+    seeded: str = "all",
+    *,
+    flow_driven: bool = True,
+    **options,
 ) -> FieldRun:
-    """Solve the field of ``layout`` with the inlet and outlet pressures of the solved network.
+    """Solve the field of ``layout`` at the operating point of the network's supply.
+
+    The field is solved at the network's inlet and outlet node pressures and then scaled
+    (it is linear) to the flow the supply would drive through the field's own resistance:
+    the network's flow for a flow-driven supply (a syringe pump), or the supply's pressure
+    over the tubing plus the field resistance for a pressure-driven one. Resistances do not
+    depend on the scaling.
 
     Parameters
     ----------
@@ -62,6 +76,8 @@ def run_field(
     window : ShearWindow or (float, float) or None
         The cells' floor shear window [Pa].
     seeded : {"all", "bed"}
+    flow_driven : bool
+        True when the supply sets the flow, False when it sets a pressure (or a head).
     **options
         Passed to :func:`chipflow.field.solve_field` (``across``, ``mesh_size``).
     """
@@ -72,5 +88,16 @@ def run_field(
     if window is not None and not isinstance(window, tuple):
         window = (float(window.min), float(window.max))
     solution = solve_layout(layout, pressures, viscosity, **options)
+    n_ch = len(layout.channels.width)
+    ch = layout.channels
+    q_net = float(abs(network_solution.flow[:n_ch][ch.node_a == names.index("inlet")]).sum())
+    q_field = solution.port_flows["inlet"]
+    if flow_driven:
+        q_op = q_net
+    else:  # the supply's pressure across tubing (network) and chip (field) in series
+        p_supply = float(network_solution.pressure.max() - network_solution.pressure.min())
+        r_tubing = (p_supply - (pressures["inlet"] - pressures["outlet"])) / q_net
+        q_op = p_supply / (r_tubing + solution.resistance("inlet", "outlet"))
+    solution = scaled(solution, q_op / q_field)
     comparison = compare_with_network(solution, layout, network_solution, window, seeded)
     return FieldRun(solution, comparison, window, comparison_dict(comparison))

@@ -20,6 +20,7 @@ References
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass
 
@@ -37,6 +38,7 @@ __all__ = [
     "solve_field",
     "solve_on_mesh",
     "solve_reduced",
+    "scaled",
     "velocity_at",
 ]
 
@@ -63,8 +65,9 @@ def solve_field(
     mesh_size : float, optional
         Largest triangle edge [m].
     across : float
-        Triangle edges across a channel [-]; 4 gives about 1 % on the resistance of a channel
-        four times wider than deep, 12 about 0.1 %.
+        Triangle edges across a channel [-]; edges are also at most ``2 depth / across``.
+        At 4 (the default) a straight channel's resistance is within 0.4 % of the exact
+        series for h/w from 0.25 to 2 (0.07 % for square channels), at 8 within 0.06 %.
     solver : {"splu", "spsolve"}
         Sparse direct solve of the reduced saddle-point system: ``splu`` factorises with a
         fill-reducing ordering of the symmetrised pattern; ``spsolve`` is the plain call.
@@ -250,3 +253,17 @@ def velocity_at(solution: FieldSolution, xy: np.ndarray) -> np.ndarray:
     out = np.column_stack([(phi * u[nodes]).sum(axis=1), (phi * u[nodes + nn]).sum(axis=1)])
     out[inside[rows, best] < -1e-9] = np.nan
     return out
+
+
+def scaled(solution: FieldSolution, factor: float) -> FieldSolution:
+    """The same field with every pressure, velocity, shear and flow times ``factor``."""
+    return dataclasses.replace(
+        solution,
+        pressure=solution.pressure * factor,
+        velocity=solution.velocity * factor,
+        velocity_vertices=solution.velocity_vertices * factor,
+        floor_shear=solution.floor_shear * abs(factor),
+        port_flows={k: v * factor for k, v in solution.port_flows.items()},
+        port_pressures={k: v * factor for k, v in solution.port_pressures.items()},
+        dofs=None if solution.dofs is None else solution.dofs * factor,
+    )

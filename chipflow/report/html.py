@@ -482,14 +482,16 @@ def _junctions(results: Mapping[str, Any]) -> str:
     shear = field["floor_shear"]
     intro = (
         f"<p>A 2D depth-averaged solve of the drawn channels ({field['mesh_triangles']} "
-        "triangles), driven by the network's inlet and outlet pressures. The field sees what "
+        "triangles) at the supply's operating point: the pump's flow, or the supply pressure "
+        "shared between the tubing and the field's own resistance. The field sees what "
         "the channel table cannot: the far wall of a junction, the inside of a bend, the ends "
         f"of the bed. Chip resistance: {_quantity(field['resistance'], 'Pa s/uL', 1e-9)} "
         f"against {_quantity(field['network_resistance'], 'Pa s/uL', 1e-9)} in the network "
         f"({ratio:+.1%}). Floor shear over the seeded floor: 5 % of the area below "
         f"{_num(shear['p05'])} Pa, median {_num(shear['p50'])} Pa, 5 % above "
         f"{_num(shear['p95'])} Pa; {field['area_outside_window']:.1%} of it lies outside the "
-        "shear window.</p>"
+        "shear window. The floor shear falls to zero along every side wall, so a strip of "
+        "each channel's floor lies below any window; the table says where the rest lies.</p>"
     )
     zones = field["zones"]
     rows = [
