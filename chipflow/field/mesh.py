@@ -250,10 +250,14 @@ def build_mesh(
         raise FieldError("the mask could not be meshed (crossing or overlapping outlines)")
     points, tris = out["vertices"] * scale + origin, out["triangles"]
     attr = np.rint(out["triangle_attributes"][:, 0]).astype(int)
-    if np.any(attr < 1):
-        raise FieldError("a part of the domain was left without a depth while meshing")
-    depth = depths[attr - 1]
     centroids = points[tris].mean(axis=1)
+    loose = attr < 1  # in a sliver that joined no piece: the nearest labelled triangle's depth
+    if loose.all():
+        raise FieldError("no part of the domain got a depth while meshing")
+    if loose.any():
+        _, near = cKDTree(centroids[~loose]).query(centroids[loose], k=1)
+        attr[loose] = attr[~loose][near]
+    depth = depths[attr - 1]
     _, j = tree.query(centroids, k=1)
     tri_width = width[j]
 
