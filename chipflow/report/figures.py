@@ -33,6 +33,11 @@ _TEAL = "#1f7a7a"
 _BED = "#f3e7cf"
 _WINDOW = "#cfe8c9"
 _SPAN_FOR_LOG = 30.0
+# Figure margins left, right, top, bottom, the gap between panels and the distance of the
+# y-axis labels from the axes [inch].
+_MARGINS = (0.95, 0.15, 0.55, 0.55)
+_PANEL_GAP = 0.35
+_LABEL_OFFSET = 0.6
 
 
 def generation_labels(generations: Sequence[Mapping[str, Any]]) -> list[str]:
@@ -133,7 +138,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         axes[1].set_yscale("log")
 
     series = [
-        (2, _column(generations, "total_area") * 1e6, "total\ncross-section\n[mm$^2$]"),
+        (2, _column(generations, "total_area") * 1e6, "total\ncross-section\n[mm\u00b2]"),
         (3, _column(generations, "mean_velocity") * 1e3, "mean velocity\n[mm/s]"),
         (5, _column(generations, "residence_time"), "residence\ntime [s]"),
     ]
@@ -178,8 +183,18 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     axes[-1].set_xlabel(
         "generation along the path, inlet to outlet (d: distribution, c: collection)", fontsize=7.5
     )
-    fig.align_ylabels(axes)
-    fig.tight_layout(h_pad=0.4)
+    # Fixed margins [inch] and label positions instead of measuring every label's extent (a
+    # tight layout and label alignment would take most of the figure's drawing time).
+    height = fig.get_figheight()
+    for axis in axes:
+        axis.yaxis.set_label_coords(-_LABEL_OFFSET / width, 0.5)
+    fig.subplots_adjust(
+        left=_MARGINS[0] / width,
+        right=1 - _MARGINS[1] / width,
+        top=1 - _MARGINS[2] / height,
+        bottom=_MARGINS[3] / height,
+        hspace=_PANEL_GAP / (panel_height - _PANEL_GAP),
+    )
     return fig
 
 
