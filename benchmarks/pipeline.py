@@ -9,7 +9,7 @@ stage against its floor measured in the same process just after the build:
 
 - ``solve``: a bare ``scipy.sparse.linalg.spsolve`` of the same assembled system;
 - ``dxf``: ezdxf alone writing the same final polylines (``ezdxf.new``, one layer per mask
-  level, ``add_lwpolyline``, ``saveas``);
+  level, ``add_lwpolyline(points, format="xy")``, ``saveas``);
 - ``gds``: gdstk alone writing the same polygons;
 - ``previews``: matplotlib alone rendering the same polygons into the same four files (each
   mask level as one path, the channels coloured by shear as one collection, rasterised when
@@ -147,7 +147,7 @@ def dxf_floor(layout, path: Path) -> float:
     for name, layer_rings in rings:
         doc.layers.add(name)
         for ring in layer_rings:
-            msp.add_lwpolyline(ring, close=True, dxfattribs={"layer": name})
+            msp.add_lwpolyline(ring, format="xy", close=True, dxfattribs={"layer": name})
     doc.saveas(path)
     return time.perf_counter() - start
 
