@@ -178,7 +178,7 @@ def preview_floor(build, out: Path) -> float:
     from matplotlib.patches import PathPatch
     from matplotlib.path import Path as MplPath
 
-    from chipflow.export.preview import RASTER_VERTICES
+    from chipflow.export.preview import RASTER_VERTICES, _channel_outlines
 
     layout = build.layout
     paths = []
@@ -190,7 +190,7 @@ def preview_floor(build, out: Path) -> float:
         codes[starts] = MplPath.MOVETO
         paths.append(MplPath(xy * 1e3, codes))
     ch = layout.channels
-    shapes = shapely.buffer(np.asarray(ch.centreline), ch.width / 2, cap_style="flat")
+    shapes = _channel_outlines(ch)
     xy, idx = shapely.get_coordinates(shapely.get_exterior_ring(shapes), return_index=True)
     polys = np.split(xy * 1e3, np.flatnonzero(np.diff(idx)) + 1)
     values = build.solution.wall_shear_floor[: ch.length.size]
