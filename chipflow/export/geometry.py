@@ -280,15 +280,16 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
     uniq, counts = np.unique(every[:, 0] + 1j * every[:, 1], return_counts=True)
     # vertices where rings touch: never bridge ends
     used = {(p.real, p.imag) for p in uniq[counts > 1].tolist()}
-    exact = bool(np.abs(every).max() < _EXACT_BELOW)
+    exact = bool(np.abs(every).max() < _EXACT_BELOW and np.all(every == np.rint(every)))
     edges = _Edges([shell, *holes]) if exact else None
     order = sorted(range(len(holes)), key=lambda i: (-holes[i][:, 0].max(), -holes[i][:, 1].max()))
     # the outline, then the holes in the order they are joined: each hole's candidate targets
     # are a prefix of this array
     targets = np.vstack([shell, *(holes[i] for i in order)])
     joined = len(shell)
-    bridges = np.empty((len(holes) * per_hole, 4))
-    segments: list[shapely.LineString] = []
+    bridges = np.empty((len(holes) * per_hole, 4))  # x0 y0 x1 y1 of the bridges so far
+    count = 0
+    segments: list[shapely.LineString] = []  # the same, for the GEOS predicates
     result = []
     for i in order:
         hole = holes[i]
@@ -301,18 +302,18 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
             if exact:
                 if not edges.open_segment_inside(a, b, poly):
                     continue
-                if _meets_any(a, b, bridges[: len(segments)]):
+                if _meets_any(a, b, bridges[:count]):
                     continue
-                seg = None
             else:
                 seg = shapely.LineString([a, b])
                 if not shapely.relate_pattern(seg, poly, "TFF**F***"):
                     continue
                 if segments and shapely.intersects(seg, shapely.MultiLineString(segments)):
                     continue
+                segments.append(seg)
             found.append((hj, cand[ci]))
-            bridges[len(segments)] = (*a, *b)
-            segments.append(seg)
+            bridges[count] = (*a, *b)
+            count += 1
             used.update((a, b))
             if len(found) == per_hole:
                 break
@@ -324,8 +325,8 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
 
 
 #: Below this size of grid coordinate, the orientation tests of :class:`_Edges` and
-#: :func:`_meets_any` are exact in floating point (products of two differences stay below
-#: 2**53); larger chips fall back to GEOS predicates.
+#: :func:`_meets_any` on whole numbers are exact in floating point (products of two
+#: differences stay below 2**53); larger chips or off-grid coordinates use GEOS predicates.
 _EXACT_BELOW = 2.0**25
 
 
