@@ -2,20 +2,23 @@
 
 Part 1 builds tree designs with 2^4 .. 2^14 bed channels (``--sizes``), each in a fresh Python
 process so that the peak memory is that size's own. The writers' libraries (ezdxf, gdstk,
-matplotlib) are imported first and timed apart ("imports"), so that a stage and its floor are
-timed alike. Per size it prints the time of every stage (load, size, layout, extract, solve,
-check, DXF, GDSII, previews, report), the total, the peak resident memory, and each writing
-stage against its floor measured in the same process just after the build:
+matplotlib) are imported and used once on something small before the build, timed apart
+("imports"), so that a stage and its floor, which runs after it, are timed alike. Per size it
+prints the time of every stage (load, size, layout, extract, solve, check, DXF, GDSII,
+previews, report), the total, the peak resident memory, and each writing stage against its
+floor measured in the same process just after the build, both in wall time and in processor
+time (the latter is steadier on a machine shared with other work):
 
 - ``solve``: a bare ``scipy.sparse.linalg.spsolve`` of the same assembled system;
 - ``dxf``: ezdxf alone writing the same final polylines (``ezdxf.new``, one layer per mask
   level, ``add_lwpolyline(points, format="xy")``, ``saveas``);
-- ``gds``: gdstk alone writing the same polygons;
+- ``gds``: gdstk alone writing the same polygons (the same vertex limit);
 - ``previews``: matplotlib alone rendering the same polygons into the same four files (each
   mask level as one path, the channels coloured by shear as one collection, rasterised when
   the build rasterises them; SVG and PNG at the same resolution);
-- ``report``: matplotlib alone drawing the same six panels of steps into an SVG, plus the
-  HTML text written as one string.
+- ``report``: matplotlib alone drawing the same six panels of steps into an SVG, the HTML
+  text written as one string, the results dumped as JSON and the per-channel numbers written
+  through the csv module.
 
 It then prints the fitted scaling exponent of build time against bed channels (2^10 and up).
 
@@ -95,22 +98,33 @@ def design_text(n: int) -> str:
 
 
 class StageClock:
-    """Collects the wall time of each stage from the build's progress calls."""
+    """Collects the wall and processor time of each stage from the build's progress calls."""
 
     def __init__(self) -> None:
         self.times: dict[str, float] = {}
+        self.cpu: dict[str, float] = {}
         self._stage: str | None = None
-        self._start = 0.0
+        self._start = self._start_cpu = 0.0
 
     def __call__(self, stage: str | None) -> None:
-        now = time.perf_counter()
+        now, cpu = time.perf_counter(), time.process_time()
         if self._stage is not None:
             self.times[self._stage] = self.times.get(self._stage, 0.0) + now - self._start
-        self._stage, self._start = stage, now
+            self.cpu[self._stage] = self.cpu.get(self._stage, 0.0) + cpu - self._start_cpu
+        self._stage, self._start, self._start_cpu = stage, now, cpu
+
+
+def _now() -> tuple[float, float]:
+    return time.perf_counter(), time.process_time()
+
+
+def _since(start: tuple[float, float]) -> tuple[float, float]:
+    """Wall and processor time since ``start`` (from :func:`_now`)."""
+    return time.perf_counter() - start[0], time.process_time() - start[1]
 
 
 # -- floors: the libraries alone doing the same writing -------------------------------------------
-def solve_floor(build) -> float:
+def solve_floor(build) -> tuple[float, float]:
     from scipy.sparse.linalg import spsolve
 
     from chipflow.network import reduced_system
@@ -118,9 +132,9 @@ def solve_floor(build) -> float:
     sol = build.solution
     fixed = {int(i): float(sol.pressure[i]) for i in np.flatnonzero(_port_mask(sol))}
     system = reduced_system(sol.network, build.fluid, fixed, None)
-    start = time.perf_counter()
+    start = _now()
     spsolve(system.matrix, system.rhs)
-    return time.perf_counter() - start
+    return _since(start)
 
 
 def _port_mask(sol) -> np.ndarray:
@@ -133,7 +147,7 @@ def _port_mask(sol) -> np.ndarray:
     return mask
 
 
-def dxf_floor(layout, path: Path) -> float:
+def dxf_floor(layout, path: Path) -> tuple[float, float]:
     """ezdxf alone writing the same final polylines (one layer per mask level)."""
     import ezdxf
 
@@ -141,7 +155,7 @@ def dxf_floor(layout, path: Path) -> float:
 
     prepared = prepare_layout(layout)
     rings = [(layer.name, [ring.tolist() for ring in layer.rings]) for layer in prepared.layers]
-    start = time.perf_counter()
+    start = _now()
     doc = ezdxf.new("R2000")
     msp = doc.modelspace()
     for name, layer_rings in rings:
@@ -149,28 +163,28 @@ def dxf_floor(layout, path: Path) -> float:
         for ring in layer_rings:
             msp.add_lwpolyline(ring, format="xy", close=True, dxfattribs={"layer": name})
     doc.saveas(path)
-    return time.perf_counter() - start
+    return _since(start)
 
 
-def gds_floor(layout, path: Path) -> float:
+def gds_floor(layout, path: Path) -> tuple[float, float]:
     """gdstk alone writing the same polygons (one layer per mask level)."""
     import gdstk
 
     from chipflow.export.geometry import prepare_layout
 
-    prepared = prepare_layout(layout, holes="keyhole")
+    prepared = prepare_layout(layout)
     scale = prepared.grid_nm * 1e-3  # grid units -> um
     rings = [[ring * scale for ring in layer.rings] for layer in prepared.layers]
-    start = time.perf_counter()
+    start = _now()
     lib = gdstk.Library(unit=1e-6, precision=1e-9)
     cell = lib.new_cell("BENCH")
     for i, layer_rings in enumerate(rings, start=1):
         cell.add(*(gdstk.Polygon(ring, layer=i) for ring in layer_rings))
-    lib.write_gds(path)
-    return time.perf_counter() - start
+    lib.write_gds(path, max_points=8190)
+    return _since(start)
 
 
-def preview_floor(build, out: Path) -> float:
+def preview_floor(build, out: Path) -> tuple[float, float]:
     """matplotlib alone rendering the same polygons into the same four files."""
     import shapely
     from matplotlib.collections import PolyCollection
@@ -196,7 +210,7 @@ def preview_floor(build, out: Path) -> float:
     values = build.solution.wall_shear_floor[: ch.length.size]
     raster = sum(len(p.vertices) for p in paths) + len(xy) > RASTER_VERTICES
     x0, y0, x1, y1 = (v * 1e3 for v in layout.outline.bounds)
-    start = time.perf_counter()
+    start = _now()
     for stem, coloured in (("layout", False), ("shear", True)):
         fig = Figure(figsize=(8.0, max(2.5, 8.0 * (y1 - y0) / (x1 - x0) + 1.2)), dpi=100)
         ax = fig.add_subplot()
@@ -214,13 +228,18 @@ def preview_floor(build, out: Path) -> float:
         ax.set_aspect("equal")
         for fmt in ("svg", "png"):
             fig.savefig(out / f"floor-{stem}.{fmt}", format=fmt, dpi=150)
-    return time.perf_counter() - start
+    return _since(start)
 
 
-def report_floor(build, out: Path) -> float:
-    """matplotlib alone drawing six panels of steps into an SVG, plus the HTML as one string."""
+def report_floor(build, out: Path) -> tuple[float, float]:
+    """matplotlib alone drawing six panels of steps into an SVG, the HTML as one string, the
+    results as JSON and the channel table through the csv module."""
+    import csv
+    import json
+
     from matplotlib.figure import Figure
 
+    from chipflow.export.bundle import CSV_COLUMNS
     from chipflow.report import report_html
 
     rows = build.results["generations"]
@@ -229,13 +248,44 @@ def report_floor(build, out: Path) -> float:
     data = [np.array([float(r[k] or 0.0) for r in rows]) for k in keys]
     x = np.arange(len(rows), dtype=float)
     html = report_html(build.results, {})
-    start = time.perf_counter()
+    sol = build.solution
+    columns = [sol.flow, sol.pressure[sol.network.node_a], sol.pressure[sol.network.node_b],
+               sol.mean_velocity, sol.wall_shear_floor, sol.wall_shear_mean, sol.wall_shear_max,
+               sol.reynolds, sol.residence_time, sol.network.width, sol.network.depth,
+               sol.network.length]  # fmt: skip
+    columns = [np.nan_to_num(c, posinf=0.0) for c in columns]
+    start = _now()
     fig = Figure(figsize=(7.5, 1.55 * 6 + 0.8))
     for ax, y in zip(fig.subplots(6, 1, sharex=True), data, strict=True):
         ax.plot(np.repeat(x, 2) + np.tile([-0.5, 0.5], x.size), np.repeat(y, 2))
     fig.savefig(out / "floor-profile.svg", format="svg")
     (out / "floor-report.html").write_text(html, encoding="utf-8")
-    return time.perf_counter() - start
+    (out / "floor-results.json").write_text(json.dumps(build.results, indent=2, default=str))
+    with open(out / "floor-channels.csv", "w", newline="") as stream:
+        writer = csv.writer(stream, lineterminator="\n")
+        writer.writerow(CSV_COLUMNS)
+        writer.writerows(zip(*(c.tolist() for c in columns), strict=True))
+    return _since(start)
+
+
+def _warm_up() -> None:
+    """Draw and write one small thing with each library (fonts, caches), so that neither the
+    build's stage nor its floor, which runs after it, pays a first-use cost alone."""
+    import io
+
+    import ezdxf
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(2, 2))
+    ax = fig.add_subplot()
+    ax.plot([0, 1], [0, 1], label="warm-up")
+    ax.set_title("warm-up")
+    ax.legend()
+    for fmt in ("svg", "png"):
+        fig.savefig(io.BytesIO(), format=fmt)
+    doc = ezdxf.new("R2000")
+    doc.modelspace().add_lwpolyline([(0, 0), (1, 0), (1, 1)], close=True)
+    doc.write(io.StringIO())
 
 
 def peak_memory_mb() -> float:
@@ -255,6 +305,7 @@ def one_size(n: int, out: Path) -> dict[str, float]:
     import matplotlib.backends.backend_svg  # noqa: F401
     import matplotlib.figure  # noqa: F401
 
+    _warm_up()
     imports = time.perf_counter() - start
     text = design_text(n)
     clock = StageClock()
@@ -269,16 +320,20 @@ def one_size(n: int, out: Path) -> dict[str, float]:
     clock(None)
     row = {stage: clock.times.get(stage, 0.0) for stage in STAGES}
     row["total"] = sum(row.values())
+    row.update({f"{stage}_cpu": clock.cpu.get(stage, 0.0) for stage in STAGES})
     row["memory_mb"] = peak_memory_mb()
     row["imports"] = imports
     row["channels"] = float(build.solution.network.n_channels)
     floors = out / f"floors-{n}"
     floors.mkdir(exist_ok=True)
-    row["solve_floor"] = solve_floor(build)
-    row["dxf_floor"] = dxf_floor(build.layout, floors / "floor.dxf")
-    row["gds_floor"] = gds_floor(build.layout, floors / "floor.gds")
-    row["previews_floor"] = preview_floor(build, floors)
-    row["report_floor"] = report_floor(build, floors)
+    for stage, floor, args in (
+        ("solve", solve_floor, (build,)),
+        ("dxf", dxf_floor, (build.layout, floors / "floor.dxf")),
+        ("gds", gds_floor, (build.layout, floors / "floor.gds")),
+        ("previews", preview_floor, (build, floors)),
+        ("report", report_floor, (build, floors)),
+    ):
+        row[f"{stage}_floor"], row[f"{stage}_floor_cpu"] = floor(*args)
     return row
 
 
@@ -304,13 +359,17 @@ def run_sizes(sizes: list[int], out: Path) -> None:
                  row["memory_mb"], row["imports"]]  # fmt: skip
         print("  ".join(f"{c:>8.3f}" if isinstance(c, float) else f"{c:>8}" for c in cells))
         sys.stdout.flush()
-    print("\neach writing stage against its floor (same process): stage [s] / floor [s] = ratio")
-    for n, row in rows:
-        parts = [
-            f"{s} {row[s]:.3f}/{row[s + '_floor']:.3f} = {row[s] / row[s + '_floor']:.2f}"
-            for s in FLOORED
-        ]
-        print(f"2^{n:<3} " + "   ".join(parts))
+    for kind, key in (("wall", ""), ("processor", "_cpu")):
+        print(
+            f"\neach stage against its floor, {kind} time (same process): "
+            "stage [s] / floor [s] = ratio"
+        )
+        for n, row in rows:
+            parts = []
+            for s in FLOORED:
+                stage, floor = row[s + key], row[f"{s}_floor{key}"]
+                parts.append(f"{s} {stage:.3f}/{floor:.3f} = {stage / max(floor, 1e-9):.2f}")
+            print(f"2^{n:<3} " + "   ".join(parts))
     if len(rows) >= 2:
         beds = np.array([2.0**n for n, _ in rows])
         totals = np.array([r["total"] for _, r in rows])

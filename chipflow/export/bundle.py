@@ -139,10 +139,15 @@ def channels_csv(build: Build) -> str:
     return text.getvalue()
 
 
-def _csv_column(values: np.ndarray) -> list[str]:
+def _csv_column(values: np.ndarray) -> list:
+    """One column's cells: floats as they are (the csv module writes ``repr``), non-finite
+    floats blank, anything else as text."""
     values = np.asarray(values)
     if values.dtype.kind == "f":
-        return [repr(float(v)) if math.isfinite(v) else "" for v in values.tolist()]
+        cells = values.astype(float).tolist()
+        for i in np.flatnonzero(~np.isfinite(values)).tolist():
+            cells[i] = ""
+        return cells
     return [str(v) for v in values.tolist()]
 
 
