@@ -75,6 +75,16 @@ def _use_log(*arrays: np.ndarray) -> bool:
     return float(values.max() / values.min()) > _SPAN_FOR_LOG
 
 
+def _log_axis(ax) -> None:
+    """A logarithmic y axis labelled in plain numbers (0.1, 1, 10), which needs no math-text
+    typesetting."""
+    from matplotlib.ticker import LogFormatter
+
+    ax.set_yscale("log")
+    ax.yaxis.set_major_formatter(LogFormatter())
+    ax.yaxis.set_minor_formatter(LogFormatter(labelOnlyBase=False))
+
+
 def _steps(ax, x: np.ndarray, y: np.ndarray, **style) -> None:
     """Draw one flat step per generation, from x - 0.5 to x + 0.5."""
     xs = np.repeat(x, 2) + np.tile([-0.5, 0.5], x.size)
@@ -135,7 +145,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     axes[1].set_ylabel("flow\n[uL/min]")
     axes[1].legend(loc="best", fontsize=7, frameon=False)
     if _use_log(q, q_total):
-        axes[1].set_yscale("log")
+        _log_axis(axes[1])
 
     series = [
         (2, _column(generations, "total_area") * 1e6, "total\ncross-section\n[mm\u00b2]"),
@@ -146,7 +156,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         _steps(axes[row], x, values, color=_INK, lw=1.6)
         axes[row].set_ylabel(ylabel)
         if _use_log(values):
-            axes[row].set_yscale("log")
+            _log_axis(axes[row])
 
     # floor wall shear with the window
     floor = _column(generations, "wall_shear_floor")
@@ -165,7 +175,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     ax.set_ylabel("wall shear\n[Pa]")
     ax.legend(loc="best", fontsize=7, frameon=False)
     if _use_log(*shown):
-        ax.set_yscale("log")
+        _log_axis(ax)
 
     roles = [g.get("role") for g in generations]
     for axis, title in zip(axes, PROFILE_PANELS, strict=True):
