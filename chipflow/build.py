@@ -18,10 +18,12 @@ Stages report their name to an optional ``progress`` callable, for the command l
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
+import math
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -43,6 +45,7 @@ from chipflow.spec.export import ExportSettings, read_export
 from chipflow.spec.network import is_network_design, load_network_design
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import SupplySpec, read_supply
+from chipflow.spec.tolerances import read_tolerances
 from chipflow.spec.tree import load_tree_spec
 from chipflow.units import RESULT_UNITS
 
@@ -81,7 +84,7 @@ def read_design_source(path: str | Path) -> DesignSource:
     from chipflow.spec.reader import read_design_bytes
 
     raw = read_design_bytes(path)
-    top = parse_design_text(raw.decode("utf-8"), str(path))
+    top = parse_design_text(raw.decode("utf-8-sig"), str(path))
     return DesignSource(str(path), top, hashlib.sha256(raw).hexdigest())
 
 
@@ -105,6 +108,9 @@ class Build:
         Mask-file options (None when there is nothing to draw).
     results : dict
         JSON-able results in SI units (see :data:`RESULT_UNITS`).
+    field : FieldRun or None
+        The field solve of the drawing and its comparison with the network (None when it
+        was not run).
     """
 
     source: DesignSource
@@ -116,7 +122,8 @@ class Build:
     solution: Solution
     checks: tuple[CheckResult, ...]
     export: ExportSettings | None
-    results: dict[str, Any] = field(repr=False)
+    results: dict[str, Any] = dataclasses.field(repr=False)
+    field: Any = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -128,7 +135,13 @@ def _noop(stage: str) -> None:
     return None
 
 
-def build_design(source: DesignSource | str | Path, progress: Progress | None = None) -> Build:
+def build_design(
+    source: DesignSource | str | Path,
+    progress: Progress | None = None,
+    *,
+    allow_large: bool = False,
+    field: bool | None = None,
+) -> Build:
     """Run every stage on a design file.
 
     Parameters
@@ -137,6 +150,14 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
         The design file.
     progress : callable, optional
         Called with the name of each stage as it starts.
+    allow_large : bool, optional
+        Draw a tree even when it needs more memory than the machine can spare (see
+        :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
+    field : bool, optional
+        Solve the 2D field of the drawing and compare it with the network. By default only
+        when the chip is small enough to solve in seconds
+        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
+        no field.
 
     Returns
     -------
@@ -146,7 +167,8 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
     ------
     ChipflowError
         Bad input (SpecError), targets that cannot be met (DesignError), a design that does
-        not fit on the chip (LayoutError), an unsolvable network (NetworkError).
+        not fit on the chip (LayoutError) or in memory (TooLargeError), an unsolvable network
+        (NetworkError).
     """
     progress = progress or _noop
     if not isinstance(source, DesignSource):
@@ -155,7 +177,7 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
     top = source.top
     try:
         if "tree" in top:
-            return _build_tree(source, progress)
+            return _build_tree(source, progress, allow_large, field)
         if is_network_design(top):
             return _build_network(source, progress)
     except ChipflowError as exc:
@@ -170,8 +192,14 @@ def build_design(source: DesignSource | str | Path, progress: Progress | None = 
 
 
 # -- tree designs -------------------------------------------------------------------------------
-def _build_tree(source: DesignSource, progress: Progress) -> Build:
+def _build_tree(
+    source: DesignSource,
+    progress: Progress,
+    allow_large: bool = False,
+    run_field: bool | None = None,
+) -> Build:
     from chipflow.layout import LayoutRules, check_rules, draw, extract_network
+    from chipflow.layout.budget import check_size
     from chipflow.spec.chip import read_chip
 
     top = source.top
@@ -180,8 +208,10 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     supply = read_supply(top, spec.flow)
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
+    read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
     progress("size")
     design = size_tree(spec)
+    check_size(sum(level.count for level in design.levels), allow_large=allow_large)
     progress("layout")
     keepout = {} if port_keepout is None else {"port_keepout": port_keepout}
     rules = LayoutRules.from_fabrication(design.fabrication, **keepout)
@@ -198,11 +228,21 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     solution = solve(network, spec.fluid, pressures, flows)
     progress("check")
     findings = check_rules(layout, rules)
-    window = culture.window or _targets_window(spec)
+    targets = _targets_window(spec)
+    window = culture.window or targets
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
     checks = (
-        *culture_checks(solution, generations, culture, window, residence_target),
+        *culture_checks(
+            solution,
+            generations,
+            culture,
+            culture.window,
+            residence_target,
+            targets=targets,
+            target_kind=spec.targets.kind,
+            target_levels=spec.targets.levels,
+        ),
         *pressure_checks(solution, limits),
         *fabrication_results(findings),
     )
@@ -219,6 +259,17 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
     )
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings]
+    field_run = None
+    if run_field is None:
+        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+    if run_field:
+        from chipflow.field.run import run_field as solve_chip_field
+
+        progress("field")
+        field_run = solve_chip_field(layout, solution, spec.fluid.viscosity, window, culture.seeded)
+    results["field"] = None if field_run is None else field_run.results
     return Build(
         source,
         spec.name,
@@ -230,15 +281,20 @@ def _build_tree(source: DesignSource, progress: Progress) -> Build:
         tuple(checks),
         export,
         results,
+        field_run,
     )
 
 
 def _targets_window(spec) -> ShearWindow | None:
+    """The ``[targets]`` window, one-sided when only one bound is given (None when the
+    targets are the ``[culture]`` cell type's window, checked as such, or give no bound)."""
     t = spec.targets
-    if t.minimum is None or t.maximum is None:
+    if t.cell is not None or (t.minimum is None and t.maximum is None):
         return None
-    source = f"design file {Path(spec.source).name}"
-    return ShearWindow("design targets", t.minimum, t.maximum, source)
+    source = f"design file {Path(spec.source).name} [targets]"
+    low = 0.0 if t.minimum is None else t.minimum
+    high = math.inf if t.maximum is None else t.maximum
+    return ShearWindow("design targets", low, high, source)
 
 
 # -- explicit networks ---------------------------------------------------------------------------
@@ -274,6 +330,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     results["fabrication"] = None
     results["warnings"] = []
+    results["field"] = None
     return Build(
         source,
         design.name,
@@ -391,8 +448,11 @@ def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[
         "chip": {
             "width": float(layout.outline.bounds[2] - layout.outline.bounds[0]),
             "height": float(layout.outline.bounds[3] - layout.outline.bounds[1]),
+            "margin": layout.margin,
         },
         "layers": [{"name": layer.name, "depth": layer.depth} for layer in layout.layers],
+        # width of every drawn channel on the mask polygons, in the order of channels.csv
+        "mask_width": [float(w) for w in layout.channels.mask_width],
         "findings": [_finding_dict(f) for f in findings],
     }
 

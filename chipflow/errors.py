@@ -18,6 +18,9 @@ __all__ = [
     "DesignError",
     "LayoutError",
     "ExportError",
+    "ArgumentError",
+    "TooLargeError",
+    "FieldError",
 ]
 
 
@@ -47,3 +50,15 @@ class LayoutError(ChipflowError, ValueError):
 
 class ExportError(ChipflowError):
     """A mask or report file could not be written."""
+
+
+class ArgumentError(ChipflowError, ValueError):
+    """A library function was called with an argument it cannot use (wrong type or value)."""
+
+
+class TooLargeError(LayoutError):
+    """The design would need more memory to draw than the machine can spare."""
+
+
+class FieldError(ChipflowError, ValueError):
+    """A mask cannot be meshed or solved as a flow field (no ports, disconnected, ...)."""

@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 import pint
 
-from chipflow.errors import UnitError
+from chipflow.errors import ArgumentError, UnitError
 
 __all__ = [
     "ureg",
@@ -124,7 +124,76 @@ KINDS: dict[str, Kind] = {
     "dimensionless": Kind("plain number", "dimensionless", "0.5"),
 }
 
-_NUMBER_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+_NUMBER_UNIT = re.compile(r"([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*)", re.DOTALL)
+
+#: Longest quantity text accepted [characters]: far above any real one ("1.2e-3 uL/min/cm^2").
+MAX_QUANTITY_LENGTH = 100
+#: Most unit factors in one unit ("mPa*s" has two).
+MAX_UNIT_FACTORS = 8
+#: Deepest parentheses in one unit ("uL/(min*cm^2)" has depth 1).
+MAX_UNIT_NESTING = 2
+#: Largest and smallest non-zero SI magnitudes accepted: beyond them no quantity is physical.
+SI_MAGNITUDE_RANGE = (1e-60, 1e60)
+
+# One token of a unit expression: a unit name, an exponent operator with its integer, a
+# product or quotient sign, a parenthesis, or white space (a product, as in "mPa s").
+_UNIT_TOKEN = re.compile(
+    r"(?P<name>(?:[^\W\d]|[\u00b0%])\w*)|(?P<power>(?:\*\*|\^)\s*[-+]?\d+)|(?P<one>1(?![\d.eE]))"
+    r"|(?P<op>[*/])|(?P<open>\()|(?P<close>\))|(?P<space>\s+)"
+)
+
+
+def _unit_problem(unit: str) -> str | None:
+    """Why ``unit`` is not a well-formed unit expression (None when it is).
+
+    The grammar is small on purpose (names, integer powers other than zero, ``*``, ``/``, white
+    space, balanced parentheses), and the scan is one pass over the text, so that anything
+    pint would choke on (stray signs, numbers, zero powers, deep nesting) is refused first.
+
+    >>> _unit_problem("uL/(min*cm^2)") is None, _unit_problem("um;;"), _unit_problem("um**-0")
+    (True, "unexpected ';'", 'a power of zero')
+    """
+    depth = factors = 0
+    expect_factor = True  # at the start, after an operator or an opening parenthesis
+    pos = 0
+    while pos < len(unit):
+        m = _UNIT_TOKEN.match(unit, pos)
+        if m is None:
+            return f"unexpected {unit[pos]!r}"
+        pos, kind = m.end(), m.lastgroup
+        if kind == "space":
+            continue
+        if kind in ("name", "one", "open"):
+            if kind == "open":
+                if not expect_factor:
+                    return "'(' without an operator before it"
+                depth += 1
+                if depth > MAX_UNIT_NESTING:
+                    return "parentheses nested too deeply"
+                expect_factor = True
+                continue
+            factors += 1
+            if factors > MAX_UNIT_FACTORS:
+                return f"more than {MAX_UNIT_FACTORS} unit factors"
+            expect_factor = False
+        elif kind == "power":
+            if expect_factor:
+                return "a power without its unit"
+            if int(m.group().lstrip("*^ ")) == 0:
+                return "a power of zero"
+        elif kind == "op":
+            if expect_factor:
+                return f"{m.group()!r} without a unit before it"
+            expect_factor = True
+        elif kind == "close":
+            if expect_factor or depth == 0:
+                return "unbalanced parentheses"
+            depth -= 1
+    if depth:
+        return "unbalanced parentheses"
+    if expect_factor and factors:
+        return "the unit ends with an operator"
+    return None
 
 
 def _fail(kind: Kind, value: object, where: str, why: str) -> UnitError:
@@ -168,7 +237,9 @@ def to_si(value: object, kind: str, *, where: str = "") -> float:
     ...
     chipflow.errors.UnitError: wrong kind of unit: expected a flow rate ..., got '12 um'
     """
-    spec = KINDS[kind]
+    spec = KINDS.get(kind) if isinstance(kind, str) else None
+    if spec is None:
+        raise ArgumentError(f"unknown kind of quantity {kind!r}; known: {', '.join(KINDS)}")
     if isinstance(value, bool):
         raise _fail(spec, value, where, "not a quantity")
     if isinstance(value, pint.Quantity):
@@ -178,26 +249,40 @@ def to_si(value: object, kind: str, *, where: str = "") -> float:
             raise _fail(spec, value, where, "missing unit")
         quantity = ureg.Quantity(float(value), "")
     elif isinstance(value, str):
-        match = _NUMBER_UNIT.match(value)
+        if len(value) > MAX_QUANTITY_LENGTH:
+            shown = f"{value[:40]}... ({len(value)} characters)"
+            raise _fail(spec, shown, where, f"too long (at most {MAX_QUANTITY_LENGTH} characters)")
+        match = _NUMBER_UNIT.fullmatch(value.strip())
         if match is None:
             raise _fail(spec, value, where, "not a quantity")
         number, unit = match.groups()
         if not unit and kind != "dimensionless":
             raise _fail(spec, value, where, "missing unit")
+        problem = _unit_problem(unit)
+        if problem is not None:
+            raise _fail(spec, value, where, f"malformed unit ({problem})")
         try:
             quantity = ureg.Quantity(float(number), unit.replace("^", "**"))
-        except (pint.PintError, ValueError, TypeError, AttributeError, SyntaxError):
+        except (pint.PintError, ValueError, TypeError, AttributeError, SyntaxError, KeyError):
             raise _fail(spec, value, where, "unknown unit") from None
+        except (ArithmeticError, RecursionError):
+            raise _fail(spec, value, where, "malformed unit") from None
     else:
         raise _fail(spec, value, where, "not a quantity")
     try:
-        magnitude = float(quantity.to(spec.si_unit).magnitude)
+        with np.errstate(all="ignore"):
+            magnitude = float(quantity.to(spec.si_unit).magnitude)
     except pint.DimensionalityError:
         raise _fail(spec, value, where, "wrong kind of unit") from None
-    except (pint.PintError, TypeError, ValueError):
+    except (pint.PintError, TypeError, ValueError, KeyError, ArithmeticError, RecursionError):
         raise _fail(spec, value, where, "not a quantity") from None
     if not math.isfinite(magnitude):
         raise _fail(spec, value, where, "not a finite number")
+    low, high = SI_MAGNITUDE_RANGE
+    if magnitude != 0.0 and not low <= abs(magnitude) <= high:
+        raise _fail(
+            spec, value, where, f"out of any physical range ({magnitude:.3g} {spec.si_unit})"
+        )
     return magnitude
 
 
@@ -263,6 +348,8 @@ RESULT_UNITS: dict[str, str] = {
     # geometry
     "count": "1",
     "width": "m",
+    "margin": "m",
+    "mask_width": "m",
     "depth": "m",
     "length": "m",
     "aspect_ratio": "1",
@@ -292,6 +379,23 @@ RESULT_UNITS: dict[str, str] = {
     "reynolds": "1",
     "residence_time": "s",
     "entrance_length": "m",
+    # field solve
+    "resistance": "Pa*s/m^3",
+    "network_resistance": "Pa*s/m^3",
+    "p05": "Pa",
+    "p50": "Pa",
+    "p95": "Pa",
+    "field_shear": "Pa",
+    "network_shear": "Pa",
+    "seeded_area": "m^2",
+    "area_outside_window": "1",
+    "below_window": "1",
+    "above_window": "1",
+    "mesh_triangles": "1",
+    "max_deviation": "1",
+    "field_cv": "1",
+    "network_cv": "1",
+    "area": "m^2",
 }
 
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import pytest
 
 from chipflow.checks.cell_types import DEFAULT_O2_CONSUMPTION
@@ -27,6 +29,7 @@ def test_absent_sections_give_cited_defaults():
     assert c.cell_density == pytest.approx(1e9) and "assumption" in c.cell_density_source
     assert (c.o2_inlet, c.o2_diffusivity) == (0.2, 3e-9)
     assert c.o2_consumption == DEFAULT_O2_CONSUMPTION == 4.8e-17
+    assert not c.cells  # no cells declared: no oxygen check
     # Duffy et al. 1998 (from memory): 200 kPa low end; safety factor 2 (ours); no pump.
     assert (lim.bond_pressure, lim.safety_factor, lim.pump_pressure) == (200e3, 2.0, None)
 
@@ -49,8 +52,17 @@ def test_cell_type_window_and_units_at_the_boundary():
 def test_cell_type_uptake_is_used_when_known():
     c = culture('cell_type = "hepatocyte"')
     assert c.o2_consumption == pytest.approx(4.8e-17) and "42113" in c.o2_consumption_source
+    assert c.cells
+    # every cell type has its own uptake, with its source; rows from memory say so
     other = culture('cell_type = "mouse-esc"')
-    assert "assumption" in other.o2_consumption_source
+    assert other.o2_consumption == pytest.approx(2e-17)
+    assert "from memory" in other.o2_consumption_source
+    endo = culture('cell_type = "endothelial"')
+    assert endo.o2_consumption == pytest.approx(1e-17) and "Wagner" in endo.o2_consumption_source
+    with pytest.raises(SpecError, match="culture.o2_consumption: cell_density is given without"):
+        culture('cell_density = "1e5 cell/cm^2"')
+    own = culture('o2_consumption = "30 amol/s"')
+    assert own.cells and own.o2_consumption == pytest.approx(3e-17)
 
 
 def test_window_override():
@@ -59,8 +71,11 @@ def test_window_override():
     assert "overrides" in c.window.source and "chip.toml" in c.window.source
     own = culture('shear_min = "0.2 Pa"\nshear_max = "0.8 Pa"')
     assert (own.window.min, own.window.max) == (0.2, 0.8)
-    with pytest.raises(SpecError, match="culture.shear_max: without a cell_type"):
-        culture('shear_min = "0.2 Pa"')
+    # one bound alone is a one-sided window
+    low = culture('shear_min = "0.2 Pa"').window
+    assert (low.min, low.max, low.text) == (0.2, math.inf, "at least 0.2 Pa")
+    high = culture('shear_max = "0.1 Pa"').window
+    assert (high.min, high.max, high.text) == (0.0, 0.1, "at most 0.1 Pa")
     with pytest.raises(SpecError, match="culture.shear_max: must be greater than shear_min"):
         culture('cell_type = "endothelial"\nshear_max = "0.3 Pa"')
 

@@ -30,7 +30,8 @@ def test_json_keys_and_values() -> None:
     result = run([*ARGS, "--json", "--viscosity", "1mPa*s"])
     assert result.exit_code == 0
     data = json.loads(result.output)
-    assert set(data) == set(SI_UNITS) | {"units"}
+    assert set(data) == set(SI_UNITS) | {"units", "warnings"}
+    assert data["warnings"] == []  # Re 0.03, entrance length 0.4 % of the channel
     assert set(data["units"]) == set(SI_UNITS)
     assert data["flow"] == pytest.approx(5e-9 / 60)
     assert data["viscosity"] == 1e-3

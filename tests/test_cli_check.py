@@ -36,7 +36,8 @@ def test_example_json_structure_and_values() -> None:
     result = run(str(EXAMPLE), "--json")
     assert result.exit_code == 0, result.output
     data = json.loads(result.output)
-    assert set(data) == {"design", "fluid", "nodes", "channels", "ports", "units"}
+    assert set(data) == {"design", "fluid", "nodes", "channels", "ports", "units", "warnings"}
+    assert data["warnings"] == []
     assert data["design"] == "bench loop"
     assert set(data["fluid"]) >= {"viscosity", "density"}
     assert all(set(c) == CHANNEL_KEYS for c in data["channels"])

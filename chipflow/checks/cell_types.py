@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import difflib
 import functools
+import math
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -78,11 +79,27 @@ class ShearWindow:
     max: float
     source: str
 
+    @property
+    def text(self) -> str:
+        """The window in words: "0.5-1 Pa", "at most 2 Pa" (no lower bound: ``min`` is 0) or
+        "at least 0.5 Pa" (no upper bound: ``max`` is infinite).
+
+        >>> ShearWindow("x", 0.0, 2.0, "").text, ShearWindow("x", 0.5, math.inf, "").text
+        ('at most 2 Pa', 'at least 0.5 Pa')
+        """
+        if math.isinf(self.max):
+            return f"at least {self.min:.3g} Pa"
+        if self.min <= 0.0:
+            return f"at most {self.max:.3g} Pa"
+        return f"{self.min:.3g}-{self.max:.3g} Pa"
+
     def to_dict(self) -> dict[str, Any]:
+        """JSON-able; a missing bound is None."""
         return {
             "cell_type": self.cell_type,
-            "min": self.min,
-            "max": self.max,
+            "min": self.min if self.min > 0.0 else None,
+            "max": self.max if math.isfinite(self.max) else None,
+            "text": self.text,
             "source": self.source,
         }
 

@@ -15,6 +15,7 @@ Examples
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 
 import numpy as np
@@ -22,9 +23,11 @@ from numpy.typing import ArrayLike
 
 from chipflow.checks.cell_types import ShearWindow
 from chipflow.checks.result import CheckResult
+from chipflow.errors import ArgumentError
 
 __all__ = ["check_floor_shear", "SHEAR_TOLERANCE", "shear_status"]
 
+_KIND_WORDS = {"floor": "floor shear", "mean": "mean wall shear", "max": "peak wall shear"}
 #: Relative band outside the shear window that warns rather than fails (chipflow default).
 SHEAR_TOLERANCE = 0.2
 
@@ -52,8 +55,11 @@ def check_floor_shear(
     window: ShearWindow,
     *,
     tolerance: float = SHEAR_TOLERANCE,
+    kind: str = "floor",
 ) -> list[CheckResult]:
     """One result per generation: its floor wall shear against the cell type's window.
+
+    A one-sided window (``window.min == 0`` or ``window.max == inf``) is a one-sided check.
 
     Parameters
     ----------
@@ -65,6 +71,9 @@ def check_floor_shear(
         Window of the cell type [Pa] and its source.
     tolerance : float, optional
         Relative band outside the window that warns rather than fails [-].
+    kind : str, optional
+        Which wall shear ``shear`` is: "floor" (centre of the floor), "mean" or "max"
+        (peak); named in the results.
 
     Returns
     -------
@@ -74,29 +83,35 @@ def check_floor_shear(
     """
     tau = np.asarray(shear, dtype=float).ravel()
     if tau.size != len(labels):
-        raise ValueError(f"{len(labels)} labels but {tau.size} shear values")
+        raise ArgumentError(f"{len(labels)} labels but {tau.size} shear values")
+    if kind not in _KIND_WORDS:
+        raise ArgumentError(f"kind must be one of {', '.join(_KIND_WORDS)}, got {kind!r}")
     status = shear_status(tau, window.min, window.max, tolerance)
-    window_text = f"{window.min:.3g}-{window.max:.3g} Pa for {window.cell_type}"
+    window_text = f"the window ({window.text} for {window.cell_type})"
+    words = _KIND_WORDS[kind]
     results = []
     for label, value, grade in zip(labels, tau, status, strict=True):  # loop over generations
         if value < window.min:
-            limit, side = window.min, f"below the window {window_text}"
+            limit, side = window.min, f"below {window_text}"
             advice = "raise the flow or make the channel shallower"
         elif value > window.max:
-            limit, side = window.max, f"above the window {window_text}"
+            limit, side = window.max, f"above {window_text}"
             advice = "lower the flow or make the channel deeper or wider"
         else:
-            nearer_low = value - window.min <= window.max - value
-            limit = window.min if nearer_low else window.max
-            side, advice = f"inside the window {window_text}", ""
-        message = f"floor shear {value:.3g} Pa is {side}"
+            if math.isinf(window.max):
+                limit = window.min
+            elif window.min <= 0.0:
+                limit = window.max
+            else:
+                nearer_low = value - window.min <= window.max - value
+                limit = window.min if nearer_low else window.max
+            side, advice = f"inside {window_text}", ""
+        message = f"{words} {value:.3g} Pa is {side}"
         if grade == "warn":
             message += f" by less than {tolerance:.0%}: confirm on the bench; {advice}"
         elif grade == "fail":
             message += f": {advice}"
         results.append(
-            CheckResult(
-                f"floor shear: {label}", str(grade), value, limit, "Pa", window.source, message
-            )
+            CheckResult(f"{words}: {label}", str(grade), value, limit, "Pa", window.source, message)
         )
     return results

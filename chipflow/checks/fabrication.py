@@ -11,6 +11,7 @@ from collections.abc import Iterable
 from typing import Any
 
 from chipflow.checks.result import CheckResult
+from chipflow.errors import ArgumentError
 
 __all__ = ["fabrication_results", "SEVERITY_STATUS"]
 
@@ -44,7 +45,9 @@ def fabrication_results(findings: Iterable[Any]) -> list[CheckResult]:
     for finding in findings:  # findings are few: one per broken rule and place
         severity = str(finding.severity)
         if severity not in SEVERITY_STATUS:
-            raise ValueError(f"fabrication finding {finding.rule!r}: unknown severity {severity!r}")
+            raise ArgumentError(
+                f"fabrication finding {finding.rule!r}: unknown severity {severity!r}"
+            )
         where = []
         x, y = _number(getattr(finding, "x", None)), _number(getattr(finding, "y", None))
         if x is not None and y is not None:

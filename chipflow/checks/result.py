@@ -6,6 +6,8 @@ import math
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 
+from chipflow.errors import ArgumentError
+
 __all__ = ["CheckResult", "STATUSES", "worst_status", "grade_upper"]
 
 #: Check outcomes, best first.
@@ -43,7 +45,7 @@ class CheckResult:
     >>> CheckResult("x", "ok", None, None, "", "", "")
     Traceback (most recent call last):
     ...
-    ValueError: check 'x': status must be one of pass, warn, fail, got 'ok'
+    chipflow.errors.ArgumentError: check 'x': status must be one of pass, warn, fail, got 'ok'
     """
 
     name: str
@@ -56,7 +58,7 @@ class CheckResult:
 
     def __post_init__(self) -> None:
         if self.status not in STATUSES:
-            raise ValueError(
+            raise ArgumentError(
                 f"check {self.name!r}: status must be one of {', '.join(STATUSES)}, "
                 f"got {self.status!r}"
             )

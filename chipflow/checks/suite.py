@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from chipflow.checks.cell_types import ShearWindow
+from chipflow.checks.conditions import check_temperature
 from chipflow.checks.culture import check_floor_shear
 from chipflow.checks.flow import check_entrance_length, check_reynolds, check_uniformity
 from chipflow.checks.pressure import check_bond_pressure, check_pump_pressure
@@ -30,12 +31,57 @@ from chipflow.spec.culture import Culture, Limits
 __all__ = ["culture_checks", "pressure_checks"]
 
 
+class _ChannelLabels:
+    """Labels of a network's channels, made only for the one a check names."""
+
+    def __init__(self, network) -> None:
+        self.network = network
+
+    def __getitem__(self, index: int) -> str:
+        net, i = self.network, int(index)
+        generation = int(net.generation[i])
+        where = f" ({net.role[i]}, generation {generation})" if generation >= 0 else ""
+        return f"channel {net.channel_name(i)}{where}"
+
+
+def _shear_results(
+    solution: Solution,
+    rows: list[dict[str, Any]],
+    levels: list[int],
+    window: ShearWindow,
+    kind: str,
+    suffix: str = "",
+) -> list[CheckResult]:
+    """One result per level in ``levels``; without levels, the channels of lowest and highest
+    shear of the whole chip (tubing left out)."""
+    key = {"floor": "wall_shear_floor", "mean": "wall_shear_mean", "max": "wall_shear_max"}[kind]
+    if rows:
+        labels = generation_labels(rows)
+        values = np.array([rows[i][key] for i in levels])
+        names = [f"{labels[i]}{suffix}" for i in levels]
+    else:
+        net = solution.network
+        chip = np.flatnonzero(net.role != "tubing")
+        if chip.size == 0:
+            return []
+        tau = getattr(solution, key)[chip]
+        ends = sorted({int(chip[np.argmin(tau)]), int(chip[np.argmax(tau)])})
+        labels = _ChannelLabels(net)
+        values = getattr(solution, key)[ends]
+        names = [f"{labels[i]}{suffix}" for i in ends]
+    return check_floor_shear(names, values, window, kind=kind)
+
+
 def culture_checks(
     solution: Solution,
     rows: list[dict[str, Any]],
     culture: Culture,
     window: ShearWindow | None,
     residence_target: float | None,
+    *,
+    targets: ShearWindow | None = None,
+    target_kind: str = "floor",
+    target_levels: str = "all",
 ) -> list[CheckResult]:
     """Checks of what the cells feel and get.
 
@@ -44,75 +90,92 @@ def culture_checks(
     solution : Solution
         The solved network.
     rows : list of dict
-        Per-level rows of :func:`chipflow.network.summary.level_rows`, inlet to outlet.
+        Per-level rows of :func:`chipflow.network.summary.level_rows`, inlet to outlet (empty
+        for a network without generation labels: then the shear check takes the channels of
+        lowest and highest shear).
     culture : Culture
         Cells, their density and oxygen needs, and which levels carry cells.
     window : ShearWindow or None
-        Floor-shear window [Pa] (none: no shear check).
+        Floor-shear window of the cells [Pa], checked on the seeded levels (none: no check).
+        A one-sided window is a one-sided check.
     residence_target : float or None
         Target bed residence time [s] (none: no residence check).
+    targets : ShearWindow or None, optional
+        The design's own shear window (``[targets]``) [Pa], checked besides ``window``.
+    target_kind : str, optional
+        Which wall shear ``targets`` limits: "floor", "mean" or "max".
+    target_levels : str, optional
+        Where ``targets`` applies: "all" levels or only the "bed".
+
+    Every channel of the network, tubing included and with or without a generation, is checked
+    for laminar flow and entrance length; the oxygen checks run only where the design declares
+    cells (``culture.cells``).
     """
     net = solution.network
     out: list[CheckResult] = []
-    if not rows:
-        return out
-    labels = generation_labels(rows)
-    shear = np.array([r["wall_shear_floor"] for r in rows])
     beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
-    seeded = beds if culture.seeded == "bed" and beds else list(range(len(rows)))
+    everything = list(range(len(rows)))
+    seeded = beds if culture.seeded == "bed" and beds else everything
     if window is not None:
-        out += check_floor_shear([labels[i] for i in seeded], shear[seeded], window)
+        out += _shear_results(solution, rows, seeded, window, "floor")
+    if targets is not None:
+        levels = beds if target_levels == "bed" and beds else everything
+        out += _shear_results(solution, rows, levels, targets, target_kind, " (design target)")
     if beds:
         bed = rows[beds[0]]
         if residence_target is not None:
             out.append(check_residence_time(bed["residence_time"], residence_target))
+        if culture.cells:
+            out.append(
+                check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
+            )
+            area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
+            out.append(
+                check_oxygen_supply(
+                    max(r["flow_total"] for r in rows),
+                    area,
+                    culture.cell_density,
+                    culture.o2_consumption,
+                    culture.o2_inlet,
+                    consumption_source=culture.o2_consumption_source,
+                    density_source=culture.cell_density_source,
+                )
+            )
+        out.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
+    if net.n_channels:
+        labels = _ChannelLabels(net)
+        out.append(check_reynolds(labels, solution.reynolds))
         out.append(
-            check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
-        )
-        floor_area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
-        out.append(
-            check_oxygen_supply(
-                max(r["flow_total"] for r in rows),
-                floor_area,
-                culture.cell_density,
-                culture.o2_consumption,
-                culture.o2_inlet,
-                consumption_source=culture.o2_consumption_source,
-                density_source=culture.cell_density_source,
+            check_entrance_length(
+                labels, net.width, net.depth, net.length, solution.reynolds, net.round
             )
         )
-        out.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
-    out.append(check_reynolds(labels, np.array([r["reynolds"] for r in rows])))
-    out.append(
-        check_entrance_length(
-            labels,
-            np.array([r["width"] for r in rows]),
-            np.array([r["depth"] for r in rows]),
-            np.array([r["length"] for r in rows]),
-            np.array([r["reynolds"] for r in rows]),
-        )
-    )
+    temperature = check_temperature(solution.fluid.temperature)
+    if temperature is not None:
+        out.append(temperature)
     return out
 
 
 def pressure_checks(solution: Solution, limits: Limits) -> list[CheckResult]:
     """The peak on-chip pressure against the bond and the supply pressure against the pump.
 
-    Tubing is not on the chip: its pressure loads the pump, not the bond.
+    Tubing is not on the chip: its pressure loads the pump, not the bond (a network of tubing
+    only has no bond check).
     """
     net = solution.network
     supply_pressure, _ = port_pressure_range(solution)
     on_chip = net.role != "tubing"
     chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])
-    chip_peak = float(solution.pressure[chip_nodes].max())
-    out = [
-        check_bond_pressure(
-            chip_peak,
-            limits.bond_pressure,
-            safety_factor=limits.safety_factor,
-            source=limits.bond_source,
+    out = []
+    if chip_nodes.size:  # a network of tubing only has no bond to load
+        out.append(
+            check_bond_pressure(
+                float(solution.pressure[chip_nodes].max()),
+                limits.bond_pressure,
+                safety_factor=limits.safety_factor,
+                source=limits.bond_source,
+            )
         )
-    ]
     if limits.pump_pressure is not None:
         out.append(check_pump_pressure(supply_pressure, limits.pump_pressure))
     return out

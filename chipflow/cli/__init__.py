@@ -17,8 +17,13 @@ from chipflow.errors import ChipflowError
 __all__ = ["main"]
 
 
+#: Longest error line printed [characters]; messages quote user text, which may be huge.
+MAX_MESSAGE = 500
+
+
 def _one_line(text: str) -> str:
-    return " ".join(str(text).split())
+    line = " ".join(str(text)[: 4 * MAX_MESSAGE].split())
+    return line if len(line) <= MAX_MESSAGE else line[: MAX_MESSAGE - 3] + "..."
 
 
 class _Group(click.Group):
@@ -35,6 +40,9 @@ class _Group(click.Group):
         "check": ("chipflow.cli.check", "command"),
         "build": ("chipflow.cli.build", "command"),
         "new": ("chipflow.cli.new", "command"),
+        "analyse": ("chipflow.cli.analyse", "command"),
+        "vary": ("chipflow.cli.vary", "command"),
+        "sweep": ("chipflow.cli.sweep", "command"),
         "demo": ("chipflow.cli.build", "demo_command"),
     }
 
@@ -60,6 +68,11 @@ class _Group(click.Group):
             sys.exit(2)
         except ChipflowError as exc:
             click.echo(f"chipflow: error: {_one_line(exc)}", err=True)
+            sys.exit(2)
+        except OSError as exc:  # the system refused something the library did not expect
+            text = f"{exc.filename}: " if exc.filename else ""
+            text += exc.strerror or str(exc)
+            click.echo(f"chipflow: error: {_one_line(text)}", err=True)
             sys.exit(2)
         if not standalone_mode:
             return result

@@ -38,10 +38,15 @@ class _StageLine:
             self.stream.flush()
 
 
-def _run(design: str | Path, outdir: str | None) -> int:
+def _run(
+    design: str | Path,
+    outdir: str | None,
+    allow_large: bool = False,
+    field: bool | None = None,
+) -> int:
     stages = _StageLine()
     try:
-        build, files = build_to_folder(design, outdir, stages)
+        build, files = build_to_folder(design, outdir, stages, allow_large=allow_large, field=field)
     finally:
         stages.done()
     click.echo(console_summary(build.results))
@@ -57,9 +62,21 @@ def _run(design: str | Path, outdir: str | None) -> int:
     "--output",
     "outdir",
     type=click.Path(file_okay=False, path_type=str),
-    help="Output folder (default: a folder named after the design).",
+    help="Output folder (default: a folder named after the design). It is replaced as a "
+    "whole: no file of an earlier build stays beside the new ones.",
 )
-def command(design: str, outdir: str | None) -> int:
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Build even a tree that needs more memory than this machine can spare.",
+)
+@click.option(
+    "--field/--no-field",
+    default=None,
+    help="Solve the 2D flow field of the drawing and compare it with the network (default: "
+    "only for chips small enough to solve in seconds).",
+)
+def command(design: str, outdir: str | None, allow_large: bool, field: bool | None) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
 
     \b
@@ -68,9 +85,10 @@ def command(design: str, outdir: str | None) -> int:
 
     Exit status: 0 when every check passes (warnings allowed), 1 when the design was built but
     a check failed (the outputs are written and the failure is marked in them), 2 for bad
-    input (nothing is written).
+    input, a tree too large for this machine's memory, or an output folder that cannot be
+    written (nothing is written).
     """
-    return _run(design, outdir)
+    return _run(design, outdir, allow_large, field)
 
 
 @click.command("demo")

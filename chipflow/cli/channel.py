@@ -6,6 +6,7 @@ import json
 
 import click
 
+from chipflow.checks.conditions import channel_warnings
 from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.errors import SpecError
 from chipflow.physics.duct import DuctFlow, flow_state, resistance
@@ -105,6 +106,10 @@ def command(width, depth, diameter, length, flow, pressure, fluid, as_json):
     \b
     Example:
       chipflow channel --width 200um --depth 50um --length 10mm --flow 5uL/min
+
+    Warnings follow the table (in --json: a "warnings" list): a Reynolds number above 100 or
+    above the laminar limit, an entrance length over 10 % of the channel or longer than it,
+    a fluid temperature outside 15-40 degC.
     """
     if (depth is None) == (diameter is None):
         raise SpecError("give --depth for a rectangular channel, or --diameter for a tube")
@@ -120,10 +125,15 @@ def command(width, depth, diameter, length, flow, pressure, fluid, as_json):
         pressure,
         round_tube,
     )
+    warnings = channel_warnings(
+        values["reynolds"], values["entrance_length"], length, fluid.temperature
+    )
     if as_json:
         out = {key: values[key] for key in SI_UNITS}
-        click.echo(json.dumps({**out, "units": SI_UNITS}, indent=2))
+        click.echo(json.dumps({**out, "units": SI_UNITS, "warnings": warnings}, indent=2))
         return
     rows = [(label, f"{values[key] * scale:.4g}", unit) for key, label, unit, scale in _LAB_ROWS]
     rows.insert(6, ("", f"{values['wall_shear_floor'] * 10:.4g}", "dyn/cm^2"))
     echo_table(rows)
+    for line in warnings:
+        click.echo(f"warning: {line}")

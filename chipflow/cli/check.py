@@ -12,6 +12,7 @@ import math
 
 import click
 
+from chipflow.checks.conditions import network_warnings
 from chipflow.cli.common import echo_table
 from chipflow.design.table import tree_check
 from chipflow.errors import SpecError
@@ -218,10 +219,14 @@ def check_network(top: Table, as_json: bool) -> None:
     """Solve an explicit-network design and print the tables (or the JSON structure)."""
     design = load_network_design(top)
     solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    warnings = network_warnings(solution)
     if as_json:
-        click.echo(json.dumps(network_report(design, solution), indent=2))
+        report = {**network_report(design, solution), "warnings": warnings}
+        click.echo(json.dumps(report, indent=2))
     else:
         _echo_text(design, solution)
+        for line in warnings:
+            click.echo(f"warning: {line}")
 
 
 def check_tree(top: Table, as_json: bool) -> bool:

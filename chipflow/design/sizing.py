@@ -49,7 +49,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from chipflow.design.model import Level, TreeDesign
-from chipflow.errors import DesignError
+from chipflow.errors import ArgumentError, DesignError
 from chipflow.physics import duct
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.tree import Fabrication, TreeSpec
@@ -97,7 +97,7 @@ def wall_shear(kind, width, depth, flow, viscosity, round=False):
         r = duct.resistance(width, depth, 1.0, viscosity, round)
         area = duct.cross_section_area(width, depth, round)
         return np.abs(flow) * r * area / duct.wetted_perimeter(width, depth, round)
-    raise ValueError(f"unknown shear kind {kind!r} (valid: floor, mean, max)")
+    raise ArgumentError(f"unknown shear kind {kind!r} (valid: floor, mean, max)")
 
 
 def width_for_shear(

@@ -1,8 +1,10 @@
 """Fabrication export: DXF for the cleanroom, GDSII for the mask maker, SVG/PNG previews.
 
-Exporters read a :class:`chipflow.layout.model.Layout` (and, for colouring previews only, an
-array of per-channel values); they never recompute physics. The names below are imported from
-their modules on first use, so importing one exporter does not load the others.
+Every command that writes a folder writes it through :func:`staged_folder`, which replaces
+the folder as a whole. Exporters read a :class:`chipflow.layout.model.Layout` (and, for
+colouring previews only, an array of per-channel values); they never recompute physics. The
+names below are imported from their modules on first use, so importing one exporter does not
+load the others.
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ _WHERE = {
     "write_gds": "chipflow.export.gds",
     "plot_layout": "chipflow.export.preview",
     "write_preview": "chipflow.export.preview",
+    "staged_folder": "chipflow.export.outdir",
 }
 
 __all__ = [
@@ -28,6 +31,7 @@ __all__ = [
     "write_dxf",
     "write_gds",
     "write_preview",
+    "staged_folder",
 ]
 
 

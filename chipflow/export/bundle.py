@@ -24,7 +24,9 @@ import csv
 import io
 import json
 import math
+import os
 import re
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -32,6 +34,8 @@ from typing import Any
 import numpy as np
 
 from chipflow.build import Build
+from chipflow.errors import ArgumentError
+from chipflow.export._files import atomic_write
 from chipflow.export.outdir import staged_folder
 from chipflow.units import RESULT_UNITS
 
@@ -45,6 +49,7 @@ CSV_COLUMNS = (
     "from",
     "to",
     "width",
+    "mask_width",
     "depth",
     "length",
     "round",
@@ -83,6 +88,8 @@ def output_names(build: Build) -> list[str]:
             "shear.svg",
             "shear.png",
         ]
+    if build.field is not None:
+        names.append("field.svg")
     if build.results["generations"]:
         names.append("profile.svg")
     return names + ["report.html", "results.json", "channels.csv"]
@@ -112,6 +119,11 @@ def channels_csv(build: Build) -> str:
     nodes = np.asarray(net.node_names, dtype=object)
     forward = sol.flow >= 0
     p_a, p_b = sol.pressure[net.node_a], sol.pressure[net.node_b]
+    # the width on the written mask polygons, measured after drawing (empty for tubing)
+    mask = np.full(net.n_channels, np.nan)
+    drawn = None if build.layout is None else build.layout.channels.mask_width
+    if drawn is not None:
+        mask[: drawn.size] = drawn
     columns = {
         "channel": np.asarray(net.channel_names(), dtype=object),
         "role": net.role,
@@ -119,6 +131,7 @@ def channels_csv(build: Build) -> str:
         "from": nodes[net.node_a],
         "to": nodes[net.node_b],
         "width": net.width,
+        "mask_width": mask,
         "depth": net.depth,
         "length": net.length,
         "round": np.where(net.round, "yes", "no"),
@@ -151,6 +164,10 @@ def _csv_column(values: np.ndarray) -> list:
     return [str(v) for v in values.tolist()]
 
 
+def _write_text(path: Path, text: str, what: str) -> None:
+    atomic_write(path, lambda tmp: tmp.write_bytes(text.encode("utf-8")), what)
+
+
 def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None] | None = None):
     """Write every output of ``build`` into ``outdir`` (created if needed), all or nothing.
 
@@ -158,7 +175,8 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     ----------
     build : Build
     outdir : str or path-like
-        Output folder. Files of a previous build are replaced; other files are left alone.
+        Output folder. It is replaced as a whole (see :mod:`chipflow.export.outdir`): no file
+        of a previous build survives beside the new ones.
     progress : callable, optional
         Called with the name of each writing stage.
 
@@ -172,10 +190,17 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
     from chipflow.export.preview import write_previews
     from chipflow.report import profile_figure, svg_text, write_report
 
+    if not isinstance(build, Build):
+        raise ArgumentError(f"write_build needs a Build (from build_design), got {build!r:.80}")
+    if not isinstance(outdir, str | os.PathLike) or not str(outdir):
+        raise ArgumentError(f"write_build needs an output folder path, got {outdir!r:.80}")
     progress = progress or (lambda stage: None)
     outdir = Path(outdir)
     figures: dict[str, str] = {}
-    with staged_folder(outdir) as stage:
+    with staged_folder(outdir) as stage, warnings.catch_warnings():
+        # a design name in a script the figure font lacks is drawn as boxes, not warned about
+        # once per character
+        warnings.filterwarnings("ignore", r"Glyph \d+ .* missing from", UserWarning)
         layout = build.layout
         if layout is not None:
             slug = _slug(build.name)
@@ -191,14 +216,22 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
                 encoding="utf-8"
             )
+        if build.field is not None:
+            from chipflow.report.field_figure import field_shear_figure
+
+            progress("field figure")
+            run = build.field
+            text = svg_text(field_shear_figure(run.solution, run.window, run.zoom(layout)))
+            (stage / "field.svg").write_bytes(text.encode("utf-8"))
+            figures["Floor wall shear of the 2D field, against the cell window"] = text
         progress("report")
         profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
         if profile is not None:
             figures = {"Profile from inlet to outlet": profile, **figures}
-            (stage / "profile.svg").write_bytes(profile.encode("utf-8"))
+            _write_text(stage / "profile.svg", profile, "profile figure")
         write_report(build.results, stage / "report.html", figures)
-        (stage / "results.json").write_bytes(results_json(build).encode("utf-8"))
-        (stage / "channels.csv").write_bytes(channels_csv(build).encode("utf-8"))
+        _write_text(stage / "results.json", results_json(build), "results")
+        _write_text(stage / "channels.csv", channels_csv(build), "channel table")
     return [outdir / n for n in output_names(build)]
 
 
@@ -206,6 +239,9 @@ def build_to_folder(
     design: str | Path,
     outdir: str | Path | None = None,
     progress: Callable[[str], None] | None = None,
+    *,
+    allow_large: bool = False,
+    field: bool | None = None,
 ) -> tuple[Build, list[Path]]:
     """Build a design file and write all its outputs (the whole job of ``chipflow build``).
 
@@ -217,6 +253,10 @@ def build_to_folder(
         Output folder; by default a folder named after the design, in the current folder.
     progress : callable, optional
         Called with the name of each stage.
+    allow_large : bool, optional
+        Build a tree even when it needs more memory than the machine can spare.
+    field : bool, optional
+        Solve the 2D field (see :func:`chipflow.build.build_design`; default: small chips).
 
     Returns
     -------
@@ -226,6 +266,6 @@ def build_to_folder(
     """
     from chipflow.build import build_design
 
-    build = build_design(design, progress)
+    build = build_design(design, progress, allow_large=allow_large, field=field)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)

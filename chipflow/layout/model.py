@@ -84,6 +84,10 @@ class DrawnChannels:
         ends at the nodes), before merging into the mask layers [m].
     bends : numpy.ndarray of int or None
         Number of bends (circular arcs) along each channel.
+    mask_width : numpy.ndarray or None
+        Width measured on the merged, grid-snapped mask polygons across the middle of each
+        channel's longest straight run along x [m] (see :mod:`chipflow.layout.widths`); the
+        drawing checks that it equals ``width`` to 1 nm.
     """
 
     centreline: np.ndarray
@@ -98,6 +102,7 @@ class DrawnChannels:
     layer: np.ndarray
     outline: np.ndarray | None = None
     bends: np.ndarray | None = None
+    mask_width: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -126,6 +131,10 @@ class Layout:
         Node names ("inlet", "outlet", junction names).
     warnings : tuple of str
         Soft misses found while drawing (e.g. bed channels drawn longer than designed).
+    junctions : tuple of (str, int, Junction)
+        The junction geometry at the end of each tree level that splits or merges: the
+        parent channel's role and generation and the :class:`~chipflow.layout.junctions.
+        Junction` drawn there (one per level; every junction of a level is alike).
     """
 
     name: str
@@ -138,3 +147,4 @@ class Layout:
     node_xy: np.ndarray
     node_names: tuple[str, ...]
     warnings: tuple[str, ...] = ()
+    junctions: tuple = ()

@@ -34,15 +34,16 @@ from __future__ import annotations
 import functools
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
+from numbers import Real
 
 import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.csgraph import connected_components
 from scipy.sparse.linalg import spsolve
 
-from chipflow.errors import NetworkError
+from chipflow.errors import ArgumentError, NetworkError
 from chipflow.network.model import Network, NodeKey, listing
-from chipflow.physics.duct import DuctFlow, flow_state, resistance
+from chipflow.physics.duct import METHODS, DuctFlow, flow_state, resistance
 from chipflow.physics.fluid import Fluid
 
 __all__ = ["Solution", "PortFlows", "solve", "reduced_system", "ReducedSystem"]
@@ -354,6 +355,31 @@ def reduced_system(
     return ReducedSystem(matrix, rhs, free, pressure, injected, g, p_nodes, q_nodes)
 
 
+def _check_arguments(network, fluid, pressures, flows, method) -> None:
+    """Refuse arguments of the wrong type with an :class:`ArgumentError` saying what is
+    expected (bad values inside valid arguments are :class:`NetworkError`)."""
+    if not isinstance(network, Network):
+        raise ArgumentError(f"network must be a Network, got {type(network).__name__}")
+    if not isinstance(fluid, Fluid):
+        raise ArgumentError(
+            f"fluid must be a Fluid (e.g. chipflow.physics.fluid.water()), got {fluid!r:.60}"
+        )
+    if method not in METHODS:
+        raise ArgumentError(f"unknown resistance method {method!r} (valid: {', '.join(METHODS)})")
+    for what, mapping in (("pressures", pressures), ("flows", flows)):
+        if mapping is None:
+            continue
+        if not isinstance(mapping, Mapping):
+            raise ArgumentError(f"{what} must map node names to numbers, got {mapping!r:.60}")
+        for node, value in mapping.items():
+            if isinstance(value, bool) or not isinstance(value, Real):
+                raise ArgumentError(
+                    f"{what}[{node!r}] must be a number in SI units "
+                    f"({'Pa' if what == 'pressures' else 'm^3/s'}), got {value!r:.60}; "
+                    "convert text with chipflow.units.to_si"
+                )
+
+
 def solve(
     network: Network,
     fluid: Fluid,
@@ -391,6 +417,7 @@ def solve(
         flow ports that cannot balance, or a part of the network without a path to a
         pressure port (its nodes are listed).
     """
+    _check_arguments(network, fluid, pressures, flows, method)
     system = reduced_system(network, fluid, pressures, flows, method=method)
     pressure = system.pressure
     if system.free.size:

@@ -39,6 +39,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
+from chipflow.errors import ArgumentError
+
 __all__ = [
     "DuctFlow",
     "aspect_ratio",
@@ -56,6 +58,7 @@ __all__ = [
     "entrance_length",
     "flow_state",
     "METHODS",
+    "require_positive",
 ]
 
 #: Resistance methods: the exact series, or the one-term approximation 1 - 0.630 alpha [1]_.
@@ -112,7 +115,7 @@ def _factors(alpha: np.ndarray, method: str = "series") -> _Factors:
     elif method == "approx":
         k_r = 12.0 / (1.0 - 0.630 * distinct)
     else:
-        raise ValueError(f"unknown resistance method {method!r} (valid: {', '.join(METHODS)})")
+        raise ArgumentError(f"unknown resistance method {method!r} (valid: {', '.join(METHODS)})")
     c_long = 0.5 * k_r * (1.0 - 8.0 / np.pi**2 * s_sech2)
     c_short = 4.0 / np.pi**2 * k_r * (_CATALAN - r_tanh2)
     c_umax = k_r / 8.0 * (1.0 - 32.0 / np.pi**3 * s_sech3)
@@ -121,6 +124,30 @@ def _factors(alpha: np.ndarray, method: str = "series") -> _Factors:
         return values[inverse].reshape(alpha.shape)
 
     return _Factors(spread(k_r), spread(c_long), spread(c_short), spread(c_umax))
+
+
+def require_positive(**values: ArrayLike) -> None:
+    """Refuse sizes and properties that are not finite and greater than zero.
+
+    Raises
+    ------
+    ArgumentError
+        Naming the first offending argument and its worst value.
+
+    >>> require_positive(width=[1e-4, -2e-4])
+    Traceback (most recent call last):
+    ...
+    chipflow.errors.ArgumentError: width must be finite and greater than zero, got -0.0002
+    """
+    for name, value in values.items():
+        try:
+            array = np.asarray(value, dtype=float)
+        except (TypeError, ValueError):
+            raise ArgumentError(f"{name} must be a number or an array of numbers") from None
+        bad = ~(np.isfinite(array) & (array > 0))
+        if bad.any():
+            worst = array[bad].flat[0]
+            raise ArgumentError(f"{name} must be finite and greater than zero, got {worst:g}")
 
 
 def _sides(width: ArrayLike, depth: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
@@ -194,6 +221,7 @@ def resistance(
     >>> round(resistance(1.0, 1.0, 1.0, 1.0), 2)
     28.45
     """
+    require_positive(width=width, depth=depth, length=length, viscosity=viscosity)
     a, b = _sides(width, depth)
     length, viscosity, rnd = np.broadcast_arrays(length, viscosity, round)
     rect = _factors(b / a, method).k_r * viscosity * length / (a * b**3)
@@ -384,7 +412,22 @@ def flow_state(
     Returns
     -------
     DuctFlow
+
+    Raises
+    ------
+    ArgumentError
+        A size, the viscosity or the density that is not finite and positive, a flow that is
+        not finite, or an unknown method.
     """
+    require_positive(width=width, depth=depth, length=length, viscosity=viscosity, density=density)
+    try:
+        finite = bool(np.all(np.isfinite(np.asarray(flow, dtype=float))))
+    except (TypeError, ValueError):
+        finite = False
+    if not finite:
+        raise ArgumentError("flow must be a finite number or an array of them")
+    if method not in METHODS:
+        raise ArgumentError(f"unknown resistance method {method!r} (valid: {', '.join(METHODS)})")
     w, h, length, flow, rnd = np.broadcast_arrays(
         np.asarray(width, float),
         np.asarray(depth, float),

@@ -87,6 +87,14 @@ def console_summary(results: Mapping[str, Any]) -> str:
         if totals.get("tubing_transit_time"):
             line += f" (plus {totals['tubing_transit_time']:.3g} s in the tubing)"
         lines.append(line)
+    field = results.get("field")
+    if field:
+        ratio = field["resistance"] / field["network_resistance"] - 1.0
+        lines.append(
+            f"field: chip resistance {ratio:+.1%} against the network, "
+            f"{field['area_outside_window']:.1%} of the seeded floor outside the shear window "
+            f"({field['mesh_triangles']} triangles)"
+        )
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")
     checks = list(results.get("checks") or [])

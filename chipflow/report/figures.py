@@ -164,12 +164,17 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     ax = axes[4]
     window = results.get("shear_window") or {}
     shown = [floor, peak]
-    if window.get("min") is not None and window.get("max") is not None:
-        low, high = float(window["min"]), float(window["max"])
+    bounds = [float(window[k]) for k in ("min", "max") if window.get(k) is not None]
+    if bounds:
+        # a one-sided window shades from its bound to the edge of the data
+        data = np.concatenate([floor, peak])
+        data = data[np.isfinite(data) & (data > 0)]
+        low = float(window["min"]) if window.get("min") is not None else min(data.min(), *bounds)
+        high = float(window["max"]) if window.get("max") is not None else max(data.max(), *bounds)
         ax.axhspan(
             low, high, color=_WINDOW, zorder=0, label=f"window ({window.get('cell_type', 'cells')})"
         )
-        shown.append(np.array([low, high]))
+        shown.append(np.array(bounds))
     _steps(ax, x, floor, color=_INK, lw=1.6, label="floor")
     _steps(ax, x, peak, color=_TEAL, lw=1.0, ls=":", label="peak")
     ax.set_ylabel("wall shear\n[Pa]")

@@ -4,11 +4,12 @@
 
     [culture]
     cell_type = "endothelial"        # a row of chipflow/data/cell_types.toml
-    shear_min = "0.4 Pa"             # optional: override the cell type's window (either side)
+    shear_min = "0.4 Pa"             # optional: override the window (either side; one bound
+                                     # alone, without a cell_type, is a one-sided window)
     shear_max = "1.2 Pa"
     seeded = "bed"                   # where cells grow: "bed" (default) or "all" generations
     cell_density = "1e5 cell/cm^2"   # cells per floor area (default 1e5 cell/cm^2, assumed)
-    o2_consumption = "4.8e-17 mol/s" # oxygen uptake per cell (default: the cell type's value)
+    o2_consumption = "4.8e-17 mol/s" # oxygen uptake per cell (default: the cell type's row)
     o2_inlet = "0.2 mol/m^3"         # oxygen in the inflowing medium (default: air-equilibrated)
     o2_diffusivity = "3e-9 m^2/s"    # oxygen diffusivity in the medium (default: 37 C water)
     residence_time = "2 s"           # optional target for the bed residence time
@@ -32,6 +33,7 @@ Examples
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from chipflow.checks.cell_types import (
@@ -82,6 +84,9 @@ class Culture:
     ----------
     cell_type : str or None
         Name of the cell type (a row of the cell-type table), or None.
+    cells : bool
+        Whether the design declares cells (a ``cell_type`` or an ``o2_consumption``): only
+        then is there an oxygen check.
     window : ShearWindow or None
         Floor wall-shear window [Pa] with its source; None when the design names neither a cell
         type nor a window (then there is no shear check).
@@ -92,7 +97,8 @@ class Culture:
     cell_density_source : str
         "design file" or the assumption used.
     o2_consumption : float
-        Oxygen uptake per cell [mol/s].
+        Oxygen uptake per cell [mol/s] (the cell type's row of the table, or the design's
+        value; unused when ``cells`` is False).
     o2_consumption_source : str
         Citation of the uptake.
     o2_inlet : float
@@ -104,6 +110,7 @@ class Culture:
     """
 
     cell_type: str | None = None
+    cells: bool = False
     window: ShearWindow | None = None
     seeded: str = "bed"
     cell_density: float = CELL_DENSITY_DEFAULT
@@ -157,9 +164,9 @@ def read_culture(top: Table) -> Culture:
                 cell.name, low, high, f"{top.file_label} (overrides: {window.source})"
             )
     elif low is not None or high is not None:
-        if low is None or high is None:
-            key = "shear_min" if low is None else "shear_max"
-            raise table.error(key, "without a cell_type, give both shear_min and shear_max")
+        # one bound alone is a one-sided window
+        low = 0.0 if low is None else low
+        high = math.inf if high is None else high
         window = ShearWindow("design window", low, high, top.file_label)
     if window is not None and not window.min < window.max:
         raise table.error("shear_max", f"must be greater than shear_min ({window.min:g} Pa)")
@@ -170,16 +177,23 @@ def read_culture(top: Table) -> Culture:
         uptake_source = top.file_label
     elif cell is not None and cell.o2_consumption is not None:
         uptake, uptake_source = cell.o2_consumption, cell.o2_source
+    elif density is not None:
+        raise table.error(
+            "o2_consumption",
+            "cell_density is given without a cell_type: give the cells' oxygen uptake "
+            "(o2_consumption, e.g. '4.8e-17 mol/s') or a cell_type",
+        )
     else:
-        uptake, uptake_source = DEFAULT_O2_CONSUMPTION, DEFAULT_O2_SOURCE
+        uptake_source = ""
     inlet = table.quantity("o2_inlet", "concentration", None)
     return Culture(
         cell_type=name,
+        cells=uptake is not None,
         window=window,
         seeded=table.choice("seeded", SEEDED, "bed"),
         cell_density=CELL_DENSITY_DEFAULT if density is None else density,
         cell_density_source=("assumption: 1e5 cells/cm^2" if density is None else top.file_label),
-        o2_consumption=uptake,
+        o2_consumption=DEFAULT_O2_CONSUMPTION if uptake is None else uptake,
         o2_consumption_source=uptake_source,
         o2_inlet=O2_INLET_CONCENTRATION if inlet is None else inlet,
         o2_diffusivity=table.quantity("o2_diffusivity", "diffusivity", O2_DIFFUSIVITY_37C),

@@ -33,9 +33,9 @@ def read_fluid(top: Table) -> Fluid:
     if kind == "custom":
         if viscosity is None or density is None:
             raise table.error(None, "a custom fluid needs both 'viscosity' and 'density'")
-        fluid = custom_fluid(table.string("name", "custom fluid"), viscosity, density, temperature)
+        fluid = custom_fluid(table.label("name", "custom fluid"), viscosity, density, temperature)
     else:
         fluid = fluid_preset(kind, temperature, viscosity, density)
     if "name" in table and kind != "custom":
-        fluid = Fluid(table.string("name"), fluid.viscosity, fluid.density, fluid.temperature)
+        fluid = Fluid(table.label("name"), fluid.viscosity, fluid.density, fluid.temperature)
     return fluid

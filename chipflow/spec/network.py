@@ -49,7 +49,7 @@ from chipflow.network.model import Network, NetworkBuilder, unknown_name_message
 from chipflow.network.supply import Supply, boundary_conditions
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.fluid import read_fluid
-from chipflow.spec.reader import Table, read_design_file
+from chipflow.spec.reader import MAX_NAME_LENGTH, Table, read_design_file
 
 __all__ = [
     "NetworkDesign",
@@ -171,8 +171,8 @@ def load_network_design(top: Table) -> NetworkDesign:
     ('demo', ('in', 'out'), {'out': 0.0})
     """
     top.only(TOP_KEYS)
-    name = top.string("name", Path(top.source).stem)
-    description = top.string("description", "")
+    name = top.label("name", Path(top.source).stem[:MAX_NAME_LENGTH] or "network")
+    description = top.text("description", "")
     fluid = read_fluid(top)
 
     builder = NetworkBuilder()

@@ -15,6 +15,7 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
+import unicodedata
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -23,7 +24,26 @@ from typing import Any
 from chipflow.errors import SpecError
 from chipflow.units import to_si
 
-__all__ = ["Table", "read_design_file", "read_design_bytes", "parse_design_text", "REQUIRED"]
+__all__ = [
+    "Table",
+    "read_design_file",
+    "read_design_bytes",
+    "parse_design_text",
+    "check_text",
+    "REQUIRED",
+    "MAX_NAME_LENGTH",
+    "MAX_TEXT_LENGTH",
+    "MAX_DESIGN_BYTES",
+]
+
+#: Longest name of a design (or fluid) [characters]: it becomes file names and figure titles.
+MAX_NAME_LENGTH = 100
+#: Longest description [characters].
+MAX_TEXT_LENGTH = 2000
+#: Largest design file read [bytes]; real ones are a few kB.
+MAX_DESIGN_BYTES = 1_000_000
+#: Deepest bracket nesting of a design file (real ones nest 3 deep).
+MAX_NESTING = 100
 
 
 class _Required:
@@ -79,9 +99,10 @@ class Table:
         for key in self.data:
             if key not in allowed:
                 near = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)
-                hint = f"; did you mean '{near[0]}'?" if near else ""
+                hint = f"; did you mean '{near[0]}'?" if near and len(key) < 100 else ""
                 valid = ", ".join(sorted(allowed)) or "(none)"
-                raise self.error(key, f"unknown key{hint} (valid keys here: {valid})")
+                shown = key if len(key) <= 60 else f"{key[:40]!r}... ({len(key)} characters)"
+                raise self.error(shown, f"unknown key{hint} (valid keys here: {valid})")
 
     def table(self, key: str, default: Any = REQUIRED) -> Table | None:
         """A sub-table; ``default`` (usually ``None``) when absent and not required."""
@@ -168,6 +189,31 @@ class Table:
             raise self.error(key, f"expected text in quotes, got {_show(value)}")
         return value
 
+    def label(self, key: str, default: Any = REQUIRED, *, max_length: int = MAX_NAME_LENGTH) -> str:
+        """A short text that names something (a design, a fluid): one line, printable, at most
+        ``max_length`` characters, not blank.
+
+        >>> Table({"name": "a\\x00b"}, "d.toml").label("name")  # doctest: +ELLIPSIS
+        Traceback (most recent call last):
+        ...
+        chipflow.errors.SpecError: d.toml: name: contains a control character (U+0000); ...
+        """
+        value = self.string(key, default)
+        if value is default:
+            return value
+        check_text(value, self.where(key), max_length=max_length, multiline=False)
+        return value
+
+    def text(self, key: str, default: Any = REQUIRED) -> str:
+        """A free text (a description): printable, line breaks allowed, at most
+        :data:`MAX_TEXT_LENGTH` characters."""
+        value = self.string(key, default)
+        if value is default:
+            return value
+        if value:
+            check_text(value, self.where(key), max_length=MAX_TEXT_LENGTH, multiline=True)
+        return value
+
     def choice(self, key: str, choices: Iterable[str], default: Any = REQUIRED) -> str:
         """A text value from a fixed set, with a suggestion on a near miss."""
         choices = list(choices)
@@ -208,6 +254,27 @@ class Table:
         return si
 
 
+def check_text(
+    value: str, where: str, *, max_length: int = MAX_NAME_LENGTH, multiline: bool = False
+) -> str:
+    """Refuse text that is blank, too long or holds control characters (a SpecError naming
+    ``where``); return it unchanged."""
+    if not value.strip():
+        raise SpecError(f"{where}: is blank; give some text")
+    if len(value) > max_length:
+        raise SpecError(
+            f"{where}: {len(value)} characters is too long (at most {max_length}): "
+            f"{value[:40]!r}..."
+        )
+    allowed = "\n\t" if multiline else ""
+    for ch in value:
+        if ch not in allowed and unicodedata.category(ch) in ("Cc", "Cf", "Cs", "Co", "Zl", "Zp"):
+            raise SpecError(
+                f"{where}: contains a control character (U+{ord(ch):04X}); use printable text"
+            )
+    return value
+
+
 def _bounds(bounds: dict) -> dict:
     return {k: bounds[k] for k in ("positive", "minimum", "maximum") if k in bounds}
 
@@ -230,16 +297,42 @@ def parse_design_text(text: str, source: str = "<design>") -> Table:
     ...
     chipflow.errors.SpecError: demo.toml: not valid TOML: Invalid value (at end of document)
     """
+    if text.startswith("\ufeff"):
+        text = text[1:]  # a byte-order mark, as some editors write: harmless
+    depth = _nesting(text)
+    if depth > MAX_NESTING:
+        raise SpecError(
+            f"{source}: not a design file: brackets nested {depth} deep (at most {MAX_NESTING})"
+        )
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise SpecError(f"{source}: not valid TOML: {exc}") from None
+    except (ValueError, RecursionError, MemoryError) as exc:  # e.g. a 5000-digit integer
+        why = str(exc).split(";")[0] if isinstance(exc, ValueError) else type(exc).__name__
+        raise SpecError(f"{source}: not a usable design file: {why}") from None
     return Table(data, source, "")
+
+
+def _nesting(text: str) -> int:
+    """About the bracket nesting of TOML text, in one vectorised pass (brackets inside strings
+    and comments count too; a deeper real nesting is still caught by the parser's recursion
+    limit).
+
+    >>> _nesting("a = [[1], [2]]"), _nesting("[x]\\nb = {c = [1]}")
+    (2, 2)
+    """
+    import numpy as np
+
+    raw = np.frombuffer(text.encode("utf-8"), dtype=np.uint8)
+    step = np.isin(raw, (ord("["), ord("{"))).astype(np.int32)
+    step -= np.isin(raw, (ord("]"), ord("}")))
+    return int(np.cumsum(step).max(initial=0))
 
 
 def read_design_file(path: str | Path) -> Table:
     """Read and parse a design file, with a clear error for missing, binary or broken files."""
-    return parse_design_text(read_design_bytes(path).decode("utf-8"), str(path))
+    return parse_design_text(read_design_bytes(path).decode("utf-8-sig"), str(path))
 
 
 def read_design_bytes(path: str | Path) -> bytes:
@@ -255,8 +348,12 @@ def read_design_bytes(path: str | Path) -> bytes:
         raise SpecError(f"{path}: cannot be read ({exc.strerror})") from None
     if not raw.strip():
         raise SpecError(f"{path}: the design file is empty")
+    if len(raw) > MAX_DESIGN_BYTES:
+        raise SpecError(
+            f"{path}: {len(raw)} bytes is too large for a design file (at most {MAX_DESIGN_BYTES})"
+        )
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:
         raise SpecError(f"{path}: not a text file (expected UTF-8 TOML)") from None
     if "\x00" in text:

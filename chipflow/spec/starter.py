@@ -8,6 +8,7 @@ from pathlib import Path
 
 from chipflow.errors import SpecError
 from chipflow.export._files import atomic_write
+from chipflow.spec.reader import MAX_NAME_LENGTH
 
 __all__ = ["starter_text", "write_starter"]
 
@@ -20,6 +21,11 @@ def starter_text(name: str) -> str:
     >>> 'name = "liver-bed"' in starter_text("liver-bed")
     True
     """
+    if len(name) > MAX_NAME_LENGTH:
+        raise SpecError(
+            f"design name {name[:40]!r}...: {len(name)} characters is too long "
+            f"(at most {MAX_NAME_LENGTH})"
+        )
     if not _NAME.match(name):
         raise SpecError(
             f"design name {name!r}: use letters, digits, '-', '_' or '.', starting with a "

@@ -65,6 +65,7 @@ depth of 50 um are common practice for single-layer SU-8 moulds, not measured va
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from chipflow.physics.fluid import Fluid
@@ -87,8 +88,8 @@ RULES = ("equal-shear", "shear-target", "area-growth", "table")
 SHAPES = ("rectangular", "round")
 SHEAR_KINDS = ("floor", "mean", "max")
 
-#: Top-level keys of a tree design file; the last five belong to the build (layout, supply,
-#: checks, export) and are read by their own modules.
+#: Top-level keys of a tree design file; the last six belong to the build (layout, supply,
+#: checks, export) and to ``chipflow vary`` (tolerances) and are read by their own modules.
 TOP_KEYS = (
     "name",
     "description",
@@ -102,6 +103,7 @@ TOP_KEYS = (
     "culture",
     "limits",
     "export",
+    "tolerances",
 )
 TREE_KEYS = (
     "flow",
@@ -211,9 +213,14 @@ class BedSpec:
     length : float or None
         Bed channel length [m] (exactly one of ``length`` and ``residence_time`` is set).
     max_straight_length : float or None
-        Longest straight run [m]; longer channels are folded by the layout.
+        Longest straight run of a bed channel [m]; longer bed channels are folded by the
+        layout into a serpentine of equal runs no longer than this (None: folded only when
+        the chip is too short for a straight bed).
     gap : float or None
-        Wall between neighbouring bed channels [m] (None: ``Fabrication.min_gap``).
+        Wall between neighbouring bed channels and between the runs of a folded bed channel
+        [m], at least ``Fabrication.min_gap`` (None: ``Fabrication.min_gap``). The drawing
+        keeps at least this wall; a wider upper generation or half-grid steps that keep the
+        walls on the grid may widen it.
     """
 
     residence_time: float | None = None
@@ -313,6 +320,16 @@ class TreeSpec:
     source: str = "<design>"
 
 
+def _picometre(depth: float | None) -> float | None:
+    """A depth [m] rounded to 1 pm, so that one depth written in two units ("50 um",
+    "0.05 mm") is one number.
+
+    >>> _picometre(0.05e-3) == _picometre(50e-6) == 5e-05
+    True
+    """
+    return None if depth is None else round(depth * 1e12) / 1e12
+
+
 def read_fabrication(top: Table) -> Fabrication:
     """Read ``[fabrication]`` from the top-level table (defaults when absent).
 
@@ -326,9 +343,9 @@ def read_fabrication(top: Table) -> Fabrication:
         return Fabrication()
     table.only(FABRICATION_KEYS)
     base = Fabrication()
-    depths = table.quantities("depths", "length", list(base.depths))
+    depths = [_picometre(d) for d in table.quantities("depths", "length", list(base.depths))]
     if len(set(depths)) != len(depths):
-        raise table.error("depths", "a depth is listed twice")
+        raise table.error("depths", "a depth is listed twice (perhaps in different units)")
     min_feature = table.quantity("min_feature", "length", base.min_feature)
     fab = Fabrication(
         depths=tuple(sorted(depths)),
@@ -362,7 +379,9 @@ def _culture_targets(top: Table) -> Targets:
     window = read_culture(top).window
     if window is None:
         return Targets()
-    return Targets(minimum=window.min, maximum=window.max, cell=window.cell_type)
+    low = window.min if window.min > 0.0 else None
+    high = window.max if math.isfinite(window.max) else None
+    return Targets(minimum=low, maximum=high, cell=window.cell_type)
 
 
 def _read_targets(top: Table, n: int) -> Targets:
@@ -404,11 +423,18 @@ def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
     length = table.quantity("length", "length", None)
     if (residence is None) == (length is None):
         raise table.error(None, "give exactly one of residence_time and length")
+    gap = table.quantity("gap", "length", fab.min_gap)
+    if gap < fab.min_gap * (1 - 1e-9):
+        raise table.error(
+            "gap",
+            f"a wall of {gap * 1e6:.4g} um is thinner than [fabrication].min_gap "
+            f"{fab.min_gap * 1e6:.4g} um; give at least that, or lower min_gap",
+        )
     return BedSpec(
         residence_time=residence,
         length=length,
         max_straight_length=table.quantity("max_straight_length", "length", None),
-        gap=table.quantity("gap", "length", fab.min_gap),
+        gap=gap,
     )
 
 
@@ -454,7 +480,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     shape = tree.choice("shape", SHAPES, "rectangular")
     targets = _read_targets(top, n)
     trunk_width = tree.quantity("trunk_width", "length", None)
-    trunk_depth = tree.quantity("trunk_depth", "length", None)
+    trunk_depth = _picometre(tree.quantity("trunk_depth", "length", None))
     if shape == "round":
         if trunk_depth is not None:
             raise tree.error("trunk_depth", "a round tube has only a diameter: use trunk_width")
@@ -486,7 +512,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     widths = depths = None
     if rule == "table":
         widths = tuple(tree.quantities("widths", "length"))
-        depths = tuple(tree.quantities("depths", "length"))
+        depths = tuple(_picometre(d) for d in tree.quantities("depths", "length"))
         for key, values in (("widths", widths), ("depths", depths)):
             if len(values) != n + 1:
                 raise tree.error(
@@ -516,8 +542,8 @@ def load_tree_spec(top: Table) -> TreeSpec:
         lengths = (tree.quantity("length", "length", 3e-3),) * n
     fluid = read_fluid(top)
     return TreeSpec(
-        name=top.string("name", "tree"),
-        description=top.string("description", ""),
+        name=top.label("name", "tree"),
+        description=top.text("description", ""),
         fluid=fluid,
         flow=tree.quantity("flow", "flow"),
         generations=n,

@@ -1,0 +1,139 @@
+"""``chipflow analyse``: the flow field and floor shear of a mask drawn elsewhere (DXF)."""
+
+from __future__ import annotations
+
+import json
+
+import click
+
+from chipflow.cli.common import QUANTITY, fluid_options
+from chipflow.errors import SpecError
+from chipflow.units import units_of
+
+__all__ = ["command", "SI_UNITS"]
+
+#: Keys of ``chipflow analyse --json`` and their SI units.
+SI_UNITS = units_of(
+    "inlet_pressure",
+    "flow",
+    "resistance",
+    "p05",
+    "p50",
+    "p95",
+    "area",
+    "area_outside_window",
+    "mesh_triangles",
+    "viscosity",
+)
+
+
+class _Point(click.ParamType):
+    """``X,Y`` in the drawing's units."""
+
+    name = "X,Y"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, tuple):
+            return value
+        parts = str(value).replace(" ", "").split(",")
+        try:
+            if len(parts) != 2:
+                raise ValueError
+            return float(parts[0]), float(parts[1])
+        except ValueError:
+            self.fail(f"expected two numbers X,Y in the drawing's units, got {value!r}", param, ctx)
+
+
+@click.command("analyse")
+@click.argument("mask", type=click.Path(exists=True, dir_okay=False, path_type=str))
+@click.option("--depth", type=QUANTITY("length"), required=True, help="Channel depth, e.g. 50um.")
+@click.option("--inlet", type=_Point(), required=True, help="Inlet port centre X,Y.")
+@click.option("--outlet", type=_Point(), required=True, help="Outlet port centre X,Y.")
+@click.option("--flow", type=QUANTITY("flow"), help="Flow through the chip, e.g. 10uL/min.")
+@click.option(
+    "--pressure", type=QUANTITY("pressure"), help="Inlet pressure above the outlet, e.g. 2kPa."
+)
+@click.option("--layer", help="Read only this DXF layer (default: all).")
+@click.option(
+    "--punch", type=QUANTITY("length"), default="1mm", show_default=True, help="Port punch."
+)
+@click.option(
+    "--units",
+    type=click.Choice(["mm", "um", "cm", "m", "in", "mil"]),
+    help="Drawing units when the file states none ($INSUNITS).",
+)
+@click.option("--cell-type", help="Judge the floor shear against this cell type's window.")
+@click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), help="Write files.")
+@click.option("--json", "as_json", is_flag=True, help="Print SI values as JSON.")
+@fluid_options
+def command(
+    mask,
+    depth,
+    inlet,
+    outlet,
+    flow,
+    pressure,
+    layer,
+    punch,
+    units,
+    cell_type,
+    outdir,
+    as_json,
+    fluid,
+) -> None:
+    """Solve the flow field of MASK, a DXF drawn in any CAD program.
+
+    Closed polylines are channels, circles port pads; the ports are holes of the punch's
+    diameter at --inlet and --outlet (coordinates in the file's units).
+
+    \b
+    Example:
+      chipflow analyse chip.dxf --depth 50um --inlet 0,0 --outlet 20,0 --flow 10uL/min
+    """
+    from chipflow.checks.cell_types import cell_type as lookup
+    from chipflow.field.analyse import analyse_mask
+    from chipflow.spec.mask_dxf import read_mask_dxf
+
+    if (flow is None) == (pressure is None):
+        raise SpecError("give either --flow or --pressure")
+    window = None
+    if cell_type is not None:
+        cells = lookup(cell_type, where="--cell-type")
+        window = (cells.shear_min, cells.shear_max)
+    m = read_mask_dxf(mask, layer, units)
+    analysis = analyse_mask(
+        m.geometry,
+        depth,
+        (inlet[0] * m.scale, inlet[1] * m.scale),
+        (outlet[0] * m.scale, outlet[1] * m.scale),
+        punch,
+        fluid.viscosity,
+        flow=flow,
+        pressure=pressure,
+        window=window,
+    )
+    results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
+    results["units"] = SI_UNITS
+    if outdir is not None:
+        from chipflow.export.analysis import write_analysis
+
+        write_analysis(analysis, results, outdir)
+    if as_json:
+        click.echo(json.dumps(results, indent=2, sort_keys=True))
+        return
+    s = results["floor_shear"]
+    click.echo(f"mask {mask}: {m.units} drawing, channel floor {analysis.area * 1e6:.4g} mm^2")
+    click.echo(
+        f"inlet pressure {analysis.inlet_pressure:.4g} Pa, flow {analysis.flow * 6e10:.4g} uL/min, "
+        f"resistance {analysis.resistance * 1e-9:.4g} Pa s/uL"
+    )
+    click.echo(
+        f"floor shear: p05 {s['p05']:.3g} Pa, median {s['p50']:.3g} Pa, p95 {s['p95']:.3g} Pa"
+    )
+    if window is not None:
+        click.echo(
+            f"{cell_type} window {window[0]:.3g}-{window[1]:.3g} Pa: "
+            f"{analysis.floor.below:.1%} of the floor below, {analysis.floor.above:.1%} above"
+        )
+    if outdir is not None:
+        click.echo(f"wrote results.json and field.svg to {outdir}/")

@@ -1,0 +1,238 @@
+"""Monte Carlo of fabrication and operating tolerances on the network that is drawn.
+
+:func:`vary_build` perturbs the as-drawn network of a built tree design many times (see
+:mod:`chipflow.variation.problem` for what a sample changes), solves the samples in batches
+(:mod:`chipflow.variation.batch`) here, in local processes or on a Dask cluster
+(:mod:`chipflow.variation.execute`) and summarises them (:mod:`chipflow.variation.statistics`):
+per level the 5th, 50th and 95th percentiles of floor shear, residence time and pressure drop;
+the supply and chip pressures; the spread of the bed flows; the yield; the worst corner; and
+the ranking of the tolerances by how much they move the shear.
+
+Channel lengths stay as drawn; junction corrections, if the network adds them, are held at
+their nominal equivalent lengths (see :mod:`chipflow.variation.problem`).
+
+The samples are split into batches of a size fixed by the network alone, so the same seed gives
+the same numbers whichever way the batches are executed.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from chipflow.build import Build
+from chipflow.spec.tolerances import Tolerances
+from chipflow.units import RESULT_UNITS
+from chipflow.variation.batch import BatchResult, concatenate, solve_batch
+from chipflow.variation.execute import run_tasks
+from chipflow.variation.problem import Problem, variation_problem
+from chipflow.variation.sampling import corners, one_at_a_time, standard_draws
+from chipflow.variation.statistics import (
+    ELASTICITY_STEP,
+    percentiles,
+    sample_passes,
+    sensitivity,
+    shear_margin,
+    worst_corner,
+)
+
+__all__ = ["Variation", "vary_build", "batch_size", "VARY_UNITS", "MODEL_NOTE"]
+
+#: Channel-samples per batch: bounds the memory of one batch (about 30 arrays of this size).
+BATCH_ELEMENTS = 300_000
+
+#: SI units of the keys of the variation results.
+VARY_UNITS = {
+    **{k: RESULT_UNITS[k] for k in ("residence_time", "pressure_drop", "width", "depth")},
+    "floor_shear": "Pa",
+    "wall_shear_floor": "Pa",
+    "supply_pressure": "Pa",
+    "chip_pressure": "Pa",
+    "bed_flow": "m^3/s",
+    "bed_flow_spread": "1",
+    "yield": "1",
+    "yield_standard_error": "1",
+    "shear_margin": "1",
+    "elasticity": "1",
+    "shear_change": "1",
+    "inside_window": "1",
+}
+
+MODEL_NOTE = (
+    "One depth error per mould level, one width bias for the whole mask, one supply and one "
+    "viscosity error per chip, independent; tubing keeps its size, channel lengths stay as "
+    "drawn and any resistance the network adds to a channel (junction corrections) is held as "
+    "its nominal equivalent length."
+)
+
+Progress = Callable[[int, int], None]
+
+
+@dataclass(frozen=True, eq=False)
+class Variation:
+    """A finished variation run.
+
+    Attributes
+    ----------
+    build : Build
+        The nominal build.
+    problem : Problem
+    tolerances : Tolerances
+    samples : BatchResult
+        Per-sample results (in sample order).
+    passes : numpy.ndarray of bool
+        Whether each sample passes.
+    results : dict
+        JSON-able summary in SI units (see :func:`vary_build`).
+    """
+
+    build: Build
+    problem: Problem
+    tolerances: Tolerances
+    samples: BatchResult
+    passes: np.ndarray
+    results: dict[str, Any]
+
+
+def batch_size(problem: Problem) -> int:
+    """Samples per batch, from the network's size alone (never from the machine)."""
+    return int(max(1, min(4096, BATCH_ELEMENTS // max(1, problem.n_channels))))
+
+
+def vary_build(
+    build: Build,
+    tolerances: Tolerances,
+    *,
+    scheduler: str | None = None,
+    workers: int | None = None,
+    progress: Progress | None = None,
+) -> Variation:
+    """Run the Monte Carlo of ``tolerances`` on the drawn network of ``build``.
+
+    Parameters
+    ----------
+    build : Build
+        A built tree design.
+    tolerances : Tolerances
+        Tolerances, distribution, number of samples and seed.
+    scheduler : str, optional
+        Address of a Dask distributed scheduler to run the batches on.
+    workers : int, optional
+        Local processes (default one per CPU).
+    progress : callable, optional
+        Called with ``(done, total)`` batches.
+
+    Returns
+    -------
+    Variation
+        ``results`` holds ``samples``, ``seed``, ``yield``, ``levels`` (per level
+        ``generation``, ``role``, ``floor_shear``, ``residence_time``, ``pressure_drop``, each
+        ``{p05, p50, p95, nominal}``), ``supply_pressure``, ``chip_pressure``,
+        ``bed_flow_spread``, ``worst_corner``, ``sensitivity`` and ``units``.
+
+    Raises
+    ------
+    SpecError
+        For an explicit network or tolerances out of range for this design.
+    """
+    problem = variation_problem(build, tolerances)
+    tol = problem.tolerance_vector(tolerances)
+    draws = standard_draws(
+        tolerances.samples, problem.n_factors, tolerances.seed, tolerances.distribution
+    )
+    params = draws * tol
+    size = batch_size(problem)
+    chunks = [params[i : i + size] for i in range(0, params.shape[0], size)]
+    parts = run_tasks(
+        solve_batch, problem, chunks, scheduler=scheduler, workers=workers, progress=progress
+    )
+    samples = concatenate(parts)
+    passes = sample_passes(problem, samples)
+
+    # designed rows, solved here: nominal, small steps, each tolerance alone, every corner
+    steps = np.full(problem.n_factors, ELASTICITY_STEP)
+    steps[problem.n_levels] = ELASTICITY_STEP * float(problem.level_widths.min())
+    active = np.flatnonzero(tol > 0)
+    corner_rows = np.zeros((2**active.size, problem.n_factors))
+    corner_rows[:, active] = corners(active.size) * tol[active]
+    nominal_row = np.zeros((1, problem.n_factors))
+    designed = np.vstack([nominal_row, one_at_a_time(steps), one_at_a_time(tol), corner_rows])
+    solved = solve_batch(problem, designed)
+    k = problem.n_factors
+    cut = np.cumsum([1, 2 * k, 2 * k])
+    nominal, small, ends, corner = (_rows(solved, a, b) for a, b in _spans(cut, designed.shape[0]))
+    results = _summary(build, problem, tolerances, samples, passes, nominal)
+    results["worst_corner"] = worst_corner(
+        problem, corner_rows, corner, sample_passes(problem, corner)
+    )
+    results["sensitivity"] = sensitivity(problem, tol, steps, nominal, small, ends)
+    return Variation(build, problem, tolerances, samples, passes, results)
+
+
+def _spans(cut: np.ndarray, total: int) -> list[tuple[int, int]]:
+    bounds = [0, *cut.tolist(), total]
+    return list(zip(bounds[:-1], bounds[1:], strict=True))
+
+
+def _rows(result: BatchResult, start: int, stop: int) -> BatchResult:
+    fields = BatchResult.__dataclass_fields__
+    return BatchResult(**{k: getattr(result, k)[start:stop] for k in fields})
+
+
+def _summary(
+    build: Build,
+    problem: Problem,
+    tolerances: Tolerances,
+    samples: BatchResult,
+    passes: np.ndarray,
+    nominal: BatchResult,
+) -> dict[str, Any]:
+    n = samples.shear.shape[0]
+    y = float(passes.mean())
+    levels = []
+    window = problem.window
+    for g, label in enumerate(problem.labels):  # loop over levels
+        row: dict[str, Any] = {
+            "generation": problem.generations[g],
+            "role": problem.roles[g],
+            "label": label,
+            "seeded": bool(problem.seeded[g]),
+            "floor_shear": percentiles(samples.shear[:, g], nominal.shear[0, g]),
+            "residence_time": percentiles(samples.residence[:, g], nominal.residence[0, g]),
+            "pressure_drop": percentiles(samples.pressure_drop[:, g], nominal.pressure_drop[0, g]),
+        }
+        if window is not None:
+            inside = (samples.shear_min[:, g] >= window[0]) & (samples.shear_max[:, g] <= window[1])
+            row["inside_window"] = float(inside.mean())
+        levels.append(row)
+    margin = shear_margin(problem, samples)
+    design = build.results["design"]
+    return {
+        "design": {k: design[k] for k in ("name", "file", "sha256")},
+        "samples": int(n),
+        "seed": int(tolerances.seed),
+        "distribution": tolerances.distribution,
+        "tolerances": tolerances.to_dict(),
+        "yield": y,
+        "yield_standard_error": float(np.sqrt(y * (1.0 - y) / n)),
+        "shear_window": build.results.get("shear_window"),
+        "levels": levels,
+        "supply_pressure": percentiles(samples.supply_pressure, nominal.supply_pressure[0]),
+        "chip_pressure": percentiles(samples.chip_pressure, nominal.chip_pressure[0]),
+        "bed_flow": percentiles(samples.bed_flow, nominal.bed_flow[0]),
+        "bed_flow_spread": percentiles(samples.bed_spread, nominal.bed_spread[0]),
+        "shear_margin": None if margin is None else percentiles(margin),
+        "limits": {
+            "chip_pressure": problem.bond_allowed,
+            "supply_pressure": None
+            if not np.isfinite(problem.pump_allowed)
+            else problem.pump_allowed,
+        },
+        "factors": list(problem.names),
+        "mould_levels": [float(d) for d in problem.level_depths],
+        "model": MODEL_NOTE,
+        "units": VARY_UNITS,
+    }

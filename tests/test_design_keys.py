@@ -1,0 +1,309 @@
+"""Every key of the README's design-file table has an effect.
+
+The keys are read from the README's table itself, so a key documented later without an entry
+here fails the test. Each key is changed within its valid range on the demo design (with the
+other keys it needs, e.g. ``velocity_ratio`` with ``rule = "area-growth"``) and the build must
+differ: in its results, its drawing, or (for ``[export]``) the bytes of its mask files. Keys
+whose effect only shows without a drawing (nominal tree lengths, round channels) are checked
+on the sized design, and the list below says why.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import re
+import tomllib
+from pathlib import Path
+
+import pytest
+import shapely
+
+from chipflow.build import DesignSource, build_design
+from chipflow.design.sizing import size_tree
+from chipflow.spec.tree import load_tree_spec
+
+ROOT = Path(__file__).parents[1]
+DEMO = tomllib.loads((ROOT / "designs" / "demo_endothelial_bed.toml").read_text())
+TWO_LEVEL = {"fabrication": {"depths": ["30 um", "100 um"], "max_width_to_depth": 12}}
+
+VARIED = {
+    "tolerances": {
+        "depth": "5 %", "width": "2 um", "flow": "2 %", "viscosity": "5 %", "samples": 30,
+    }
+}  # fmt: skip
+
+# (section, key): (context changes, the change, what shows it)
+#   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
+#   "vary": the results of chipflow vary;
+#   "sizing": the sized design (the key matters where nothing is drawn, e.g. chipflow check)
+CASES = {
+    ("", "name"): ({}, {"name": "another-bed"}, "build"),
+    ("", "description"): ({}, {"description": "another text"}, "build"),
+    ("fluid", "kind"): ({}, {"fluid": {"kind": "water"}}, "build"),
+    ("fluid", "temperature"): (
+        {"fluid": {"kind": "water"}},
+        {"fluid": {"kind": "water", "temperature": "25 degC"}},
+        "build",
+    ),
+    ("fluid", "viscosity"): ({}, {"fluid": {"kind": "medium", "viscosity": "1.1 mPa*s"}}, "build"),
+    ("fluid", "density"): ({}, {"fluid": {"kind": "medium", "density": "1050 kg/m^3"}}, "build"),
+    ("tree", "flow"): ({}, {"tree": {"flow": "10 uL/min"}}, "build"),
+    ("tree", "generations"): ({}, {"tree": {"bed_channels": None, "generations": 4}}, "build"),
+    ("tree", "bed_channels"): ({}, {"tree": {"bed_channels": 16}}, "build"),
+    ("tree", "rule"): (
+        {},
+        {"tree": {"rule": "shear-target"}, "targets": {"shear": "0.9 Pa"}},
+        "build",
+    ),
+    # round channels size a Murray's-law comparison; the drawing refuses them
+    ("tree", "shape"): ({}, {"tree": {"shape": "round"}}, "sizing"),
+    ("tree", "trunk_width"): ({}, {"tree": {"trunk_width": "500 um"}}, "build"),
+    ("tree", "trunk_depth"): (
+        {
+            "fabrication": {"depths": ["60 um", "70 um"]},
+            "tree": {"trunk_width": "400 um", "trunk_depth": "60 um"},
+        },
+        {"tree": {"trunk_depth": "70 um"}},
+        "build",
+    ),
+    ("tree", "growth"): (
+        {"tree": {"rule": "area-growth", "growth": 1.2}},
+        {"tree": {"growth": 1.4}},
+        "build",
+    ),
+    ("tree", "velocity_ratio"): (
+        {"tree": {"rule": "area-growth", "velocity_ratio": 4}},
+        {"tree": {"velocity_ratio": 6}},
+        "build",
+    ),
+    ("tree", "widths"): (
+        {
+            "tree": {
+                "rule": "table",
+                "widths": ["600 um", "335 um", "186 um", "104 um", "58 um", "35 um"],
+                "depths": ["50 um"] * 6,
+            }
+        },
+        {"tree": {"widths": ["600 um", "335 um", "186 um", "104 um", "58 um", "40 um"]}},
+        "build",
+    ),
+    ("tree", "depths"): (
+        {
+            "tree": {
+                "rule": "table",
+                "widths": ["600 um", "335 um", "186 um", "104 um", "58 um", "35 um"],
+                "depths": ["50 um"] * 6,
+            },
+            "fabrication": {"depths": ["50 um", "60 um"]},
+        },
+        {"tree": {"depths": ["60 um", "50 um", "50 um", "50 um", "50 um", "50 um"]}},
+        "build",
+    ),
+    # nominal lengths of tree channels: the drawing replaces them, chipflow check uses them
+    ("tree", "length"): ({}, {"tree": {"length": "3 mm"}}, "sizing"),
+    ("tree", "lengths"): (
+        {},
+        {"tree": {"length": None, "lengths": ["1 mm", "2 mm", "2 mm", "2 mm", "2 mm"]}},
+        "sizing",
+    ),
+    ("bed", "residence_time"): ({}, {"bed": {"residence_time": "2 s"}}, "build"),
+    ("bed", "length"): ({}, {"bed": {"residence_time": None, "length": "3 mm"}}, "build"),
+    ("bed", "max_straight_length"): ({}, {"bed": {"max_straight_length": "1.5 mm"}}, "build"),
+    ("bed", "gap"): ({}, {"bed": {"gap": "150 um"}}, "build"),
+    ("targets", "shear_kind"): ({}, {"targets": {"shear_kind": "mean"}}, "build"),
+    ("targets", "shear"): ({}, {"targets": {"shear": "0.9 Pa"}}, "build"),
+    ("targets", "shear_min"): (
+        {},
+        {"targets": {"shear_min": "0.6 Pa", "shear_max": "1 Pa"}},
+        "build",
+    ),
+    ("targets", "shear_max"): (
+        {},
+        {"targets": {"shear_min": "0.5 Pa", "shear_max": "0.9 Pa"}},
+        "build",
+    ),
+    # the window of [targets] bounds the sizing of every level or of the bed alone
+    ("targets", "levels"): (
+        {
+            "targets": {"shear_min": "0.5 Pa", "shear_max": "1 Pa"},
+            "fabrication": {"max_width_to_depth": 14},
+        },
+        {"targets": {"levels": "bed"}},
+        "sizing",
+    ),
+    ("targets", "tolerance"): ({}, {"targets": {"tolerance": 0.001}}, "build"),
+    ("culture", "cell_type"): ({}, {"culture": {"cell_type": "mouse-esc"}}, "build"),
+    ("culture", "shear_min"): ({}, {"culture": {"shear_min": "0.6 Pa"}}, "build"),
+    ("culture", "shear_max"): ({}, {"culture": {"shear_max": "0.9 Pa"}}, "build"),
+    ("culture", "seeded"): ({}, {"culture": {"seeded": "bed"}}, "build"),
+    ("culture", "cell_density"): ({}, {"culture": {"cell_density": "2e5 cell/cm^2"}}, "build"),
+    ("culture", "o2_consumption"): ({}, {"culture": {"o2_consumption": "1e-16 mol/s"}}, "build"),
+    ("culture", "o2_inlet"): ({}, {"culture": {"o2_inlet": "0.1 mol/m^3"}}, "build"),
+    ("culture", "o2_diffusivity"): ({}, {"culture": {"o2_diffusivity": "2e-9 m^2/s"}}, "build"),
+    ("culture", "residence_time"): ({}, {"culture": {"residence_time": "2 s"}}, "build"),
+    ("fabrication", "depths"): ({}, {"fabrication": {"depths": ["60 um"]}}, "build"),
+    ("fabrication", "grid"): ({}, {"fabrication": {"grid": "5 um"}}, "build"),
+    ("fabrication", "min_feature"): ({}, {"fabrication": {"min_feature": "40 um"}}, "build"),
+    ("fabrication", "min_width"): ({}, {"fabrication": {"min_width": "40 um"}}, "build"),
+    ("fabrication", "max_width"): ({}, {"fabrication": {"max_width": "500 um"}}, "build"),
+    ("fabrication", "max_width_to_depth"): (
+        {},
+        {"fabrication": {"max_width_to_depth": 10}},
+        "build",
+    ),
+    ("fabrication", "max_depth_to_width"): (
+        {},
+        {"fabrication": {"max_depth_to_width": 1.2}},
+        "build",
+    ),
+    ("fabrication", "min_gap"): ({}, {"fabrication": {"min_gap": "110 um"}}, "build"),
+    ("fabrication", "bend_radius"): ({}, {"fabrication": {"bend_radius": 3}}, "build"),
+    ("fabrication", "alignment_margin"): (
+        TWO_LEVEL,
+        {"fabrication": {"alignment_margin": "20 um"}},
+        "build",
+    ),
+    ("chip", "width"): ({}, {"chip": {"width": "80 mm"}}, "build"),
+    ("chip", "height"): ({}, {"chip": {"height": "30 mm"}}, "build"),
+    ("chip", "margin"): ({}, {"chip": {"margin": "2 mm"}}, "build"),
+    ("chip", "punch"): ({}, {"chip": {"punch": "1.5 mm"}}, "build"),
+    ("chip", "port_keepout"): ({}, {"chip": {"port_keepout": "0.8 mm"}}, "build"),
+    ("supply", "inlet"): (
+        {},
+        {"supply": {"inlet": "pressure", "pressure": "600 Pa"}},
+        "build",
+    ),
+    ("supply", "flow"): ({}, {"supply": {"flow": "10 uL/min"}}, "build"),
+    ("supply", "pressure"): (
+        {"supply": {"inlet": "pressure", "pressure": "600 Pa"}},
+        {"supply": {"pressure": "700 Pa"}},
+        "build",
+    ),
+    ("supply", "head"): (
+        {"supply": {"inlet": "reservoir", "head": "6 cm"}},
+        {"supply": {"head": "7 cm"}},
+        "build",
+    ),
+    ("supply", "outlet"): ({}, {"supply": {"outlet": "reservoir", "outlet_head": "1 cm"}}, "build"),
+    ("supply", "outlet_head"): (
+        {"supply": {"outlet": "reservoir", "outlet_head": "1 cm"}},
+        {"supply": {"outlet_head": "2 cm"}},
+        "build",
+    ),
+    ("supply", "tubing_diameter"): ({}, {"supply": {"tubing_diameter": "0.8 mm"}}, "build"),
+    ("supply", "inlet_tubing"): ({}, {"supply": {"inlet_tubing": "50 cm"}}, "build"),
+    ("supply", "outlet_tubing"): ({}, {"supply": {"outlet_tubing": "20 cm"}}, "build"),
+    ("limits", "bond_pressure"): ({}, {"limits": {"bond_pressure": "150 kPa"}}, "build"),
+    ("limits", "safety_factor"): ({}, {"limits": {"safety_factor": 3}}, "build"),
+    ("limits", "pump_pressure"): ({}, {"limits": {"pump_pressure": "50 kPa"}}, "build"),
+    ("export", "units"): ({}, {"export": {"units": "mm"}}, "dxf"),
+    ("export", "dxf_version"): ({}, {"export": {"dxf_version": "R12"}}, "dxf"),
+    ("export", "holes"): ({}, {"export": {"holes": "keyhole"}}, "dxf"),
+    ("export", "polarity"): ({}, {"export": {"polarity": "inverse"}}, "dxf"),
+    ("export", "mirror"): ({}, {"export": {"mirror": True}}, "dxf"),
+    ("export", "gds_vertex_limit"): ({}, {"export": {"gds_vertex_limit": 199}}, "gds"),
+    # [tolerances] feeds chipflow vary: its results must change
+    ("tolerances", "depth"): (VARIED, {"tolerances": {"depth": "8 %"}}, "vary"),
+    ("tolerances", "width"): (VARIED, {"tolerances": {"width": "1 um"}}, "vary"),
+    ("tolerances", "flow"): (VARIED, {"tolerances": {"flow": "3 %"}}, "vary"),
+    ("tolerances", "viscosity"): (VARIED, {"tolerances": {"viscosity": "2 %"}}, "vary"),
+    ("tolerances", "distribution"): (VARIED, {"tolerances": {"distribution": "normal"}}, "vary"),
+    ("tolerances", "samples"): (VARIED, {"tolerances": {"samples": 40}}, "vary"),
+    ("tolerances", "seed"): (VARIED, {"tolerances": {"seed": 1}}, "vary"),
+}
+
+# words in the table that are values or section names, not keys
+VALUES = {
+    "medium", "water", "custom", "equal-shear", "shear-target", "area-growth", "table",
+    "rectangular", "round", "floor", "mean", "max", "all", "bed", "syringe", "pressure",
+    "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
+    "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"',
+}  # fmt: skip
+
+
+def readme_keys() -> set[tuple[str, str]]:
+    """(section, key) of every key in the README's design-file table."""
+    text = (ROOT / "README.md").read_text()
+    table = text[text.index("| section | keys |") : text.index("Bundled designs")]
+    keys = set()
+    for line in table.splitlines()[2:]:
+        cells = [c.strip() for c in line.strip("|").split("|")]
+        if len(cells) < 2:
+            continue
+        section = "" if cells[0] == "top level" else cells[0].strip("`[]")
+        # a value in quotes inside the cell (e.g. "supply": `pressure` is both) is a key
+        # when the cell lists it outside parentheses
+        outside = re.sub(r"\([^()]*\)", "", cells[1])
+        for word in re.findall(r"`([^`]+)`", cells[1]):
+            if word.startswith("["):
+                continue
+            if word in VALUES and f"`{word}`" not in outside:
+                continue
+            if word in VALUES and (section, word) not in CASES:
+                continue
+            keys.add((section, word))
+    return keys
+
+
+def merged(*changes: dict) -> dict:
+    data = copy.deepcopy(DEMO)
+    for change in changes:
+        for k, v in change.items():
+            if isinstance(v, dict):
+                section = data.setdefault(k, {})
+                for kk, vv in v.items():
+                    if vv is None:
+                        section.pop(kk, None)
+                    else:
+                        section[kk] = vv
+            else:
+                data[k] = v
+    return data
+
+
+def fingerprint(data: dict, what: str, tmp_path: Path) -> bytes:
+    source = DesignSource.from_dict(data, "keys.toml")
+    if what == "sizing":
+        design = size_tree(load_tree_spec(source.top))
+        return repr(design.levels).encode()
+    build = build_design(source)
+    if what == "vary":
+        from chipflow.spec.tolerances import read_tolerances
+        from chipflow.variation.vary import vary_build
+
+        variation = vary_build(build, read_tolerances(source.top), workers=1)
+        return json.dumps(variation.results, sort_keys=True, default=str).encode()
+    if what == "build":
+        results = dict(build.results)
+        results["design"] = {k: v for k, v in results["design"].items() if k != "sha256"}
+        layers = b"".join(shapely.to_wkb(layer.geometry) for layer in build.layout.layers)
+        return json.dumps(results, sort_keys=True, default=str).encode() + layers
+    if what == "dxf":
+        from chipflow.export.dxf import write_dxf
+
+        return write_dxf(build.layout, tmp_path / "k.dxf", build.export.dxf).read_bytes()
+    from chipflow.export.gds import write_gds
+
+    return write_gds(build.layout, tmp_path / "k.gds", build.export.gds).read_bytes()
+
+
+def test_the_table_and_the_cases_list_the_same_keys():
+    assert readme_keys() == set(CASES)
+
+
+@pytest.fixture(autouse=True)
+def _plain_junctions(monkeypatch):
+    # the junction corrections' values are tested in test_junctions.py; here only whether a
+    # key changes the build matters, so a fixed stand-in spares the 2D solves
+    from chipflow.layout import extract
+
+    monkeypatch.setattr(extract, "junction_excess_length", lambda j: -0.4 * j.parent_width)
+
+
+@pytest.mark.parametrize("section,key", sorted(CASES), ids=lambda v: v or "top")
+def test_changing_a_documented_key_changes_the_build(section, key, tmp_path):
+    context, change, what = CASES[(section, key)]
+    before = fingerprint(merged(context), what, tmp_path)
+    after = fingerprint(merged(context, change), what, tmp_path)
+    assert before != after, f"[{section}] {key} had no effect on the {what}"

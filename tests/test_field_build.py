@@ -1,0 +1,106 @@
+"""The field in ``chipflow build``: results, report section, figure, --field/--no-field."""
+
+from __future__ import annotations
+
+import json
+import tomllib
+
+import numpy as np
+import pytest
+import shapely
+from click.testing import CliRunner
+
+from chipflow.build import DesignSource, build_design
+from chipflow.cli import main
+from chipflow.field import FieldPort, FieldRegion, solve_field
+from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+from chipflow.physics import duct
+
+
+def small_demo(tmp_path, beds: int = 8) -> str:
+    """The demo design with a smaller bed, written as a file."""
+    text = open("chipflow/data/demo.toml", encoding="utf-8").read()
+    text = text.replace("bed_channels = 32", f"bed_channels = {beds}")
+    path = tmp_path / "small.toml"
+    path.write_text(text, encoding="utf-8")
+    return str(path)
+
+
+@pytest.fixture(scope="module")
+def small_build(tmp_path_factory):
+    return build_design(small_demo(tmp_path_factory.mktemp("d")), field=True)
+
+
+def test_field_results_compare_with_the_network(small_build):
+    field = small_build.results["field"]
+    for key in ("resistance", "area_outside_window", "mesh_triangles"):
+        assert key in field
+    assert set(field["floor_shear"]) == {"p05", "p50", "p95"}
+    assert field["floor_shear"]["p05"] <= field["floor_shear"]["p50"] <= field["floor_shear"]["p95"]
+    assert 0.0 <= field["area_outside_window"] <= 1.0
+    # the shares of the seeded floor outside the window add up over the zones
+    assert sum(field["outside_by_zone"].values()) == pytest.approx(field["area_outside_window"])
+    # the network is exact in straight runs and counts junctions and bends by their
+    # centrelines: the two models agree to within the junction and bend corrections
+    assert field["resistance"] == pytest.approx(field["network_resistance"], rel=0.15)
+    # each level's centre floor shear follows the network's to the same measure
+    for level in field["levels"]:
+        assert level["field_shear"] == pytest.approx(level["network_shear"], rel=0.15)
+    # symmetric tree: the bed flow split is even in both models to a few per cent
+    assert field["bed_split"]["field_cv"] < 0.05
+    # results use the one table of SI units
+    units = small_build.results["units"]
+    assert units["resistance"] == "Pa*s/m^3" and units["area_outside_window"] == "1"
+
+
+def test_field_flows_balance_and_follow_the_network_pressures(small_build):
+    run = small_build.field
+    q = run.solution.port_flows
+    assert q["inlet"] == pytest.approx(-q["outlet"], rel=1e-9)  # continuity
+    names = list(small_build.solution.network.node_names)
+    p_in = small_build.solution.pressure[names.index("inlet")]
+    assert run.solution.port_pressures["inlet"] == pytest.approx(p_in)
+
+
+def test_build_command_field_switch(tmp_path):
+    design = small_demo(tmp_path, beds=4)
+    on, off = tmp_path / "on", tmp_path / "off"
+    r = CliRunner().invoke(main, ["build", design, "--field", "-o", str(on)])
+    assert r.exit_code in (0, 1), r.output
+    assert "field: chip resistance" in r.output
+    assert (on / "field.svg").exists()
+    results = json.loads((on / "results.json").read_text())
+    assert results["field"]["mesh_triangles"] > 0
+    html = (on / "report.html").read_text()
+    assert "Junctions and bends" in html and "outside window" in html
+    r = CliRunner().invoke(main, ["build", design, "--no-field", "-o", str(off)])
+    assert r.exit_code in (0, 1), r.output
+    assert not (off / "field.svg").exists()
+    assert json.loads((off / "results.json").read_text())["field"] is None
+
+
+def test_field_is_on_by_default_only_for_small_chips(tmp_path):
+    small = build_design(small_demo(tmp_path, beds=2))
+    assert estimate_triangles(small.layout) <= AUTO_TRIANGLES
+    assert small.results["field"] is not None
+    data = tomllib.loads(open("chipflow/data/demo.toml", encoding="utf-8").read())
+    big = build_design(DesignSource.from_dict(data, "demo.toml"), field=False)
+    assert estimate_triangles(big.layout) > AUTO_TRIANGLES  # so a default build skips it
+
+
+def test_depth_step_in_series_adds_the_two_resistances():
+    # two depths in series, the step part of the domain: flux is conserved across it and
+    # the resistance is the sum of the two exact series (Bruus 2008) to within the step's
+    # own small 2D correction (under 1 % for runs 10 widths long)
+    w, length = 400e-6, 4e-3
+    shallow = FieldRegion(shapely.box(0, 0, length, w), 50e-6)
+    deep = FieldRegion(shapely.box(length, 0, 2 * length, w), 100e-6)
+    ports = [
+        FieldPort("in", shapely.LineString([(0, 0), (0, w)]), 100.0),
+        FieldPort("out", shapely.LineString([(2 * length, 0), (2 * length, w)]), 0.0),
+    ]
+    sol = solve_field([shallow, deep], ports, 1e-3, across=6)
+    expected = duct.resistance(w, 50e-6, length, 1e-3) + duct.resistance(w, 100e-6, length, 1e-3)
+    assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
+    assert sol.port_flows["in"] == pytest.approx(-sol.port_flows["out"], rel=1e-9)
+    assert set(np.unique(sol.mesh.depth)) == {50e-6, 100e-6}
