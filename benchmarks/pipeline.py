@@ -34,7 +34,7 @@ whole process; GDSII within 3x and DXF and previews within 1.5x of their floors 
 
 The designs are benchmark scenarios, not chips: every bed channel takes 0.1 uL/min, the trees
 run on a five-level mould (25-400 um) and the outline grows with the bed (a 2^14-channel bed
-is about a metre tall), so that every size draws and solves without a rule error.
+is about 1.4 m tall), so that every size draws and solves without a rule error.
 
 Run: ``python benchmarks/pipeline.py [--sizes 4,6,8,10,12,14] [--repeat 5] [--out DIR]``
 """
@@ -93,7 +93,7 @@ def design_text(n: int) -> str:
         n=n,
         flow=round(2**n * 0.1, 6),
         width=max(75.0, 2**n * 0.1 + 60),
-        height=max(25.0, 2**n * 0.065 + 20),
+        height=max(25.0, 2**n * 0.085 + 20),
     )
 
 
