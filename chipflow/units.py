@@ -22,9 +22,11 @@ from __future__ import annotations
 
 import functools
 import math
+import os
 import re
 from dataclasses import dataclass
 from numbers import Real
+from pathlib import Path
 
 import numpy as np
 import pint
@@ -44,8 +46,42 @@ __all__ = [
     "lab_number",
 ]
 
+
+def _cache_folder() -> Path | None:
+    """Where pint keeps its parsed unit definitions between runs (None: no cache).
+
+    ``CHIPFLOW_UNIT_CACHE`` names a folder, or ``off`` to parse the definitions every time;
+    by default the user's cache folder. The folder name carries pint's version, so an upgrade
+    starts afresh.
+    """
+    setting = os.environ.get("CHIPFLOW_UNIT_CACHE", "")
+    if setting.lower() in ("off", "0", "no", "false"):
+        return None
+    if setting:
+        return Path(setting)
+    import platformdirs  # a dependency of pint
+
+    return platformdirs.user_cache_path("chipflow", appauthor=False) / f"pint-{pint.__version__}"
+
+
+def _registry() -> pint.UnitRegistry:
+    """The registry, built from pint's cached definitions when a usable cache exists.
+
+    Parsing pint's definition file is most of the cost of a registry; the parsed form is kept
+    on disk (see :func:`_cache_folder`). Any trouble with the cache (a read-only home, a file
+    half-written by a concurrent run) falls back to parsing, so the registry is always the same.
+    """
+    folder = _cache_folder()
+    if folder is not None:
+        try:
+            return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=folder)
+        except Exception:  # noqa: BLE001 - the cache is an optimisation only
+            pass
+    return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+
+
 #: The one unit registry of chipflow. Offset temperatures ("37 degC") convert on their own.
-ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+ureg = _registry()
 ureg.define("cell = [] = cells")
 
 

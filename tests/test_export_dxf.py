@@ -383,3 +383,18 @@ def test_prepared_layout_is_shared_by_the_writers_of_one_layout():
     # shared arrays cannot be changed by one writer behind another's back
     with pytest.raises(ValueError):
         first.layers[0].rings[0][0, 0] = 1.0
+
+
+def test_vertices_filled_in_one_step_give_the_bytes_of_adding_them_one_by_one(
+    tmp_path, monkeypatch
+):
+    # reference: ezdxf's own per-vertex path (LWPolyline.set_points)
+    from chipflow.export import dxf
+
+    write_dxf(LAYOUT, tmp_path / "fast.dxf")
+    monkeypatch.setattr(
+        dxf, "_set_points", lambda entity, points: entity.set_points(points.tolist(), format="xy")
+    )
+    write_dxf(LAYOUT, tmp_path / "slow.dxf")
+    assert (tmp_path / "fast.dxf").read_bytes() == (tmp_path / "slow.dxf").read_bytes()
+    assert b"LWPOLYLINE" in (tmp_path / "fast.dxf").read_bytes()

@@ -206,3 +206,33 @@ def test_dense_previews_embed_the_shapes_as_one_image(tmp_path):
     write_previews(LAYOUT, [tmp_path / "v.svg"], values=values)
     # the colour bar is an image in both; the dense one adds the image of the shapes
     assert dense_svg.count(b"<image") == (tmp_path / "v.svg").read_bytes().count(b"<image") + 1
+
+
+@pytest.mark.parametrize("holes", ["split", "keyhole"])
+def test_gds_carries_the_same_shapes_as_the_dxf(tmp_path, holes):
+    # reference: the DXF file of the same layout and options, read back with ezdxf
+    import ezdxf
+
+    from chipflow.export.dxf import DxfOptions, write_dxf
+
+    layout = comb_layout(n_bed=6)
+    write_gds(layout, tmp_path / "c.gds", GdsOptions(holes=holes))
+    write_dxf(layout, tmp_path / "c.dxf", DxfOptions(holes=holes))
+    _, cell = _read(tmp_path / "c.gds")
+    doc = ezdxf.readfile(tmp_path / "c.dxf")
+    for level, mask in enumerate(layout.layers, start=1):
+        gds = sorted(np.round(p.points, 6).tolist() for p in cell.polygons if p.layer == level)
+        dxf = sorted(
+            np.round(np.array(e.get_points("xy")), 6).tolist()
+            for e in doc.modelspace().query(f'LWPOLYLINE[layer=="{mask.name}"]')
+        )
+        assert gds == dxf
+        if holes == "split":  # hole-free simple pieces, as many as the DXF's
+            assert all(shapely.Polygon(p).is_valid for p in gds)
+
+
+def test_gds_hole_option_is_checked():
+    with pytest.raises(SpecError, match="holes"):
+        GdsOptions(holes="bridge")
+    settings = read_export(parse_design_text('[export]\nholes = "keyhole"'))
+    assert settings.gds.holes == settings.dxf.holes == "keyhole"

@@ -53,9 +53,12 @@ def _examples(help_text: str) -> list[str]:
     for i, line in enumerate(lines):
         if re.match(r"^\s*Examples?:\s*$", line):
             for follow in lines[i + 1 :]:
-                if not follow.strip().startswith("chipflow"):
+                if out and out[-1].endswith("\\"):  # a continued command line
+                    out[-1] = out[-1][:-1] + follow.strip()
+                elif follow.strip().startswith("chipflow"):
+                    out.append(follow.strip())
+                else:
                     break
-                out.append(follow.strip())
     return out
 
 
@@ -83,7 +86,7 @@ def test_every_help_example_runs_after_a_plain_install(installed, tmp_path: Path
     assert "site" in where.stdout
     _write_user_mask(work / "chip.dxf")  # the `analyse` example reads a mask of the user's own
     examples = []
-    for name in ["", *sorted(main.commands)]:
+    for name in ["", *main.list_commands(None)]:
         shown = _run(["chipflow", *([name] if name else []), "--help"], env=installed, cwd=work)
         assert shown.returncode == 0, shown.stderr
         found = _examples(shown.stdout)

@@ -6,6 +6,7 @@ mistake becomes one line on stderr and exit status 2.
 
 from __future__ import annotations
 
+import importlib
 import sys
 
 import click
@@ -26,7 +27,34 @@ def _one_line(text: str) -> str:
 
 
 class _Group(click.Group):
-    """A command group that reports bad input in one line and exits with status 2."""
+    """A command group that reports bad input in one line and exits with status 2.
+
+    Commands are imported when they are used, so ``chipflow channel`` loads the duct formulas
+    and never the drawing, the mask writers or the plotting library.
+    """
+
+    #: Command name -> (module, attribute), in the order of ``chipflow --help``.
+    lazy = {
+        "channel": ("chipflow.cli.channel", "command"),
+        "size": ("chipflow.cli.size", "command"),
+        "check": ("chipflow.cli.check", "command"),
+        "build": ("chipflow.cli.build", "command"),
+        "new": ("chipflow.cli.new", "command"),
+        "designs": ("chipflow.cli.designs", "command"),
+        "analyse": ("chipflow.cli.analyse", "command"),
+        "vary": ("chipflow.cli.vary", "command"),
+        "sweep": ("chipflow.cli.sweep", "command"),
+        "demo": ("chipflow.cli.build", "demo_command"),
+    }
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted({*self.lazy, *self.commands})
+
+    def get_command(self, ctx: click.Context, name: str) -> click.Command | None:
+        if name not in self.commands and name in self.lazy:
+            module, attribute = self.lazy[name]
+            self.add_command(getattr(importlib.import_module(module), attribute), name)
+        return self.commands.get(name)
 
     def main(self, args=None, prog_name=None, complete_var=None, standalone_mode=True, **extra):
         try:
@@ -63,14 +91,3 @@ def main() -> None:
     Example:
       chipflow channel --width 200um --depth 50um --length 10mm --flow 5uL/min
     """
-
-
-def _register() -> None:
-    from chipflow.cli import analyse, build, channel, check, designs, new, size, sweep, vary
-
-    for module in (channel, size, check, build, new, designs, analyse, vary, sweep):
-        main.add_command(module.command)
-    main.add_command(build.demo_command)
-
-
-_register()

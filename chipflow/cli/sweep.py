@@ -41,15 +41,21 @@ def command(
 
     \b
     Example:
-      chipflow sweep designs/demo_endothelial_bed.toml \\
-          --vary tree.flow=5uL/min..20uL/min:16 \\
-          --vary "fabrication.depths=[40um],[50um],[60um]"
+      chipflow sweep demo_endothelial_bed \\
+          --vary tree.flow=8uL/min..16uL/min:5 \\
+          --vary "fabrication.depths=[50um],[60um]"
     """
     from chipflow.export.sweep import sweep_to_folder
+    from chipflow.spec.bundled import resolve_design
 
     with progress_bar("grid points") as progress:
         sweep, files = sweep_to_folder(
-            design, specs, outdir, scheduler=scheduler, workers=workers, progress=progress
+            resolve_design(design),
+            specs,
+            outdir,
+            scheduler=scheduler,
+            workers=workers,
+            progress=progress,
         )
     rows = []
     for r in sweep.rows:

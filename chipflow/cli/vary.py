@@ -72,11 +72,12 @@ def command(
 
     \b
     Example:
-      chipflow vary designs/demo_endothelial_bed.toml --depth-tolerance 10% \\
+      chipflow vary demo_endothelial_bed --depth-tolerance 10% \\
           --width-tolerance 2um --samples 10000 -o demo-tolerances
     """
     from chipflow.export.variation import vary_to_folder
     from chipflow.report.variation import variation_summary
+    from chipflow.spec.bundled import resolve_design
 
     options = {
         "depth": depth,
@@ -89,7 +90,12 @@ def command(
     }
     with progress_bar("samples", quiet=as_json) as progress:
         variation, files = vary_to_folder(
-            design, options, outdir, scheduler=scheduler, workers=workers, progress=progress
+            resolve_design(design),
+            options,
+            outdir,
+            scheduler=scheduler,
+            workers=workers,
+            progress=progress,
         )
     if as_json:
         from chipflow.export.variation import results_text

@@ -114,7 +114,9 @@ def channels_csv(build: Build) -> str:
     return text.getvalue()
 
 
-def _csv_column(values: np.ndarray) -> list[str]:
+def _csv_column(values: np.ndarray) -> list:
+    """One column's cells: floats as they are (the csv module writes ``repr``), non-finite
+    floats blank, anything else as text."""
     values = np.asarray(values)
     if values.dtype.kind == "f":
         return [repr(tidy(v)) if math.isfinite(v) else "" for v in values.tolist()]

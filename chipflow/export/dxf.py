@@ -15,6 +15,7 @@ What the file holds:
 
 from __future__ import annotations
 
+import array
 import contextlib
 import hashlib
 import logging
@@ -22,6 +23,8 @@ import os
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+
+import numpy as np
 
 from chipflow.errors import SpecError
 from chipflow.export._files import atomic_write
@@ -165,6 +168,23 @@ def notes_lines(layout: Layout, prepared: PreparedLayout, options: DxfOptions) -
     return lines
 
 
+def _set_points(entity, points: np.ndarray) -> None:
+    """Give an empty LWPOLYLINE its vertices ((n, 2) array) in one step.
+
+    ezdxf keeps a polyline's vertices as one flat array of (x, y, start width, end width,
+    bulge); filling it from numpy gives the same entity as adding the points one by one
+    (``add_lwpolyline(points, format="xy")``) without the Python work per vertex. Should the
+    storage be other than expected, the points are added one by one.
+    """
+    store = getattr(getattr(entity, "lwpoints", None), "values", None)
+    if not isinstance(store, array.array) or store.typecode != "d" or len(store):
+        entity.set_points(points.tolist(), format="xy")
+        return
+    flat = np.zeros((len(points), 5))
+    flat[:, :2] = points
+    store.frombytes(flat.tobytes())
+
+
 def write_dxf(layout: Layout, path: str | os.PathLike, options: DxfOptions = DxfOptions()) -> Path:
     """Write the mask levels of a layout to a DXF file.
 
@@ -216,11 +236,11 @@ def write_dxf(layout: Layout, path: str | os.PathLike, options: DxfOptions = Dxf
         msp = doc.modelspace()
 
         def polyline(ring, layer: str) -> None:
-            points = coords(ring)
             if r12:
-                msp.add_polyline2d(points, close=True, dxfattribs={"layer": layer})
-            else:
-                msp.add_lwpolyline(points, format="xy", close=True, dxfattribs={"layer": layer})
+                msp.add_polyline2d(coords(ring), close=True, dxfattribs={"layer": layer})
+                return
+            entity = msp.add_lwpolyline((), format="xy", close=True, dxfattribs={"layer": layer})
+            _set_points(entity, (ring.astype("int64") * scale) / nm_per_unit)
 
         for layer in prepared.layers:
             for ring in layer.rings:

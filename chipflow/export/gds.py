@@ -1,8 +1,11 @@
 """GDSII mask file for the mask maker.
 
 One cell named after the design; database unit 1 nm, user unit 1 um. Mask level ``n``
-(shallowest first) is GDSII layer ``n``, datatype 0. Holes are joined to their outlines (the
-usual GDSII form), and polygons with more vertices than the limit are fractured. The chip
+(shallowest first) is GDSII layer ``n``, datatype 0. GDSII polygons have no holes: islands are
+resolved as in the DXF file (by default cut into hole-free pieces that meet edge to edge, so
+both files carry the same shapes and the chip is prepared once for both; ``holes="keyhole"``
+joins each island to its outline instead), and polygons with more vertices than the limit are
+fractured. The chip
 outline, the port marks and a text label with the notes go on separate layers
 (:data:`OUTLINE_GDS_LAYER`, :data:`PORT_GDS_LAYER`, :data:`NOTES_GDS_LAYER`) that are not mask
 levels. The file carries a fixed timestamp, so the same layout gives the same bytes.
@@ -18,7 +21,7 @@ from pathlib import Path
 
 from chipflow.errors import SpecError
 from chipflow.export._files import atomic_write
-from chipflow.export.geometry import POLARITIES, prepare_layout
+from chipflow.export.geometry import HOLES, POLARITIES, prepare_layout
 from chipflow.layout.model import Layout
 
 __all__ = [
@@ -57,12 +60,16 @@ class GdsOptions:
         As :class:`chipflow.export.dxf.DxfOptions`; default False.
     design_hash : str
         Hash of the design file, written in the notes label.
+    holes : {"split", "keyhole"}
+        As :class:`chipflow.export.dxf.DxfOptions`; default "split", the same hole-free
+        pieces as the DXF file.
     """
 
     vertex_limit: int = 8190
     polarity: str = "channels"
     mirror: bool = False
     design_hash: str = ""
+    holes: str = "split"
 
     def __post_init__(self) -> None:
         limit = self.vertex_limit
@@ -78,6 +85,10 @@ class GdsOptions:
             )
         if not isinstance(self.mirror, bool):
             raise SpecError(f"GDSII option mirror: expected true or false, got {self.mirror!r}")
+        if self.holes not in HOLES:
+            raise SpecError(
+                f"GDSII option holes: unknown value {self.holes!r} (valid: {', '.join(HOLES)})"
+            )
 
 
 def cell_name(name: str) -> str:
@@ -112,14 +123,12 @@ def write_gds(layout: Layout, path: str | os.PathLike, options: GdsOptions = Gds
     import gdstk
 
     prepared = prepare_layout(
-        layout, polarity=options.polarity, mirror=options.mirror, holes="keyhole"
+        layout, polarity=options.polarity, mirror=options.mirror, holes=options.holes
     )
     um = prepared.grid_nm / 1000  # micrometres per grid unit
     lib = gdstk.Library("CHIPFLOW", unit=GDS_UNIT, precision=GDS_PRECISION)
     cell = lib.new_cell(cell_name(layout.name))
     for level, layer in enumerate(prepared.layers, start=1):
-        # one keyholed outline per shape: its holes joined to it along bridges (linear in the
-        # number of shapes, unlike a boolean merge of hole-free pieces)
         cell.add(*(gdstk.Polygon(ring * um, layer=level, datatype=0) for ring in layer.rings))
     cell.add(gdstk.Polygon(prepared.outline * um, layer=OUTLINE_GDS_LAYER, datatype=0))
     for _, ring in prepared.ports:

@@ -133,7 +133,8 @@ def grid_nanometres(grid: float) -> int:
 def ring_area(ring: np.ndarray) -> float:
     """Signed (shoelace) area of a ring without its closing vertex; positive when CCW."""
     x, y = ring[:, 0], ring[:, 1]
-    return float(0.5 * (np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+    x1, y1 = np.concatenate((x[1:], x[:1])), np.concatenate((y[1:], y[:1]))
+    return float(0.5 * (np.dot(x, y1) - np.dot(y, x1)))
 
 
 def circle_ring(cx: float, cy: float, radius: float) -> np.ndarray:
@@ -161,16 +162,39 @@ def _clean_ring(coords: np.ndarray) -> np.ndarray:
     pts = np.asarray(coords, dtype=float)
     if len(pts) > 1 and np.array_equal(pts[0], pts[-1]):
         pts = pts[:-1]
-    keep = np.any(pts != np.roll(pts, 1, axis=0), axis=1)
+    keep = np.any(pts != np.concatenate((pts[-1:], pts[:-1])), axis=1)
     if not keep.any():
         keep[0] = True
     return pts[keep]
 
 
+def _clean_rings(rings: np.ndarray) -> list[np.ndarray]:
+    """:func:`_clean_ring` of many shapely rings at once (the same arrays, one numpy pass)."""
+    xy, owner = shapely.get_coordinates(rings, return_index=True)
+    count = np.bincount(owner, minlength=len(rings))
+    end = np.cumsum(count)
+    start = end - count
+    closed = (count > 1) & np.all(xy[np.maximum(start, 0)] == xy[np.maximum(end - 1, 0)], axis=1)
+    keep_vertex = np.ones(len(xy), dtype=bool)
+    keep_vertex[(end - 1)[closed]] = False
+    xy, owner = xy[keep_vertex], owner[keep_vertex]
+    count = np.bincount(owner, minlength=len(rings))
+    end = np.cumsum(count)
+    start = end - count
+    prev = np.arange(-1, len(xy) - 1)
+    has = count > 0
+    prev[start[has]] = end[has] - 1  # each ring's first vertex follows its last
+    keep = np.any(xy != xy[prev], axis=1) if len(xy) else np.zeros(0, dtype=bool)
+    kept = np.bincount(owner[keep], minlength=len(rings))
+    keep[start[has & (kept == 0)]] = True
+    cuts = np.cumsum(np.bincount(owner[keep], minlength=len(rings)))[:-1]
+    return np.split(xy[keep], cuts)
+
+
 def _canonical(ring: np.ndarray) -> np.ndarray:
     """Start the ring at its lowest-leftmost vertex (a stable order for files)."""
     start = np.lexsort((ring[:, 0], ring[:, 1]))[0]
-    return np.roll(ring, -start, axis=0)
+    return np.concatenate((ring[start:], ring[:start]))
 
 
 def _polygons(geom: shapely.Geometry) -> list[shapely.Polygon]:
@@ -250,42 +274,163 @@ def _find_bridges(poly: shapely.Polygon, per_hole: int) -> list[tuple[int, list]
     Returns ``[(hole index, [(hole vertex index, target vertex), ...]), ...]`` or ``None`` when
     some hole cannot be joined.
     """
-    shell = _clean_ring(poly.exterior.coords)
-    holes = [_clean_ring(h.coords) for h in poly.interiors]
+    shell, *holes = _clean_rings(shapely.get_rings(poly))
     shapely.prepare(poly)
     every = np.vstack([shell, *holes])
-    uniq, counts = np.unique(every, axis=0, return_counts=True)
-    used = {tuple(p) for p in uniq[counts > 1]}  # vertices where rings touch: never bridge ends
-    targets = [shell]
-    segments: list[shapely.LineString] = []
+    uniq, counts = np.unique(every[:, 0] + 1j * every[:, 1], return_counts=True)
+    # vertices where rings touch: never bridge ends
+    used = {(p.real, p.imag) for p in uniq[counts > 1].tolist()}
+    exact = bool(np.abs(every).max() < _EXACT_BELOW and np.all(every == np.rint(every)))
+    edges = _Edges([shell, *holes]) if exact else None
     order = sorted(range(len(holes)), key=lambda i: (-holes[i][:, 0].max(), -holes[i][:, 1].max()))
+    # the outline, then the holes in the order they are joined: each hole's candidate targets
+    # are a prefix of this array
+    targets = np.vstack([shell, *(holes[i] for i in order)])
+    joined = len(shell)
+    bridges = np.empty((len(holes) * per_hole, 4))  # x0 y0 x1 y1 of the bridges so far
+    count = 0
+    segments: list[shapely.LineString] = []  # the same, for the GEOS predicates
     result = []
     for i in order:
         hole = holes[i]
-        cand = np.vstack(targets)
+        cand = targets[:joined]
         found: list = []
         for hj, ci in _nearest_pairs(hole, cand, _MAX_TRIES):
-            a, b = tuple(hole[hj]), tuple(cand[ci])
+            a, b = tuple(hole[hj].tolist()), tuple(cand[ci].tolist())
             if a in used or b in used:
                 continue
-            seg = shapely.LineString([a, b])
-            if not shapely.relate_pattern(seg, poly, "TFF**F***"):
-                continue
-            if segments and shapely.intersects(seg, shapely.MultiLineString(segments)):
-                continue
+            if exact:
+                if not edges.open_segment_inside(a, b, poly):
+                    continue
+                if _meets_any(a, b, bridges[:count]):
+                    continue
+            else:
+                seg = shapely.LineString([a, b])
+                if not shapely.relate_pattern(seg, poly, "TFF**F***"):
+                    continue
+                if segments and shapely.intersects(seg, shapely.MultiLineString(segments)):
+                    continue
+                segments.append(seg)
             found.append((hj, cand[ci]))
-            segments.append(seg)
+            bridges[count] = (*a, *b)
+            count += 1
             used.update((a, b))
             if len(found) == per_hole:
                 break
         if len(found) < per_hole:
             return None
-        targets.append(hole)
+        joined += len(hole)
         result.append((i, found))
     return result
 
 
+#: Below this size of grid coordinate, the orientation tests of :class:`_Edges` and
+#: :func:`_meets_any` on whole numbers are exact in floating point (products of two
+#: differences stay below 2**53); larger chips or off-grid coordinates use GEOS predicates.
+_EXACT_BELOW = 2.0**25
+
+
+class _Edges:
+    """The edges of a polygon's rings, for exact segment tests in whole grid units."""
+
+    def __init__(self, rings: list[np.ndarray]) -> None:
+        start = np.vstack(rings)
+        sizes = np.array([len(r) for r in rings])
+        following = np.arange(1, len(start) + 1)
+        following[np.cumsum(sizes) - 1] = np.cumsum(sizes) - sizes  # a ring's last -> its first
+        end = start[following]
+        self.x0, self.y0 = start[:, 0], start[:, 1]
+        self.x1, self.y1 = end[:, 0], end[:, 1]
+        self.xmin, self.xmax = np.minimum(self.x0, self.x1), np.maximum(self.x0, self.x1)
+        self.ymin, self.ymax = np.minimum(self.y0, self.y1), np.maximum(self.y0, self.y1)
+
+    def open_segment_inside(self, a: tuple, b: tuple, poly: shapely.Polygon) -> bool:
+        """Whether the segment ``a``-``b`` without its ends lies in the inside of ``poly``.
+
+        The DE-9IM pattern ``TFF**F***`` of the segment against the polygon: no point between
+        ``a`` and ``b`` is on the boundary (touching, crossing or running along an edge), and
+        the middle is inside. ``a`` and ``b`` are vertices of the polygon.
+        """
+        (ax, ay), (bx, by) = a, b
+        near = np.flatnonzero(
+            (self.xmax >= min(ax, bx))
+            & (self.xmin <= max(ax, bx))
+            & (self.ymax >= min(ay, by))
+            & (self.ymin <= max(ay, by))
+        )
+        ends = zip(
+            self.x0[near].tolist(),
+            self.y0[near].tolist(),
+            self.x1[near].tolist(),
+            self.y1[near].tolist(),
+            strict=True,
+        )
+        for cx, cy, dx, dy in ends:
+            if _open_meets_closed(ax, ay, bx, by, cx, cy, dx, dy):
+                return False
+        return bool(shapely.contains_xy(poly, (ax + bx) / 2, (ay + by) / 2))
+
+
+def _side(ux: float, uy: float, px: float, py: float) -> int:
+    """The sign of the cross product u x p: which side of a line point p lies on."""
+    cross = ux * py - uy * px
+    return (cross > 0) - (cross < 0)
+
+
+def _open_meets_closed(ax, ay, bx, by, cx, cy, dx, dy) -> bool:
+    """Whether segment ab without its ends meets segment cd with its ends (exact for whole
+    numbers below :data:`_EXACT_BELOW`)."""
+    ux, uy = bx - ax, by - ay
+    o_c = _side(ux, uy, cx - ax, cy - ay)
+    o_d = _side(ux, uy, dx - ax, dy - ay)
+    if o_c * o_d > 0:
+        return False  # cd lies on one side of the line through a and b
+    length2 = ux * ux + uy * uy
+    t_c = (cx - ax) * ux + (cy - ay) * uy  # position along ab: 0 at a, length2 at b
+    t_d = (dx - ax) * ux + (dy - ay) * uy
+    if o_c == 0 and o_d == 0:  # collinear: do they share more than an end of ab?
+        return max(t_c, t_d) > 0 and min(t_c, t_d) < length2
+    if o_c == 0:
+        return 0 < t_c < length2
+    if o_d == 0:
+        return 0 < t_d < length2
+    vx, vy = dx - cx, dy - cy
+    return _side(vx, vy, ax - cx, ay - cy) * _side(vx, vy, bx - cx, by - cy) < 0
+
+
+def _closed_meets_closed(ax, ay, bx, by, px, py, qx, qy) -> bool:
+    """Whether segments ab and pq (ends included) meet (exact as :func:`_open_meets_closed`)."""
+    ux, uy = bx - ax, by - ay
+    o_p = _side(ux, uy, px - ax, py - ay)
+    o_q = _side(ux, uy, qx - ax, qy - ay)
+    if o_p * o_q > 0:
+        return False
+    if o_p == 0 and o_q == 0:
+        length2 = ux * ux + uy * uy
+        t_p = (px - ax) * ux + (py - ay) * uy
+        t_q = (qx - ax) * ux + (qy - ay) * uy
+        return max(t_p, t_q) >= 0 and min(t_p, t_q) <= length2
+    vx, vy = qx - px, qy - py
+    return _side(vx, vy, ax - px, ay - py) * _side(vx, vy, bx - px, by - py) <= 0
+
+
+def _meets_any(a: tuple, b: tuple, segments: np.ndarray) -> bool:
+    """Whether the closed segment ``a``-``b`` meets any of ``segments`` ((n, 4): x0 y0 x1 y1)."""
+    if not len(segments):
+        return False
+    (ax, ay), (bx, by) = a, b
+    px, py, qx, qy = segments.T
+    near = np.flatnonzero(
+        (np.maximum(px, qx) >= min(ax, bx))
+        & (np.minimum(px, qx) <= max(ax, bx))
+        & (np.maximum(py, qy) >= min(ay, by))
+        & (np.minimum(py, qy) <= max(ay, by))
+    )
+    return any(_closed_meets_closed(ax, ay, bx, by, *segments[k].tolist()) for k in near)
+
+
 _MAX_TRIES = 5000
+_FIRST = 8  # pairs sorted before the rest of a window (see _nearest_pairs)
 
 
 def _nearest_pairs(a: np.ndarray, b: np.ndarray, count: int) -> Iterator[tuple[int, int]]:
@@ -319,9 +464,17 @@ def _nearest_pairs(a: np.ndarray, b: np.ndarray, count: int) -> Iterator[tuple[i
         ia, ib = np.nonzero((d2 > done) & (everything | (d2 <= reach)))
         dist = d2[ia, ib]
         flat = ia * n + near[ib]
-        for k in np.lexsort((flat, dist))[: count - given]:
-            yield int(ia[k]), int(near[ib[k]])
-        given += min(len(dist), count - given)
+        # the nearest few first (with every pair tied with the last of them), then the rest:
+        # a search usually stops after a pair or two
+        first = dist <= np.partition(dist, _FIRST - 1)[_FIRST - 1] if len(dist) > _FIRST else None
+        parts = (np.ones(len(dist), dtype=bool),) if first is None else (first, ~first)
+        for part in parts:
+            pick = np.flatnonzero(part)
+            for k in pick[np.lexsort((flat[pick], dist[pick]))][: count - given]:
+                yield int(ia[k]), int(near[ib[k]])
+                given += 1
+            if given >= count:
+                return
         if everything:
             return
         done, reach = reach, max(4.0 * reach, 1.0)
@@ -329,8 +482,8 @@ def _nearest_pairs(a: np.ndarray, b: np.ndarray, count: int) -> Iterator[tuple[i
 
 def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
     """Join every hole of ``poly`` to its outline by one zero-width bridge (see _find_bridges)."""
-    shell = _clean_ring(poly.exterior.coords)
-    if not poly.interiors:
+    shell, *holes = _clean_rings(shapely.get_rings(poly))
+    if not holes:
         return shell
     bridges = _find_bridges(poly, 1)
     if bridges is None:
@@ -339,11 +492,10 @@ def _keyhole_polygon(poly: shapely.Polygon) -> np.ndarray:
             f"cannot join the holes near x={x:g}, y={y:g} (grid units) to their outline by "
             "keyhole bridges; write the mask with holes = 'split' instead"
         )
-    holes = [_clean_ring(h.coords) for h in poly.interiors]
-    ring = [tuple(p) for p in shell]
+    ring = [tuple(p) for p in shell.tolist()]
     for i, [(hj, target)] in bridges:
-        at = ring.index(tuple(target))
-        loop = [tuple(p) for p in np.roll(holes[i], -hj, axis=0)]
+        at = ring.index(tuple(target.tolist()))
+        loop = [tuple(p) for p in np.concatenate((holes[i][hj:], holes[i][:hj])).tolist()]
         ring = ring[: at + 1] + loop + [loop[0]] + ring[at:]
     return np.array(ring, dtype=float)
 
@@ -353,18 +505,21 @@ def _split_by_bridges(poly: shapely.Polygon) -> list[np.ndarray] | None:
     bridges = _find_bridges(poly, 2)
     if bridges is None:
         return None
-    holes = [_clean_ring(h.coords) for h in poly.interiors]
-    segs = [
-        shapely.LineString([holes[i][hj], target]) for i, found in bridges for hj, target in found
-    ]
-    lines = shapely.union_all([poly.exterior, *poly.interiors, *segs])
-    faces = [f for f in shapely.get_parts(shapely.polygonize([lines])) if f.area > 0]
-    inside = [f for f in faces if poly.contains(f.representative_point())]
-    if any(f.interiors for f in inside) or not math.isclose(
-        sum(f.area for f in inside), poly.area, rel_tol=1e-12
+    _, *holes = _clean_rings(shapely.get_rings(poly))
+    ends = np.array(
+        [(holes[i][hj], target) for i, found in bridges for hj, target in found], dtype=float
+    )
+    lines = shapely.union_all([*shapely.get_rings(poly), *shapely.linestrings(ends)])
+    faces = shapely.get_parts(shapely.polygonize([lines]))
+    area = shapely.area(faces)
+    faces, area = faces[area > 0], area[area > 0]
+    inside = shapely.contains(poly, shapely.point_on_surface(faces))
+    faces, area = faces[inside], area[inside]
+    if np.any(shapely.get_num_interior_rings(faces) > 0) or not math.isclose(
+        sum(area.tolist()), poly.area, rel_tol=1e-12
     ):
         return None
-    return [_clean_ring(shapely.orient_polygons(f).exterior.coords) for f in inside]
+    return _clean_rings(shapely.get_exterior_ring(shapely.orient_polygons(faces)))
 
 
 def resolve_holes(geom: shapely.Geometry, holes: str) -> list[np.ndarray]:

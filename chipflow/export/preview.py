@@ -104,6 +104,14 @@ def _path_of(geom: shapely.Geometry, scale: float):
     return MplPath(xy * scale, codes)
 
 
+def _channel_outlines(channels) -> np.ndarray:
+    """Each channel's own outline [m]: the one drawn with the layout, or (for a layout without
+    them) the centreline widened by half the width on each side, with flat ends."""
+    if channels.outline is not None:
+        return np.asarray(channels.outline)
+    return shapely.buffer(np.asarray(channels.centreline), channels.width / 2, cap_style="flat")
+
+
 def _view_bounds(layout: Layout) -> tuple[float, float, float, float]:
     """What the preview shows [m]: the whole chip, or the drawn network when it covers less
     than a quarter of the chip (the whole chip then goes into an inset)."""
@@ -112,7 +120,7 @@ def _view_bounds(layout: Layout) -> tuple[float, float, float, float]:
     parts += [shapely.Point(p.x, p.y).buffer(p.diameter / 2) for p in layout.ports]
     if not parts:
         return chip
-    x0, y0, x1, y1 = shapely.GeometryCollection(parts).bounds
+    x0, y0, x1, y1 = shapely.total_bounds(np.array(parts, dtype=object)).tolist()
     if (x1 - x0) * (y1 - y0) >= 0.25 * (chip[2] - chip[0]) * (chip[3] - chip[1]):
         return chip
     pad = 0.1 * max(x1 - x0, y1 - y0)
@@ -230,7 +238,7 @@ def plot_layout(
                 f"preview of {layout.name!r}: got {vals.size} values for "
                 f"{len(ch.width)} channels; give one value per channel"
             )
-        shapes = shapely.buffer(np.asarray(ch.centreline), ch.width / 2, cap_style="flat")
+        shapes = _channel_outlines(ch)
         parts, owner = shapely.get_parts(shapes, return_index=True)
         rings = shapely.get_exterior_ring(parts)
         xy, idx = shapely.get_coordinates(rings, return_index=True)
@@ -290,7 +298,7 @@ def plot_layout(
     ax.text(x0 + bar * mm / 2, y0 + 0.3 * pad * mm, label, ha="center", va="bottom", fontsize=8)
     ax.set_xlabel("x [mm]")
     ax.set_ylabel("y [mm]")
-    ax.set_title(layout.name)
+    ax.set_title(layout.name, y=1.0)  # placed, not searched for (no axis above it)
     if patches:
         ax.legend(handles=patches, loc="upper right", fontsize=7, framealpha=0.8)
     return LayoutPlot(ax, colorbar, tuple(patches), collection, bar)
@@ -368,7 +376,8 @@ def write_previews(
         if path.suffix.lower() not in (".svg", ".png"):
             raise ExportError(f"{path}: a preview is written as .svg or .png, not {path.suffix!r}")
     written = []
-    with matplotlib.rc_context({"svg.hashsalt": "chipflow", "svg.fonttype": "path"}):
+    # text stays text in SVG (as in the report figures): no glyph outlines to build and store
+    with matplotlib.rc_context({"svg.hashsalt": "chipflow", "svg.fonttype": "none"}):
         plot = plot_layout(
             layout,
             values=values,

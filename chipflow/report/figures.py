@@ -33,6 +33,11 @@ _TEAL = "#1f7a7a"
 _BED = "#f3e7cf"
 _WINDOW = "#cfe8c9"
 _SPAN_FOR_LOG = 30.0
+# Figure margins left, right, top, bottom, the gap between panels and the distance of the
+# y-axis labels from the axes [inch].
+_MARGINS = (0.95, 0.15, 0.7, 0.55)
+_PANEL_GAP = 0.35
+_LABEL_OFFSET = 0.6
 
 
 def generation_labels(generations: Sequence[Mapping[str, Any]]) -> list[str]:
@@ -68,6 +73,16 @@ def _use_log(*arrays: np.ndarray) -> bool:
     if values.size == 0 or np.any(values <= 0):
         return False
     return float(values.max() / values.min()) > _SPAN_FOR_LOG
+
+
+def _log_axis(ax) -> None:
+    """A logarithmic y axis labelled in plain numbers (0.1, 1, 10), which needs no math-text
+    typesetting."""
+    from matplotlib.ticker import LogFormatter
+
+    ax.set_yscale("log")
+    ax.yaxis.set_major_formatter(LogFormatter())
+    ax.yaxis.set_minor_formatter(LogFormatter(labelOnlyBase=False))
 
 
 def _steps(ax, start: np.ndarray, end: np.ndarray, y: np.ndarray, **style) -> None:
@@ -170,10 +185,10 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     axes[1].set_ylabel("flow\n[uL/min]")
     axes[1].legend(loc="best", fontsize=7, frameon=False)
     if _use_log(q, q_total):
-        axes[1].set_yscale("log")
+        _log_axis(axes[1])
 
     series = [
-        (2, _column(generations, "total_area") * 1e6, "total\ncross-section\n[mm$^2$]"),
+        (2, _column(generations, "total_area") * 1e6, "total\ncross-section\n[mm\u00b2]"),
         (3, _column(generations, "mean_velocity") * 1e3, "mean velocity\n[mm/s]"),
         (5, _column(generations, "residence_time"), "residence\ntime [s]"),
     ]
@@ -183,7 +198,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         _steps(axes[row], start, end, values, color=_INK, lw=1.6)
         axes[row].set_ylabel(ylabel)
         if _use_log(values):
-            axes[row].set_yscale("log")
+            _log_axis(axes[row])
 
     # floor wall shear with the window
     floor = _column(generations, "wall_shear_floor")
@@ -211,7 +226,7 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     ax.set_ylabel("wall shear\n[Pa]")
     ax.legend(loc="best", fontsize=7, frameon=False)
     if _use_log(*shown):
-        ax.set_yscale("log")
+        _log_axis(ax)
 
     roles = [g.get("role") for g in generations]
     for axis, title in zip(axes, PROFILE_PANELS, strict=True):
@@ -230,11 +245,21 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         "(d: distribution, c: collection)",
         fontsize=7.5,
     )
+    # Fixed margins [inch] and label positions instead of measuring every label's extent (a
+    # tight layout and label alignment would take most of the figure's drawing time).
     top = axes[0].secondary_xaxis("top")
     top.set_xticks((start + end) / 2, labels)
     top.tick_params(labelsize=6, length=0, pad=1)
-    fig.align_ylabels(axes)
-    fig.tight_layout(h_pad=0.4)
+    height = fig.get_figheight()
+    for axis in axes:
+        axis.yaxis.set_label_coords(-_LABEL_OFFSET / width, 0.5)
+    fig.subplots_adjust(
+        left=_MARGINS[0] / width,
+        right=1 - _MARGINS[1] / width,
+        top=1 - _MARGINS[2] / height,
+        bottom=_MARGINS[3] / height,
+        hspace=_PANEL_GAP / (panel_height - _PANEL_GAP),
+    )
     return fig
 
 

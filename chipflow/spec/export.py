@@ -10,7 +10,7 @@
     mirror = false            # true: mirrored, the chip as seen from the chrome side
     gds_vertex_limit = 8190   # most vertices per GDSII polygon (199 for old readers)
 
-Polarity and mirroring apply to both the DXF and the GDSII file.
+Polarity, mirroring and hole handling apply to both the DXF and the GDSII file.
 """
 
 from __future__ import annotations
@@ -67,10 +67,11 @@ def read_export(top: Table, design_hash: str = "") -> ExportSettings:
     default_dxf, default_gds = DxfOptions(), GdsOptions()
     polarity = table.choice("polarity", POLARITIES, default_dxf.polarity)
     mirror = table.boolean("mirror", default_dxf.mirror)
+    holes = table.choice("holes", HOLES, default_dxf.holes)
     dxf = DxfOptions(
         units=table.choice("units", tuple(DXF_UNITS), default_dxf.units),
         version=table.choice("dxf_version", DXF_VERSIONS, default_dxf.version),
-        holes=table.choice("holes", HOLES, default_dxf.holes),
+        holes=holes,
         polarity=polarity,
         mirror=mirror,
         design_hash=design_hash,
@@ -78,5 +79,7 @@ def read_export(top: Table, design_hash: str = "") -> ExportSettings:
     limit = table.number(
         "gds_vertex_limit", default_gds.vertex_limit, integer=True, minimum=5, maximum=8190
     )
-    gds = GdsOptions(vertex_limit=limit, polarity=polarity, mirror=mirror, design_hash=design_hash)
+    gds = GdsOptions(
+        vertex_limit=limit, polarity=polarity, mirror=mirror, design_hash=design_hash, holes=holes
+    )
     return ExportSettings(dxf, gds)
