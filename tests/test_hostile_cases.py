@@ -2,7 +2,8 @@
 
 Unit text pint chokes on, deep TOML, huge integers, long or control-character names, a tree
 too large for the machine, bad API arguments; plus a hypothesis fuzz of unit strings on
-design files and on the command line.
+design files and on the command line. The numbers here are hostile inputs, not reference
+values, so they need no outside source.
 """
 
 from __future__ import annotations

@@ -4,7 +4,9 @@ Covers: a folder reused by another kind of build keeps none of the old files; ``
 and leaves files that are not chipflow's alone; a lock makes a second build into the same
 folder fail in one line; stale staging folders of dead builds are removed; a failure part-way
 (a full disk, an immutable folder) leaves the folder as it was and prints one line; SIGTERM
-cleans up; and SIGKILL at random points of a build never leaves a mixed folder.
+cleans up; and SIGKILL at random points of a build never leaves a mixed folder. The numbers
+here are times and counts of the test itself, not reference values, so they need no outside
+source.
 """
 
 from __future__ import annotations
