@@ -206,6 +206,7 @@ def _build_tree(
 ) -> Build:
     from chipflow.layout import LayoutRules, check_rules, draw, extract_network
     from chipflow.layout.budget import check_size
+    from chipflow.layout.extract import unsolved_junctions
     from chipflow.spec.chip import read_chip
 
     top = source.top
@@ -284,7 +285,7 @@ def _build_tree(
     )
     attach(results, operation)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
-    results["warnings"] = [*design.warnings, *layout.warnings]
+    results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
     field_run = None
     if run_field is None:
         from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles

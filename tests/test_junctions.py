@@ -325,3 +325,29 @@ def test_junction_correction_does_not_depend_on_the_stub_length():
     finally:
         junctions.STUB_WIDTHS = old
     assert b == pytest.approx(a, abs=0.01 * 200e-6)
+
+
+def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkeypatch):
+    # A junction whose 2D solve fails must not stop the build nor pass silently: its channels
+    # keep their centre-to-centre lengths and the build's warnings name the level.
+    from pathlib import Path
+
+    import chipflow.field
+    from chipflow.build import build_design
+    from chipflow.errors import FieldError
+    from chipflow.layout import extract_network
+    from chipflow.layout.junctions import _excess
+
+    def refuse(*args, **kwargs):
+        raise FieldError("a part of the domain was left without a depth")
+
+    monkeypatch.setattr(chipflow.field, "solve_field", refuse)
+    _excess.cache_clear()
+    try:
+        build = build_design(Path(__file__).parents[1] / "designs" / "demo_endothelial_bed.toml")
+    finally:
+        _excess.cache_clear()  # later tests solve their junctions for real
+    plain = extract_network(build.layout, junctions=False)
+    np.testing.assert_array_equal(build.solution.network.length[: plain.length.size], plain.length)
+    warned = [w for w in build.results["warnings"] if "could not be solved in 2D" in w]
+    assert len(warned) == len(build.layout.junctions) > 0

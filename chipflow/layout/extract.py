@@ -24,7 +24,7 @@ from chipflow.layout.junctions import junction_excess_length
 from chipflow.layout.model import Layout
 from chipflow.network import Network
 
-__all__ = ["extract_network", "junction_lengths"]
+__all__ = ["extract_network", "junction_lengths", "unsolved_junctions"]
 
 
 def junction_lengths(layout: Layout) -> np.ndarray:
@@ -40,6 +40,7 @@ def junction_lengths(layout: Layout) -> np.ndarray:
     for role, generation, junction in layout.junctions:  # one per level, not per channel
         sel = (ch.role == role) & (ch.generation == generation)
         extra[sel] = junction_excess_length(junction)
+    extra = np.nan_to_num(extra, nan=0.0)  # unsolved junctions: see unsolved_junctions()
     short = ch.length + extra <= 0
     if np.any(short):
         i = int(np.flatnonzero(short)[0])
@@ -48,6 +49,18 @@ def junction_lengths(layout: Layout) -> np.ndarray:
             f"{extra[i] * 1e6:.1f} um exceeds the drawn length {ch.length[i] * 1e6:.1f} um"
         )
     return extra
+
+
+def unsolved_junctions(layout: Layout) -> list[str]:
+    """Warnings for the junctions whose 2D solve failed: their channels keep the plain
+    centre-to-centre lengths (the solves are cached, so asking again costs nothing)."""
+    return [
+        f"the junction at the end of {role} generation {generation} could not be solved in "
+        "2D: its channels keep their centre-to-centre lengths, which overstate the "
+        "resistance by a few percent"
+        for role, generation, junction in layout.junctions
+        if np.isnan(junction_excess_length(junction))
+    ]
 
 
 def extract_network(layout: Layout, junctions: bool = True) -> Network:

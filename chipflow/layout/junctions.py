@@ -163,12 +163,14 @@ def junction_regions(j: Junction, stub: float):
 
 def junction_excess_length(j: Junction) -> float:
     """Equivalent length [m] of the parent channel that the junction ``j`` adds (negative
-    when the junction conducts better than the two straight channels meeting at a point)."""
+    when the junction conducts better than the two straight channels meeting at a point);
+    NaN when the junction cannot be meshed or solved in 2D."""
     return _excess(j.key())
 
 
 @lru_cache(maxsize=256)
 def _excess(key: tuple) -> float:
+    from chipflow.errors import FieldError
     from chipflow.field import solve_field
     from chipflow.physics.duct import resistance
 
@@ -176,7 +178,10 @@ def _excess(key: tuple) -> float:
     mu = 1.0
     stub = STUB_WIDTHS * max(j.parent_width, j.child_width, 2 * j.disc)
     regions, ports = junction_regions(j, stub)
-    sol = solve_field(regions, ports, mu, across=ACROSS)
+    try:
+        sol = solve_field(regions, ports, mu, across=ACROSS)
+    except FieldError:
+        return math.nan  # the caller keeps the plain lengths and says so
     r_2d = 1.0 / sol.port_flows["in"]
     r_p = float(resistance(j.parent_width, j.parent_depth, 1.0, mu))
     r_c = float(resistance(j.child_width, j.child_depth, 1.0, mu))
