@@ -103,3 +103,39 @@ def test_a_wide_chamber_gives_no_table():
     table = channel_table(geometry, analysis.solution, port_holes(geometry, ends, PUNCH))
     assert table.reason is not None and "chamber" in table.reason
     assert table.to_list() == []
+
+
+def test_analyse_reports_the_channel_table_of_a_dxf(tmp_path):
+    import json
+
+    import ezdxf
+    from click.testing import CliRunner
+
+    from chipflow.cli import main
+
+    length = 20e-3
+    doc = ezdxf.new("R2000")
+    doc.header["$INSUNITS"] = 4  # mm
+    corners = [(0, -W / 2), (length, -W / 2), (length, W / 2), (0, W / 2)]
+    doc.modelspace().add_lwpolyline([(x * 1e3, y * 1e3) for x, y in corners], close=True)
+    mask = str(tmp_path / "straight.dxf")
+    doc.saveas(mask)
+    args = ["analyse", mask, "--depth", "50um", "--inlet", "0,0", "--outlet", "20,0"]
+    args += ["--flow", "10uL/min", "--fluid", "water"]
+    r = CliRunner().invoke(main, [*args, "--json", "-o", str(tmp_path / "out")])
+    assert r.exit_code == 0, r.output
+    out = json.loads(r.output)
+    (row,) = out["channels"]
+    radius = PUNCH / 2 * (1 + 1e-3) + 1e-4 * np.hypot(length, W)  # the punched hole
+    # drawn centreline between the port discs, drawn width, imposed flow
+    assert row["length"] == pytest.approx(length - 2 * radius, rel=0.02)
+    assert row["width"] == pytest.approx(W, rel=0.02)
+    assert row["flow"] == pytest.approx(FLOW, rel=0.01)
+    assert out["units"]["network_resistance"] == "Pa*s/m^3"
+    assert out["units"]["field_shear"] == "Pa"
+    saved = json.loads((tmp_path / "out" / "results.json").read_text())
+    assert saved["channels"] == out["channels"]
+    text = CliRunner().invoke(main, args)
+    assert text.exit_code == 0, text.output
+    assert "channels from the skeleton" in text.output
+    assert len(text.output.strip().splitlines()) == 3 + 2 + 1  # summary, header, one row
