@@ -24,6 +24,12 @@ SI_UNITS = units_of(
     "area_outside_window",
     "mesh_triangles",
     "viscosity",
+    "length",
+    "width",
+    "depth",
+    "pressure_drop",
+    "field_shear",
+    "network_resistance",
 )
 
 
@@ -135,5 +141,32 @@ def command(
             f"{cell_type} window {window[0]:.3g}-{window[1]:.3g} Pa: "
             f"{analysis.floor.below:.1%} of the floor below, {analysis.floor.above:.1%} above"
         )
+    _echo_channels(analysis.channels)
     if outdir is not None:
         click.echo(f"wrote results.json and field.svg to {outdir}/")
+
+
+def _echo_channels(table) -> None:
+    """The skeleton's channel table, or the one line saying why there is none."""
+    if table.reason is not None:
+        click.echo(table.reason)
+        return
+    click.echo("channels from the skeleton (field drop against the 1D series' resistance x flow):")
+    click.echo(
+        f"{'#':>3} {'length mm':>10} {'width um':>9} {'flow uL/min':>12} {'drop Pa':>9} "
+        f"{'1D drop Pa':>10} {'shear Pa':>9}"
+    )
+    rows = zip(
+        table.length,
+        table.width,
+        table.flow,
+        table.pressure_drop,
+        table.resistance_1d * table.flow,
+        table.floor_shear,
+        strict=True,
+    )
+    for i, (length, width, flow, drop, drop_1d, shear) in enumerate(rows, 1):
+        click.echo(
+            f"{i:>3} {length * 1e3:>10.4g} {width * 1e6:>9.4g} {flow * 6e10:>12.4g} "
+            f"{drop:>9.4g} {drop_1d:>10.4g} {shear:>9.3g}"
+        )

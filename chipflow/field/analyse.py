@@ -15,9 +15,10 @@ import shapely
 from chipflow.errors import FieldError
 from chipflow.field.model import FieldPort, FieldRegion, FieldSolution
 from chipflow.field.shear import ShearStats, shear_stats
+from chipflow.field.skeleton import ChannelTable, channel_table
 from chipflow.field.solve import scaled, solve_field
 
-__all__ = ["MaskAnalysis", "analyse_mask", "scaled"]
+__all__ = ["MaskAnalysis", "analyse_mask", "port_holes", "scaled"]
 
 
 @dataclass(frozen=True)
@@ -39,6 +40,8 @@ class MaskAnalysis:
         Floor shear over the whole floor (window fractions when a window was given).
     window : (float, float) or None
         [Pa].
+    channels : ChannelTable
+        The mask's skeleton branches (empty, with a reason, where none could be extracted).
     """
 
     solution: FieldSolution
@@ -48,6 +51,7 @@ class MaskAnalysis:
     area: float
     floor: ShearStats
     window: tuple[float, float] | None
+    channels: ChannelTable
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able SI values."""
@@ -58,13 +62,26 @@ class MaskAnalysis:
             "floor_shear": {"p05": self.floor.p05, "p50": self.floor.p50, "p95": self.floor.p95},
             "area": self.area,
             "mesh_triangles": len(self.solution.mesh.triangles),
+            "channels": self.channels.to_list(),
         }
+        if self.channels.reason is not None:
+            out["channels_note"] = self.channels.reason
         if self.window is not None:
             out["shear_window"] = {"min": self.window[0], "max": self.window[1]}
             out["area_outside_window"] = self.floor.outside
             out["below_window"] = self.floor.below
             out["above_window"] = self.floor.above
         return out
+
+
+def port_holes(geometry: shapely.Geometry, centres, punch: float) -> list[shapely.Polygon]:
+    """Punched port holes [m] at ``centres`` [m] of a mask, a little wider than the punch.
+
+    The margin swallows a drawn pad of the punch's size.
+    """
+    size = float(np.hypot(*np.subtract(geometry.bounds[2:], geometry.bounds[:2])))
+    radius = punch / 2 * (1 + 1e-3) + 1e-4 * size
+    return [shapely.Point(xy).buffer(radius, quad_segs=32) for xy in centres]
 
 
 def analyse_mask(
@@ -109,9 +126,7 @@ def analyse_mask(
                 f"the {name} at ({xy[0] * 1e3:.6g}, {xy[1] * 1e3:.6g}) mm lies outside every "
                 "channel outline"
             )
-    size = float(np.hypot(*np.subtract(geometry.bounds[2:], geometry.bounds[:2])))
-    radius = punch / 2 * (1 + 1e-3) + 1e-4 * size  # swallows a drawn pad of the punch's size
-    holes = [shapely.Point(xy).buffer(radius, quad_segs=32) for xy in (inlet, outlet)]
+    holes = port_holes(geometry, (inlet, outlet), punch)
     if holes[0].intersects(holes[1]):
         raise FieldError("the inlet and outlet holes overlap: move the ports apart")
     drive = 1.0 if pressure is None else float(pressure)
@@ -133,4 +148,5 @@ def analyse_mask(
         area=float(area.sum()),
         floor=shear_stats(solution.floor_shear, area, window),
         window=window,
+        channels=channel_table(geometry, solution, holes),
     )
