@@ -1,4 +1,9 @@
-"""Channel table from a mask's skeleton: lengths, widths and flows against drawn values."""
+"""Channel table from a mask's skeleton: lengths, widths and flows against drawn values.
+
+Reference values and their source: the drawn geometry and the imposed flow (exact by
+construction), symmetry (a symmetric split halves the flow) and the exact rectangular-duct
+series (Bruus, Theoretical Microfluidics, 2008, ch. 4), an analytic limit for a long branch.
+"""
 
 from __future__ import annotations
 
