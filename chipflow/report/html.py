@@ -285,16 +285,6 @@ def _generations(results: Mapping[str, Any]) -> str:
     return _table(header, rows, text_columns=2, row_classes=classes)
 
 
-def _window_text(window: Mapping[str, Any]) -> str:
-    """ "0.5&ndash;1 Pa", "at most 2 Pa" or "at least 0.5 Pa" (one-sided windows)."""
-    low, high = window.get("min"), window.get("max")
-    if low is None and high is not None:
-        return f"at most {_num(high)} Pa"
-    if high is None and low is not None:
-        return f"at least {_num(low)} Pa"
-    return f"{_num(low)}&ndash;{_num(high)} Pa"
-
-
 def _channels(results: Mapping[str, Any]) -> str:
     """The per-channel table of an explicit network (every channel, tubing included)."""
     channels = list(results.get("channels") or [])
@@ -385,7 +375,7 @@ def _window(results: Mapping[str, Any]) -> str:
         return "<p>No cell type or shear window is given in the design: no shear check.</p>"
     return (
         f"<p>Cells: <strong>{_e(window.get('cell_type', ''))}</strong>; floor wall shear "
-        f"window {_window_text(window)}.<br>"
+        f"window {_e(window.get('text', ''))}.<br>"
         f'<span class="source">Source: {_e(window.get("source", ""))}</span></p>'
     )
 
