@@ -24,8 +24,7 @@ from chipflow.checks.transport import (
     check_residence_time,
 )
 from chipflow.network import Solution
-from chipflow.network.summary import port_pressure_range
-from chipflow.report.figures import generation_labels
+from chipflow.network.summary import generation_labels, port_pressure_range
 from chipflow.spec.culture import Culture, Limits
 
 __all__ = ["culture_checks", "pressure_checks", "bed_grader"]

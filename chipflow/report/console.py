@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from chipflow.report.figures import generation_labels
+from chipflow.network.summary import generation_labels
 from chipflow.units import lab_number
 
 __all__ = [

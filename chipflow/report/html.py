@@ -16,7 +16,7 @@ from typing import Any
 
 from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
-from chipflow.report.figures import generation_labels
+from chipflow.network.summary import generation_labels
 from chipflow.report.operation import operation_html
 from chipflow.units import lab_number
 
