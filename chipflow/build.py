@@ -90,11 +90,29 @@ class DesignSource:
         return cls(path, Table(data, path, ""), digest)
 
 
-def read_design_source(path: str | Path) -> DesignSource:
-    """Read and parse a design file, keeping the hash of its exact bytes."""
+def read_design_source(path: str | Path, settings: Sequence[str] = ()) -> DesignSource:
+    """Read and parse a design file, keeping the hash of its exact bytes.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The design file.
+    settings : sequence of str, optional
+        ``KEY=VALUE`` settings (``--set``) applied to the file's text before it is parsed
+        (:mod:`chipflow.spec.overrides`): the source is then exactly that of the file with
+        those values edited, its hash the hash of the edited text.
+    """
     from chipflow.spec.reader import read_design_bytes
 
     raw = read_design_bytes(path)
+    if settings:
+        from chipflow.spec.overrides import apply_settings, parse_setting
+
+        bom = b"\xef\xbb\xbf" if raw.startswith(b"\xef\xbb\xbf") else b""
+        text = apply_settings(
+            raw.decode("utf-8-sig"), [parse_setting(s) for s in settings], str(path)
+        )
+        raw = bom + text.encode("utf-8")
     top = parse_design_text(raw.decode("utf-8-sig"), str(path))
     return DesignSource(str(path), top, hashlib.sha256(raw).hexdigest())
 

@@ -9,6 +9,7 @@ from pathlib import Path
 
 import click
 
+from chipflow.cli.common import settings_option
 from chipflow.export.bundle import build_to_folder
 from chipflow.report.console import console_summary
 from chipflow.spec.bundled import resolve_design
@@ -44,10 +45,13 @@ def _run(
     outdir: str | None,
     allow_large: bool = False,
     field: bool | None = None,
+    settings: tuple[str, ...] = (),
 ) -> int:
     stages = _StageLine()
     try:
-        build, files = build_to_folder(design, outdir, stages, allow_large=allow_large, field=field)
+        build, files = build_to_folder(
+            design, outdir, stages, allow_large=allow_large, field=field, settings=settings
+        )
     finally:
         stages.done()
     click.echo(console_summary(build.results))
@@ -77,7 +81,14 @@ def _run(
     help="Solve the 2D flow field of the drawing and compare it with the network (default: "
     "only for chips small enough to solve in seconds).",
 )
-def command(design: str, outdir: str | None, allow_large: bool, field: bool | None) -> int:
+@settings_option
+def command(
+    design: str,
+    outdir: str | None,
+    allow_large: bool,
+    field: bool | None,
+    settings: tuple[str, ...],
+) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
 
     \b
@@ -91,7 +102,7 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
     input, a tree too large for this machine's memory, or an output folder that cannot be
     written (nothing is written).
     """
-    return _run(resolve_design(design), outdir, allow_large, field)
+    return _run(resolve_design(design), outdir, allow_large, field, settings)
 
 
 @click.command("demo")
