@@ -162,6 +162,12 @@ class Build:
         """ "pass", "warn" or "fail": the worst of the checks."""
         return worst_status(self.checks)
 
+    def _repr_html_(self) -> str:
+        """A notebook shows the verdict, the level table and the profile figure."""
+        from chipflow.report.notebook import build_html
+
+        return build_html(self.results)
+
 
 def _noop(stage: str) -> None:
     return None

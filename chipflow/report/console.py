@@ -12,6 +12,7 @@ from chipflow.network.summary import generation_labels
 __all__ = [
     "console_summary",
     "level_table",
+    "level_cells",
     "totals_and_checks",
     "verdict_line",
     "format_table",
@@ -150,9 +151,22 @@ def level_table(results: Mapping[str, Any]) -> str:
     >>> " ".join(text[2].split())
     'bed 8 51 50 4.1 0.396 2.59 0.4701 0.1386 1.58 120 0.5-1 WARN'
     """
+    cells = level_cells(results)
+    if cells is None:
+        return ""
+    header, units, body = cells
+    table = [["", *units], *body]
+    return format_table(table, header, "l" + "r" * (len(header) - 2) + "l")
+
+
+def level_cells(
+    results: Mapping[str, Any],
+) -> tuple[list[str], list[str], list[list[str]]] | None:
+    """The level table's header, unit line and rows of text (None without levels): the one
+    table that the console, the notebook view and ``chipflow check`` show."""
     rows = list(results.get("generations") or [])
     if not rows:
-        return ""
+        return None
     labels = generation_labels(rows)
     checks = list(results.get("checks") or [])
     verdicts = level_statuses(checks)
@@ -162,12 +176,12 @@ def level_table(results: Mapping[str, Any]) -> str:
         if level and check.get("unit") == "Pa" and level not in windows:
             windows[level] = _window_text(check)
     units, body = _columns(rows, LEVEL_COLUMNS)
-    table = [["", *units, "[Pa]", ""]]
+    out = []
     for label, cells in zip(labels, body, strict=True):  # loop over levels
         verdict = verdicts.get(label)
-        table.append([label, *cells, windows.get(label, ""), _MARK.get(verdict, "-")])
+        out.append([label, *cells, windows.get(label, ""), _MARK.get(verdict, "-")])
     header = ["level", *(h for h, *_ in LEVEL_COLUMNS), "window", "verdict"]
-    return format_table(table, header, "l" + "r" * (len(header) - 2) + "l")
+    return header, [*units, "[Pa]", ""], out
 
 
 def console_summary(results: Mapping[str, Any]) -> str:
