@@ -12,27 +12,11 @@ from chipflow.checks import level_statuses
 from chipflow.network.summary import generation_labels
 
 ROOT = Path(__file__).resolve().parents[1]
-TINY = """name = "notebook-bed"
-
-[tree]
-flow = "4 uL/min"
-generations = 1
-rule = "equal-shear"
-length = "2 mm"
-
-[bed]
-length = "3 mm"
-
-[culture]
-cell_type = "endothelial"
-
-[fabrication]
-depths = ["50 um"]
-
-[tolerances]
-depth = "5 %"
-samples = 20
-"""
+TINY = (
+    (ROOT / "tests" / "data" / "two_channel_tree.toml")
+    .read_text()
+    .replace('name = "two-channel-tree"', 'name = "notebook-bed"')
+)
 
 
 @pytest.fixture(scope="module")

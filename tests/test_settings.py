@@ -19,29 +19,7 @@ from chipflow.spec.overrides import apply_settings, parse_setting, toml_value
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "designs" / "demo_endothelial_bed.toml"
-TINY = """name = "tiny"   # two bed channels
-
-[tree]
-flow = "4 uL/min"        # total
-generations = 1
-rule = "equal-shear"
-length = "2 mm"
-
-[bed]
-length = "3 mm"
-
-[culture]
-cell_type = "endothelial"
-
-[fabrication]
-depths = [
-    "50 um",   # the one mould level
-]
-
-[tolerances]
-depth = "5 %"
-samples = 20
-"""
+TINY = (ROOT / "tests" / "data" / "two_channel_tree.toml").read_text()
 
 
 def run(*args: str):
@@ -81,7 +59,7 @@ def test_top_level_lists_numbers_and_booleans() -> None:
     assert data["name"] == "renamed" and data["fabrication"]["depths"] == ["40um", "80um"]
     assert data["tree"]["generations"] == 3 and data["export"]["mirror"] is True
     assert data["tree"]["rule"] == "area-growth"
-    assert "# two bed channels" in edited  # the comment after the old name stays
+    assert "renamed\"   # quick tests" in edited  # the comment after the old name stays
 
 
 def test_the_last_of_two_settings_of_one_key_wins() -> None:

@@ -27,23 +27,11 @@ from chipflow.cli.watch import RELOAD_SCRIPT, VERSION_PATH, watched_files
 
 ROOT = Path(__file__).resolve().parents[1]
 BROWSERS = ("chromium", "chromium-browser", "google-chrome", "chrome")
-DESIGN = """name = "{name}"
-
-[tree]
-flow = "4 uL/min"
-generations = 1
-rule = "equal-shear"
-length = "2 mm"
-
-[bed]
-length = "3 mm"
-
-[culture]
-cell_type = "endothelial"
-
-[fabrication]
-depths = ["50 um"]
-"""
+DESIGN = (
+    (ROOT / "tests" / "data" / "two_channel_tree.toml")
+    .read_text()
+    .replace('name = "two-channel-tree"', 'name = "{name}"')
+)
 
 
 class _Lines:
