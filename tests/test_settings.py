@@ -59,7 +59,7 @@ def test_top_level_lists_numbers_and_booleans() -> None:
     assert data["name"] == "renamed" and data["fabrication"]["depths"] == ["40um", "80um"]
     assert data["tree"]["generations"] == 3 and data["export"]["mirror"] is True
     assert data["tree"]["rule"] == "area-growth"
-    assert "renamed\"   # quick tests" in edited  # the comment after the old name stays
+    assert 'renamed"   # quick tests' in edited  # the comment after the old name stays
 
 
 def test_the_last_of_two_settings_of_one_key_wins() -> None:
