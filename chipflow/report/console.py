@@ -6,8 +6,6 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 from chipflow import display
-from chipflow.checks.result import level_statuses
-from chipflow.network.summary import generation_labels
 
 __all__ = [
     "console_summary",
@@ -164,6 +162,11 @@ def level_cells(
 ) -> tuple[list[str], list[str], list[list[str]]] | None:
     """The level table's header, unit line and rows of text (None without levels): the one
     table that the console, the notebook view and ``chipflow check`` show."""
+    # here, not at the top: `chipflow channel` loads this module and neither the checks nor
+    # the network (tests/test_startup.py)
+    from chipflow.checks.result import level_statuses
+    from chipflow.network.summary import generation_labels
+
     rows = list(results.get("generations") or [])
     if not rows:
         return None

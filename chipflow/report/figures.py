@@ -14,8 +14,6 @@ from typing import Any
 
 import numpy as np
 
-from chipflow.network.summary import generation_labels
-
 __all__ = ["profile_figure", "svg_text", "path_edges", "PROFILE_PANELS"]
 
 #: Panel titles of the profile figure, top to bottom.
@@ -135,6 +133,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     generations = list(results["generations"])
     edges = path_edges(generations) * 1e3  # mm
     start, end = edges[:-1], edges[1:]
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
     count = _column(generations, "count")
     fig = Figure(figsize=(width, panel_height * len(PROFILE_PANELS) + 0.8))

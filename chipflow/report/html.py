@@ -17,7 +17,6 @@ from typing import Any
 from chipflow import display
 from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
-from chipflow.network.summary import generation_labels
 from chipflow.report.operation import operation_html
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
@@ -280,6 +279,8 @@ def _columns(items: list[Mapping[str, Any]], columns) -> tuple[list[str], list[l
 
 def _generations(results: Mapping[str, Any]) -> str:
     generations = list(results.get("generations", []))
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
     headers, body = _columns(generations, _LEVEL_COLUMNS)
     rows = [
@@ -330,6 +331,8 @@ def _extremes(results: Mapping[str, Any]) -> str:
     generations = [g for g in results.get("generations", []) if g.get("flow_min") is not None]
     if not generations:
         return ""
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
     spans = []
     for key, kind in (("flow", "flow"), ("wall_shear_floor", "shear"), ("residence_time", "time")):
@@ -613,6 +616,8 @@ def write_markdown_summary(results: Mapping[str, Any], path: str | os.PathLike) 
         header.append(f"{name} [{unit}]")
         cells.append(texts)
     lines += ["| " + " | ".join(header) + " |", "|---|" + "---:|" * (len(header) - 1)]
+    from chipflow.network.summary import generation_labels
+
     for i, (label, g) in enumerate(zip(generation_labels(generations), generations, strict=True)):
         row = [label, str(g.get("count")), *(column[i] for column in cells)]
         lines.append("| " + " | ".join(row) + " |")
