@@ -22,7 +22,7 @@ import dataclasses
 import hashlib
 import json
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
@@ -31,6 +31,7 @@ import numpy as np
 
 from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
+from chipflow.checks.culture import check_floor_outside
 from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
@@ -52,7 +53,14 @@ from chipflow.spec.tolerances import read_tolerances
 from chipflow.spec.tree import load_tree_spec
 from chipflow.units import RESULT_UNITS
 
-__all__ = ["Build", "DesignSource", "read_design_source", "build_design", "RESULT_UNITS"]
+__all__ = [
+    "Build",
+    "DesignSource",
+    "read_design_source",
+    "build_design",
+    "nominal_tree",
+    "RESULT_UNITS",
+]
 
 #: Units of the SI values in the results (keys as they appear anywhere in the dict).
 
@@ -82,11 +90,29 @@ class DesignSource:
         return cls(path, Table(data, path, ""), digest)
 
 
-def read_design_source(path: str | Path) -> DesignSource:
-    """Read and parse a design file, keeping the hash of its exact bytes."""
+def read_design_source(path: str | Path, settings: Sequence[str] = ()) -> DesignSource:
+    """Read and parse a design file, keeping the hash of its exact bytes.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The design file.
+    settings : sequence of str, optional
+        ``KEY=VALUE`` settings (``--set``) applied to the file's text before it is parsed
+        (:mod:`chipflow.spec.overrides`): the source is then exactly that of the file with
+        those values edited, its hash the hash of the edited text.
+    """
     from chipflow.spec.reader import read_design_bytes
 
     raw = read_design_bytes(path)
+    if settings:
+        from chipflow.spec.overrides import apply_settings, parse_setting
+
+        bom = b"\xef\xbb\xbf" if raw.startswith(b"\xef\xbb\xbf") else b""
+        text = apply_settings(
+            raw.decode("utf-8-sig"), [parse_setting(s) for s in settings], str(path)
+        )
+        raw = bom + text.encode("utf-8")
     top = parse_design_text(raw.decode("utf-8-sig"), str(path))
     return DesignSource(str(path), top, hashlib.sha256(raw).hexdigest())
 
@@ -135,6 +161,12 @@ class Build:
     def status(self) -> str:
         """ "pass", "warn" or "fail": the worst of the checks."""
         return worst_status(self.checks)
+
+    def _repr_html_(self) -> str:
+        """A notebook shows the verdict, the level table and the profile figure."""
+        from chipflow.report.notebook import build_html
+
+        return build_html(self.results)
 
 
 def _noop(stage: str) -> None:
@@ -304,6 +336,20 @@ def _build_tree(
             flow_driven=supply.inlet.kind == "flow",
         )
     results["field"] = None if field_run is None else field_run.results
+    if field_run is not None and window is not None:
+        # the field's map of the seeded floor is a check too, so the verdict counts it
+        checks = (
+            *checks,
+            check_floor_outside(
+                field_run.results["area_outside_window"],
+                window,
+                culture.outside_window_limit,
+                by_zone=field_run.results["outside_by_zone"],
+                source=culture.outside_window_source,
+            ),
+        )
+        results["checks"] = [c.to_dict() for c in checks]
+        results["status"] = worst_status(checks)
     return Build(
         source,
         spec.name,
@@ -318,6 +364,56 @@ def _build_tree(
         field_run,
         operation,
     )
+
+
+def nominal_tree(source: DesignSource) -> tuple[TreeDesign, Solution, dict[str, Any]]:
+    """A tree sized and solved with its nominal lengths: no drawing, supply or tubing.
+
+    For a tree that cannot be drawn (round tubes, a comparison with Murray's law). The levels
+    are checked as a build checks them (cells' window, design targets, bed residence time
+    and oxygen), so the tables show the checks' verdicts.
+
+    Returns
+    -------
+    design : TreeDesign
+    solution : Solution
+        The nominal tree fed with the design flow.
+    results : dict
+        As :attr:`Build.results`, without drawing, field or operation.
+    """
+    from chipflow.design.tree_network import solve_tree
+
+    top = source.top
+    spec = load_tree_spec(top)
+    culture = read_culture(top)
+    design = size_tree(spec)
+    solution = solve_tree(design)
+    generations = level_rows(solution)
+    targets = _targets_window(spec)
+    checks = culture_checks(
+        solution,
+        generations,
+        culture,
+        culture.window,
+        culture.residence_time or spec.bed.residence_time,
+        targets=targets,
+        target_kind=spec.targets.kind,
+        target_levels=spec.targets.levels,
+    )
+    supply = {"mode": "the design flow into the trunk (nominal tree: no supply or tubing)"}
+    results = _results(
+        source,
+        spec.name,
+        spec.description,
+        spec.fluid,
+        supply,
+        solution,
+        generations,
+        checks,
+        culture.window or targets,
+    )
+    results["warnings"] = list(design.warnings)
+    return design, solution, results
 
 
 def _targets_window(spec) -> ShearWindow | None:

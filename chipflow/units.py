@@ -31,6 +31,7 @@ from pathlib import Path
 import numpy as np
 import pint
 
+from chipflow.display import lab_number  # the formatting rules live in chipflow.display
 from chipflow.errors import ArgumentError, UnitError
 
 __all__ = [
@@ -328,25 +329,6 @@ def format_quantity(value: float, unit: str, digits: int = 4) -> str:
     '5 uL/min'
     """
     return f"{lab_number(from_si(value, unit), digits)} {unit}"
-
-
-def lab_number(value: float, digits: int = 4) -> str:
-    """A number for people: ``digits`` significant figures, positional up to 10^7.
-
-    Plain ``g`` formatting writes a 22.4 mm wide channel as ``2.238e+04`` um; lab tables
-    read better as ``22380``. Very large or very small numbers keep the exponent.
-
-    >>> lab_number(22377.5), lab_number(0.5156183), lab_number(5.0), lab_number(1.5e-7)
-    ('22380', '0.5156', '5', '1.5e-07')
-    """
-    number = float(value)
-    if not math.isfinite(number):
-        return "-" if math.isnan(number) else ("inf" if number > 0 else "-inf")
-    if number != 0 and not 1e-4 <= abs(number) < 1e7:
-        return f"{number:.{digits}g}"
-    return np.format_float_positional(
-        number, precision=digits, unique=False, fractional=False, trim="-"
-    )
 
 
 #: The SI unit of every named quantity chipflow reports (results.json, channels.csv, the

@@ -3,6 +3,7 @@ name wherever a command takes a design file."""
 
 from __future__ import annotations
 
+import re
 import tomllib
 from pathlib import Path
 
@@ -61,3 +62,60 @@ def test_a_design_argument_finds_a_bundled_design_by_name(tmp_path, monkeypatch)
     assert resolve_design("tree_vessel") == Path("tree_vessel")
     missing = run("check", "missing.toml")
     assert missing.exit_code == 2 and "no such design file" in missing.stderr
+
+
+def test_new_from_replaces_the_header_comment(tmp_path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    assert run("new", "my-bed", "--from", "demo_endothelial_bed").exit_code == 0
+    text = (tmp_path / "my-bed.toml").read_text()
+    head = text[: text.index("\nname = ")]
+    original = (ROOT / "designs" / "demo_endothelial_bed.toml").read_text()
+    first = original.splitlines()[0]
+    assert first.startswith("#") and first not in text  # the bundled design's own header
+    assert "my-bed" in head and "demo_endothelial_bed" in head
+    assert "chipflow build my-bed.toml" in head
+    assert all(line.startswith("#") or not line for line in head.splitlines())
+
+
+def test_a_misspelt_bundled_name_gets_a_suggestion(tmp_path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    for args in (("check", "tree_vesel"), ("build", "demo_endothelial_bd"),
+                 ("new", "x", "--from", "tree_vesel")):  # fmt: skip
+        result = run(*args)
+        assert result.exit_code == 2, args
+        assert "did you mean" in result.stderr and len(result.stderr.splitlines()) == 1
+    assert "'tree_vessel'" in run("check", "tree_vesel").stderr
+    # nothing near: the missing file, as before
+    far = run("check", "no_such_design_at_all")
+    assert far.exit_code == 2 and "did you mean" not in far.stderr
+
+
+def test_new_writes_a_commented_walls_section_that_builds_when_uncommented(
+    tmp_path, monkeypatch
+) -> None:
+    import re
+
+    from chipflow.build import build_design
+
+    monkeypatch.chdir(tmp_path)
+    assert run("new", "soft").exit_code == 0
+    text = (tmp_path / "soft.toml").read_text()
+    assert "# [walls]" in text and "\n[walls]" not in text  # commented: rigid as it is
+    soft = re.sub(r"(?m)^# (\[walls\]|material |roof_thickness )", r"\1", text)
+    (tmp_path / "soft-on.toml").write_text(soft)
+    build = build_design(tmp_path / "soft-on.toml")
+    assert build.results["operation"]["walls"]["material"] == "PDMS"
+    assert any(c["name"] == "wall deformation" for c in build.results["checks"])
+
+
+def test_a_misspelt_inlet_is_blamed_on_inlet(tmp_path) -> None:
+    # designs with keys of their own inlet kind (rpm, tilt_angle): the misspelt inlet is the
+    # error, not the keys that belong to the kind it meant
+    typos = {"pulsatile_peristaltic_bed": "peristaltc", "rocker_endothelial_bed": "rockr"}
+    for design, typo in typos.items():
+        text = (ROOT / "designs" / f"{design}.toml").read_text()
+        path = tmp_path / f"{design}.toml"
+        path.write_text(re.sub(r'(?m)^inlet = "[a-z-]+"', f'inlet = "{typo}"', text))
+        result = run("check", str(path))
+        assert result.exit_code == 2
+        assert "supply.inlet: unknown value" in result.stderr and "did you mean" in result.stderr

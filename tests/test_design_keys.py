@@ -1,11 +1,11 @@
-"""Every key of the README's design-file table has an effect.
+"""Every key of the design-file reference (docs/guide/design-files.rst) has an effect.
 
-The keys are read from the README's table itself, so a key documented later without an entry
-here fails the test. Each key is changed within its valid range on the demo design (with the
-other keys it needs, e.g. ``velocity_ratio`` with ``rule = "area-growth"``) and the build must
-differ: in its results, its drawing, or (for ``[export]``) the bytes of its mask files. Keys
-whose effect only shows without a drawing (nominal tree lengths, round channels) are checked
-on the sized design, and the list below says why.
+The keys are read from the reference page's tables themselves, so a key documented later
+without an entry here fails the test. Each key is changed within its valid range on the demo
+design (with the other keys it needs, e.g. ``velocity_ratio`` with ``rule = "area-growth"``)
+and the build must differ: in its results, its drawing, or (for ``[export]``) the bytes of its
+mask files. Keys whose effect only shows without a drawing (nominal tree lengths, round
+channels) are checked on the sized design, and the list below says why.
 """
 
 from __future__ import annotations
@@ -18,6 +18,7 @@ from pathlib import Path
 
 import pytest
 import shapely
+from rst_tables import guide_table
 
 from chipflow.build import DesignSource, build_design
 from chipflow.design.sizing import size_tree
@@ -33,7 +34,7 @@ VARIED = {
     }
 }  # fmt: skip
 
-# time-varying supplies: the README's second table names the [supply] inlet in its first column
+# time-varying supplies: the page's second table names the [supply] inlet in its first column
 PERISTALTIC = {"supply": {"inlet": "peristaltic", "rpm": 10, "rollers": 3, "pulsation": 0.4}}
 PULSING = {
     "supply": {
@@ -165,6 +166,12 @@ CASES = {
     ("culture", "o2_inlet"): ({}, {"culture": {"o2_inlet": "0.1 mol/m^3"}}, "build"),
     ("culture", "o2_diffusivity"): ({}, {"culture": {"o2_diffusivity": "2e-9 m^2/s"}}, "build"),
     ("culture", "residence_time"): ({}, {"culture": {"residence_time": "2 s"}}, "build"),
+    # graded on the 2D field, which a chip of 4 bed channels solves by default
+    ("culture", "outside_window_limit"): (
+        {"tree": {"bed_channels": 4}},
+        {"culture": {"outside_window_limit": "10 %"}},
+        "build",
+    ),
     ("fabrication", "depths"): ({}, {"fabrication": {"depths": ["60 um"]}}, "build"),
     ("fabrication", "grid"): ({}, {"fabrication": {"grid": "5 um"}}, "build"),
     ("fabrication", "min_feature"): ({}, {"fabrication": {"min_feature": "40 um"}}, "build"),
@@ -287,30 +294,31 @@ VALUES = {
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
     "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
     "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]", '"auto"',
+    '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)",
 }  # fmt: skip
 
 
-def readme_keys() -> set[tuple[str, str]]:
-    """(section, key) of every key in the README's design-file table."""
-    text = (ROOT / "README.md").read_text()
-    table = text[text.index("| section | keys |") : text.index("Bundled designs")]
+#: The key tables of the reference page, by their ``:name:``.
+KEY_TABLES = ("tree-design-keys", "time-varying-supply-keys")
+
+
+def documented_keys() -> set[tuple[str, str]]:
+    """(section, key) of every key in the reference page's key tables."""
     keys = set()
-    for line in table.splitlines()[2:]:
-        cells = [c.strip() for c in line.strip("|").split("|")]
-        if len(cells) < 2:
-            continue
-        section = "" if cells[0] == "top level" else cells[0].strip("`[]")
-        # a value in quotes inside the cell (e.g. "supply": `pressure` is both) is a key
-        # when the cell lists it outside parentheses
-        outside = re.sub(r"\([^()]*\)", "", cells[1])
-        for word in re.findall(r"`([^`]+)`", cells[1]):
-            if word.startswith("["):
-                continue
-            if word in VALUES and f"`{word}`" not in outside:
-                continue
-            if word in VALUES and (section, word) not in CASES:
-                continue
-            keys.add((section, word))
+    for name in KEY_TABLES:
+        for cells in guide_table("design-files", name):
+            section = "" if cells[0] == "top level" else cells[0].strip("`[]")
+            # a value in quotes inside the cell (e.g. "supply": `pressure` is both) is a key
+            # when the cell lists it outside parentheses
+            outside = re.sub(r"\([^()]*\)", "", cells[1])
+            for word in re.findall(r"``([^`]+)``", cells[1]):
+                if word.startswith("["):
+                    continue
+                if word in VALUES and f"``{word}``" not in outside:
+                    continue
+                if word in VALUES and (section, word) not in CASES:
+                    continue
+                keys.add((section, word))
     return keys
 
 
@@ -357,7 +365,7 @@ def fingerprint(data: dict, what: str, tmp_path: Path) -> bytes:
 
 
 def test_the_table_and_the_cases_list_the_same_keys():
-    assert readme_keys() == set(CASES)
+    assert documented_keys() == set(CASES)
 
 
 @pytest.fixture(autouse=True)

@@ -1,5 +1,5 @@
 """Small things a bench user meets: table designs with one depth, cell-type aliases, the GDSII
-layer numbers in the README, the demo output folder ignored by git."""
+layer numbers in the user guide, the demo output folder ignored by git."""
 
 from __future__ import annotations
 
@@ -8,6 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from rst_tables import guide_table
 
 from chipflow.checks.cell_types import cell_type
 from chipflow.errors import SpecError
@@ -72,9 +73,8 @@ def test_an_unknown_cell_name_still_fails_with_a_suggestion() -> None:
         cell_type("endotheliel")
 
 
-def test_readme_documents_the_gdsii_layer_numbers() -> None:
-    readme = (ROOT / "README.md").read_text()
-    rows = dict(re.findall(r"^\| (\d+|1, 2, \.\.\. n) \| ([^|]+) \|$", readme, re.MULTILINE))
+def test_the_guide_documents_the_gdsii_layer_numbers() -> None:
+    rows = dict(guide_table("outputs", "gdsii-layers"))
     assert "chip outline" in rows[str(OUTLINE_GDS_LAYER)]
     assert "port" in rows[str(PORT_GDS_LAYER)]
     assert "notes" in rows[str(NOTES_GDS_LAYER)]

@@ -17,7 +17,7 @@ from chipflow.checks.culture import check_floor_shear
 from chipflow.checks.fabrication import fabrication_results
 from chipflow.checks.flow import check_entrance_length, check_reynolds, check_uniformity
 from chipflow.checks.pressure import check_bond_pressure, check_pump_pressure
-from chipflow.checks.result import STATUSES, CheckResult, worst_status
+from chipflow.checks.result import STATUSES, CheckResult, level_statuses, worst_status
 from chipflow.checks.transport import (
     check_oxygen_diffusion,
     check_oxygen_supply,
@@ -30,6 +30,7 @@ __all__ = [
     "CheckResult",
     "STATUSES",
     "worst_status",
+    "level_statuses",
     "CellType",
     "ShearWindow",
     "cell_type",

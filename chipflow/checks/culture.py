@@ -22,13 +22,28 @@ from numpy.typing import ArrayLike
 
 from chipflow.checks.cell_types import ShearWindow
 from chipflow.checks.result import CheckResult
+from chipflow.display import fraction
 from chipflow.errors import ArgumentError
 
-__all__ = ["check_floor_shear", "SHEAR_TOLERANCE", "shear_status"]
+__all__ = [
+    "check_floor_shear",
+    "check_floor_outside",
+    "SHEAR_TOLERANCE",
+    "shear_status",
+    "OUTSIDE_WINDOW_LIMIT",
+    "OUTSIDE_WINDOW_SOURCE",
+]
 
 _KIND_WORDS = {"floor": "floor shear", "mean": "mean wall shear", "max": "peak wall shear"}
 #: Relative band outside the shear window that warns rather than fails (chipflow default).
 SHEAR_TOLERANCE = 0.2
+#: Share of the seeded floor that may lie outside the shear window in the 2D field before
+#: chipflow warns [1]: a majority rule (see :func:`check_floor_outside`).
+OUTSIDE_WINDOW_LIMIT = 0.5
+OUTSIDE_WINDOW_SOURCE = (
+    "chipflow default: most of the seeded floor inside the window; the side-wall strips of a "
+    "tall channel alone can take nearly half of it"
+)
 
 
 def shear_status(shear: ArrayLike, low: float, high: float, tolerance: float = SHEAR_TOLERANCE):
@@ -116,3 +131,77 @@ def check_floor_shear(
             )
         )
     return results
+
+
+def check_floor_outside(
+    share: float,
+    window: ShearWindow,
+    limit: float = OUTSIDE_WINDOW_LIMIT,
+    *,
+    by_zone: dict[str, float] | None = None,
+    source: str = OUTSIDE_WINDOW_SOURCE,
+) -> CheckResult:
+    """The share of the seeded floor whose floor shear lies outside the window in the 2D
+    field, against ``limit``: above it the check warns (it never fails: the field is a
+    model's map of the floor, and the channel checks grade each level).
+
+    The network checks grade each level's floor shear at the middle of its channels. The field
+    sees the rest of the floor: the floor shear falls to zero along every side wall, drops in
+    the far corners of junctions and rises on the inside of bends. The default limit, half the
+    seeded floor, is a majority rule: beyond it most of the cells do not see the window the
+    design was sized for. A stricter default would flag beds that cannot do better: in the
+    demo's straight 35 x 50 um bed channels, sized to 0.74 Pa at the middle of the floor, the
+    floor shear falls below 0.5 Pa on 34 % of the floor's width next to the side walls (the
+    exact duct series, Bruus 2008; tests/test_field_check.py). A 600 um wide channel of the
+    same depth loses 4 %: wide shallow channels have narrow strips, and a lower limit suits
+    them.
+
+    Parameters
+    ----------
+    share : float
+        Area share of the seeded floor outside the window [1]
+        (``results["field"]["area_outside_window"]``).
+    window : ShearWindow
+        The window the field was judged against [Pa].
+    limit : float, optional
+        Largest share that passes [1] (``[culture] outside_window_limit``).
+    by_zone : dict of str to float, optional
+        The share of the seeded floor outside the window in each zone (channel bodies,
+        junctions, bends, bed ends, ports) [1]: the message names the largest.
+    source : str, optional
+        Where ``limit`` comes from.
+
+    Examples
+    --------
+    >>> window = ShearWindow("endothelial", 0.5, 1.0, "Dewey et al. 1981")
+    >>> check_floor_outside(0.317, window).status, check_floor_outside(0.62, window).status
+    ('pass', 'warn')
+    >>> check_floor_outside(0.317, window, 0.25).message  # doctest: +ELLIPSIS
+    '31.7 % of the seeded floor lies outside the 0.5-1 Pa window in the 2D field ...'
+    """
+    status = "warn" if share > limit else "pass"
+    message = (
+        f"{fraction(share)} of the seeded floor lies outside the {window.text} window in the "
+        f"2D field ({'above' if status == 'warn' else 'within'} the limit of {fraction(limit)})"
+    )
+    if by_zone:
+        zone, part = max(by_zone.items(), key=lambda item: item[1])
+        message += f"; the largest part in {_ZONE_WORDS.get(zone, zone)}: {fraction(part)}"
+    if status == "warn":
+        message += (
+            "; most cells miss the window: see where on the field figure (narrow channels lose "
+            "the edges of their floor to the side walls, so a wider, shallower bed keeps more "
+            "of it inside), or set [culture] outside_window_limit"
+        )
+    return CheckResult(
+        "floor outside the shear window (2D field)", status, share, limit, "1", source, message
+    )
+
+
+_ZONE_WORDS = {
+    "channel": "channel bodies",
+    "junction": "junctions",
+    "bend": "bends",
+    "bed end": "the ends of the bed",
+    "port": "the ports",
+}

@@ -21,6 +21,7 @@ Examples
 from __future__ import annotations
 
 from chipflow.checks.result import CheckResult, grade_upper
+from chipflow.display import quantity
 
 __all__ = [
     "BOND_LIMIT_DEFAULT",
@@ -57,9 +58,9 @@ def check_bond_pressure(
     allowed = bond_limit / safety_factor
     status = grade_upper(inlet_pressure, allowed, bond_limit)
     message = (
-        f"inlet pressure {inlet_pressure / 1e3:.3g} kPa; the bond holds about "
-        f"{bond_limit / 1e3:.3g} kPa, {allowed / 1e3:.3g} kPa with a safety factor of "
-        f"{safety_factor:g}"
+        f"inlet pressure {quantity(inlet_pressure, 'pressure')}; the bond holds about "
+        f"{quantity(bond_limit, 'pressure')}, {quantity(allowed, 'pressure')} with a safety "
+        f"factor of {safety_factor:g}"
     )
     if status == "warn":
         message += "; inside the safety margin: lower the flow or widen the narrowest channels"
@@ -87,8 +88,8 @@ def check_pump_pressure(
     allowed = margin * pump_limit
     status = grade_upper(inlet_pressure, allowed, pump_limit)
     message = (
-        f"inlet pressure {inlet_pressure / 1e3:.3g} kPa against the pump's "
-        f"{pump_limit / 1e3:.3g} kPa rating"
+        f"inlet pressure {quantity(inlet_pressure, 'pressure')} against the pump's "
+        f"{quantity(pump_limit, 'pressure')} rating"
     )
     if status == "warn":
         message += f" (above {margin:.0%} of it: the pump works near its limit)"

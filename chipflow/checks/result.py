@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import asdict, dataclass
+from typing import Any
 
 from chipflow.errors import ArgumentError
 
-__all__ = ["CheckResult", "STATUSES", "worst_status", "grade_upper"]
+__all__ = ["CheckResult", "STATUSES", "worst_status", "grade_upper", "level_statuses"]
 
 #: Check outcomes, best first.
 STATUSES = ("pass", "warn", "fail")
@@ -40,6 +41,11 @@ class CheckResult:
         For a window (a value that must stay between two bounds): its lower bound, with
         ``limit`` its upper bound, so the limit shown is the same window whichever side the
         value lies on. None for a single bound.
+    level : str or None
+        The level the check grades, by its label along the path (``"d1"``, ``"bed"``, ``"c0"``
+        of :func:`chipflow.network.summary.generation_labels`); None for a check of the whole
+        chip. The verdict of a level in every table is the worst of its checks
+        (:func:`level_statuses`).
 
     Examples
     --------
@@ -60,6 +66,7 @@ class CheckResult:
     source: str
     message: str
     limit_low: float | None = None
+    level: str | None = None
 
     def __post_init__(self) -> None:
         if self.status not in STATUSES:
@@ -74,10 +81,11 @@ class CheckResult:
 
     def to_dict(self) -> dict:
         """A plain dict for results JSON (non-finite numbers become None); ``limit_low`` only
-        for a window."""
+        for a window, ``level`` only for a check of one level."""
         out = asdict(self)
-        if out["limit_low"] is None:
-            del out["limit_low"]
+        for field in ("limit_low", "level"):
+            if out[field] is None:
+                del out[field]
         for field in ("value", "limit", "limit_low"):
             if out.get(field) is not None and not math.isfinite(out[field]):
                 out[field] = None
@@ -105,3 +113,28 @@ def grade_upper(value: float, warn_above: float, fail_above: float) -> str:
     if not value <= fail_above:
         return "fail"
     return "pass" if value <= warn_above else "warn"
+
+
+def level_statuses(checks: Iterable[CheckResult | Mapping[str, Any]]) -> dict[str, str]:
+    """The verdict of each level: the worst status of the checks that name it (``level``).
+
+    Accepts CheckResults or their dicts (the ``checks`` of results.json). Levels that no check
+    names are absent: a table shows them without a verdict.
+
+    >>> level_statuses([CheckResult("a", "pass", None, None, "", "", "", level="bed"),
+    ...                 CheckResult("b", "warn", None, None, "", "", "", level="bed"),
+    ...                 {"name": "c", "status": "fail", "level": "d0"},
+    ...                 CheckResult("d", "fail", None, None, "", "", "")])
+    {'bed': 'warn', 'd0': 'fail'}
+    """
+    out: dict[str, str] = {}
+    for check in checks:  # a few dozen checks
+        if isinstance(check, CheckResult):
+            level, status = check.level, check.status
+        else:
+            level, status = check.get("level"), check.get("status")
+        if level is None or status not in STATUSES:
+            continue
+        old = out.get(level, "pass")
+        out[level] = STATUSES[max(STATUSES.index(old), STATUSES.index(status))]
+    return out

@@ -8,6 +8,7 @@ package is pure; this module only chooses them and feeds them.
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -24,8 +25,7 @@ from chipflow.checks.transport import (
     check_residence_time,
 )
 from chipflow.network import Solution
-from chipflow.network.summary import port_pressure_range
-from chipflow.report.figures import generation_labels
+from chipflow.network.summary import generation_labels, port_pressure_range
 from chipflow.spec.culture import Culture, Limits
 
 __all__ = ["culture_checks", "pressure_checks", "bed_grader"]
@@ -59,6 +59,9 @@ def _shear_results(
         labels = generation_labels(rows)
         values = np.array([rows[i][key] for i in levels])
         names = [f"{labels[i]}{suffix}" for i in levels]
+        results = check_floor_shear(names, values, window, kind=kind)
+        # each result grades one level: the tables take their verdicts from these
+        return [replace(r, level=labels[i]) for r, i in zip(results, levels, strict=True)]
     else:
         net = solution.network
         chip = np.flatnonzero(net.role != "tubing")
@@ -123,14 +126,16 @@ def culture_checks(
         out += _shear_results(solution, rows, levels, targets, target_kind, " (design target)")
     if beds:
         bed = rows[beds[0]]
+        label = generation_labels([bed])[0]
+        of_bed: list[CheckResult] = []
         if residence_target is not None:
-            out.append(check_residence_time(bed["residence_time"], residence_target))
+            of_bed.append(check_residence_time(bed["residence_time"], residence_target))
         if culture.cells:
-            out.append(
+            of_bed.append(
                 check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
             )
             area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
-            out.append(
+            of_bed.append(
                 check_oxygen_supply(
                     max(r["flow_total"] for r in rows),
                     area,
@@ -141,7 +146,8 @@ def culture_checks(
                     density_source=culture.cell_density_source,
                 )
             )
-        out.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
+        of_bed.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
+        out += [replace(r, level=label) for r in of_bed]
     if net.n_channels:
         labels = _ChannelLabels(net)
         out.append(check_reynolds(labels, solution.reynolds))

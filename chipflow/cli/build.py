@@ -9,6 +9,7 @@ from pathlib import Path
 
 import click
 
+from chipflow.cli.common import settings_option
 from chipflow.export.bundle import build_to_folder
 from chipflow.report.console import console_summary
 from chipflow.spec.bundled import resolve_design
@@ -44,10 +45,13 @@ def _run(
     outdir: str | None,
     allow_large: bool = False,
     field: bool | None = None,
+    settings: tuple[str, ...] = (),
 ) -> int:
     stages = _StageLine()
     try:
-        build, files = build_to_folder(design, outdir, stages, allow_large=allow_large, field=field)
+        build, files = build_to_folder(
+            design, outdir, stages, allow_large=allow_large, field=field, settings=settings
+        )
     finally:
         stages.done()
     click.echo(console_summary(build.results))
@@ -77,7 +81,29 @@ def _run(
     help="Solve the 2D flow field of the drawing and compare it with the network (default: "
     "only for chips small enough to solve in seconds).",
 )
-def command(design: str, outdir: str | None, allow_large: bool, field: bool | None) -> int:
+@settings_option
+@click.option(
+    "--watch",
+    is_flag=True,
+    help="Rebuild on every save of DESIGN (and of a waveform CSV it names) and serve the "
+    "output folder on 127.0.0.1 with a report that reloads itself; Ctrl-C stops.",
+)
+@click.option(
+    "--port",
+    type=click.IntRange(0, 65535),
+    default=8765,
+    show_default=True,
+    help="With --watch: the port of the report's address (0: any free port).",
+)
+def command(
+    design: str,
+    outdir: str | None,
+    allow_large: bool,
+    field: bool | None,
+    settings: tuple[str, ...],
+    watch: bool,
+    port: int,
+) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
 
     \b
@@ -89,9 +115,38 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
     Exit status: 0 when every check passes (warnings allowed), 1 when the design was built but
     a check failed (the outputs are written and the failure is marked in them), 2 for bad
     input, a tree too large for this machine's memory, or an output folder that cannot be
-    written (nothing is written).
+    written (nothing is written). With --watch: 0 when stopped by Ctrl-C.
     """
-    return _run(resolve_design(design), outdir, allow_large, field)
+    if watch:
+        return _watch(resolve_design(design), outdir, allow_large, field, settings, port)
+    return _run(resolve_design(design), outdir, allow_large, field, settings)
+
+
+def _watch(
+    design: Path,
+    outdir: str | None,
+    allow_large: bool,
+    field: bool | None,
+    settings: tuple[str, ...],
+    port: int,
+) -> int:
+    """``build --watch``: the folder is fixed when the watch starts (a renamed design keeps
+    writing where the page is served)."""
+    from chipflow.build import read_design_source
+    from chipflow.cli.watch import watch
+    from chipflow.export.bundle import _slug
+    from chipflow.report.console import verdict_line
+
+    name = str(read_design_source(design, settings).top.data.get("name") or design.stem)
+    target = Path(outdir) if outdir is not None else Path(_slug(name))
+
+    def build():
+        built, _ = build_to_folder(
+            design, target, allow_large=allow_large, field=field, settings=settings
+        )
+        return built.results
+
+    return watch(design, target, build, port=port, verdict=verdict_line, name=name)
 
 
 @click.command("demo")

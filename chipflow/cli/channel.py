@@ -6,6 +6,7 @@ import json
 
 import click
 
+from chipflow import display
 from chipflow.checks.conditions import channel_warnings
 from chipflow.cli.common import QUANTITY, echo_table, fluid_options
 from chipflow.errors import SpecError
@@ -74,22 +75,32 @@ def channel_report(
     return values
 
 
+#: The table's rows: key, label, and the kind of quantity (its unit chosen by its magnitude,
+#: :func:`chipflow.display.quantity`) or a fixed unit with its scale.
 _LAB_ROWS = (
-    ("hydraulic_resistance", "hydraulic resistance", "Pa*s/uL", 1e-9),
-    ("flow", "flow rate", "uL/min", 1e9 * 60),
-    ("pressure_drop", "pressure drop", "Pa", 1.0),
-    ("mean_velocity", "mean velocity", "mm/s", 1e3),
-    ("max_velocity", "peak velocity", "mm/s", 1e3),
-    ("wall_shear_floor", "wall shear, floor centre", "Pa", 1.0),
-    ("wall_shear_mean", "wall shear, mean", "Pa", 1.0),
-    ("wall_shear_max", "wall shear, peak", "Pa", 1.0),
-    ("reynolds", "Reynolds number", "", 1.0),
-    ("hydraulic_diameter", "hydraulic diameter", "um", 1e6),
-    ("residence_time", "residence time", "s", 1.0),
-    ("entrance_length", "entrance length", "um", 1e6),
-    ("viscosity", "viscosity", "mPa*s", 1e3),
-    ("density", "density", "kg/m^3", 1.0),
+    ("hydraulic_resistance", "hydraulic resistance", ("Pa*s/uL", 1e-9)),
+    ("flow", "flow rate", "flow"),
+    ("pressure_drop", "pressure drop", "pressure"),
+    ("mean_velocity", "mean velocity", "velocity"),
+    ("max_velocity", "peak velocity", "velocity"),
+    ("wall_shear_floor", "wall shear, floor centre", "shear"),
+    ("wall_shear_mean", "wall shear, mean", "shear"),
+    ("wall_shear_max", "wall shear, peak", "shear"),
+    ("reynolds", "Reynolds number", ("", 1.0)),
+    ("hydraulic_diameter", "hydraulic diameter", "width"),
+    ("residence_time", "residence time", "time"),
+    ("entrance_length", "entrance length", "length"),
+    ("viscosity", "viscosity", ("mPa*s", 1e3)),
+    ("density", "density", ("kg/m^3", 1.0)),
 )
+
+
+def _lab_row(label: str, value: float, how) -> tuple[str, str, str]:
+    if isinstance(how, str):
+        number, unit = display.quantity(value, how, 4).split(" ", 1)
+        return label, number, unit
+    unit, scale = how
+    return label, display.number(value * scale), unit
 
 
 @click.command("channel")
@@ -142,8 +153,8 @@ def command(width, depth, diameter, length, flow, pressure, fluid, as_json):
         out = {key: values[key] for key in SI_UNITS}
         click.echo(json.dumps({**out, "units": SI_UNITS, "warnings": warnings}, indent=2))
         return
-    rows = [(label, f"{values[key] * scale:.4g}", unit) for key, label, unit, scale in _LAB_ROWS]
-    rows.insert(6, ("", f"{values['wall_shear_floor'] * 10:.4g}", "dyn/cm^2"))
+    rows = [_lab_row(label, values[key], how) for key, label, how in _LAB_ROWS]
+    rows.insert(6, ("", display.number(values["wall_shear_floor"] * 10), "dyn/cm^2"))
     echo_table(rows)
     for line in warnings:
         click.echo(f"warning: {line}")

@@ -2,30 +2,29 @@
 
 The command dispatches on the top-level keys of the design file: explicit networks
 (``[[channels]]`` / ``[[tubes]]``) are handled by :func:`check_network`; tree designs
-(``[tree]``) are sized, drawn in memory and tabled by :func:`chipflow.design.table.tree_check`;
-both run the checks of a build, so ``check`` and ``build`` agree.
+(``[tree]``) are sized, drawn in memory and tabled by :func:`tree_check`; both run the checks of
+a build and print its level table (:func:`chipflow.report.console.level_table`), so ``check``
+and ``build`` agree.
 """
 
 from __future__ import annotations
 
 import json
-import math
 
 import click
 
+from chipflow import display
 from chipflow.checks.conditions import network_warnings
-from chipflow.cli.common import echo_table
-from chipflow.design.table import tree_check
+from chipflow.cli.common import echo_table, settings_option
 from chipflow.errors import SpecError
-from chipflow.network import Solution, generation_rows
-from chipflow.network.summary import channel_rows
-from chipflow.report.console import channel_table
+from chipflow.network import Solution
+from chipflow.report.console import console_summary
 from chipflow.spec.bundled import resolve_design
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
 from chipflow.spec.reader import Table, read_design_file
-from chipflow.units import lab_number, tidy, units_of
+from chipflow.units import tidy, units_of
 
-__all__ = ["command", "check_network", "network_report", "SI_UNITS"]
+__all__ = ["command", "check_network", "tree_check", "network_report", "SI_UNITS"]
 
 #: Units of the SI values in ``chipflow check --json``.
 SI_UNITS = units_of(
@@ -109,77 +108,33 @@ def network_report(design: NetworkDesign, solution: Solution) -> dict:
     }
 
 
-def _g(value: float, scale: float = 1.0) -> str:
-    return lab_number(value * scale) if math.isfinite(value) else "-"
-
-
 def _echo_text(design: NetworkDesign, solution: Solution) -> None:
+    """The design, its fluid, ports and node pressures (the tables of a build follow)."""
     net = solution.network
     fluid = design.fluid
     click.echo(f"design: {design.name}")
     if design.description:
         click.echo(f"  {design.description}")
-    temp = f", {fluid.temperature - 273.15:.4g} degC" if fluid.temperature else ""
+    temp = f", {display.lab_number(fluid.temperature - 273.15)} degC" if fluid.temperature else ""
     click.echo(
-        f"fluid: {fluid.name}{temp}, viscosity {fluid.viscosity * 1e3:.4g} mPa*s, "
-        f"density {fluid.density:.5g} kg/m^3"
+        f"fluid: {fluid.name}{temp}, viscosity {display.lab_number(fluid.viscosity * 1e3)} "
+        f"mPa*s, density {display.lab_number(fluid.density, 5)} kg/m^3"
     )
     click.echo("")
     click.echo("ports")
+    pressures = [solution.node_pressure(node) for node in solution.port_flow]
+    p_unit, p_text = display.column(pressures, "pressure")
+    q_unit, q_text = display.column(list(solution.port_flow.values()), "flow")
     rows = []
-    for node in solution.port_flow:
+    for i, node in enumerate(solution.port_flow):
         supply = design.supplies.get(node)
-        rows.append(
-            (
-                node,
-                supply.label if supply else "",
-                _g(solution.node_pressure(node)),
-                _g(solution.port_flow[node], _UL_MIN),
-            )
-        )
-    echo_table(rows, ("node", "supply", "pressure [Pa]", "inflow [uL/min]"))
+        rows.append((node, supply.label if supply else "", p_text[i], q_text[i]))
+    echo_table(rows, ("node", "supply", f"pressure [{p_unit}]", f"inflow [{q_unit}]"))
     click.echo("")
     click.echo("nodes")
-    echo_table(
-        [(name, _g(p)) for name, p in zip(net.node_names, solution.pressure.tolist(), strict=True)],
-        ("node", "pressure [Pa]"),
-    )
+    n_unit, n_text = display.column(solution.pressure.tolist(), "pressure")
+    echo_table(list(zip(net.node_names, n_text, strict=True)), ("node", f"pressure [{n_unit}]"))
     click.echo("")
-    click.echo("channels (flow is negative against from -> to)")
-    click.echo(channel_table(channel_rows(solution)))
-    generations = generation_rows(solution)
-    if generations:
-        click.echo("")
-        click.echo("generations")
-        echo_table(
-            [
-                (
-                    r.role,
-                    str(r.generation),
-                    str(r.count),
-                    _g(r.flow_total, _UL_MIN),
-                    f"{_g(r.flow_min, _UL_MIN)}-{_g(r.flow_max, _UL_MIN)}",
-                    f"{_g(r.velocity_min, 1e3)}-{_g(r.velocity_max, 1e3)}",
-                    f"{_g(r.shear_floor_min)}-{_g(r.shear_floor_max)}",
-                    _g(r.pressure_drop_mean),
-                    f"{_g(r.residence_min)}-{_g(r.residence_max)}",
-                )
-                for r in generations
-            ],
-            (
-                "role",
-                "gen",
-                "count",
-                "total flow [uL/min]",
-                "flow each [uL/min]",
-                "velocity [mm/s]",
-                "shear floor [Pa]",
-                "dp [Pa]",
-                "residence [s]",
-            ),
-        )
-    click.echo("")
-    click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
 
 
 def check_network(top: Table, as_json: bool) -> bool:
@@ -189,7 +144,6 @@ def check_network(top: Table, as_json: bool) -> bool:
     ``build`` give the same verdict. Returns False when a check fails.
     """
     from chipflow.build import DesignSource, build_design
-    from chipflow.report.console import totals_and_checks
 
     design = load_network_design(top)
     build = build_design(DesignSource(top.source, top, ""))
@@ -203,18 +157,80 @@ def check_network(top: Table, as_json: bool) -> bool:
         click.echo(json.dumps(report, indent=2))
     else:
         _echo_text(design, solution)
-        click.echo("")
-        click.echo(totals_and_checks(build.results))
+        click.echo(console_summary(build.results))
+        click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
         for line in warnings:
             click.echo(f"warning: {line}")
     return build.status != "fail"
 
 
-def check_tree(top: Table, as_json: bool) -> bool:
-    """Size a tree design (``[tree]``), solve its nominal tree and print the generation table.
+def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
+    """What ``chipflow check`` prints for a tree design file (a file with ``[tree]``).
 
-    Returns False when a level misses its shear window.
+    The design is sized, drawn on the chip (in memory: nothing is written), extracted, fed
+    through its supply and tubing, solved and checked exactly as ``chipflow build`` does, so
+    the numbers, the table and the verdict are the build's: lengths as drawn, not nominal. A
+    round-tube tree (a comparison with Murray's law) cannot be drawn: its table is solved with
+    the nominal lengths and says so (:func:`chipflow.build.nominal_tree`).
+
+    Parameters
+    ----------
+    top : Table
+        The parsed design file (:func:`chipflow.spec.reader.read_design_file`).
+    as_json : bool
+        JSON text (SI units) instead of the lab-unit tables.
+
+    Returns
+    -------
+    text : str
+        The level table with each level's window and verdict, then the supply pressure, the
+        sizing and drawing notes and the checks (or the JSON: the table's ``levels`` with
+        each level's ``status``, ``checks``, ``totals`` and the build's ``status``).
+    ok : bool
+        False when a check fails (as ``chipflow build`` would exit 1).
+
+    Raises
+    ------
+    SpecError, DesignError, LayoutError
+        Bad file, targets that the fabrication limits cannot meet, a tree that does not fit.
     """
+    from chipflow.build import DesignSource, build_design, nominal_tree
+    from chipflow.checks import level_statuses
+    from chipflow.design.table import generation_table_dict
+    from chipflow.network.summary import generation_labels
+    from chipflow.report.console import level_table, totals_and_checks
+    from chipflow.spec.tree import load_tree_spec
+
+    source = DesignSource(top.source, top, "")
+    if load_tree_spec(top).shape == "round":  # cannot be drawn
+        design, solution, results = nominal_tree(source)
+        note = (
+            "lengths are nominal: a round-tube tree is not drawn (no supply or tubing either), "
+            "so these numbers are the tree's alone"
+        )
+    else:
+        build = build_design(source)
+        design, solution, results = build.design, build.solution, build.results
+        note = "lengths as drawn on the chip, with the supply and tubing (as `chipflow build`)"
+    ok = results["status"] != "fail"
+    if as_json:
+        table = generation_table_dict(design, solution)
+        verdicts = level_statuses(results["checks"])
+        for label, row in zip(generation_labels(table["levels"]), table["levels"], strict=True):
+            row["status"] = verdicts.get(label, "")
+        if load_tree_spec(top).shape == "round":
+            table["lengths"] = "nominal"
+        table["warnings"] = list(results["warnings"])
+        table["checks"] = results["checks"]
+        table["totals"] = results["totals"]
+        table["status"] = results["status"]
+        return json.dumps(table, indent=2), ok
+    table = level_table(results)
+    return f"generations, inlet to outlet\n{table}\n{note}\n\n{totals_and_checks(results)}", ok
+
+
+def check_tree(top: Table, as_json: bool) -> bool:
+    """Print :func:`tree_check` of a tree design; False when a check fails."""
     text, ok = tree_check(top, as_json=as_json)
     click.echo(text)
     return ok
@@ -223,7 +239,8 @@ def check_tree(top: Table, as_json: bool) -> bool:
 @click.command("check")
 @click.argument("design", type=click.Path(dir_okay=False, path_type=str))
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as one JSON object.")
-def command(design: str, as_json: bool) -> None:
+@settings_option
+def command(design: str, as_json: bool, settings: tuple[str, ...]) -> None:
     """Solve DESIGN's channel network: pressures, flows, velocity and wall shear.
 
     \b
@@ -236,7 +253,12 @@ def command(design: str, as_json: bool) -> None:
     those of `chipflow build`. Exit status: 0 when every check passes (warnings allowed), 1
     when a check fails, 2 for bad input.
     """
-    top = read_design_file(resolve_design(design))
+    if settings:
+        from chipflow.build import read_design_source
+
+        top = read_design_source(resolve_design(design), settings).top
+    else:
+        top = read_design_file(resolve_design(design))
     if "tree" in top:
         if not check_tree(top, as_json):
             click.get_current_context().exit(1)

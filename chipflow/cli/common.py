@@ -12,7 +12,7 @@ from chipflow.physics.fluid import fluid_preset
 from chipflow.report.console import format_table
 from chipflow.units import KINDS, to_si
 
-__all__ = ["QUANTITY", "echo_table", "format_table", "fluid_options"]
+__all__ = ["QUANTITY", "echo_table", "format_table", "fluid_options", "settings_option"]
 
 
 class QUANTITY(click.ParamType):
@@ -66,3 +66,15 @@ def fluid_options(command: Callable) -> Callable:
         return command(*args, fluid=fluid_preset(fluid_name, temperature, viscosity), **kwargs)
 
     return with_fluid
+
+
+def settings_option(command: Callable) -> Callable:
+    """Add ``--set KEY=VALUE`` (repeatable): pass the command ``settings``, a tuple of texts."""
+    return click.option(
+        "--set",
+        "settings",
+        multiple=True,
+        metavar="KEY=VALUE",
+        help="Change one design-file value for this run, exactly as editing the file would "
+        "(dotted key as in `chipflow sweep --vary`, e.g. tree.flow=8uL/min); repeatable.",
+    )(command)

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from chipflow.cli.common import format_table
+from chipflow.cli.common import format_table, settings_option
 from chipflow.cli.progress import progress_bar
 
 __all__ = ["command"]
@@ -31,8 +31,14 @@ __all__ = ["command"]
 )
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
 @click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@settings_option
 def command(
-    design: str, specs: tuple[str, ...], outdir: str | None, scheduler: str | None, workers
+    design: str,
+    specs: tuple[str, ...],
+    outdir: str | None,
+    scheduler: str | None,
+    workers,
+    settings: tuple[str, ...],
 ) -> int:
     """Size, draw and check DESIGN at every point of a grid over one or two keys.
 
@@ -56,13 +62,15 @@ def command(
             scheduler=scheduler,
             workers=workers,
             progress=progress,
+            settings=settings,
         )
+    from chipflow.display import fraction
+    from chipflow.variation.grid import value_text
+
     rows = []
     for r in sweep.rows:
         margin = r["worst_shear_margin"]
-        rows.append(
-            [*r["values"], r["status"], "-" if margin is None else f"{margin * 100:+.3g} %"]
-        )
+        rows.append([*map(value_text, r["values"]), r["status"], fraction(margin, signed=True)])
     header = [a.key for a in sweep.axes] + ["status", "worst margin"]
     click.echo(format_table(rows, header, "l" * len(sweep.axes) + "lr"))
     counts = {

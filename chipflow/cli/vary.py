@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from chipflow.cli.common import settings_option
 from chipflow.cli.progress import progress_bar
 from chipflow.errors import SpecError
 from chipflow.spec.tolerances import DISTRIBUTIONS, MAX_SAMPLES, parse_tolerance
@@ -50,6 +51,7 @@ class TOLERANCE(click.ParamType):
 @click.option("--json", "as_json", is_flag=True, help="Print the results as JSON (SI units).")
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
 @click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@settings_option
 def command(
     design: str,
     samples: int | None,
@@ -63,6 +65,7 @@ def command(
     as_json: bool,
     scheduler: str | None,
     workers: int | None,
+    settings: tuple[str, ...],
 ) -> int:
     """Spread DESIGN's floor shear, residence time and pressures over its tolerances.
 
@@ -96,6 +99,7 @@ def command(
             scheduler=scheduler,
             workers=workers,
             progress=progress,
+            settings=settings,
         )
     if as_json:
         from chipflow.export.variation import results_text

@@ -10,12 +10,7 @@
 
 from chipflow.design.model import ROLES, Level, TreeDesign
 from chipflow.design.sizing import size_channel, size_tree, wall_shear, width_for_shear
-from chipflow.design.table import (
-    generation_table,
-    generation_table_dict,
-    generation_table_text,
-    tree_check,
-)
+from chipflow.design.table import generation_table, generation_table_dict
 from chipflow.design.tree_network import solve_tree, tree_arrays, tree_network
 from chipflow.spec.tree import load_tree_spec
 
@@ -30,8 +25,6 @@ __all__ = [
     "width_for_shear",
     "generation_table",
     "generation_table_dict",
-    "generation_table_text",
-    "tree_check",
     "tree_arrays",
     "tree_network",
     "solve_tree",

@@ -28,7 +28,7 @@ import math
 import os
 import re
 import warnings
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -217,13 +217,14 @@ def build_to_folder(
     *,
     allow_large: bool = False,
     field: bool | None = None,
+    settings: Sequence[str] = (),
 ) -> tuple[Build, list[Path]]:
     """Build a design file and write all its outputs (the whole job of ``chipflow build``).
 
     Parameters
     ----------
-    design : str or path-like
-        The design file.
+    design : str, path-like or DesignSource
+        The design file (or one already read).
     outdir : str or path-like, optional
         Output folder; by default a folder named after the design, in the current folder.
     progress : callable, optional
@@ -232,6 +233,9 @@ def build_to_folder(
         Build a tree even when it needs more memory than the machine can spare.
     field : bool, optional
         Solve the 2D field (see :func:`chipflow.build.build_design`; default: small chips).
+    settings : sequence of str, optional
+        ``KEY=VALUE`` changes to the design file's values (``--set``), as editing the file
+        would make them (:func:`chipflow.build.read_design_source`).
 
     Returns
     -------
@@ -239,8 +243,10 @@ def build_to_folder(
     files : list of pathlib.Path
         The files written.
     """
-    from chipflow.build import build_design
+    from chipflow.build import DesignSource, build_design, read_design_source
 
+    if settings and not isinstance(design, DesignSource):
+        design = read_design_source(design, settings)
     build = build_design(design, progress, allow_large=allow_large, field=field)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import csv
 import io
+from collections.abc import Sequence
 from pathlib import Path
 
 from chipflow.export.bundle import _csv_column
@@ -64,10 +65,12 @@ def sweep_to_folder(
     scheduler: str | None = None,
     workers: int | None = None,
     progress=None,
+    settings: Sequence[str] = (),
 ) -> tuple[Sweep, list[Path]]:
     """Parse the ``--vary`` options, run the sweep of a design file and write its outputs.
 
-    Default output folder: ``<design name>-sweep``.
+    ``settings`` (``--set KEY=VALUE``) change the design's values first, as editing the file
+    would. Default output folder: ``<design name>-sweep``.
     """
     from chipflow.build import read_design_source
     from chipflow.export.bundle import _slug
@@ -79,7 +82,7 @@ def sweep_to_folder(
         from chipflow.errors import SpecError
 
         raise SpecError("--vary: at most two keys (a heat map has two axes)")
-    source = read_design_source(design)
+    source = read_design_source(design, settings)
     sweep = sweep_design(source, axes, scheduler=scheduler, workers=workers, progress=progress)
     target = Path(outdir) if outdir is not None else Path(f"{_slug(sweep.name)}-sweep")
     return sweep, write_sweep(sweep, target)

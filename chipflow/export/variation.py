@@ -13,7 +13,7 @@ every one of them was written. The same design, tolerances and seed give the sam
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -60,6 +60,7 @@ def vary_to_folder(
     scheduler: str | None = None,
     workers: int | None = None,
     progress: Callable[[int, int], None] | None = None,
+    settings: Sequence[str] = (),
 ) -> tuple[Variation, list[Path]]:
     """Build a design file, run its tolerances and write the outputs (``chipflow vary``).
 
@@ -74,12 +75,14 @@ def vary_to_folder(
         Output folder; default ``<design name>-tolerances``.
     scheduler, workers, progress
         See :func:`chipflow.variation.vary.vary_build`.
+    settings : sequence of str, optional
+        ``KEY=VALUE`` changes to the design file's values (``--set``).
     """
     from chipflow.build import build_design, read_design_source
     from chipflow.spec.tolerances import read_tolerances
     from chipflow.variation.vary import vary_build
 
-    source = read_design_source(design)
+    source = read_design_source(design, settings)
     tolerances = read_tolerances(source.top).with_options(**options)
     build = build_design(source)
     variation = vary_build(

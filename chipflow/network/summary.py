@@ -25,6 +25,7 @@ True
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -44,6 +45,7 @@ __all__ = [
     "CHANNEL_KEYS",
     "port_pressure_range",
     "ROLE_ORDER",
+    "generation_labels",
 ]
 
 #: Order of roles along the path from inlet to outlet.
@@ -199,6 +201,28 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
             }
         )
     return rows
+
+
+def generation_labels(generations: Sequence[Mapping[str, Any]]) -> list[str]:
+    """Short labels of levels along the path: ``d0, d1, ...`` (distribution), ``bed``, ``c1, c0``
+    (collection); other roles keep their name and generation.
+
+    >>> generation_labels([{"generation": 0, "role": "distribution"},
+    ...                    {"generation": 1, "role": "bed"},
+    ...                    {"generation": 0, "role": "collection"}])
+    ['d0', 'bed', 'c0']
+    """
+    out = []
+    for g in generations:
+        role = str(g.get("role", ""))
+        number = g.get("generation", "")
+        if role == "bed":
+            out.append("bed")
+        elif role in ("distribution", "collection"):
+            out.append(f"{role[0]}{number}")
+        else:
+            out.append(f"{role} {number}".strip())
+    return out
 
 
 #: Keys of :func:`channel_rows`, in order.

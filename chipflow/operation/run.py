@@ -28,7 +28,7 @@ from chipflow.checks.result import CheckResult
 from chipflow.errors import SpecError
 from chipflow.network import Solution
 from chipflow.network.model import Network
-from chipflow.network.summary import level_groups
+from chipflow.network.summary import generation_labels, level_groups
 from chipflow.network.supply import STANDARD_GRAVITY
 from chipflow.operation.compliance import (
     air_compliance,
@@ -48,7 +48,6 @@ from chipflow.operation.modes import (
 )
 from chipflow.operation.reservoirs import rocker_cycle
 from chipflow.physics.duct import wall_shear_floor
-from chipflow.report.figures import generation_labels
 from chipflow.spec.culture import Limits
 
 __all__ = ["Operation", "operate", "steady_boundary", "node_compliance", "attach", "SAMPLES"]

@@ -18,13 +18,12 @@ Everything here reads the results dict that becomes results.json (SI floats)::
      "units": {...}}
 """
 
-from chipflow.report.figures import PROFILE_PANELS, generation_labels, profile_figure, svg_text
+from chipflow.report.figures import PROFILE_PANELS, profile_figure, svg_text
 from chipflow.report.html import CAUTIONS, report_html, write_markdown_summary, write_report
 
 __all__ = [
     "profile_figure",
     "svg_text",
-    "generation_labels",
     "PROFILE_PANELS",
     "write_report",
     "report_html",

@@ -5,50 +5,54 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-from chipflow.report.figures import generation_labels
-from chipflow.units import lab_number
+from chipflow import display
 
 __all__ = [
     "console_summary",
+    "level_table",
+    "level_cells",
     "totals_and_checks",
+    "verdict_line",
     "format_table",
     "channel_table",
     "CHANNEL_COLUMNS",
+    "LEVEL_COLUMNS",
 ]
 
-_COLUMNS = (
-    # header, unit, key, scale
-    ("level", "", None, None),
-    ("n", "", "count", None),
-    ("width", "um", "width", 1e6),
-    ("depth", "um", "depth", 1e6),
-    ("length", "mm", "length", 1e3),
-    ("flow/ch", "uL/min", "flow_per_channel", 6e10),
-    ("u_mean", "mm/s", "mean_velocity", 1e3),
-    ("floor shear", "Pa", "wall_shear_floor", 1.0),
-    ("Re", "", "reynolds", 1.0),
-    ("t_res", "s", "residence_time", 1.0),
-    ("p_in", "Pa", "pressure_in", 1.0),
+#: Columns of the per-level table: header, results key, kind of quantity (its display unit
+#: is chosen per column by :func:`chipflow.display.column`; None: shown as it is).
+LEVEL_COLUMNS = (
+    ("n", "count", None),
+    ("width", "width", "width"),
+    ("depth", "depth", "width"),
+    ("length", "length", "length"),
+    ("flow/ch", "flow_per_channel", "flow"),
+    ("u_mean", "mean_velocity", "velocity"),
+    ("floor shear", "wall_shear_floor", "shear"),
+    ("Re", "reynolds", "number"),
+    ("t_res", "residence_time", "time"),
+    ("p_in", "pressure_in", "pressure"),
 )
-_MARK = {"pass": "ok  ", "warn": "WARN", "fail": "FAIL"}
+#: How a status shows in tables and check lines.
+_MARK = {"pass": "ok", "warn": "WARN", "fail": "FAIL"}
 
-#: Columns of the per-channel table of an explicit network: header, unit, key, scale.
-#: Flows are magnitudes along the direction ``from -> to`` of the "flow" column's sign.
+#: Columns of the per-channel table of an explicit network: header, key, kind of quantity.
+#: Flows are signed along the direction ``from -> to``.
 CHANNEL_COLUMNS = (
-    ("channel", "", "channel", None),
-    ("from", "", "from", None),
-    ("to", "", "to", None),
-    ("width", "um", "width", 1e6),
-    ("depth", "um", "depth", 1e6),
-    ("length", "mm", "length", 1e3),
-    ("flow", "uL/min", "flow", 6e10),
-    ("u_mean", "mm/s", "mean_velocity", 1e3),
-    ("floor shear", "Pa", "wall_shear_floor", 1.0),
-    ("peak shear", "Pa", "wall_shear_max", 1.0),
-    ("Re", "", "reynolds", 1.0),
-    ("t_res", "s", "residence_time", 1.0),
-    ("p_in", "Pa", "pressure_in", 1.0),
-    ("p_out", "Pa", "pressure_out", 1.0),
+    ("channel", "channel", None),
+    ("from", "from", None),
+    ("to", "to", None),
+    ("width", "width", "width"),
+    ("depth", "depth", "width"),
+    ("length", "length", "length"),
+    ("flow", "flow", "flow"),
+    ("u_mean", "mean_velocity", "velocity"),
+    ("floor shear", "wall_shear_floor", "shear"),
+    ("peak shear", "wall_shear_max", "shear"),
+    ("Re", "reynolds", "number"),
+    ("t_res", "residence_time", "time"),
+    ("p_in", "pressure_in", "pressure"),
+    ("p_out", "pressure_out", "pressure"),
 )
 
 
@@ -80,12 +84,22 @@ def format_table(
     return "\n".join(lines)
 
 
-def _cell(value: Any, scale: float | None) -> str:
-    if value is None:
-        return "-"
-    if scale is None:
-        return str(value)
-    return lab_number(value * scale)
+def _columns(rows: Sequence[Mapping[str, Any]], columns) -> tuple[list[str], list[list[str]]]:
+    """The unit line and the cells of ``columns`` over ``rows``, one unit per column."""
+    units, cells = [], []
+    for _, key, kind in columns:  # a dozen columns
+        values = [row.get(key) for row in rows]
+        if kind is None:
+            units.append("")
+            cells.append(["-" if v is None else str(v) for v in values])
+        elif kind == "number":
+            units.append("")
+            cells.append([display.number(v) for v in values])
+        else:
+            unit, texts = display.column(values, kind)
+            units.append(f"[{unit}]")
+            cells.append(texts)
+    return units, [list(r) for r in zip(*cells, strict=True)] if rows else []
 
 
 def channel_table(channels: Sequence[Mapping[str, Any]]) -> str:
@@ -102,32 +116,99 @@ def channel_table(channels: Sequence[Mapping[str, Any]]) -> str:
     ['a', 'in', 'out', '200', '50', '4', '5', '8.333', '1.1', '1.1', '0.6', '0.48', '500', '250']
     """
     header = [h for h, *_ in CHANNEL_COLUMNS]
-    table = [[f"[{u}]" if u else "" for _, u, *_ in CHANNEL_COLUMNS]]
-    for row in channels:  # the rows are already formed; this only lays them out
-        table.append([_cell(row.get(k), s) for _, _, k, s in CHANNEL_COLUMNS])
-    return format_table(table, header, "lll" + "r" * (len(CHANNEL_COLUMNS) - 3))
+    units, body = _columns(channels, CHANNEL_COLUMNS)
+    return format_table([units, *body], header, "lll" + "r" * (len(CHANNEL_COLUMNS) - 3))
+
+
+def _window_text(check: Mapping[str, Any]) -> str:
+    low, high = check.get("limit_low"), check.get("limit")
+    if low is not None and high is not None:
+        return f"{display.number(low, 3)}-{display.number(high, 3)}"
+    if high is not None:
+        return f"<= {display.number(high, 3)}"
+    return f">= {display.number(check.get('value'), 3)}" if low is None else f">= {low:.3g}"
+
+
+def level_table(results: Mapping[str, Any]) -> str:
+    """The per-level table of a build in lab units, with each level's shear window and
+    verdict (empty text when the build has no levels).
+
+    The verdict of a level is the worst status of the checks that name it
+    (:func:`chipflow.checks.level_statuses`): the table, the check count and the exit status
+    come from the same checks. ``chipflow build`` and ``chipflow check`` print this table.
+
+    >>> rows = [{"generation": 0, "role": "bed", "count": 8, "width": 5.1e-5, "depth": 5e-5,
+    ...          "length": 0.0041, "flow_per_channel": 6.6e-12, "mean_velocity": 0.00259,
+    ...          "wall_shear_floor": 0.4701, "reynolds": 0.1386, "residence_time": 1.58,
+    ...          "pressure_in": 120.0}]
+    >>> checks = [{"name": "floor shear: bed", "status": "warn", "value": 0.4701,
+    ...            "limit": 1.0, "limit_low": 0.5, "unit": "Pa", "level": "bed"}]
+    >>> text = level_table({"generations": rows, "checks": checks}).splitlines()
+    >>> text[1].split()
+    ['[um]', '[um]', '[mm]', '[uL/min]', '[mm/s]', '[Pa]', '[s]', '[Pa]', '[Pa]']
+    >>> " ".join(text[2].split())
+    'bed 8 51 50 4.1 0.396 2.59 0.4701 0.1386 1.58 120 0.5-1 WARN'
+    """
+    cells = level_cells(results)
+    if cells is None:
+        return ""
+    header, units, body = cells
+    table = [["", *units], *body]
+    return format_table(table, header, "l" + "r" * (len(header) - 2) + "l")
+
+
+def level_cells(
+    results: Mapping[str, Any],
+) -> tuple[list[str], list[str], list[list[str]]] | None:
+    """The level table's header, unit line and rows of text (None without levels): the one
+    table that the console, the notebook view and ``chipflow check`` show."""
+    # here, not at the top: `chipflow channel` loads this module and neither the checks nor
+    # the network (tests/test_startup.py)
+    from chipflow.checks.result import level_statuses
+    from chipflow.network.summary import generation_labels
+
+    rows = list(results.get("generations") or [])
+    if not rows:
+        return None
+    labels = generation_labels(rows)
+    checks = list(results.get("checks") or [])
+    verdicts = level_statuses(checks)
+    windows: dict[str, str] = {}
+    for check in checks:  # the first shear window that names a level is the cells' own
+        level = check.get("level")
+        if level and check.get("unit") == "Pa" and level not in windows:
+            windows[level] = _window_text(check)
+    units, body = _columns(rows, LEVEL_COLUMNS)
+    out = []
+    for label, cells in zip(labels, body, strict=True):  # loop over levels
+        verdict = verdicts.get(label)
+        out.append([label, *cells, windows.get(label, ""), _MARK.get(verdict, "-")])
+    header = ["level", *(h for h, *_ in LEVEL_COLUMNS), "window", "verdict"]
+    return header, [*units, "[Pa]", ""], out
 
 
 def console_summary(results: Mapping[str, Any]) -> str:
-    """Plain-text summary in lab units: the generation table, the per-channel table of an
+    """Plain-text summary in lab units: the level table, the per-channel table of an
     explicit network, totals and every check.
 
-    Checks that pass are listed in one line each; warnings and failures carry their message.
+    Checks that pass are counted in one line; warnings and failures carry their message.
     """
-    rows = list(results.get("generations") or [])
     lines: list[str] = []
-    if rows:
-        labels = generation_labels(rows)
-        table = [[f"[{u}]" if u else "" for _, u, *_ in _COLUMNS]]
-        for label, row in zip(labels, rows, strict=True):
-            table.append([label] + [_cell(row.get(k), s) for _, _, k, s in _COLUMNS[1:]])
-        header = [h for h, *_ in _COLUMNS]
-        lines += [format_table(table, header, "l" + "r" * (len(_COLUMNS) - 1)), ""]
+    table = level_table(results)
+    if table:
+        lines += ["generations, inlet to outlet", table, ""]
     channels = list(results.get("channels") or [])
     if channels:
         lines += ["channels (flow is negative against from -> to)", channel_table(channels), ""]
     lines += totals_and_checks(results).splitlines()
     return "\n".join(lines)
+
+
+def verdict_line(results: Mapping[str, Any]) -> str:
+    """The count of the checks by status: ``checks: 9 pass, 2 warn, 0 fail``."""
+    checks = list(results.get("checks") or [])
+    counts = {s: sum(c["status"] == s for c in checks) for s in ("pass", "warn", "fail")}
+    return f"checks: {counts['pass']} pass, {counts['warn']} warn, {counts['fail']} fail"
 
 
 def totals_and_checks(results: Mapping[str, Any]) -> str:
@@ -136,28 +217,27 @@ def totals_and_checks(results: Mapping[str, Any]) -> str:
     totals = results.get("totals", {})
     if totals.get("total_flow"):
         line = (
-            f"supply pressure {totals['inlet_pressure']:.4g} Pa, total flow "
-            f"{totals['total_flow'] * 6e10:.4g} uL/min"
+            f"supply pressure {display.quantity(totals['inlet_pressure'], 'pressure', 4)}, "
+            f"total flow {display.quantity(totals['total_flow'], 'flow', 4)}"
         )
         if totals.get("transit_time"):
-            line += f", transit through the chip {totals['transit_time']:.3g} s"
+            line += f", transit through the chip {display.quantity(totals['transit_time'], 'time')}"
         if totals.get("tubing_transit_time"):
-            line += f" (plus {totals['tubing_transit_time']:.3g} s in the tubing)"
+            tubing = display.quantity(totals["tubing_transit_time"], "time")
+            line += f" (plus {tubing} in the tubing)"
         lines.append(line)
     field = results.get("field")
     if field:
         ratio = field["resistance"] / field["network_resistance"] - 1.0
         lines.append(
-            f"field: chip resistance {ratio:+.1%} against the network, "
-            f"{field['area_outside_window']:.1%} of the seeded floor outside the shear window "
-            f"({field['mesh_triangles']} triangles)"
+            f"field: chip resistance {display.fraction(ratio, 2, signed=True)} against the "
+            f"network, {display.fraction(field['area_outside_window'])} of the seeded floor "
+            f"outside the shear window ({field['mesh_triangles']} triangles)"
         )
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")
-    checks = list(results.get("checks") or [])
-    counts = {s: sum(c["status"] == s for c in checks) for s in ("pass", "warn", "fail")}
-    lines.append(f"checks: {counts['pass']} pass, {counts['warn']} warn, {counts['fail']} fail")
-    for c in checks:
+    lines.append(verdict_line(results))
+    for c in results.get("checks") or []:
         if c["status"] != "pass":
             lines.append(f"  {_MARK[c['status']]} {c['name']}: {c['message']}")
     return "\n".join(lines)

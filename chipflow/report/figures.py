@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["profile_figure", "svg_text", "generation_labels", "path_edges", "PROFILE_PANELS"]
+__all__ = ["profile_figure", "svg_text", "path_edges", "PROFILE_PANELS"]
 
 #: Panel titles of the profile figure, top to bottom.
 PROFILE_PANELS = (
@@ -38,28 +38,6 @@ _SPAN_FOR_LOG = 30.0
 _MARGINS = (0.95, 0.15, 0.7, 0.55)
 _PANEL_GAP = 0.35
 _LABEL_OFFSET = 0.6
-
-
-def generation_labels(generations: Sequence[Mapping[str, Any]]) -> list[str]:
-    """Short labels along the path: ``d0, d1, ...`` (distribution), ``bed``, ``c1, c0``
-    (collection); other roles keep their name and generation.
-
-    >>> generation_labels([{"generation": 0, "role": "distribution"},
-    ...                    {"generation": 1, "role": "bed"},
-    ...                    {"generation": 0, "role": "collection"}])
-    ['d0', 'bed', 'c0']
-    """
-    out = []
-    for g in generations:
-        role = str(g.get("role", ""))
-        number = g.get("generation", "")
-        if role == "bed":
-            out.append("bed")
-        elif role in ("distribution", "collection"):
-            out.append(f"{role[0]}{number}")
-        else:
-            out.append(f"{role} {number}".strip())
-    return out
 
 
 def _column(generations: Sequence[Mapping[str, Any]], key: str) -> np.ndarray:
@@ -155,6 +133,8 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     generations = list(results["generations"])
     edges = path_edges(generations) * 1e3  # mm
     start, end = edges[:-1], edges[1:]
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
     count = _column(generations, "count")
     fig = Figure(figsize=(width, panel_height * len(PROFILE_PANELS) + 0.8))

@@ -14,11 +14,10 @@ import re
 from collections.abc import Mapping
 from typing import Any
 
+from chipflow import display
 from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
-from chipflow.report.figures import generation_labels
 from chipflow.report.operation import operation_html
-from chipflow.units import lab_number
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
 
@@ -109,6 +108,7 @@ def _e(value: Any) -> str:
 
 
 def _num(value: Any, digits: int = 3) -> str:
+    """A plain number (noise shown as 0, :func:`chipflow.display.number`)."""
     if value is None:
         return "&ndash;"
     try:
@@ -119,37 +119,39 @@ def _num(value: Any, digits: int = 3) -> str:
         return "&ndash;"
     if math.isinf(number):
         return "&infin;" if number > 0 else "&minus;&infin;"
-    return lab_number(number, digits)
+    return display.number(number, digits)
 
 
-def _pressure_unit(values: list[float | None]) -> tuple[str, float]:
-    finite = [abs(v) for v in values if v is not None and math.isfinite(v)]
-    return ("kPa", 1e-3) if finite and max(finite) >= 1e3 else ("Pa", 1.0)
+def _quantity(value: Any, kind: str, digits: int = 3) -> str:
+    """An SI value in the unit its magnitude calls for (:func:`chipflow.display.quantity`)."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "&ndash;"
+    return _e(display.quantity(value, kind, digits))
 
 
-def _scaled(value: Any, scale: float, digits: int = 3) -> str:
-    if value is None:
-        return _num(None)
-    return _num(float(value) * scale, digits)
+def _column(values: list[Any], kind: str, digits: int = 3) -> tuple[str, list[str]]:
+    """One table column in one unit chosen by its largest value: (unit, cells)."""
+    unit, texts = display.column(values, kind, digits)
+    return _e(unit), [("&ndash;" if t == "-" else _e(t)) for t in texts]
 
 
-def _quantity(value: Any, unit: str, scale: float = 1.0, digits: int = 3) -> str:
-    text = _scaled(value, scale, digits)
-    return text if value is None or not unit else f"{text} {_e(unit)}"
+#: Kind of quantity of each SI unit a check reports its value in.
+_CHECK_KINDS = {"Pa": "pressure", "m": "length", "m^3/s": "flow", "s": "time"}
 
 
 def _check_value(value: Any, limit: Any, unit: str) -> tuple[str, str]:
-    """Value and limit of a check in lab units."""
-    if unit == "Pa":
-        shown, scale = _pressure_unit([value, limit])
-        return _quantity(value, shown, scale), _quantity(limit, shown, scale)
-    if unit == "m":
-        return _quantity(value, "um", 1e6), _quantity(limit, "um", 1e6)
-    if unit == "m^3/s":
-        return _quantity(value, "uL/min", 6e10), _quantity(limit, "uL/min", 6e10)
+    """Value and limit of a check in lab units, each in the unit its magnitude calls for."""
+    if unit in _CHECK_KINDS:
+        kind = _CHECK_KINDS[unit]
+        return _quantity(value, kind), _quantity(limit, kind)
     if unit == "1":  # a ratio or fraction
-        return _quantity(value, "%", 100.0), _quantity(limit, "%", 100.0)
-    return _quantity(value, unit), _quantity(limit, unit)
+        shown = [("&ndash;" if v is None else _e(display.fraction(v))) for v in (value, limit)]
+        return shown[0], shown[1]
+    suffix = f" {_e(unit)}" if unit else ""
+    return (
+        _num(value) + ("" if value is None else suffix),
+        _num(limit) + ("" if limit is None else suffix),
+    )
 
 
 def _table(
@@ -207,82 +209,102 @@ def _operating_point(results: Mapping[str, Any]) -> str:
     fluid = results.get("fluid", {})
     supply = results.get("supply", {})
     totals = results.get("totals", {})
-    p_unit, p_scale = _pressure_unit([totals.get("inlet_pressure"), totals.get("outlet_pressure")])
+    temperature = fluid.get("temperature")
+    viscosity = fluid.get("viscosity")
+    resistance = totals.get("total_resistance")
     rows = [
         ["fluid", _e(fluid.get("name", ""))],
-        ["viscosity", _quantity(fluid.get("viscosity"), "mPa s", 1e3, digits=4)],
-        ["density", _quantity(fluid.get("density"), "kg/m\u00b3", digits=4)],
+        ["viscosity", "&ndash;" if viscosity is None else f"{_num(viscosity * 1e3, 4)} mPa s"],
+        [
+            "density",
+            "&ndash;"
+            if fluid.get("density") is None
+            else f"{_num(fluid['density'], 4)} kg/m\u00b3",
+        ],
         [
             "temperature",
-            _quantity(
-                None if fluid.get("temperature") is None else fluid["temperature"] - 273.15,
-                "\u00b0C",
-                digits=4,
-            ),
+            "&ndash;" if temperature is None else f"{_num(temperature - 273.15, 4)} \u00b0C",
         ],
         ["supply", _e(supply.get("mode", ""))],
-        ["total flow", _quantity(totals.get("total_flow"), "uL/min", 6e10)],
-        ["supply pressure", _quantity(totals.get("inlet_pressure"), p_unit, p_scale)],
-        ["chip inlet pressure", _quantity(totals.get("chip_inlet_pressure"), p_unit, p_scale)],
-        ["outlet pressure", _quantity(totals.get("outlet_pressure"), p_unit, p_scale)],
+        ["total flow", _quantity(totals.get("total_flow"), "flow")],
+        ["supply pressure", _quantity(totals.get("inlet_pressure"), "pressure")],
+        ["chip inlet pressure", _quantity(totals.get("chip_inlet_pressure"), "pressure")],
+        ["outlet pressure", _quantity(totals.get("outlet_pressure"), "pressure")],
         [
             "total hydraulic resistance",
-            _quantity(totals.get("total_resistance"), "Pa/(uL/min)", 1e-9 / 60),
+            "&ndash;" if resistance is None else f"{_num(resistance * 1e-9 / 60)} Pa/(uL/min)",
         ],
-        ["transit time through the chip", _quantity(totals.get("transit_time"), "s")],
-        ["time in the supply tubing", _quantity(totals.get("tubing_transit_time"), "s")],
+        ["transit time through the chip", _quantity(totals.get("transit_time"), "time")],
+        ["time in the supply tubing", _quantity(totals.get("tubing_transit_time"), "time")],
     ]
     return _table(["quantity", "value"], rows, text_columns=1)
 
 
+#: Columns of the generations table: header, results key, kind of quantity (None: a count).
+_LEVEL_COLUMNS = (
+    ("channels", "count", None),
+    ("width", "width", "width"),
+    ("depth", "depth", "width"),
+    ("length", "length", "length"),
+    ("total cross-section", "total_area", "area"),
+    ("flow per channel", "flow_per_channel", "flow"),
+    ("mean velocity", "mean_velocity", "velocity"),
+    ("floor shear", "wall_shear_floor", "shear"),
+    ("mean shear", "wall_shear_mean", "shear"),
+    ("peak shear", "wall_shear_max", "shear"),
+    ("Reynolds", "reynolds", "number"),
+    ("residence time", "residence_time", "time"),
+    ("pressure drop", "pressure_drop", "pressure"),
+    ("inlet pressure", "pressure_in", "pressure"),
+)
+
+
+def _columns(items: list[Mapping[str, Any]], columns) -> tuple[list[str], list[list[str]]]:
+    """Headers with their units and the cells of ``columns`` over ``items``, by column."""
+    headers, cells = [], []
+    for header, key, kind in columns:  # a dozen columns
+        values = [item.get(key) for item in items]
+        if kind is None:
+            headers.append(header)
+            cells.append([_num(v, 6) for v in values])
+        elif kind == "number":
+            headers.append(f"{header} [-]")
+            cells.append([_num(v) for v in values])
+        else:
+            unit, texts = _column(values, kind)
+            headers.append(f"{header} [{unit}]")
+            cells.append(texts)
+    return headers, [list(row) for row in zip(*cells, strict=True)]
+
+
 def _generations(results: Mapping[str, Any]) -> str:
     generations = list(results.get("generations", []))
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
-    p_unit, p_scale = _pressure_unit(
-        [g.get("pressure_drop") for g in generations] + [g.get("pressure_in") for g in generations]
-    )
-    header = [
-        "generation",
-        "role",
-        "channels",
-        "width [um]",
-        "depth [um]",
-        "length [mm]",
-        "total cross-section [mm&sup2;]",
-        "flow per channel [uL/min]",
-        "mean velocity [mm/s]",
-        "floor shear [Pa]",
-        "mean shear [Pa]",
-        "peak shear [Pa]",
-        "Reynolds [-]",
-        "residence time [s]",
-        f"pressure drop [{p_unit}]",
-        f"inlet pressure [{p_unit}]",
+    headers, body = _columns(generations, _LEVEL_COLUMNS)
+    rows = [
+        [_e(label), _e(g.get("role", "")), *cells]
+        for label, g, cells in zip(labels, generations, body, strict=True)
     ]
-    rows = []
-    for label, g in zip(labels, generations, strict=True):  # loop over generations
-        rows.append(
-            [
-                _e(label),
-                _e(g.get("role", "")),
-                _num(g.get("count"), 6),
-                _scaled(g.get("width"), 1e6, 4),
-                _scaled(g.get("depth"), 1e6, 4),
-                _scaled(g.get("length"), 1e3),
-                _scaled(g.get("total_area"), 1e6),
-                _scaled(g.get("flow_per_channel"), 6e10),
-                _scaled(g.get("mean_velocity"), 1e3),
-                _num(g.get("wall_shear_floor")),
-                _num(g.get("wall_shear_mean")),
-                _num(g.get("wall_shear_max")),
-                _num(g.get("reynolds")),
-                _num(g.get("residence_time")),
-                _scaled(g.get("pressure_drop"), p_scale),
-                _scaled(g.get("pressure_in"), p_scale),
-            ]
-        )
     classes = ["bed" if g.get("role") == "bed" else "" for g in generations]
-    return _table(header, rows, text_columns=2, row_classes=classes)
+    return _table(["generation", "role", *headers], rows, text_columns=2, row_classes=classes)
+
+
+#: Columns of the channel table of an explicit network (after channel, from and to).
+_CHANNEL_COLUMNS = (
+    ("width", "width", "width"),
+    ("depth", "depth", "width"),
+    ("length", "length", "length"),
+    ("flow", "flow", "flow"),
+    ("mean velocity", "mean_velocity", "velocity"),
+    ("floor shear", "wall_shear_floor", "shear"),
+    ("peak shear", "wall_shear_max", "shear"),
+    ("Reynolds", "reynolds", "number"),
+    ("residence time", "residence_time", "time"),
+    ("inlet pressure", "pressure_in", "pressure"),
+    ("outlet pressure", "pressure_out", "pressure"),
+)
 
 
 def _channels(results: Mapping[str, Any]) -> str:
@@ -290,41 +312,11 @@ def _channels(results: Mapping[str, Any]) -> str:
     channels = list(results.get("channels") or [])
     if not channels:
         return ""
-    p_unit, p_scale = _pressure_unit([c.get("pressure_in") for c in channels])
-    header = [
-        "channel",
-        "from",
-        "to",
-        "width [um]",
-        "depth [um]",
-        "length [mm]",
-        "flow [uL/min]",
-        "mean velocity [mm/s]",
-        "floor shear [Pa]",
-        "peak shear [Pa]",
-        "Reynolds [-]",
-        "residence time [s]",
-        f"inlet pressure [{p_unit}]",
-        f"outlet pressure [{p_unit}]",
-    ]
+    headers, body = _columns(channels, _CHANNEL_COLUMNS)
+    header = ["channel", "from", "to", *headers]
     rows = [
-        [
-            _e(c.get("channel", "")),
-            _e(c.get("from", "")),
-            _e(c.get("to", "")),
-            _scaled(c.get("width"), 1e6, 4),
-            _scaled(c.get("depth"), 1e6, 4),
-            _scaled(c.get("length"), 1e3),
-            _scaled(c.get("flow"), 6e10),
-            _scaled(c.get("mean_velocity"), 1e3),
-            _num(c.get("wall_shear_floor")),
-            _num(c.get("wall_shear_max")),
-            _num(c.get("reynolds")),
-            _num(c.get("residence_time")),
-            _scaled(c.get("pressure_in"), p_scale),
-            _scaled(c.get("pressure_out"), p_scale),
-        ]
-        for c in channels  # an explicit network: tens of channels, written by hand
+        [_e(c.get("channel", "")), _e(c.get("from", "")), _e(c.get("to", "")), *cells]
+        for c, cells in zip(channels, body, strict=True)
     ]
     classes = ["bed" if c.get("role") == "bed" else "" for c in channels]
     return (
@@ -339,29 +331,25 @@ def _extremes(results: Mapping[str, Any]) -> str:
     generations = [g for g in results.get("generations", []) if g.get("flow_min") is not None]
     if not generations:
         return ""
+    from chipflow.network.summary import generation_labels  # light startup: see console
+
     labels = generation_labels(generations)
+    spans = []
+    for key, kind in (("flow", "flow"), ("wall_shear_floor", "shear"), ("residence_time", "time")):
+        low = [g.get(key + "_min") for g in generations]
+        unit, texts = _column(low + [g.get(key + "_max") for g in generations], kind)
+        spans.append((unit, texts[: len(low)], texts[len(low) :]))
     header = [
         "generation",
         "channels",
-        "flow per channel, lowest - highest [uL/min]",
-        "floor shear, lowest - highest [Pa]",
-        "residence time, lowest - highest [s]",
+        f"flow per channel, lowest - highest [{spans[0][0]}]",
+        f"floor shear, lowest - highest [{spans[1][0]}]",
+        f"residence time, lowest - highest [{spans[2][0]}]",
     ]
-
-    def span(g: Mapping[str, Any], key: str, scale: float = 1.0) -> str:
-        return (
-            f"{_scaled(g.get(key + '_min'), scale)} &ndash; {_scaled(g.get(key + '_max'), scale)}"
-        )
-
     rows = [
-        [
-            _e(label),
-            _num(g.get("count"), 6),
-            span(g, "flow", 6e10),
-            span(g, "wall_shear_floor"),
-            span(g, "residence_time"),
-        ]
-        for label, g in zip(labels, generations, strict=True)  # loop over generations
+        [_e(label), _num(g.get("count"), 6)]
+        + [f"{low[i]} &ndash; {high[i]}" for _, low, high in spans]
+        for i, (label, g) in enumerate(zip(labels, generations, strict=True))
     ]
     classes = ["bed" if g.get("role") == "bed" else "" for g in generations]
     return "<h3>Per-channel extremes of each generation</h3>\n" + _table(
@@ -438,20 +426,14 @@ def _fabrication(results: Mapping[str, Any]) -> str:
         ["polarity", _e(fab.get("polarity", ""))],
         ["mirrored", _e({True: "yes", False: "no"}.get(mirror, mirror if mirror else ""))],
         ["DXF version", _e(fab.get("dxf_version", ""))],
-        ["mask grid", _quantity(fab.get("grid"), "um", 1e6)],
+        ["mask grid", _quantity(fab.get("grid"), "width")],
     ]
     out = [_table(["setting", "value"], rows)]
     layers = fab.get("layers", [])
     if layers:
-        out.append(
-            _table(
-                ["layer", "depth [um]"],
-                [
-                    [_e(layer.get("name", "")), _scaled(layer.get("depth"), 1e6, 4)]
-                    for layer in layers
-                ],
-            )
-        )
+        unit, depths = _column([layer.get("depth") for layer in layers], "width", 4)
+        rows = [[_e(layer.get("name", "")), d] for layer, d in zip(layers, depths, strict=True)]
+        out.append(_table(["layer", f"depth [{unit}]"], rows))
     findings = fab.get("findings", [])
     out.append(
         f"<p>{len(findings)} fabrication rule finding{'s' if len(findings) != 1 else ''} "
@@ -475,32 +457,33 @@ def _junctions(results: Mapping[str, Any]) -> str:
         "triangles) at the supply's operating point: the pump's flow, or the supply pressure "
         "shared between the tubing and the field's own resistance. The field sees what "
         "the channel table cannot: the far wall of a junction, the inside of a bend, the ends "
-        f"of the bed. Chip resistance: {_quantity(field['resistance'], 'Pa s/uL', 1e-9)} "
-        f"against {_quantity(field['network_resistance'], 'Pa s/uL', 1e-9)} in the network "
-        f"({ratio:+.1%}). Floor shear over the seeded floor: 5 % of the area below "
-        f"{_num(shear['p05'])} Pa, median {_num(shear['p50'])} Pa, 5 % above "
-        f"{_num(shear['p95'])} Pa; {field['area_outside_window']:.1%} of it lies outside the "
-        "shear window. The floor shear falls to zero along every side wall, so a strip of "
-        "each channel's floor lies below any window; the table says where the rest lies.</p>"
+        f"of the bed. Chip resistance: {_quantity(field['resistance'], 'resistance')} "
+        f"against {_quantity(field['network_resistance'], 'resistance')} in the network "
+        f"({display.fraction(ratio, 2, signed=True)}). Floor shear over the seeded floor: 5 % "
+        f"of the area below {_num(shear['p05'])} Pa, median {_num(shear['p50'])} Pa, 5 % above "
+        f"{_num(shear['p95'])} Pa; {display.fraction(field['area_outside_window'])} of it lies "
+        "outside the shear window (graded among the checks). The floor shear falls to zero "
+        "along every side wall, so a strip of each channel's floor lies below any window; the "
+        "table says where the rest lies.</p>"
     )
-    zones = field["zones"]
+    zones = {name: z for name, z in field["zones"].items() if z["area"] > 0}
+    area_unit, areas = _column([z["area"] for z in zones.values()], "area")
     rows = [
         [
             _e(name),
-            _num(z["area"] * 1e6),
+            area,
             _num(z["p05"]),
             _num(z["p50"]),
             _num(z["p95"]),
-            f"{z['outside']:.1%}",
-            f"{field['outside_by_zone'].get(name, 0.0):.1%}",
+            _e(display.fraction(z["outside"])),
+            _e(display.fraction(field["outside_by_zone"].get(name, 0.0))),
         ]
-        for name, z in zones.items()
-        if z["area"] > 0
+        for (name, z), area in zip(zones.items(), areas, strict=True)
     ]
     zone_table = _table(
         [
             "where",
-            "floor [mm^2]",
+            f"floor [{area_unit}]",
             "p05 [Pa]",
             "median [Pa]",
             "p95 [Pa]",
@@ -514,7 +497,9 @@ def _junctions(results: Mapping[str, Any]) -> str:
             _e(f"{lv['role']} {lv['generation']}"),
             _num(lv["network_shear"]),
             _num(lv["field_shear"]),
-            f"{lv['field_shear'] / lv['network_shear'] - 1.0:+.1%}" if lv["network_shear"] else "",
+            _e(display.fraction(lv["field_shear"] / lv["network_shear"] - 1.0, 2, signed=True))
+            if lv["network_shear"]
+            else "",
         ]
         for lv in field["levels"]
     ]
@@ -525,12 +510,12 @@ def _junctions(results: Mapping[str, Any]) -> str:
     split = field["bed_split"]
     note = (
         "<p>Floor shear at the middle of each channel, averaged over its level. Bed flow split: "
-        f"coefficient of variation {split['field_cv']:.2%} in the field "
-        f"({split['network_cv']:.2%} in the network); the largest difference of one bed "
-        f"channel's share is {split['max_deviation']:.2%}. The field model (depth-averaged "
-        "Stokes flow with a friction term calibrated to the exact duct series) is exact in "
-        "straight channels to about 0.5 % at its default mesh; it neglects inertia and the "
-        "3D flow at depth steps.</p>"
+        f"coefficient of variation {display.fraction(split['field_cv'])} in the field "
+        f"({display.fraction(split['network_cv'])} in the network); the largest difference of "
+        f"one bed channel's share is {display.fraction(split['max_deviation'])}. The field model "
+        "(depth-averaged Stokes flow with a friction term calibrated to the exact duct series) "
+        "is exact in straight channels to about 0.5 % at its default mesh; it neglects inertia "
+        "and the 3D flow at depth steps.</p>"
     )
     return intro + zone_table + level_table + note
 
@@ -617,18 +602,25 @@ def write_markdown_summary(results: Mapping[str, Any], path: str | os.PathLike) 
     lines = [f"# {design.get('name', 'design')}", ""]
     if design.get("description"):
         lines += [str(design["description"]).strip(), ""]
-    lines += [
-        "| generation | channels | width [um] | depth [um] | floor shear [Pa] | "
-        "mean velocity [mm/s] | residence time [s] |",
-        "|---|---:|---:|---:|---:|---:|---:|",
-    ]
     generations = list(results.get("generations", []))
-    for label, g in zip(generation_labels(generations), generations, strict=True):
-        lines.append(
-            f"| {label} | {g.get('count')} | {float(g['width']) * 1e6:.4g} | "
-            f"{float(g['depth']) * 1e6:.4g} | {float(g['wall_shear_floor']):.3g} | "
-            f"{float(g['mean_velocity']) * 1e3:.3g} | {float(g['residence_time']):.3g} |"
-        )
+    columns = (
+        ("width", "width", "width"),
+        ("depth", "depth", "width"),
+        ("floor shear", "wall_shear_floor", "shear"),
+        ("mean velocity", "mean_velocity", "velocity"),
+        ("residence time", "residence_time", "time"),
+    )
+    header, cells = ["generation", "channels"], []
+    for name, key, kind in columns:  # five columns, each in one unit
+        unit, texts = display.column([g.get(key) for g in generations], kind)
+        header.append(f"{name} [{unit}]")
+        cells.append(texts)
+    lines += ["| " + " | ".join(header) + " |", "|---|" + "---:|" * (len(header) - 1)]
+    from chipflow.network.summary import generation_labels
+
+    for i, (label, g) in enumerate(zip(generation_labels(generations), generations, strict=True)):
+        row = [label, str(g.get("count")), *(column[i] for column in cells)]
+        lines.append("| " + " | ".join(row) + " |")
     lines += ["", "| status | check | finding |", "|---|---|---|"]
     for check in results.get("checks", []):
         message = str(check.get("message", "")).replace("|", "/")

@@ -10,6 +10,8 @@ import html
 from collections.abc import Mapping
 from typing import Any
 
+from chipflow import display
+
 __all__ = ["operation_html"]
 
 _COLUMNS = (
@@ -28,7 +30,7 @@ _COLUMNS = (
 def _n(value: Any, scale: float = 1.0, digits: int = 3) -> str:
     if value is None:
         return "&ndash;"
-    return f"{float(value) * scale:.{digits}g}"
+    return html.escape(display.number(float(value) * scale, digits))
 
 
 def _facts(op: Mapping[str, Any]) -> list[str]:

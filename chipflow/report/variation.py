@@ -12,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from chipflow import display
 from chipflow.report.console import format_table
 from chipflow.report.figures import _INK, _TEAL, _WINDOW, svg_text
 from chipflow.report.html import _CSS, CAUTIONS, _e, _inline_svg, _num, _table
@@ -28,8 +29,9 @@ def factor_text(name: str, value: float) -> str:
     ('-2 um', '+2 %')
     """
     if name == "width bias":
-        return f"{value * 1e6:+.3g} um".replace("+0 um", "0 um")
-    return f"{value * 100:+.3g} %".replace("+0 %", "0 %")
+        text = display.quantity(value, "width", unit="um")
+        return text if text.startswith(("-", "0 ")) else "+" + text
+    return display.fraction(value, signed=True)
 
 
 def level_figure(
@@ -94,11 +96,17 @@ def level_figure(
     return fig
 
 
-def _spread(p: Mapping[str, Any] | None, scale: float = 1.0, digits: int = 3) -> list[str]:
+_QUARTET = ("p05", "p50", "p95", "nominal")
+
+
+def _spread(p: Mapping[str, Any] | None, kind: str) -> tuple[str, list[str]]:
+    """The unit and the four values (p05, p50, p95, nominal) of one spread, in one unit."""
     if not p:
-        return ["&ndash;"] * 4
-    keys = ("p05", "p50", "p95", "nominal")
-    return [_num(None if p.get(k) is None else p[k] * scale, digits) for k in keys]
+        return "", ["&ndash;"] * 4
+    if kind == "fraction":
+        return "%", [_e(display.fraction(p.get(k)).removesuffix(" %")) for k in _QUARTET]
+    unit, texts = display.column([p.get(k) for k in _QUARTET], kind, 3)
+    return unit, [("&ndash;" if x == "-" else _e(x)) for x in texts]
 
 
 def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> str:
@@ -107,47 +115,58 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
 
     design = results["design"]
     tol = results["tolerances"]
-    depth = (
-        f"&plusmn;{tol['depth'] * 100:.3g} %"
+    depth = "&plusmn;" + (
+        display.fraction(tol["depth"])
         if tol["depth_kind"] == "fraction"
-        else f"&plusmn;{tol['depth'] * 1e6:.3g} um"
+        else display.quantity(tol["depth"], "width", unit="um")
     )
     spread = "uniform within" if results["distribution"] == "uniform" else "normal, 1 sd ="
     tol_rows = [
         ["depth of each mould level", depth],
-        ["width bias of the mask", f"&plusmn;{tol['width'] * 1e6:.3g} um"],
-        ["inlet supply", f"&plusmn;{tol['flow'] * 100:.3g} %"],
-        ["viscosity", f"&plusmn;{tol['viscosity'] * 100:.3g} %"],
+        ["width bias of the mask", f"&plusmn;{display.quantity(tol['width'], 'width', unit='um')}"],
+        ["inlet supply", f"&plusmn;{display.fraction(tol['flow'])}"],
+        ["viscosity", f"&plusmn;{display.fraction(tol['viscosity'])}"],
     ]
     y = results["yield"]
     verdict = "pass" if y >= 0.95 else "warn" if y >= 0.5 else "fail"
     levels = results["levels"]
+    quartet = list(_QUARTET)
+    # one unit per column: the residence times and pressure drops of every level together
+    columns = {}
+    for key, kind in (("residence_time", "time"), ("pressure_drop", "pressure")):
+        values = [lv[key].get(k) for lv in levels for k in quartet if lv.get(key)]
+        columns[key] = display.unit_for(kind, values)
     level_rows = [
         [
             _e(lv["label"]) + (" (seeded)" if lv["seeded"] else ""),
-            *_spread(lv["floor_shear"]),
-            *_spread(lv["residence_time"]),
-            *_spread(lv["pressure_drop"]),
-            _num(None if lv.get("inside_window") is None else lv["inside_window"] * 100),
+            *_spread(lv["floor_shear"], "shear")[1],
+            *(_num(lv["residence_time"].get(k) / columns["residence_time"][1]) for k in quartet),
+            *(_num(lv["pressure_drop"].get(k) / columns["pressure_drop"][1]) for k in quartet),
+            "&ndash;"
+            if lv.get("inside_window") is None
+            else _e(display.fraction(lv["inside_window"]).removesuffix(" %")),
         ]
         for lv in levels
     ]
-    quartet = ["p05", "p50", "p95", "nominal"]
     level_header = (
         ["level"]
         + [f"floor shear {k} [Pa]" for k in quartet]
-        + [f"residence {k} [s]" for k in quartet]
-        + [f"pressure drop {k} [Pa]" for k in quartet]
+        + [f"residence {k} [{columns['residence_time'][0]}]" for k in quartet]
+        + [f"pressure drop {k} [{columns['pressure_drop'][0]}]" for k in quartet]
         + ["inside window [%]"]
     )
-    overall = [
-        ["supply pressure [kPa]", *_spread(results["supply_pressure"], 1e-3)],
-        ["highest chip pressure [kPa]", *_spread(results["chip_pressure"], 1e-3)],
-        ["flow per bed channel [uL/min]", *_spread(results["bed_flow"], 6e10)],
-        ["bed flow spread (CV) [%]", *_spread(results["bed_flow_spread"], 100.0)],
-    ]
-    if results.get("shear_margin"):
-        overall.append(["window margin [%]", *_spread(results["shear_margin"], 100.0)])
+    overall = []
+    for name, key, kind in (
+        ("supply pressure", "supply_pressure", "pressure"),
+        ("highest chip pressure", "chip_pressure", "pressure"),
+        ("flow per bed channel", "bed_flow", "flow"),
+        ("bed flow spread (CV)", "bed_flow_spread", "fraction"),
+        ("window margin", "shear_margin", "fraction"),
+    ):
+        if key == "shear_margin" and not results.get(key):
+            continue
+        unit, texts = _spread(results[key], kind)
+        overall.append([f"{name} [{unit}]", *texts])
     corner = results["worst_corner"]
     corner_rows = [[_e(k), factor_text(k, v)] for k, v in corner["factors"].items()]
     corner_rows += [
@@ -156,10 +175,10 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
             "window margin",
             "&ndash;"
             if corner["shear_margin"] is None
-            else f"{corner['shear_margin'] * 100:.3g} %",
+            else display.fraction(corner["shear_margin"]),
         ],
-        ["supply pressure", f"{corner['supply_pressure'] / 1e3:.4g} kPa"],
-        ["highest chip pressure", f"{corner['chip_pressure'] / 1e3:.4g} kPa"],
+        ["supply pressure", display.quantity(corner["supply_pressure"], "pressure", 4)],
+        ["highest chip pressure", display.quantity(corner["chip_pressure"], "pressure", 4)],
     ]
     rank_rows = [
         [
@@ -168,7 +187,7 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
             factor_text(s["factor"], s["tolerance"]).lstrip("+"),
             _num(s["elasticity"]),
             _e(s["elasticity_level"]),
-            _num(s["shear_change"] * 100),
+            _e(display.fraction(s["shear_change"]).removesuffix(" %")),
         ]
         for i, s in enumerate(results["sensitivity"])
     ]
@@ -180,8 +199,8 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
         f"<h1>{_e(design['name'])}: tolerances</h1>",
         f'<p class="meta">Design file: {_e(design["file"])}<br>SHA-256: {_e(design["sha256"])}'
         f"<br>{results['samples']} samples, seed {results['seed']}, {spread} the tolerance</p>",
-        f'<p class="verdict {verdict}">Yield {y * 100:.3g} % '
-        f"(&plusmn;{results['yield_standard_error'] * 100:.2g} % Monte Carlo standard error)</p>",
+        f'<p class="verdict {verdict}">Yield {display.fraction(y)} (&plusmn;'
+        f"{display.fraction(results['yield_standard_error'], 2)} Monte Carlo standard error)</p>",
         "<p>A sample passes when every seeded level's floor shear lies inside the window in "
         "every channel and the pressure checks pass (bond with its safety factor, pump).</p>",
         "<h2>Tolerances</h2>",
@@ -237,14 +256,14 @@ def variation_summary(results: Mapping[str, Any]) -> str:
     y = results["yield"]
     lines = [
         f"{results['samples']} samples (seed {results['seed']}, {results['distribution']}): "
-        f"yield {y * 100:.4g} % +- {results['yield_standard_error'] * 100:.2g} %",
+        f"yield {display.fraction(y, 4)} +- {display.fraction(results['yield_standard_error'], 2)}",
         "",
     ]
     rows = [
         [
             lv["label"] + (" *" if lv["seeded"] else ""),
-            *(f"{lv['floor_shear'][k]:.4g}" for k in ("p05", "p50", "p95", "nominal")),
-            f"{lv['residence_time']['p50']:.3g}",
+            *(display.number(lv["floor_shear"][k]) for k in _QUARTET),
+            display.quantity(lv["residence_time"]["p50"], "time"),
         ]
         for lv in results["levels"]
     ]
@@ -252,21 +271,19 @@ def variation_summary(results: Mapping[str, Any]) -> str:
     lines.append("floor shear [Pa] per level (* seeded):")
     lines.append(format_table(rows, header, "l" + "r" * 5))
     sp = results["supply_pressure"]
-    lines.append(
-        f"supply pressure p05/p50/p95: {sp['p05'] / 1e3:.4g} / {sp['p50'] / 1e3:.4g} / "
-        f"{sp['p95'] / 1e3:.4g} kPa"
-    )
+    unit, texts = display.column([sp["p05"], sp["p50"], sp["p95"]], "pressure")
+    lines.append(f"supply pressure p05/p50/p95: {' / '.join(texts)} {unit}")
     corner = results["worst_corner"]
     where = ", ".join(f"{k} {factor_text(k, v)}" for k, v in corner["factors"].items())
     margin = corner["shear_margin"]
     lines.append(
         f"worst corner: {where}: {'passes' if corner['passes'] else 'FAILS'}"
-        + ("" if margin is None else f" (window margin {margin * 100:.3g} %)")
+        + ("" if margin is None else f" (window margin {display.fraction(margin)})")
     )
     lines.append("ranking by floor-shear change at the tolerance:")
     for i, s in enumerate(results["sensitivity"], start=1):
         lines.append(
-            f"  {i}. {s['factor']}: {s['shear_change'] * 100:.3g} % "
-            f"(elasticity {s['elasticity']:.3g} at {s['elasticity_level']})"
+            f"  {i}. {s['factor']}: {display.fraction(s['shear_change'])} "
+            f"(elasticity {display.number(s['elasticity'], 3)} at {s['elasticity_level']})"
         )
     return "\n".join(lines)

@@ -66,20 +66,52 @@ def bundled_designs() -> list[BundledDesign]:
 def resolve_design(arg: str | Path) -> Path:
     """The design file ``arg`` names: the file itself when it exists, else the bundled design
     of that name (with or without ``.toml``, or written as ``designs/NAME.toml``); otherwise
-    ``arg`` unchanged, so the reader reports the missing file."""
+    ``arg`` unchanged, so the reader reports the missing file. A name close to a bundled
+    design's (``tree_vesel``) is a SpecError with a "did you mean"."""
     path = Path(arg)
     if path.exists():
         return path
     candidate = _folder() / f"{path.stem}.toml"
-    if path.suffix in ("", ".toml") and path.parent.name in ("", "designs") and candidate.is_file():
+    bundled_name = path.suffix in ("", ".toml") and path.parent.name in ("", "designs")
+    if bundled_name and candidate.is_file():
         return candidate
+    if bundled_name:
+        hint = _near(path.stem, [d.name for d in bundled_designs()])
+        if hint:
+            raise SpecError(f"{arg}: no such design file or bundled design{hint}")
     return path
 
 
-def copy_bundled(design: str, name: str, folder: str | Path = ".") -> Path:
-    """Copy the bundled ``design`` to ``<folder>/<name>.toml`` with its ``name`` set to ``name``.
+def _near(name: str, names) -> str:
+    """``"; did you mean 'x'?"`` for the closest of ``names``, or "" when none is close."""
+    import difflib
 
-    Never writes over an existing file. Raises :class:`SpecError` for an unknown design.
+    close = difflib.get_close_matches(name, list(names), n=1, cutoff=0.75)
+    return f"; did you mean {close[0]!r}?" if close else ""
+
+
+def _without_header(text: str) -> str:
+    """The design text without its opening comment block (the lines before the first key or
+    table, which describe the bundled design, not the copy).
+
+    >>> _without_header("# the demo\\n#\\n\\nname = 'x'\\n# kept\\n")
+    "name = 'x'\\n# kept\\n"
+    """
+    lines = text.splitlines(keepends=True)
+    start = 0
+    while start < len(lines) and (
+        not lines[start].strip() or lines[start].lstrip().startswith("#")
+    ):
+        start += 1
+    return "".join(lines[start:])
+
+
+def copy_bundled(design: str, name: str, folder: str | Path = ".") -> Path:
+    """Copy the bundled ``design`` to ``<folder>/<name>.toml`` with its ``name`` set to ``name``
+    and a header comment about the copy in place of the bundled design's own.
+
+    Never writes over an existing file. Raises :class:`SpecError` for an unknown design (with
+    a "did you mean" for a near miss).
     """
     from chipflow.spec.starter import check_name
 
@@ -89,9 +121,19 @@ def copy_bundled(design: str, name: str, folder: str | Path = ".") -> Path:
     key = Path(design).stem
     if key not in known:
         raise SpecError(
-            f"no bundled design {design!r}; bundled designs: {', '.join(sorted(known))}"
+            f"no bundled design {design!r}{_near(key, known)} (bundled designs: "
+            f"{', '.join(sorted(known))})"
         )
-    text = known[key].path.read_text("utf-8")
+    text = _without_header(known[key].path.read_text("utf-8"))
+    header = (
+        f"# {stem}: a copy of chipflow's bundled design {key!r}, to edit\n"
+        f"# (written by: chipflow new {stem} --from {key}). Build it with:\n#\n"
+        f"#     chipflow build {stem}.toml\n#\n"
+        "# Its values describe an invented scenario, not a recommendation for your cells or "
+        "your\n# cleanroom: check them against your own measurements and your facility's "
+        "design rules.\n\n"
+    )
+    text = header + text
     text, count = re.subn(r'(?m)^name\s*=\s*"[^"\n]*"', f'name = "{stem}"', text, count=1)
     if count == 0:
         text = f'name = "{stem}"\n' + text

@@ -13,6 +13,8 @@
     o2_inlet = "0.2 mol/m^3"         # oxygen in the inflowing medium (default: air-equilibrated)
     o2_diffusivity = "3e-9 m^2/s"    # oxygen diffusivity in the medium (default: 37 C water)
     residence_time = "2 s"           # optional target for the bed residence time
+    outside_window_limit = "50 %"    # 2D field: most of the seeded floor that may lie outside
+                                     # the shear window before chipflow warns (default 50 %)
 
     [limits]
     bond_pressure = "200 kPa"        # burst pressure of the bond (default: PDMS-glass plasma)
@@ -42,6 +44,7 @@ from chipflow.checks.cell_types import (
     ShearWindow,
     cell_type,
 )
+from chipflow.checks.culture import OUTSIDE_WINDOW_LIMIT, OUTSIDE_WINDOW_SOURCE
 from chipflow.checks.pressure import BOND_LIMIT_DEFAULT, BOND_SAFETY_FACTOR, BOND_SOURCE
 from chipflow.checks.transport import (
     CELL_DENSITY_DEFAULT,
@@ -70,6 +73,7 @@ CULTURE_KEYS = (
     "o2_inlet",
     "o2_diffusivity",
     "residence_time",
+    "outside_window_limit",
 )
 LIMITS_KEYS = ("bond_pressure", "safety_factor", "pump_pressure")
 #: Where the cells grow: only the bed, or every generation.
@@ -107,6 +111,11 @@ class Culture:
         Oxygen diffusivity in the medium [m^2/s].
     residence_time : float or None
         Target bed residence time [s], if the design sets one here.
+    outside_window_limit : float
+        Share of the seeded floor that may lie outside the shear window in the 2D field
+        before the check warns [1] (:func:`chipflow.checks.culture.check_floor_outside`).
+    outside_window_source : str
+        "chipflow default" or the design file.
     """
 
     cell_type: str | None = None
@@ -120,6 +129,8 @@ class Culture:
     o2_inlet: float = O2_INLET_CONCENTRATION
     o2_diffusivity: float = O2_DIFFUSIVITY_37C
     residence_time: float | None = None
+    outside_window_limit: float = OUTSIDE_WINDOW_LIMIT
+    outside_window_source: str = OUTSIDE_WINDOW_SOURCE
 
 
 @dataclass(frozen=True)
@@ -186,6 +197,13 @@ def read_culture(top: Table) -> Culture:
     else:
         uptake_source = ""
     inlet = table.quantity("o2_inlet", "concentration", None)
+    outside = table.quantity("outside_window_limit", "dimensionless", None, positive=False)
+    if outside is not None and not 0.0 <= outside <= 1.0:
+        raise table.error(
+            "outside_window_limit",
+            "must be a share of the floor from 0 % to 100 %, got "
+            f"{table.data['outside_window_limit']!r}",
+        )
     return Culture(
         cell_type=name,
         cells=uptake is not None,
@@ -198,6 +216,8 @@ def read_culture(top: Table) -> Culture:
         o2_inlet=O2_INLET_CONCENTRATION if inlet is None else inlet,
         o2_diffusivity=table.quantity("o2_diffusivity", "diffusivity", O2_DIFFUSIVITY_37C),
         residence_time=table.quantity("residence_time", "time", None),
+        outside_window_limit=OUTSIDE_WINDOW_LIMIT if outside is None else outside,
+        outside_window_source=OUTSIDE_WINDOW_SOURCE if outside is None else top.file_label,
     )
 
 

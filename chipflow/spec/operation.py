@@ -85,10 +85,11 @@ def read_tree_operation(top: Table, design_flow: float) -> OperationSpec:
     table = top.table("supply", None)
     if table is None:
         return OperationSpec(walls=walls)
-    from chipflow.spec.supply import SUPPLY_KEYS  # here: spec.supply imports this module
+    from chipflow.spec.supply import INLETS, SUPPLY_KEYS  # here: spec.supply imports this module
 
     table.only(SUPPLY_KEYS)  # a typo gets its "did you mean" before anything else
-    kind = table.string("inlet", "syringe")
+    # the inlet first: a misspelt inlet is blamed on itself, not on the keys of its kind
+    kind = table.choice("inlet", INLETS, "syringe")
     for keys in _KIND_KEYS.values():
         for key in keys:
             if key in table and key not in _KIND_KEYS.get(kind, ()):

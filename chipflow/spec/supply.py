@@ -32,7 +32,7 @@ from chipflow.network.supply import (
 from chipflow.spec.operation import OPERATION_INLETS, OPERATION_SUPPLY_KEYS
 from chipflow.spec.reader import Table
 
-__all__ = ["SupplySpec", "read_supply", "SUPPLY_KEYS", "AUTO_PRESSURE_LABEL"]
+__all__ = ["SupplySpec", "read_supply", "SUPPLY_KEYS", "INLETS", "AUTO_PRESSURE_LABEL"]
 
 SUPPLY_KEYS = (
     "inlet",
@@ -46,7 +46,8 @@ SUPPLY_KEYS = (
     "outlet_tubing",
     *OPERATION_SUPPLY_KEYS,
 )
-_INLETS = ("syringe", "pressure", "reservoir", *OPERATION_INLETS)
+#: The kinds of inlet supply of a tree design.
+INLETS = ("syringe", "pressure", "reservoir", *OPERATION_INLETS)
 _INLET_KEY = {
     "syringe": "flow",
     "pressure": "pressure",
@@ -93,7 +94,7 @@ def read_supply(top: Table, design_flow: float) -> SupplySpec:
     if table is None:
         return SupplySpec(syringe_pump(design_flow), atmosphere())
     table.only(SUPPLY_KEYS)
-    kind = table.choice("inlet", _INLETS, "syringe")
+    kind = table.choice("inlet", INLETS, "syringe")
     needed = _INLET_KEY[kind]
     for key in set(_INLET_KEY.values()) - {needed}:
         if key in table:

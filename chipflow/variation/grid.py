@@ -33,10 +33,19 @@ from typing import Any
 
 import numpy as np
 
+from chipflow import display
 from chipflow.errors import SpecError
 from chipflow.spec.tree import TOP_KEYS
 
-__all__ = ["Axis", "parse_axis", "grid_points", "with_values", "value_text", "MAX_POINTS"]
+__all__ = [
+    "Axis",
+    "parse_axis",
+    "grid_points",
+    "with_values",
+    "design_text",
+    "value_text",
+    "MAX_POINTS",
+]
 
 #: Largest grid accepted.
 MAX_POINTS = 10_000
@@ -201,14 +210,24 @@ def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[A
     return out
 
 
-def value_text(value: Any) -> str:
-    """A grid value as one short text, for tables and axis labels.
+def design_text(value: Any) -> str:
+    """A grid value exactly as it goes into the design, as one text (sweep.csv).
 
-    >>> value_text(("40um", "100um")), value_text("5 uL/min"), value_text(16)
-    ('[40um, 100um]', '5 uL/min', '16')
+    >>> design_text(("40um", "100um")), design_text("23.3333333333 uL/min"), design_text(1.5)
+    ('[40um, 100um]', '23.3333333333 uL/min', '1.5')
     """
     if isinstance(value, tuple | list):
-        return "[" + ", ".join(value_text(v) for v in value) + "]"
+        return "[" + ", ".join(design_text(v) for v in value) + "]"
     if isinstance(value, float):
-        return f"{value:.6g}"
+        return f"{value:.12g}"
     return str(value)
+
+
+def value_text(value: Any) -> str:
+    """A grid value as one short text, for tables and axis labels, in 4 significant figures
+    (:func:`chipflow.display.value_text`; the design gets the value itself).
+
+    >>> value_text(("40um", "100um")), value_text("23.3333333333 uL/min"), value_text(16)
+    ('[40um, 100um]', '23.33 uL/min', '16')
+    """
+    return display.value_text(value)

@@ -31,9 +31,8 @@ import scipy.sparse as sp
 from chipflow.build import Build
 from chipflow.checks.pressure import PUMP_MARGIN
 from chipflow.errors import SpecError
-from chipflow.network.summary import level_groups
+from chipflow.network.summary import generation_labels, level_groups
 from chipflow.physics.duct import resistance
-from chipflow.report.figures import generation_labels
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.tolerances import Tolerances
 

@@ -24,7 +24,7 @@ from chipflow.checks.flow import coefficient_of_variation
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.spec.culture import read_culture
 from chipflow.variation.execute import run_tasks
-from chipflow.variation.grid import Axis, grid_points, value_text, with_values
+from chipflow.variation.grid import Axis, design_text, grid_points, with_values
 from chipflow.variation.problem import seeded_levels, window_bounds
 from chipflow.variation.statistics import window_margin
 
@@ -105,7 +105,7 @@ def _point(base: tuple[dict, str, tuple[str, ...]], values: tuple[Any, ...]) -> 
         raise
     except ChipflowError as exc:
         row = {**dict.fromkeys(ROW_KEYS), "status": "error", "failed": [], "message": str(exc)}
-    row["values"] = [value_text(v) for v in values]
+    row["values"] = [design_text(v) for v in values]
     return row
 
 

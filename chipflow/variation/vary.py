@@ -96,6 +96,13 @@ class Variation:
     passes: np.ndarray
     results: dict[str, Any]
 
+    def _repr_html_(self) -> str:
+        """A notebook shows the yield, each level's floor-shear spread and the nominal
+        build's profile figure (presentation lives in chipflow.report, loaded only here)."""
+        from chipflow.report.notebook import variation_html_view
+
+        return variation_html_view(self.results, self.build.results)
+
 
 def batch_size(problem: Problem) -> int:
     """Samples per batch, from the network's size alone (never from the machine)."""
