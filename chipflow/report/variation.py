@@ -101,6 +101,21 @@ def _spread(p: Mapping[str, Any] | None, scale: float = 1.0, digits: int = 3) ->
     return [_num(None if p.get(k) is None else p[k] * scale, digits) for k in keys]
 
 
+def _yield_bound(results: Mapping[str, Any]) -> str:
+    """The yield's one-sided 95 % lower bound in words (with how it was found)."""
+    bound = results.get("yield_lower_95")
+    if bound is None:
+        return "&ndash;"
+    how = (
+        "rule of three: no failing sample in n bounds the failure rate below 3/n, Hanley &amp; "
+        "Lippman-Hand 1983"
+        if results.get("yield_bound") == "rule of three"
+        else "Clopper-Pearson, with a Monte Carlo standard error of "
+        f"{results['yield_standard_error'] * 100:.2g} %"
+    )
+    return f"{bound * 100:.4g} % ({how})"
+
+
 def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> str:
     """The tolerance report as one self-contained HTML page (no scripts, no timestamps)."""
     from chipflow import __version__ as version
@@ -115,7 +130,11 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
     spread = "uniform within" if results["distribution"] == "uniform" else "normal, 1 sd ="
     tol_rows = [
         ["depth of each mould level", depth],
-        ["width bias of the mask", f"&plusmn;{tol['width'] * 1e6:.3g} um"],
+        [
+            "width bias of the mask (total change of each channel width; each side wall "
+            "moves by half)",
+            f"&plusmn;{tol['width'] * 1e6:.3g} um",
+        ],
         ["inlet supply", f"&plusmn;{tol['flow'] * 100:.3g} %"],
         ["viscosity", f"&plusmn;{tol['viscosity'] * 100:.3g} %"],
     ]
@@ -180,8 +199,8 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
         f"<h1>{_e(design['name'])}: tolerances</h1>",
         f'<p class="meta">Design file: {_e(design["file"])}<br>SHA-256: {_e(design["sha256"])}'
         f"<br>{results['samples']} samples, seed {results['seed']}, {spread} the tolerance</p>",
-        f'<p class="verdict {verdict}">Yield {y * 100:.3g} % '
-        f"(&plusmn;{results['yield_standard_error'] * 100:.2g} % Monte Carlo standard error)</p>",
+        f'<p class="verdict {verdict}">Yield {y * 100:.4g} % of {results["samples"]} samples; '
+        f"one-sided 95 % lower bound {_yield_bound(results)}</p>",
         "<p>A sample passes when every seeded level's floor shear lies inside the window in "
         "every channel and the pressure checks pass (bond with its safety factor, pump).</p>",
         "<h2>Tolerances</h2>",
@@ -237,7 +256,10 @@ def variation_summary(results: Mapping[str, Any]) -> str:
     y = results["yield"]
     lines = [
         f"{results['samples']} samples (seed {results['seed']}, {results['distribution']}): "
-        f"yield {y * 100:.4g} % +- {results['yield_standard_error'] * 100:.2g} %",
+        f"yield {y * 100:.4g} %, one-sided 95 % lower bound "
+        f"{results.get('yield_lower_95', 0.0) * 100:.4g} % "
+        f"({results.get('yield_bound', 'Clopper-Pearson')})",
+        "width bias: " + results.get("width_bias", ""),
         "",
     ]
     rows = [
