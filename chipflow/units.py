@@ -436,7 +436,6 @@ RESULT_UNITS: dict[str, str] = {
     "tolerance": "1",
     "iterations": "1",
     "residual": "1",
-    "mass_residual": "1",
     "law_residual": "1",
     "compliance": "m^3/Pa",
     "air_volume": "m^3",

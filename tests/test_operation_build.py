@@ -346,7 +346,8 @@ def test_more_bad_operation_input_exits_2(tmp_path, old, new, where) -> None:
 
 def test_a_pulsatile_pressure_controller_on_rigid_walls_passes_its_pulse(tmp_path: Path) -> None:
     """Without compliance the network is a resistor: every channel's flow pulses by the
-    controller's pressure amplitude over its mean (inertia is negligible, Womersley < 0.1)."""
+    controller's pressure amplitude over its mean (inertia is negligible, Womersley < 0.1).
+    The source's pulsation is its own quantity's, the pressure's: the cells see all of it."""
     text = PULSATILE.read_text()
     start, end = text.index("[walls]"), text.index("[limits]")
     supply = """[supply]
@@ -361,6 +362,8 @@ frequency = "2 Hz"
     op = b.results["operation"]
     assert op["supplies"]["inlet"]["mean_pressure"] == pytest.approx(400.0)
     assert op["compliance"]["tubing_walls"] == 0.0 and "walls" not in op
+    assert op["source_quantity"] == "pressure" and op["source_pulsation"] == pytest.approx(0.25)
     for row in b.results["generations"]:
         assert row["pulsation"] == pytest.approx(0.25, rel=1e-4)
+        assert row["pulsation_relative_to_source"] == pytest.approx(1.0, rel=1e-4)
     assert op["peak_chip_pressure"] == pytest.approx(500.0, rel=1e-9)

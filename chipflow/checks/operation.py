@@ -213,8 +213,12 @@ def check_oscillating_shear(
             grade = str(shear_status(avg[i : i + 1], oscillatory.min, oscillatory.max)[0])
             out.append(
                 CheckResult(
-                    f"oscillating floor shear: {label}", grade, float(avg[i]),
-                    oscillatory.max, "Pa", oscillatory.source,
+                    f"oscillating floor shear: {label}",
+                    grade,
+                    float(avg[i]),
+                    oscillatory.max,
+                    "Pa",
+                    oscillatory.source,
                     f"the floor shear of {label} oscillates ({numbers}); its time-averaged "
                     f"magnitude is checked against the oscillatory window {oscillatory.text} "
                     f"for {window.cell_type}",
@@ -224,7 +228,11 @@ def check_oscillating_shear(
             continue
         out.append(
             CheckResult(
-                f"oscillating floor shear: {label}", "warn", float(osi[i]), threshold, "1",
+                f"oscillating floor shear: {label}",
+                "warn",
+                float(osi[i]),
+                threshold,
+                "1",
                 window.source,
                 f"the floor shear of {label} oscillates ({numbers}); the {window.text} window "
                 f"for {window.cell_type} was measured in steady one-way flow and does not "

@@ -141,6 +141,20 @@ def _antiderivative(a0: np.ndarray, c: np.ndarray, theta: np.ndarray) -> np.ndar
     return harmonic_values(np.zeros_like(a0), c / (1j * k), theta) + a0[:, None] * theta
 
 
+def _summary(mean, low, high, magnitude) -> dict[str, np.ndarray]:
+    """The statistics every signal shares, with the OSI from its mean and mean magnitude."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        osi = np.where(magnitude > 0, 0.5 * (1.0 - np.abs(mean) / magnitude), 0.0)
+    return {
+        "mean": mean,
+        "min": low,
+        "max": high,
+        "peak": np.maximum(np.abs(low), np.abs(high)),
+        "mean_magnitude": magnitude,
+        "osi": np.clip(osi, 0.0, 0.5),
+    }
+
+
 def harmonic_statistics(
     a0: np.ndarray, c: np.ndarray, window: tuple[float, float] | None = None
 ) -> dict[str, np.ndarray]:
@@ -173,16 +187,7 @@ def harmonic_statistics(
     starts, ends, valid = _arcs(trig_roots(a0, c))
     span = _antiderivative(a0, c, ends) - _antiderivative(a0, c, starts)
     magnitude = np.where(valid, np.abs(span), 0.0).sum(axis=1) / _TWO_PI
-    with np.errstate(divide="ignore", invalid="ignore"):
-        osi = np.where(magnitude > 0, 0.5 * (1.0 - np.abs(a0) / magnitude), 0.0)
-    out = {
-        "mean": a0,
-        "min": low,
-        "max": high,
-        "peak": np.maximum(np.abs(low), np.abs(high)),
-        "mean_magnitude": magnitude,
-        "osi": np.clip(osi, 0.0, 0.5),
-    }
+    out = _summary(a0, low, high, magnitude)
     if window is not None:
         levels = [v for v in window if 0.0 < v < np.inf]
         roots = [trig_roots(a0 - s * v, c) for v in levels for s in (1.0, -1.0)]
@@ -297,23 +302,18 @@ def exponential_statistics(
     spans = primitive(ends) - primitive(starts)
     magnitude = np.abs(spans).sum(axis=1) / end
     mean = (primitive(np.full((rows, 1), end))[:, 0]) / end
-    with np.errstate(divide="ignore", invalid="ignore"):
-        osi = np.where(magnitude > 0, 0.5 * (1.0 - np.abs(mean) / magnitude), 0.0)
-    out = {
-        "mean": mean,
-        "min": low,
-        "max": high,
-        "peak": np.maximum(np.abs(low), np.abs(high)),
-        "mean_magnitude": magnitude,
-        "osi": np.clip(osi, 0.0, 0.5),
-    }
+    out = _summary(mean, low, high, magnitude)
     if window is not None:
         levels = [v for v in window if 0.0 < v < np.inf]
         roots = [
             exponential_roots(coeff - np.where(rates == 0.0, s * v, 0.0), rates, end, slope)
             if np.any(rates == 0.0)
-            else exponential_roots(np.column_stack([coeff, np.full(rows, -s * v)]),
-                                   np.concatenate([rates, [0.0]]), end, slope)  # fmt: skip
+            else exponential_roots(
+                np.column_stack([coeff, np.full(rows, -s * v)]),
+                np.concatenate([rates, [0.0]]),
+                end,
+                slope,
+            )  # fmt: skip
             for v in levels
             for s in (1.0, -1.0)
         ]

@@ -200,8 +200,9 @@ def pulsatile_mode(
     per["flow_mean"] = q_mean
     per["flow_amplitude"] = first
     per["womersley"] = np.asarray(
-        womersley_number(net.width, net.depth, 2 * np.pi * f0, fluid.density, fluid.viscosity,
-                         net.round)  # fmt: skip
+        womersley_number(
+            net.width, net.depth, 2 * np.pi * f0, fluid.density, fluid.viscosity, net.round
+        )  # fmt: skip
     )
     on_chip = net.role != "tubing"
     chip_nodes = np.union1d(net.node_a[on_chip], net.node_b[on_chip])

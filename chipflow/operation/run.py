@@ -55,7 +55,6 @@ from chipflow.operation.modes import (
     pulsatile_mode,
     pulsatile_response,
     rocker_mode,
-    thin,
     total_resistance,
 )
 from chipflow.operation.reservoirs import rocker_harmonics
@@ -338,9 +337,11 @@ def operate(
             per["flow_min_over_time"] = forward["min"]
             per["flow_max_over_time"] = forward["max"]
             per["wall_shear_floor_amplitude"] = per["flow_amplitude"] * shear_per_flow
-        moving = np.abs(solution.flow) > 0 if mode != "rocker" else np.ones(net.n_channels, bool)
-        out["reversal"] = bool(np.any(moving & (forward["min"] < 0) & (forward["max"] > 0))
-                               if mode == "rocker" else np.any(moving & (forward["min"] < 0)))  # fmt: skip
+        backwards = forward["min"] < 0
+        if mode == "rocker":  # reverses when it runs both ways
+            out["reversal"] = bool(np.any(backwards & (forward["max"] > 0)))
+        else:  # a steady flow that runs backwards at times
+            out["reversal"] = bool(np.any(backwards & (np.abs(solution.flow) > 0)))
         time, flow_t = signals.sample(SAMPLES)
     out["osi_threshold"] = OSI_THRESHOLD
 
@@ -422,9 +423,7 @@ def _damper(spec, solution, linear, compliance, rows, seeded, ends) -> dict[str,
         volume = size_air_volume(target, pulsation, f"{damper.where}.target_pulsation")
         achieved = pulsation(volume)
     value = (
-        damper.compliance
-        if damper.compliance is not None
-        else float(air_compliance(volume, gauge))
+        damper.compliance if damper.compliance is not None else float(air_compliance(volume, gauge))
     )
     facts = damper_facts(spec, linear, solution.fluid, pressures, net.node_name(i), value, volume,
                          compliance)  # fmt: skip
@@ -470,8 +469,12 @@ def _checks(spec, mode, labels, stats, words, chosen, oscillating, window, soft)
     names = [labels[i] for i in chosen]
     if "resistance_change" in stats:
         checks.append(
-            check_deformation(labels, stats["resistance_change"],
-                              stats["resistance_change_one_pass"], words["wall_model"])  # fmt: skip
+            check_deformation(
+                labels,
+                stats["resistance_change"],
+                stats["resistance_change_one_pass"],
+                words["wall_model"],
+            )  # fmt: skip
         )
         checks.append(
             check_wall_model(labels, words["wall_model_range"], stats["resistance_change"])

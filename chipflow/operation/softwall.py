@@ -138,7 +138,9 @@ class WallLaw:
         return names[self.moments[0].astype(int) + 1]
 
 
-def wall_law(network: Network, fluid: Fluid, walls: Walls | None, method: str = "series") -> WallLaw:
+def wall_law(
+    network: Network, fluid: Fluid, walls: Walls | None, method: str = "series"
+) -> WallLaw:
     """The per-channel law of ``network`` under ``walls`` (every rectangular channel has the
     roof; tubing is rigid). Without walls every channel is rigid."""
     g = 1.0 / np.asarray(

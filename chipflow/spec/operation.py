@@ -244,9 +244,7 @@ def read_network_operation(top: Table, network: Network, ports: list[Table]) -> 
         entry = _damper(item, node, item.where())
         if entry.target_pulsation is not None:
             if sized is not None:
-                raise item.error(
-                    "target_pulsation", "only one [[compliances]] entry may be sized"
-                )
+                raise item.error("target_pulsation", "only one [[compliances]] entry may be sized")
             sized = entry
         elif entry.air_volume is not None:
             air[node] = air.get(node, 0.0) + entry.air_volume
