@@ -28,7 +28,6 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from scipy.optimize import brentq
 
 from chipflow.errors import SpecError
 from chipflow.network import reduced_system, solve
@@ -76,6 +75,8 @@ def size_air_volume(
     >>> round(v / 1e-9, 6), round(math.sqrt((0.4 / 0.05) ** 2 - 1), 6)
     (7.937254, 7.937254)
     """
+    from scipy.optimize import brentq
+
     start = pulsation(0.0)
     if start <= target:
         return 0.0

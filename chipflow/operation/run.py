@@ -372,8 +372,7 @@ def operate(
     oscillating = tuple(
         i for i in chosen if "osi" in stats and float(stats["osi"][i]) > OSI_THRESHOLD
     )
-    checks = _checks(spec, mode, labels, stats, words, chosen, oscillating,
-                     window if rows else None, soft)  # fmt: skip
+    checks = _checks(spec, mode, labels, stats, words, chosen, oscillating, window, bool(rows))
     if limits is not None and "peak_chip_pressure" in out:
         peak = check_bond_pressure(
             out["peak_chip_pressure"],
@@ -461,10 +460,19 @@ def _json(value) -> float | None:
     return value if np.isfinite(value) else None
 
 
-def _checks(spec, mode, labels, stats, words, chosen, oscillating, window, soft):
+def _checks(spec, mode, labels, stats, words, chosen, oscillating, window, levels: bool):
+    """The operation's checks; ``levels`` False: ``labels`` are channels (no steady window
+    check over time, as the steady checks; an oscillating channel is reported, the one with
+    the highest OSI named)."""
     checks: list[CheckResult] = []
     if not labels:
         return checks
+    named, shown = list(oscillating), list(labels)
+    if not levels and named:
+        worst = max(named, key=lambda i: float(stats["osi"][i]))
+        more = len(named) - 1
+        shown[worst] = f"channel {labels[worst]}" + (f" and {more} more" if more else "")
+        named = [worst]
     steady_levels = [i for i in chosen if i not in oscillating]
     names = [labels[i] for i in chosen]
     if "resistance_change" in stats:
@@ -482,17 +490,17 @@ def _checks(spec, mode, labels, stats, words, chosen, oscillating, window, soft)
     if mode == "pulsatile":
         checks.append(check_inertia(labels, stats["womersley"]))
         checks.append(check_flow_reversal(names, stats["flow_min_over_time"][chosen]))
-    if window is not None and oscillating:
+    if window is not None and named:
         checks += check_oscillating_shear(
-            [labels[i] for i in oscillating],
-            stats["osi"][list(oscillating)],
-            stats["floor_shear_signed_mean"][list(oscillating)],
-            stats["floor_shear_peak"][list(oscillating)],
-            stats["time_averaged_shear"][list(oscillating)],
+            [shown[i] for i in named],
+            stats["osi"][named],
+            stats["floor_shear_signed_mean"][named],
+            stats["floor_shear_peak"][named],
+            stats["time_averaged_shear"][named],
             window,
             OSI_THRESHOLD,
         )
-    if window is not None and "time_in_window" in stats and steady_levels:
+    if levels and window is not None and "time_in_window" in stats and steady_levels:
         fraction = stats["time_in_window"][steady_levels]
         kept = [labels[i] for i in steady_levels]
         if mode == "draining":

@@ -59,7 +59,7 @@ def yield_lower_bound(passed: int, samples: int) -> float:
     >>> yield_lower_bound(1000, 1000), yield_lower_bound(0, 10)
     (0.997, 0.0)
     >>> round(yield_lower_bound(95, 100), 4)   # Clopper-Pearson, one-sided 95 %
-    0.8979
+    0.8977
     """
     if samples <= 0:
         return 0.0

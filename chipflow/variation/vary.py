@@ -77,6 +77,14 @@ MODEL_NOTE = (
     "its nominal equivalent length."
 )
 
+#: Added to the model note for a chip with soft roofs.
+SOFT_ROOF_NOTE = (
+    " Soft roofs: each channel keeps the resistance of the deformed chip at the nominal "
+    "operating point (the bulge is not re-solved per sample), and the floor shear per unit "
+    "flow is the rigid channel's, so the nominal shear here is the rigid roof's at the "
+    "deformed chip's flows."
+)
+
 #: What the width bias means (results.json ``width_bias``).
 WIDTH_BIAS_NOTE = (
     "total width change: the bias is added to every channel's width, so each side wall moves "
@@ -188,6 +196,12 @@ def vary_build(
     return Variation(build, problem, tolerances, samples, passes, results)
 
 
+def _soft_roofs(build: Build) -> bool:
+    """Whether the build's chip was solved with soft roofs."""
+    operation = getattr(build, "operation", None)
+    return operation is not None and operation.soft is not None
+
+
 def _spans(cut: np.ndarray, total: int) -> list[tuple[int, int]]:
     bounds = [0, *cut.tolist(), total]
     return list(zip(bounds[:-1], bounds[1:], strict=True))
@@ -252,6 +266,6 @@ def _summary(
         },
         "factors": list(problem.names),
         "mould_levels": [float(d) for d in problem.level_depths],
-        "model": MODEL_NOTE,
+        "model": MODEL_NOTE + (SOFT_ROOF_NOTE if _soft_roofs(build) else ""),
         "units": VARY_UNITS,
     }
