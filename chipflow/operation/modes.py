@@ -90,10 +90,28 @@ class Signals:
         )
 
     def statistics(self, window: tuple[float, float] | None = None) -> dict[str, np.ndarray]:
-        """Exact statistics per row (:func:`~chipflow.operation.crossings.harmonic_statistics`)."""
-        if self.kind == "harmonic":
-            return harmonic_statistics(self.mean, self.coeff, window)
-        return exponential_statistics(self.coeff, self.rates, self.end, window, self.slope)
+        """Exact statistics per row (:func:`~chipflow.operation.crossings.harmonic_statistics`).
+
+        Rows that agree to 12 significant digits (the channels of one tree level) are
+        computed once.
+        """
+        parts = [self.coeff.real, self.coeff.imag] if self.kind == "harmonic" else [self.coeff]
+        for extra in (self.mean, self.slope):
+            if extra is not None:
+                parts.append(extra[:, None])
+        table = np.column_stack(parts)
+        size = np.abs(table).max(axis=1, keepdims=True)
+        key = np.column_stack(
+            [np.round(table / np.where(size > 0, size, 1.0), 12), _significant(size[:, 0])]
+        )
+        _, first, back = np.unique(key, axis=0, return_index=True, return_inverse=True)
+        unique = self.rows(first)
+        if unique.kind == "harmonic":
+            out = harmonic_statistics(unique.mean, unique.coeff, window)
+        else:
+            out = exponential_statistics(unique.coeff, unique.rates, unique.end, window,
+                                         unique.slope)  # fmt: skip
+        return {k: v[back.ravel()] for k, v in out.items()}
 
     def rows(self, index) -> Signals:
         """The signals of some rows."""
@@ -120,6 +138,14 @@ class Signals:
         rows = self.coeff.shape[0]
         return time, exponential_values(self.coeff, self.rates, np.tile(time, (rows, 1)),
                                         self.slope)  # fmt: skip
+
+
+def _significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
+    """Values rounded to ``digits`` significant digits (zeros stay zero)."""
+    with np.errstate(divide="ignore"):
+        exponent = np.where(values > 0, np.floor(np.log10(np.where(values > 0, values, 1.0))), 0)
+    scale = 10.0 ** (digits - 1 - exponent)
+    return np.round(values * scale) / scale
 
 
 def total_resistance(network: Network, fluid, inlet: str, outlet: str) -> float:
