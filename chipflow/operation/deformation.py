@@ -180,6 +180,17 @@ def plate_moments(width: ArrayLike, rigidity: ArrayLike) -> np.ndarray:
     return np.stack([np.full_like(phi, PLATE), phi / 16.0, phi * m1, phi**2 * m2, phi**3 * m3])
 
 
+def _half_width_rule(nodes: int, order: int = 10) -> tuple[np.ndarray, np.ndarray]:
+    """Composite Gauss-Legendre nodes and weights on [0, 1/2]: ``nodes / order`` panels of
+    ``order`` points each (small eigenproblems, accurate near the supported edge)."""
+    xi, w = np.polynomial.legendre.leggauss(order)
+    panels = max(1, nodes // order)
+    edges = np.linspace(0.0, 0.5, panels + 1)
+    half = np.diff(edges)[:, None] / 2.0
+    x = (edges[:-1, None] + half * (xi[None, :] + 1.0)).ravel()
+    return x, (half * w[None, :]).ravel()
+
+
 @functools.lru_cache(maxsize=256)
 def _thick_profile(ratio: float, modes: int = _MODES, nodes: int = _NODES):
     """Dimensionless underside displacement of the simply supported rectangle.
@@ -209,10 +220,9 @@ def _thick_profile(ratio: float, modes: int = _MODES, nodes: int = _NODES):
     coeff = np.linalg.solve(system, rhs)[..., 0]
     third = np.stack([-(k**3), 3 * k**2, k**3 * decay, (3 * k**2 - k**3 * t) * decay], 1)
     amplitude = (coeff * third).sum(axis=1) / k**2
-    xi, weight = np.polynomial.legendre.leggauss(nodes)
-    x = 0.25 * (xi + 1.0)  # 0..1/2, weights over the half width
+    x, weight = _half_width_rule(nodes)
     profile = np.cos(np.outer(x, k)) @ amplitude
-    moments = tuple(float(0.5 * weight @ profile**n) for n in (1, 2, 3))  # mean over w
+    moments = tuple(float(2.0 * weight @ profile**n) for n in (1, 2, 3))  # mean over w
     return amplitude, float(amplitude.sum()), moments
 
 
