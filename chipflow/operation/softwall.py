@@ -434,7 +434,7 @@ def solve_soft(
         step_size = float(np.abs(factor * delta).max(initial=0.0)) / scale
         iterations += 1
     flow = law.flows(network, p)
-    solution = _deformed(rigid, law, p, flow)
+    solution = _deformed(rigid, law, p, flow, rel)
     check = solution_residual(network, p, flow, solution.resistance, injected=injected,
                               fixed=fixed)  # fmt: skip
     if max(check.values()) > CHECK_TOLERANCE:
@@ -446,7 +446,9 @@ def solve_soft(
     return SoftSolve(solution, rigid, law, iterations, tolerance, rel, check)
 
 
-def _deformed(rigid: Solution, law: WallLaw, pressure: np.ndarray, flow: np.ndarray):
+def _deformed(
+    rigid: Solution, law: WallLaw, pressure: np.ndarray, flow: np.ndarray, residual: float
+) -> DeformedSolution:
     net = rigid.network
     out = np.bincount(net.node_a, flow, net.n_nodes) - np.bincount(net.node_b, flow, net.n_nodes)
     nodes = np.asarray(rigid.port_flow.nodes)
@@ -460,7 +462,7 @@ def _deformed(rigid: Solution, law: WallLaw, pressure: np.ndarray, flow: np.ndar
         flow=flow,
         port_flow=port_flow,
         port_pressure=dict(rigid.port_pressure),
-        residual=0.0,
+        residual=residual,
         method=rigid.method,
         law=law,
     )
