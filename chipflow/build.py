@@ -37,11 +37,12 @@ from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
 from chipflow.layout.model import Layout
-from chipflow.network import Solution, solve
+from chipflow.network import Solution
 from chipflow.network.summary import channel_rows, level_rows, port_pressure_range
 from chipflow.network.supply import Supply, boundary_conditions, with_tubing
 from chipflow.operation import Operation, operate, steady_boundary
 from chipflow.operation.run import attach
+from chipflow.operation.softwall import solve_operating_point
 from chipflow.physics.fluid import Fluid
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.export import ExportSettings, read_export
@@ -274,21 +275,25 @@ def _build_tree(
     pressures, flows = boundary_conditions({feed: supply.inlet, drain: supply.outlet}, spec.fluid)
     timing = timing.renamed({"inlet": feed, "outlet": drain})
     pressures, flows = steady_boundary(timing, network, spec.fluid, pressures, flows, feed, drain)
-    solution = solve(network, spec.fluid, pressures, flows)
+    soft = solve_operating_point(timing.walls, network, spec.fluid, pressures, flows)
     if supply.pressure_for_flow is not None:
-        # The network is linear: the pressure at the feed under the design flow is the
-        # pressure a controller must hold to give that flow. Solve again driven by it.
-        held = Supply("pressure", solution.node_pressure(feed), AUTO_PRESSURE_LABEL)
+        # The pressure at the feed under the design flow is the pressure a controller must
+        # hold to give that flow (also on soft roofs: the same operating point). Solve again
+        # driven by it.
+        held = Supply("pressure", soft.solution.node_pressure(feed), AUTO_PRESSURE_LABEL)
         supply = replace(supply, inlet=held)
         pressures, flows = boundary_conditions({feed: held, drain: supply.outlet}, spec.fluid)
-        solution = solve(network, spec.fluid, pressures, flows)
+        soft = solve_operating_point(timing.walls, network, spec.fluid, pressures, flows)
+    solution = soft.solution
     progress("check")
     findings = check_rules(layout, rules)
     targets = _targets_window(spec)
     window = culture.window or targets
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
-    operation = operate(timing, solution, generations, window, culture.seeded, feed, drain, limits)
+    operation = operate(
+        timing, solution, generations, window, culture.seeded, feed, drain, limits, soft=soft
+    )
     checks = (
         *culture_checks(
             solution,
@@ -299,6 +304,7 @@ def _build_tree(
             targets=targets,
             target_kind=spec.targets.kind,
             target_levels=spec.targets.levels,
+            oscillating=operation.oscillating,
         ),
         *pressure_checks(solution, limits),
         *operation.checks,
@@ -329,7 +335,7 @@ def _build_tree(
         progress("field")
         field_run = solve_chip_field(
             layout,
-            solution,
+            soft.rigid,  # the field models rigid walls: compare it with the rigid network
             spec.fluid.viscosity,
             window,
             culture.seeded,
@@ -434,14 +440,30 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     design = load_network_design(top)
     culture, limits = read_culture(top), read_limits(top)
     progress("solve")
-    solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    soft = solve_operating_point(
+        design.operation.walls, design.network, design.fluid, design.pressures, design.flows
+    )
+    solution = soft.solution
     progress("check")
     generations = level_rows(solution)
     operation = operate(
-        design.operation, solution, generations, culture.window, culture.seeded, limits=limits
+        design.operation,
+        solution,
+        generations,
+        culture.window,
+        culture.seeded,
+        limits=limits,
+        soft=soft,
     )
     checks = (
-        *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
+        *culture_checks(
+            solution,
+            generations,
+            culture,
+            culture.window,
+            culture.residence_time,
+            oscillating=operation.oscillating,
+        ),
         *pressure_checks(solution, limits),
         *operation.checks,
     )

@@ -273,6 +273,22 @@ CASES = {
     ),
     ("rocker", "reservoir_area"): (ROCKING, {"supply": {"reservoir_area": "100 mm^2"}}, "build"),
     ("rocker", "head"): (ROCKING, {"supply": {"head": "5 mm"}}, "build"),
+    # a damper reports its start-up time constant under any supply; a target needs a pulse
+    ("supply.damper", "air_volume"): (
+        {"supply": {"damper": {"air_volume": "50 uL"}}},
+        {"supply": {"damper": {"air_volume": "80 uL"}}},
+        "build",
+    ),
+    ("supply.damper", "compliance"): (
+        {"supply": {"damper": {"compliance": "1e-12 m^3/Pa"}}},
+        {"supply": {"damper": {"compliance": "2e-12 m^3/Pa"}}},
+        "build",
+    ),
+    ("supply.damper", "target_pulsation"): (
+        {"supply": {**PERISTALTIC["supply"], "damper": {"target_pulsation": "10 %"}}},
+        {"supply": {"damper": {"target_pulsation": "5 %"}}},
+        "build",
+    ),
     ("walls", "material"): (WALLS, CUSTOM_WALLS, "build"),
     ("walls", "modulus"): (CUSTOM_WALLS, {"walls": {"modulus": "3 MPa"}}, "build"),
     ("walls", "poisson_ratio"): (CUSTOM_WALLS, {"walls": {"poisson_ratio": 0.4}}, "build"),

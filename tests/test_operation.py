@@ -280,14 +280,20 @@ def test_operation_checks_grade_at_their_limits() -> None:
         check_drain,
         check_flow_reversal,
         check_inertia,
-        check_rocker,
+        check_oscillating_shear,
         check_time_in_window,
+        check_wall_model,
     )
 
     window = ShearWindow("endothelial", 0.5, 1.0, "Dewey et al. 1981")
     # deformation: warn above 5 % (chipflow default)
     assert check_deformation(["a"], [0.05]).status == "pass"
     assert check_deformation(["a", "b"], [0.01, 0.0501]).status == "warn"
+    # outside every roof model's range: warn only where the resistance moves by over 1 %
+    assert check_wall_model(["a", "b"], ["", "shorter than 2 widths"], [0.5, 0.01]).status == (
+        "pass"
+    )
+    assert check_wall_model(["a", "b"], ["", "deeper than wide"], [0.0, 0.0101]).status == "warn"
     # Womersley number: quasi-steady below 1 (common practice)
     assert check_inertia(["a"], [0.99]).status == "pass"
     assert check_inertia(["a"], [1.0]).status == "warn"
@@ -296,11 +302,12 @@ def test_operation_checks_grade_at_their_limits() -> None:
     statuses = [check_time_in_window(["a"], [f], window).status for f in (1.0, 0.6, 0.1, 0.09)]
     assert statuses == ["pass", "warn", "warn", "fail"]
     assert check_drain(["a"], [0.99], window, 3600.0).status == "warn"
-    rocker = [check_rocker(["a"], [0.75], [f], window)[1].status for f in (0.5, 0.49, 0.09)]
-    assert rocker == ["pass", "warn", "fail"]
-    # time-averaged shear graded like the steady floor shear (20 % band warns)
-    assert [check_rocker(["a"], [t], [0.5], window)[0].status for t in (0.75, 0.45, 0.3)] == [
-        "pass",
-        "warn",
-        "fail",
-    ]
+    # oscillating shear: the steady window does not apply (warn with the numbers) ...
+    (osc,) = check_oscillating_shear(["a"], [0.5], [0.0], [1.2], [0.75], window, 0.05)
+    assert osc.status == "warn" and "steady one-way flow" in osc.message and "0.75" in osc.message
+    # ... unless the cell type has an oscillatory window: then its time-averaged magnitude is
+    # graded like the steady floor shear (20 % band warns)
+    cyclic = ShearWindow("x", 0.5, 1.0, "s", ShearWindow("x", 0.2, 0.6, "oscillatory source"))
+    graded = [check_oscillating_shear(["a"], [0.5], [0.0], [1.0], [t], cyclic, 0.05)[0].status
+              for t in (0.4, 0.65, 0.9)]  # fmt: skip
+    assert graded == ["pass", "warn", "fail"]

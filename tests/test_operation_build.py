@@ -34,7 +34,9 @@ def test_pulsation_per_generation_is_the_tubing_low_pass(pulsatile) -> None:
     b = pulsatile
     op = b.results["operation"]
     assert op["frequency"] == pytest.approx(0.5)
-    assert op["inlet_pulsation"] == pytest.approx(0.4, rel=1e-9)
+    # the pulsation of the source is the pump's own: flow amplitude over mean flow
+    assert op["source_pulsation"] == pytest.approx(0.4, rel=1e-9)
+    assert op["source_quantity"] == "flow"
     d, do, length, e = 0.8e-3, 2.4e-3, 0.4, 1.5e6
     mu, rho = b.fluid.viscosity, b.fluid.density
     r_t = 128 * mu * length / (math.pi * d**4)  # Hagen-Poiseuille
@@ -53,7 +55,7 @@ def test_pulsation_per_generation_is_the_tubing_low_pass(pulsatile) -> None:
     # the hand ladder leaves out the chip's own inertance and compliance (about 1e-4 here)
     for row in b.results["generations"]:
         assert row["pulsation"] == pytest.approx(expected, rel=1e-3)
-        assert row["damping"] == pytest.approx(expected / 0.4, rel=1e-3)
+        assert row["pulsation_relative_to_source"] == pytest.approx(expected / 0.4, rel=1e-3)
         # min and max of the floor shear: mean -/+ amplitude for one harmonic
         tau = row["wall_shear_floor"]
         assert row["max"] == pytest.approx(tau * (1 + expected), rel=2e-3)
@@ -90,7 +92,7 @@ def test_steady_reports_have_no_operation_section(tmp_path: Path) -> None:
     assert b.results["operation"]["mode"] == "steady" and operation_html(b.results) == ""
 
 
-def test_rocker_design_reports_time_in_window_and_reversal() -> None:
+def test_rocker_shear_oscillates_and_the_steady_window_is_not_applied() -> None:
     b = build_design(ROCKER)
     op = b.results["operation"]
     assert op["mode"] == "rocker" and op["reversal"] is True
@@ -99,11 +101,19 @@ def test_rocker_design_reports_time_in_window_and_reversal() -> None:
     lift = 0.06 * math.sin(math.radians(25))
     assert op["peak_head_difference"] == pytest.approx(lift, rel=0.02)
     bed = next(r for r in b.results["generations"] if r["role"] == "bed")
-    assert bed["min"] == pytest.approx(-bed["max"], rel=1e-6)  # symmetric rocking
-    # the steady table holds the time-averaged magnitude of the floor shear
-    assert bed["wall_shear_floor"] == pytest.approx(bed["time_averaged_shear"], rel=2e-2)
-    names = [c.name for c in b.checks]
-    assert "rocking: time in window" in names and "rocking: time-averaged floor shear" in names
+    assert bed["min"] == pytest.approx(-bed["max"], rel=1e-9)  # symmetric rocking
+    assert bed["floor_shear_peak"] == pytest.approx(bed["max"], rel=1e-12)
+    # the flow reverses every half cycle with zero mean: OSI 1/2 (Ku et al. 1985)
+    assert bed["osi"] == pytest.approx(0.5, abs=1e-9)
+    assert abs(bed["floor_shear_signed_mean"]) < 1e-9 * bed["floor_shear_peak"]
+    # the steady table holds the time-averaged magnitude of the floor shear (exact)
+    assert bed["wall_shear_floor"] == pytest.approx(bed["time_averaged_shear"], rel=1e-9)
+    checks = {c.name: c for c in b.checks}
+    # the window was measured in steady one-way flow: not applied, the numbers reported
+    oscillating = checks["oscillating floor shear: bed"]
+    assert oscillating.status == "warn" and "steady one-way flow" in oscillating.message
+    assert not any(name.startswith("floor shear") and "bed" in name for name in checks)
+    assert "pulsatile shear in window" not in checks
 
 
 def _network(tmp_path: Path, extra: str, port_extra: str = "", walls: str = "") -> Path:
@@ -194,7 +204,7 @@ def test_a_measured_waveform_sets_the_frequency_and_the_mean(tmp_path: Path) -> 
     assert op["frequency"] == pytest.approx(0.5)
     # linear interpolation between 40 samples a period damps the fundamental by
     # sinc^2(1/40) (the triangle kernel's transform, analytic)
-    assert op["inlet_pulsation"] == pytest.approx(0.4 * np.sinc(1 / 40) ** 2, rel=1e-4)
+    assert op["source_pulsation"] == pytest.approx(0.4 * np.sinc(1 / 40) ** 2, rel=1e-4)
     assert b.results["totals"]["total_flow"] == pytest.approx(10 / 6e10, rel=1e-3)
 
 
@@ -336,7 +346,8 @@ def test_more_bad_operation_input_exits_2(tmp_path, old, new, where) -> None:
 
 def test_a_pulsatile_pressure_controller_on_rigid_walls_passes_its_pulse(tmp_path: Path) -> None:
     """Without compliance the network is a resistor: every channel's flow pulses by the
-    controller's pressure amplitude over its mean (inertia is negligible, Womersley < 0.1)."""
+    controller's pressure amplitude over its mean (inertia is negligible, Womersley < 0.1).
+    The source's pulsation is its own quantity's, the pressure's: the cells see all of it."""
     text = PULSATILE.read_text()
     start, end = text.index("[walls]"), text.index("[limits]")
     supply = """[supply]
@@ -351,6 +362,8 @@ frequency = "2 Hz"
     op = b.results["operation"]
     assert op["supplies"]["inlet"]["mean_pressure"] == pytest.approx(400.0)
     assert op["compliance"]["tubing_walls"] == 0.0 and "walls" not in op
+    assert op["source_quantity"] == "pressure" and op["source_pulsation"] == pytest.approx(0.25)
     for row in b.results["generations"]:
         assert row["pulsation"] == pytest.approx(0.25, rel=1e-4)
+        assert row["pulsation_relative_to_source"] == pytest.approx(1.0, rel=1e-4)
     assert op["peak_chip_pressure"] == pytest.approx(500.0, rel=1e-9)

@@ -111,6 +111,25 @@ def test_zero_tolerances_give_the_nominal_build(demo) -> None:
     assert v.results["supply_pressure"]["p50"] == pytest.approx(totals["inlet_pressure"], rel=1e-12)
     # the demo passes its shear and pressure checks, so every sample passes
     assert demo.status == "pass" and v.results["yield"] == 1.0
+    # a yield of 1 carries its one-sided 95 % lower bound: the rule of three, 1 - 3/n
+    # (Hanley & Lippman-Hand, JAMA 1983)
+    assert v.results["yield_lower_95"] == pytest.approx(1.0 - 3.0 / 64)
+    assert v.results["yield_bound"] == "rule of three"
+    assert "total width change" in v.results["width_bias"]
+
+
+def test_yield_bound_below_one_is_the_exact_binomial_bound() -> None:
+    """Clopper & Pearson 1934: the one-sided bound B(0.05; k, n-k+1) makes the chance of k or
+    more passes at that yield exactly 5 %; scipy's binomial distribution is the reference."""
+    from scipy.stats import binom
+
+    from chipflow.variation.statistics import yield_lower_bound
+
+    for k, n in ((95, 100), (1, 20), (950, 1000)):
+        bound = yield_lower_bound(k, n)
+        assert binom.sf(k - 1, n, bound) == pytest.approx(0.05, rel=1e-6)
+    # and all n passing: 1 - 3/n against the exact 0.05^(1/n) (the rule approximates it)
+    assert yield_lower_bound(10_000, 10_000) == pytest.approx(0.05 ** (1 / 10_000), abs=1e-6)
 
 
 def test_batch_solve_equals_the_network_solver_sample_by_sample(two_level) -> None:

@@ -58,6 +58,9 @@ _ROW_KEYS = (
     "o2_consumption",
     "o2_source",
     "aliases",
+    "oscillatory_shear_min",
+    "oscillatory_shear_max",
+    "oscillatory_source",
 )
 
 
@@ -82,12 +85,18 @@ class ShearWindow:
         Lower and upper bound of the floor wall shear stress [Pa].
     source : str
         Citation of the window (or "design file" for an override).
+    oscillatory : ShearWindow or None
+        A window for oscillating flow (checked on the time-averaged floor-shear magnitude of
+        a flow whose oscillatory shear index is high, see :mod:`chipflow.operation.run`), when
+        the cell-type table gives one; None otherwise: the window above was measured in
+        steady flow and does not apply to oscillating flow.
     """
 
     cell_type: str
     min: float
     max: float
     source: str
+    oscillatory: ShearWindow | None = None
 
     @property
     def text(self) -> str:
@@ -104,14 +113,17 @@ class ShearWindow:
         return f"{self.min:.3g}-{self.max:.3g} Pa"
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-able; a missing bound is None."""
-        return {
+        """JSON-able; a missing bound is None (``oscillatory`` only when there is one)."""
+        out = {
             "cell_type": self.cell_type,
             "min": self.min if self.min > 0.0 else None,
             "max": self.max if math.isfinite(self.max) else None,
             "text": self.text,
             "source": self.source,
         }
+        if self.oscillatory is not None:
+            out["oscillatory"] = self.oscillatory.to_dict()
+        return out
 
 
 @dataclass(frozen=True)
@@ -130,6 +142,10 @@ class CellType:
         Citation of the window.
     confidence : str
         How sure the table is of the window ("published range", "from memory, ...").
+    oscillatory : tuple of (float, float, str) or None
+        A floor-shear window for oscillating flow [Pa] with its citation, when the table
+        gives one (``oscillatory_shear_min``, ``oscillatory_shear_max``,
+        ``oscillatory_source``).
     o2_consumption : float or None
         Oxygen uptake per cell [mol/s], when known.
     o2_source : str
@@ -147,13 +163,18 @@ class CellType:
     o2_consumption: float | None = None
     o2_source: str = ""
     aliases: tuple[str, ...] = ()
+    oscillatory: tuple[float, float, str] | None = None
 
     def window(self) -> ShearWindow:
-        """The cited shear window of this cell type."""
+        """The cited shear window of this cell type (with its oscillatory window, if any)."""
         source = self.source
         if self.confidence and self.confidence != "published range":
             source = f"{source}; {self.confidence}"
-        return ShearWindow(self.name, self.shear_min, self.shear_max, source)
+        oscillatory = None
+        if self.oscillatory is not None:
+            low, high, cited = self.oscillatory
+            oscillatory = ShearWindow(self.name, low, high, cited)
+        return ShearWindow(self.name, self.shear_min, self.shear_max, source, oscillatory)
 
 
 def parse_cell_types(
@@ -203,8 +224,28 @@ def parse_cell_types(
             o2,
             o2_source,
             tuple(aliases),
+            _oscillatory(row),
         )
     return rows
+
+
+def _oscillatory(row: Table) -> tuple[float, float, str] | None:
+    """The optional oscillatory window of a row: both bounds and a citation, or none."""
+    keys = ("oscillatory_shear_min", "oscillatory_shear_max", "oscillatory_source")
+    given = [k for k in keys if k in row]
+    if not given:
+        return None
+    missing = [k for k in keys if k not in row]
+    if missing:
+        raise row.error(missing[0], "an oscillatory window needs both bounds and its citation")
+    low = row.quantity("oscillatory_shear_min", "pressure")
+    high = row.quantity("oscillatory_shear_max", "pressure")
+    if not low < high:
+        raise row.error("oscillatory_shear_max", f"must be greater than {low:g} Pa")
+    cited = row.string("oscillatory_source")
+    if not cited.strip():
+        raise row.error("oscillatory_source", "an oscillatory window needs its citation")
+    return low, high, cited
 
 
 @functools.lru_cache(maxsize=1)

@@ -51,9 +51,10 @@ def _shear_results(
     window: ShearWindow,
     kind: str,
     suffix: str = "",
+    skip: tuple[int, ...] = (),
 ) -> list[CheckResult]:
     """One result per level in ``levels``; without levels, the channels of lowest and highest
-    shear of the whole chip (tubing left out)."""
+    shear of the whole chip (tubing and the channels in ``skip`` left out)."""
     key = {"floor": "wall_shear_floor", "mean": "wall_shear_mean", "max": "wall_shear_max"}[kind]
     if rows:
         labels = generation_labels(rows)
@@ -64,7 +65,7 @@ def _shear_results(
         return [replace(r, level=labels[i]) for r, i in zip(results, levels, strict=True)]
     else:
         net = solution.network
-        chip = np.flatnonzero(net.role != "tubing")
+        chip = np.setdiff1d(np.flatnonzero(net.role != "tubing"), np.asarray(skip, dtype=int))
         if chip.size == 0:
             return []
         tau = getattr(solution, key)[chip]
@@ -85,6 +86,7 @@ def culture_checks(
     targets: ShearWindow | None = None,
     target_kind: str = "floor",
     target_levels: str = "all",
+    oscillating: tuple[int, ...] = (),
 ) -> list[CheckResult]:
     """Checks of what the cells feel and get.
 
@@ -109,6 +111,10 @@ def culture_checks(
         Which wall shear ``targets`` limits: "floor", "mean" or "max".
     target_levels : str, optional
         Where ``targets`` applies: "all" levels or only the "bed".
+    oscillating : tuple of int, optional
+        Levels (indices of ``rows``; without rows, channel indices) whose flow oscillates:
+        the cells' window, measured in steady flow, is not checked there (time-varying
+        operation checks them instead, :func:`chipflow.operation.operate`).
 
     Every channel of the network, tubing included and with or without a generation, is checked
     for laminar flow and entrance length; the oxygen checks run only where the design declares
@@ -120,7 +126,9 @@ def culture_checks(
     everything = list(range(len(rows)))
     seeded = beds if culture.seeded == "bed" and beds else everything
     if window is not None:
-        out += _shear_results(solution, rows, seeded, window, "floor")
+        steady = [i for i in seeded if i not in oscillating]
+        if steady or not rows:
+            out += _shear_results(solution, rows, steady, window, "floor", skip=oscillating)
     if targets is not None:
         levels = beds if target_levels == "bed" and beds else everything
         out += _shear_results(solution, rows, levels, targets, target_kind, " (design target)")

@@ -63,6 +63,7 @@ def harmonic_response(
     flows: Mapping[NodeKey, complex] | None = None,
     *,
     inertia: bool = True,
+    end_conductance: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> HarmonicResponse:
     """Solve the network at one angular frequency.
 
@@ -80,18 +81,26 @@ def harmonic_response(
         Flow ports with a harmonic flow (node to complex amplitude [m^3/s]).
     inertia : bool
         Include the inertance of the liquid in each channel.
+    end_conductance : (numpy.ndarray, numpy.ndarray), optional
+        For channels whose steady law is nonlinear (soft roofs,
+        :mod:`chipflow.operation.softwall`): the small-signal conductances ``g_a = dQ/dp_a``
+        and ``g_b = -dQ/dp_b`` at the steady state [m^3/(Pa s)], so that a small change
+        carries ``dQ = g_a dp_a - g_b dp_b``; with inertia the channel carries that over
+        ``1 + j omega L (g_a + g_b) / 2``. Default: ``g_a = g_b = 1/R`` of the rigid channel,
+        which is the plain ``1 / (R + j omega L)``.
     """
     flows = flows or {}
     n = network.n_nodes
     r = np.asarray(
         resistance(network.width, network.depth, network.length, fluid.viscosity, network.round)
     )
-    z = r.astype(complex)
+    g_a, g_b = (1.0 / r, 1.0 / r) if end_conductance is None else end_conductance
+    g_a, g_b = np.asarray(g_a, dtype=float), np.asarray(g_b, dtype=float)
+    damping = np.ones(network.n_channels, dtype=complex)
     if inertia:
-        z = z + 1j * omega * inertance(
-            network.width, network.depth, network.length, fluid.density, network.round
-        )
-    y = 1.0 / z
+        ell = inertance(network.width, network.depth, network.length, fluid.density, network.round)
+        damping = damping + 1j * omega * ell * (g_a + g_b) / 2.0
+    y_a, y_b = g_a / damping, g_b / damping
     fixed = np.zeros(n, dtype=bool)
     pressure = np.zeros(n, dtype=complex)
     for key, value in pressures.items():
@@ -108,22 +117,24 @@ def harmonic_response(
     ia, ib = position[a], position[b]
     fa, fb = ia >= 0, ib >= 0
     both = fa & fb
-    diagonal = (
-        np.bincount(ia[fa], y[fa].real, free.size)
-        + 1j * np.bincount(ia[fa], y[fa].imag, free.size)
-        + np.bincount(ib[fb], y[fb].real, free.size)
-        + 1j * np.bincount(ib[fb], y[fb].imag, free.size)
-        + 1j * omega * np.asarray(node_compliance, dtype=float)[free]
-    )
+    # the flow a -> b is y_a p_a - y_b p_b: it leaves a (+) and enters b (-)
     idx = np.arange(free.size)
-    rows = np.concatenate((idx, ia[both], ib[both]))
-    cols = np.concatenate((idx, ib[both], ia[both]))
-    data = np.concatenate((diagonal, -y[both], -y[both]))
+    rows = np.concatenate((idx, ia[fa], ib[fb], ia[both], ib[both]))
+    cols = np.concatenate((idx, ia[fa], ib[fb], ib[both], ia[both]))
+    data = np.concatenate(
+        (
+            1j * omega * np.asarray(node_compliance, dtype=float)[free],
+            y_a[fa],
+            y_b[fb],
+            -y_b[both],
+            -y_a[both],
+        )
+    )
     matrix = sp.csc_matrix((data, (rows, cols)), shape=(free.size, free.size))
     rhs = injected[free].copy()
     only_a, only_b = fa & ~fb, fb & ~fa
-    coupling_a = y[only_a] * pressure[b[only_a]]
-    coupling_b = y[only_b] * pressure[a[only_b]]
+    coupling_a = y_b[only_a] * pressure[b[only_a]]
+    coupling_b = y_a[only_b] * pressure[a[only_b]]
     rhs += np.bincount(ia[only_a], coupling_a.real, free.size) + 1j * np.bincount(
         ia[only_a], coupling_a.imag, free.size
     )
@@ -132,4 +143,4 @@ def harmonic_response(
     )
     if free.size:
         pressure[free] = spsolve(matrix, rhs)
-    return HarmonicResponse(omega, pressure, y * (pressure[a] - pressure[b]))
+    return HarmonicResponse(omega, pressure, y_a * pressure[a] - y_b * pressure[b])

@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 
 from chipflow.operation.waveform import Waveform
 
-__all__ = ["Walls", "TubingWall", "Pulsatile", "Rocker", "OperationSpec", "DAY"]
+__all__ = ["Walls", "TubingWall", "Pulsatile", "Rocker", "Damper", "OperationSpec", "DAY"]
 
 #: One day [s]: the usual interval between medium changes (common practice in cell culture).
 DAY = 86400.0
@@ -82,6 +82,35 @@ class Rocker:
 
 
 @dataclass(frozen=True)
+class Damper:
+    """A pulsation damper: trapped air or a lumped compliance at one node, or a target that
+    chipflow sizes the trapped air for.
+
+    Exactly one of ``air_volume``, ``compliance`` and ``target_pulsation`` is set.
+
+    Attributes
+    ----------
+    node : str
+        Where it sits (a tree design: the chip's inlet port, "inlet").
+    air_volume : float or None
+        Trapped air at the mean pressure [m^3], isothermal (``C = V / p_abs``).
+    compliance : float or None
+        A lumped compliance [m^3/Pa].
+    target_pulsation : float or None
+        The floor-shear pulsation (amplitude over mean at the fundamental) the seeded levels
+        may keep at most [1]: chipflow sizes the smallest air volume that gives it.
+    where : str
+        The design-file key it came from, for messages.
+    """
+
+    node: str
+    air_volume: float | None = None
+    compliance: float | None = None
+    target_pulsation: float | None = None
+    where: str = "supply.damper"
+
+
+@dataclass(frozen=True)
 class OperationSpec:
     """Everything time-varying about a design; empty means steady operation on rigid walls.
 
@@ -105,6 +134,8 @@ class OperationSpec:
     rocker : Rocker or None
     refill_interval : float
         Time between refills or re-levelling of draining reservoirs [s].
+    damper : Damper or None
+        A pulsation damper (its node is not renamed by :meth:`renamed`).
     """
 
     walls: Walls | None = None
@@ -115,6 +146,7 @@ class OperationSpec:
     drain_areas: Mapping[str, float] = field(default_factory=dict)
     rocker: Rocker | None = None
     refill_interval: float = DAY
+    damper: Damper | None = None
 
     @property
     def mode(self) -> str:

@@ -25,7 +25,6 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import solve_ivp
 
 from chipflow.errors import SpecError
 from chipflow.network import solve
@@ -33,7 +32,15 @@ from chipflow.network.model import Network
 from chipflow.network.supply import STANDARD_GRAVITY
 from chipflow.physics.fluid import Fluid
 
-__all__ = ["Drain", "drain_reservoirs", "port_response", "RockerCycle", "rocker_cycle"]
+__all__ = [
+    "Drain",
+    "drain_reservoirs",
+    "port_response",
+    "RockerCycle",
+    "rocker_cycle",
+    "RockerHarmonics",
+    "rocker_harmonics",
+]
 
 
 def port_response(
@@ -67,6 +74,11 @@ def port_response(
 class Drain:
     """Reservoir heads and the flow through the network as the reservoirs drain.
 
+    The heads are the exact solution of the linear ODE, ``h(t) = h_c + b t + sum_i v_i
+    exp(lambda_i t)`` (``b`` is zero unless other supplies fill or empty reservoirs that
+    only connect to each other); ``time``, ``heads`` and ``flow`` are that solution at
+    evenly spaced instants, for figures.
+
     Attributes
     ----------
     time : numpy.ndarray
@@ -74,12 +86,20 @@ class Drain:
     heads : numpy.ndarray, shape (m, len(time))
         Liquid height above each draining port [m].
     flow : numpy.ndarray
-        Total flow delivered into the network by the draining ports [m^3/s].
+        Total flow delivered into the network by the ports that deliver at the start
+        [m^3/s].
     time_to_level : float
-        When the flow has fallen to 10 % of its start, i.e. the head differences that drive it
-        are within 10 % of level [s] (inf if not within the time span).
+        When that flow has fallen to 10 % of its start, i.e. the head differences that drive it
+        are within 10 % of level [s], the root of the exact solution (inf if it does not fall
+        that far).
     time_constant : float
         Slowest time constant of the draining [s].
+    rates : numpy.ndarray
+        The exponents ``lambda_i`` [1/s], 0 first (the constant part).
+    head_coeff : numpy.ndarray, shape (m, len(rates))
+        Coefficients of each head [m] (the constant part first).
+    head_slope : numpy.ndarray, shape (m,)
+        ``b`` [m/s].
     """
 
     time: np.ndarray
@@ -87,6 +107,9 @@ class Drain:
     flow: np.ndarray
     time_to_level: float
     time_constant: float
+    rates: np.ndarray
+    head_coeff: np.ndarray
+    head_slope: np.ndarray
 
 
 def drain_reservoirs(
@@ -99,7 +122,12 @@ def drain_reservoirs(
     samples: int = 401,
     gravity: float = STANDARD_GRAVITY,
 ) -> Drain:
-    """Integrate ``A dh/dt = -(G rho g h + Q0)`` from the initial ``heads`` [m].
+    """Solve ``A dh/dt = -(G rho g h + Q0)`` from the initial ``heads`` [m] exactly.
+
+    ``-A^-1 G rho g`` is similar to a symmetric matrix (``G`` is symmetric, ``A`` positive),
+    so its eigenvalues are real and it is diagonalisable; each mode decays as
+    ``exp(lambda t)``, a zero eigenvalue (reservoirs that only exchange liquid) keeps its
+    level or, when the other supplies feed it, moves it linearly.
 
     Parameters
     ----------
@@ -112,43 +140,55 @@ def drain_reservoirs(
     density : float
         [kg/m^3].
     span : float, optional
-        Time span [s]; default six slowest time constants.
+        Time span of the samples [s]; default six slowest time constants.
     """
+    from chipflow.operation.crossings import exponential_roots, exponential_values
+
     a = np.asarray(areas, dtype=float)
-    matrix = -(conductance * density * gravity) / a[:, None]
-    rate = np.abs(np.linalg.eigvals(matrix))
-    rate = rate[rate > 1e-12 * rate.max(initial=0.0)] if rate.size else rate
-    tau = float(1.0 / rate.min()) if rate.size else float("inf")
+    k = conductance * density * gravity
+    scale = np.sqrt(a)
+    # symmetric form: S = -A^-1/2 K A^-1/2, h = A^-1/2 x
+    sym = -(k / scale[:, None]) / scale[None, :]
+    lam, vec = np.linalg.eigh(0.5 * (sym + sym.T))
+    lam = np.where(np.abs(lam) <= 1e-12 * np.abs(lam).max(initial=0.0), 0.0, lam)
+    moving = lam[lam < 0.0]
+    tau = float(1.0 / np.abs(moving).min()) if moving.size else float("inf")
     end = float(span) if span is not None else 6.0 * tau
     if not np.isfinite(end) or end <= 0:
         raise SpecError("draining reservoirs: the network does not connect them to anything")
-
-    def rhs(_t, h):
-        return matrix @ h - offset / a
-
+    # modal coordinates y = V^T A^1/2 h: dy/dt = lam y + v, v = -V^T A^-1/2 Q0
+    modes = np.asarray(heads, dtype=float) * scale @ vec
+    forcing = -(np.asarray(offset, dtype=float) / scale) @ vec
+    back = vec / scale[:, None]  # h = back @ y
+    steady = lam < 0.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        particular = np.where(steady, -forcing / lam, 0.0)
+    constant = back @ np.where(steady, particular, modes)
+    slope = back @ np.where(steady, 0.0, forcing)
+    decay, where = np.unique(lam[steady], return_inverse=True)
+    rates = np.concatenate([[0.0], decay])
+    coeff = np.zeros((a.size, rates.size))
+    coeff[:, 0] = constant
+    np.add.at(coeff.T, where + 1, (back[:, steady] * (modes - particular)[steady]).T)
     times = np.linspace(0.0, end, samples)
-    sol = solve_ivp(
-        rhs,
-        (0.0, end),
-        np.asarray(heads, float),
-        method="Radau",
-        t_eval=times,
-        rtol=1e-9,
-        atol=1e-12 * max(1.0, float(np.max(np.abs(heads)))),
-    )
-    h = sol.y
-    flow = (conductance * density * gravity) @ h + offset[:, None]
-    delivered = np.clip(flow, 0.0, None).sum(axis=0)
-    below = np.flatnonzero(delivered <= 0.1 * delivered[0])
-    if below.size and below[0] > 0:
-        i = below[0]
-        # linear interpolation of the crossing between two samples
-        f0, f1 = delivered[i - 1], delivered[i]
-        target = 0.1 * delivered[0]
-        t_level = float(times[i - 1] + (times[i] - times[i - 1]) * (f0 - target) / (f0 - f1))
-    else:
-        t_level = 0.0 if below.size else float("inf")
-    return Drain(times, h, delivered, t_level, tau)
+    h = exponential_values(coeff, rates, np.tile(times, (a.size, 1)), slope)
+    # port inflows: Q = K h + Q0, again an exponential sum
+    q_coeff = k @ coeff
+    q_coeff[:, 0] += offset
+    q_slope = k @ slope
+    start = q_coeff.sum(axis=1)
+    delivering = start > 0
+    d_coeff = q_coeff[delivering].sum(axis=0, keepdims=True)
+    d_slope = q_slope[delivering].sum(keepdims=True)
+    delivered = exponential_values(d_coeff, rates, times[None, :], d_slope)[0]
+    target = d_coeff.copy()
+    target[0, 0] -= 0.1 * d_coeff.sum()
+    horizon = max(end, 6.0 * tau) if np.isfinite(tau) else end
+    roots = exponential_roots(target, rates, horizon, d_slope)
+    t_level = float(np.nanmin(roots)) if np.any(~np.isnan(roots)) else float("inf")
+    if d_coeff.sum() <= 0:
+        t_level = 0.0
+    return Drain(times, h, delivered, t_level, tau, rates, coeff, slope)
 
 
 @dataclass(frozen=True, eq=False)
@@ -179,6 +219,59 @@ class RockerCycle:
     time_constant: float
 
 
+@dataclass(frozen=True, eq=False)
+class RockerHarmonics:
+    """A rocking cycle in closed form: harmonic amplitudes at ``k omega``, ``k = 1..K``.
+
+    Attributes
+    ----------
+    frequency : float
+        Rocking frequency [Hz].
+    lift, head, liquid : numpy.ndarray of complex
+        Amplitudes [m] of the tilt's lift ``s sin(theta(t))``, the driving head (lift plus
+        liquid difference) and the liquid difference between the reservoirs.
+    time_constant : float
+        ``R A / (2 rho g)`` [s].
+    """
+
+    frequency: float
+    lift: np.ndarray
+    head: np.ndarray
+    liquid: np.ndarray
+    time_constant: float
+
+
+def rocker_harmonics(
+    resistance: float,
+    area: float,
+    spacing: float,
+    tilt_angle: float,
+    period: float,
+    density: float,
+    gravity: float = STANDARD_GRAVITY,
+) -> RockerHarmonics:
+    """The periodic state of a rocking platform, harmonic by harmonic.
+
+    The tilt ``theta(t) = tilt_angle sin(omega t)`` lifts one reservoir by
+    ``s sin(theta) = 2 s sum_{n odd} J_n(tilt_angle) sin(n omega t)`` (the Jacobi-Anger
+    expansion, exact), kept while ``J_n`` is above 1e-17 of the first; the liquid difference
+    is that lift through the first-order high-pass ``j n omega tau / (1 + j n omega tau)``
+    (its ODE ``d(dh)/dt = -(dh + lift) / tau``).
+    """
+    from scipy.special import jv
+
+    tau = resistance * area / (2.0 * density * gravity)
+    n = np.arange(1, 62)
+    bessel = np.where(n % 2 == 1, jv(n, tilt_angle), 0.0)
+    keep = np.abs(bessel) > 1e-17 * max(abs(float(bessel[0])), 1e-300)
+    top = int(np.flatnonzero(keep).max()) + 1 if keep.any() else 1
+    n, bessel = n[:top], bessel[:top]
+    lift = -2j * spacing * bessel  # sin(x) = Re(-j e^{jx})
+    omega_tau = 2.0 * np.pi * n / period * tau
+    head = lift * 1j * omega_tau / (1.0 + 1j * omega_tau)
+    return RockerHarmonics(1.0 / period, lift, head, head - lift, tau)
+
+
 def rocker_cycle(
     resistance: float,
     area: float,
@@ -189,19 +282,18 @@ def rocker_cycle(
     samples: int = 512,
     gravity: float = STANDARD_GRAVITY,
 ) -> RockerCycle:
-    """Periodic flow through a chip of ``resistance`` [Pa s/m^3] on a rocking platform.
+    """Periodic flow through a chip of ``resistance`` [Pa s/m^3] on a rocking platform,
+    at ``samples`` instants of one period (from :func:`rocker_harmonics`).
 
     The platform tilts as ``theta(t) = tilt_angle sin(2 pi t / period)`` [rad]; the two
     reservoirs of cross-section ``area`` [m^2] sit ``spacing`` [m] apart.
     """
-    tau = resistance * area / (2.0 * density * gravity)
+    from chipflow.operation.waveform import harmonic_series
+
+    cycle = rocker_harmonics(resistance, area, spacing, tilt_angle, period, density, gravity)
     t = period * np.arange(samples) / samples
     theta = tilt_angle * np.sin(2.0 * np.pi * t / period)
-    lift = spacing * np.sin(theta)
-    spectrum = np.fft.rfft(lift)
-    k = np.arange(spectrum.size)
-    omega_tau = 2.0 * np.pi * k / period * tau
-    liquid = np.fft.irfft(-spectrum / (1.0 + 1j * omega_tau), samples)
-    head = liquid + lift
+    head = harmonic_series(cycle.head[None, :], samples)[0]
+    liquid = harmonic_series(cycle.liquid[None, :], samples)[0]
     flow = density * gravity * head / resistance
-    return RockerCycle(t, theta, head, flow, liquid / 2.0, tau)
+    return RockerCycle(t, theta, head, flow, liquid / 2.0, cycle.time_constant)

@@ -109,6 +109,21 @@ def _spread(p: Mapping[str, Any] | None, kind: str) -> tuple[str, list[str]]:
     return unit, [("&ndash;" if x == "-" else _e(x)) for x in texts]
 
 
+def _yield_bound(results: Mapping[str, Any]) -> str:
+    """The yield's one-sided 95 % lower bound in words (with how it was found)."""
+    bound = results.get("yield_lower_95")
+    if bound is None:
+        return "&ndash;"
+    how = (
+        "rule of three: no failing sample in n bounds the failure rate below 3/n, Hanley &amp; "
+        "Lippman-Hand 1983"
+        if results.get("yield_bound") == "rule of three"
+        else "Clopper-Pearson, with a Monte Carlo standard error of "
+        f"{display.fraction(results['yield_standard_error'], 2)}"
+    )
+    return f"{display.fraction(bound, 4)} ({how})"
+
+
 def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> str:
     """The tolerance report as one self-contained HTML page (no scripts, no timestamps)."""
     from chipflow import __version__ as version
@@ -123,7 +138,11 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
     spread = "uniform within" if results["distribution"] == "uniform" else "normal, 1 sd ="
     tol_rows = [
         ["depth of each mould level", depth],
-        ["width bias of the mask", f"&plusmn;{display.quantity(tol['width'], 'width', unit='um')}"],
+        [
+            "width bias of the mask (total change of each channel width; each side wall "
+            "moves by half)",
+            f"&plusmn;{display.quantity(tol['width'], 'width', unit='um')}",
+        ],
         ["inlet supply", f"&plusmn;{display.fraction(tol['flow'])}"],
         ["viscosity", f"&plusmn;{display.fraction(tol['viscosity'])}"],
     ]
@@ -199,8 +218,8 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
         f"<h1>{_e(design['name'])}: tolerances</h1>",
         f'<p class="meta">Design file: {_e(design["file"])}<br>SHA-256: {_e(design["sha256"])}'
         f"<br>{results['samples']} samples, seed {results['seed']}, {spread} the tolerance</p>",
-        f'<p class="verdict {verdict}">Yield {display.fraction(y)} (&plusmn;'
-        f"{display.fraction(results['yield_standard_error'], 2)} Monte Carlo standard error)</p>",
+        f'<p class="verdict {verdict}">Yield {display.fraction(y, 4)} of {results["samples"]} '
+        f"samples; one-sided 95 % lower bound {_yield_bound(results)}</p>",
         "<p>A sample passes when every seeded level's floor shear lies inside the window in "
         "every channel and the pressure checks pass (bond with its safety factor, pump).</p>",
         "<h2>Tolerances</h2>",
@@ -256,7 +275,10 @@ def variation_summary(results: Mapping[str, Any]) -> str:
     y = results["yield"]
     lines = [
         f"{results['samples']} samples (seed {results['seed']}, {results['distribution']}): "
-        f"yield {display.fraction(y, 4)} +- {display.fraction(results['yield_standard_error'], 2)}",
+        f"yield {display.fraction(y, 4)}, one-sided 95 % lower bound "
+        f"{display.fraction(results.get('yield_lower_95', 0.0), 4)} "
+        f"({results.get('yield_bound', 'Clopper-Pearson')})",
+        "width bias: " + results.get("width_bias", ""),
         "",
     ]
     rows = [

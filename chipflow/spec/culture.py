@@ -172,7 +172,11 @@ def read_culture(top: Table) -> Culture:
             low = window.min if low is None else low
             high = window.max if high is None else high
             window = ShearWindow(
-                cell.name, low, high, f"{top.file_label} (overrides: {window.source})"
+                cell.name,
+                low,
+                high,
+                f"{top.file_label} (overrides: {window.source})",
+                window.oscillatory,
             )
     elif low is not None or high is not None:
         # one bound alone is a one-sided window

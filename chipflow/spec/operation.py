@@ -20,19 +20,27 @@ Tree designs say it in ``[supply]`` (see :mod:`chipflow.spec.supply` for the ste
     tubing_outer_diameter = "1.6 mm"   # elastic tubing: outer diameter and modulus
     tubing_modulus = "2 MPa"
 
+    [supply.damper]                # a pulsation damper at the chip's inlet port, one of:
+    air_volume = "100 uL"          # trapped air at the mean pressure (isothermal)
+    # compliance = "1e-12 m^3/Pa"  # a lumped compliance
+    # target_pulsation = "5 %"     # chipflow sizes the smallest air volume that brings the
+                                   # seeded levels' floor-shear pulsation down to it
+
 Explicit networks give ``amplitude`` and ``frequency`` on a ``[[ports]]`` entry (a
 sinusoidal pulsation of its flow or pressure), ``area`` on a ``head`` port (a draining
 reservoir), and ``[[compliances]]`` with ``node`` and ``air_volume`` (trapped air,
-isothermal) or ``compliance`` (m^3/Pa). ``[walls]`` (:mod:`chipflow.spec.walls`) serves both.
+isothermal), ``compliance`` (m^3/Pa) or ``target_pulsation`` (one entry at most: chipflow
+sizes the trapped air there). ``[walls]`` (:mod:`chipflow.spec.walls`) serves both.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from pathlib import Path
 
 from chipflow.network.model import Network, unknown_name_message
-from chipflow.operation.model import DAY, OperationSpec, Pulsatile, Rocker, TubingWall
+from chipflow.operation.model import DAY, Damper, OperationSpec, Pulsatile, Rocker, TubingWall
 from chipflow.operation.waveform import Waveform, peristaltic_frequency
 from chipflow.spec.reader import Table
 from chipflow.spec.walls import read_walls
@@ -43,6 +51,7 @@ __all__ = [
     "read_network_operation",
     "OPERATION_SUPPLY_KEYS",
     "OPERATION_INLETS",
+    "DAMPER_KEYS",
 ]
 
 #: Keys of [supply] for each time-varying inlet kind.
@@ -58,10 +67,36 @@ OPERATION_INLETS = ("peristaltic", "pulsatile-pressure", "rocker")
 OPERATION_SUPPLY_KEYS = tuple(
     dict.fromkeys(
         [k for keys in _KIND_KEYS.values() for k in keys]
-        + ["tubing_outer_diameter", "tubing_modulus"]
+        + ["tubing_outer_diameter", "tubing_modulus", "damper"]
     )
 )
-COMPLIANCE_KEYS = ("node", "air_volume", "compliance")
+#: Keys of [supply.damper] (exactly one of them).
+DAMPER_KEYS = ("air_volume", "compliance", "target_pulsation")
+COMPLIANCE_KEYS = ("node", *DAMPER_KEYS)
+#: Largest trapped air [m^3] and lumped compliance [m^3/Pa] a design may give.
+LARGEST_DAMPER = 1e-3
+#: Largest target pulsation (as the pump's own pulsation) [1].
+LARGEST_TARGET = 10.0
+
+
+def _damper(table: Table, node: str, where: str) -> Damper:
+    """Exactly one of air_volume, compliance and target_pulsation."""
+    given = [k for k in DAMPER_KEYS if k in table]
+    if len(given) != 1:
+        raise table.error(
+            None,
+            "give exactly one of air_volume (trapped air), compliance (m^3/Pa) or "
+            'target_pulsation (e.g. "5 %": chipflow sizes the air)',
+        )
+    key = given[0]
+    if key == "air_volume":
+        return Damper(node, air_volume=table.quantity(key, "volume", maximum=LARGEST_DAMPER),
+                      where=where)  # fmt: skip
+    if key == "compliance":
+        value = table.quantity(key, "compliance", maximum=LARGEST_DAMPER)
+        return Damper(node, compliance=value, where=where)
+    target = table.quantity(key, "dimensionless", maximum=LARGEST_TARGET)
+    return Damper(node, target_pulsation=target, where=where)
 
 
 def _tubing(table: Table) -> TubingWall | None:
@@ -96,6 +131,15 @@ def read_tree_operation(top: Table, design_flow: float) -> OperationSpec:
                 users = [k for k, ks in _KIND_KEYS.items() if key in ks]
                 raise table.error(key, f"only used with inlet = {' or '.join(map(repr, users))}")
     tubing = _tubing(table)
+    spec = _tree_supply(table, kind, walls, tubing, design_flow)
+    damper = table.table("damper", None)
+    if damper is None:
+        return spec
+    damper.only(DAMPER_KEYS)
+    return replace(spec, damper=_damper(damper, "inlet", damper.where()))
+
+
+def _tree_supply(table: Table, kind: str, walls, tubing, design_flow: float) -> OperationSpec:
     if kind == "peristaltic":
         return OperationSpec(walls, tubing, {"inlet": _peristaltic(table, design_flow)})
     if kind == "pulsatile-pressure":
@@ -192,20 +236,21 @@ def read_network_operation(top: Table, network: Network, ports: list[Table]) -> 
                 raise item.error("area", "only a reservoir port (head) has an area")
             areas[node] = item.quantity("area", "area", maximum=1.0)
     compliances, air = {}, {}
+    sized = None
     for item in top.tables("compliances", []):
         item.only(COMPLIANCE_KEYS)
         node = item.string("node")
         if node not in network.node_names:
             raise item.error("node", unknown_name_message(node, network.node_names, "node"))
-        if ("air_volume" in item) == ("compliance" in item):
-            raise item.error(
-                None, "give exactly one of air_volume (trapped air) or compliance (m^3/Pa)"
-            )
-        if "air_volume" in item:
-            air[node] = air.get(node, 0.0) + item.quantity("air_volume", "volume", maximum=1e-3)
+        entry = _damper(item, node, item.where())
+        if entry.target_pulsation is not None:
+            if sized is not None:
+                raise item.error("target_pulsation", "only one [[compliances]] entry may be sized")
+            sized = entry
+        elif entry.air_volume is not None:
+            air[node] = air.get(node, 0.0) + entry.air_volume
         else:
-            value = item.quantity("compliance", "compliance", maximum=1e-3)
-            compliances[node] = compliances.get(node, 0.0) + value
+            compliances[node] = compliances.get(node, 0.0) + entry.compliance
     if pulsatile and areas:
         raise top.error("ports", "pulsating ports and draining reservoirs cannot be combined")
-    return OperationSpec(walls, None, pulsatile, compliances, air, areas)
+    return OperationSpec(walls, None, pulsatile, compliances, air, areas, damper=sized)

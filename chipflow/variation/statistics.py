@@ -10,7 +10,11 @@ Definitions (chipflow's own):
   most the bond limit over its safety factor, the supply pressure at most the pump's passing
   share of its rating (:mod:`chipflow.checks.pressure`);
 - the *yield* is the fraction of samples that pass; its Monte Carlo standard error is
-  ``sqrt(y (1 - y) / n)`` (binomial);
+  ``sqrt(y (1 - y) / n)`` (binomial), which is zero when every sample passes, so the yield
+  also carries a one-sided 95 % lower bound (:func:`yield_lower_bound`): ``1 - 3/n`` when
+  all ``n`` samples pass (the rule of three, Hanley & Lippman-Hand, JAMA 249 (1983)
+  1743-1745), else the exact binomial bound of Clopper & Pearson (Biometrika 26 (1934)
+  404-413);
 - the *margin* of a sample is its worst relative distance to the window over the seeded
   levels, ``min(tau_min / low - 1, 1 - tau_max / high)``: positive inside, negative outside;
 - the *elasticity* of a level's shear to a factor is ``d ln tau / d ln x`` at the nominal
@@ -30,6 +34,7 @@ from chipflow.variation.problem import Problem
 
 __all__ = [
     "PERCENTILES",
+    "yield_lower_bound",
     "ELASTICITY_STEP",
     "percentiles",
     "sample_passes",
@@ -42,6 +47,29 @@ __all__ = [
 PERCENTILES = (5, 50, 95)
 #: Relative step of the central differences for elasticities [-].
 ELASTICITY_STEP = 1e-4
+
+
+def yield_lower_bound(passed: int, samples: int) -> float:
+    """One-sided 95 % lower bound of the yield [1].
+
+    With every sample passing, the rule of three: no failure in ``n`` trials bounds the
+    failure rate below ``3 / n`` at 95 % (Hanley & Lippman-Hand 1983; ``-ln 0.05 = 2.996``).
+    Otherwise the Clopper-Pearson bound ``B(0.05; k, n - k + 1)``.
+
+    >>> yield_lower_bound(1000, 1000), yield_lower_bound(0, 10)
+    (0.997, 0.0)
+    >>> round(yield_lower_bound(95, 100), 4)   # Clopper-Pearson, one-sided 95 %
+    0.8977
+    """
+    if samples <= 0:
+        return 0.0
+    if passed >= samples:
+        return max(0.0, 1.0 - 3.0 / samples)
+    if passed <= 0:
+        return 0.0
+    from scipy.stats import beta
+
+    return float(beta.ppf(0.05, passed, samples - passed + 1))
 
 
 def percentiles(values: np.ndarray, nominal: float | None = None) -> dict[str, float | None]:

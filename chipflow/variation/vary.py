@@ -37,9 +37,17 @@ from chipflow.variation.statistics import (
     sensitivity,
     shear_margin,
     worst_corner,
+    yield_lower_bound,
 )
 
-__all__ = ["Variation", "vary_build", "batch_size", "VARY_UNITS", "MODEL_NOTE"]
+__all__ = [
+    "Variation",
+    "vary_build",
+    "batch_size",
+    "VARY_UNITS",
+    "MODEL_NOTE",
+    "WIDTH_BIAS_NOTE",
+]
 
 #: Channel-samples per batch: bounds the memory of one batch (about 30 arrays of this size).
 BATCH_ELEMENTS = 300_000
@@ -55,6 +63,7 @@ VARY_UNITS = {
     "bed_flow_spread": "1",
     "yield": "1",
     "yield_standard_error": "1",
+    "yield_lower_95": "1",
     "shear_margin": "1",
     "elasticity": "1",
     "shear_change": "1",
@@ -66,6 +75,20 @@ MODEL_NOTE = (
     "viscosity error per chip, independent; tubing keeps its size, channel lengths stay as "
     "drawn and any resistance the network adds to a channel (junction corrections) is held as "
     "its nominal equivalent length."
+)
+
+#: Added to the model note for a chip with soft roofs.
+SOFT_ROOF_NOTE = (
+    " Soft roofs: each channel keeps the resistance of the deformed chip at the nominal "
+    "operating point (the bulge is not re-solved per sample), and the floor shear per unit "
+    "flow is the rigid channel's, so the nominal shear here is the rigid roof's at the "
+    "deformed chip's flows."
+)
+
+#: What the width bias means (results.json ``width_bias``).
+WIDTH_BIAS_NOTE = (
+    "total width change: the bias is added to every channel's width, so each side wall moves "
+    "by half of it"
 )
 
 Progress = Callable[[int, int], None]
@@ -137,7 +160,8 @@ def vary_build(
     Variation
         ``results`` holds ``samples``, ``seed``, ``yield``, ``levels`` (per level
         ``generation``, ``role``, ``floor_shear``, ``residence_time``, ``pressure_drop``, each
-        ``{p05, p50, p95, nominal}``), ``supply_pressure``, ``chip_pressure``,
+        ``{p05, p50, p95, nominal}``), ``yield_lower_95`` (one-sided 95 % lower bound),
+        ``width_bias`` (its convention), ``supply_pressure``, ``chip_pressure``,
         ``bed_flow_spread``, ``worst_corner``, ``sensitivity`` and ``units``.
 
     Raises
@@ -177,6 +201,12 @@ def vary_build(
     )
     results["sensitivity"] = sensitivity(problem, tol, steps, nominal, small, ends)
     return Variation(build, problem, tolerances, samples, passes, results)
+
+
+def _soft_roofs(build: Build) -> bool:
+    """Whether the build's chip was solved with soft roofs."""
+    operation = getattr(build, "operation", None)
+    return operation is not None and operation.soft is not None
 
 
 def _spans(cut: np.ndarray, total: int) -> list[tuple[int, int]]:
@@ -225,6 +255,9 @@ def _summary(
         "tolerances": tolerances.to_dict(),
         "yield": y,
         "yield_standard_error": float(np.sqrt(y * (1.0 - y) / n)),
+        "yield_lower_95": yield_lower_bound(int(passes.sum()), int(n)),
+        "yield_bound": "rule of three" if passes.all() else "Clopper-Pearson",
+        "width_bias": WIDTH_BIAS_NOTE,
         "shear_window": build.results.get("shear_window"),
         "levels": levels,
         "supply_pressure": percentiles(samples.supply_pressure, nominal.supply_pressure[0]),
@@ -240,6 +273,6 @@ def _summary(
         },
         "factors": list(problem.names),
         "mould_levels": [float(d) for d in problem.level_depths],
-        "model": MODEL_NOTE,
+        "model": MODEL_NOTE + (SOFT_ROOF_NOTE if _soft_roofs(build) else ""),
         "units": VARY_UNITS,
     }
