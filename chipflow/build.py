@@ -31,7 +31,7 @@ import numpy as np
 
 from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
-from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks
+from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks, transport_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
@@ -49,7 +49,9 @@ from chipflow.spec.operation import read_tree_operation
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import AUTO_PRESSURE_LABEL, SupplySpec, read_supply
 from chipflow.spec.tolerances import read_tolerances
+from chipflow.spec.transport import read_transport
 from chipflow.spec.tree import load_tree_spec
+from chipflow.transport.run import run_transport
 from chipflow.units import RESULT_UNITS
 
 __all__ = ["Build", "DesignSource", "read_design_source", "build_design", "RESULT_UNITS"]
@@ -116,6 +118,9 @@ class Build:
         was not run).
     operation : Operation or None
         Time-varying operation: pulsation, draining, rocking, wall deformation.
+    transport : TransportRun or None
+        Oxygen and solutes along the channels, the dosing delay (and, with the field, the
+        oxygen map): :func:`chipflow.transport.run_transport`.
     """
 
     source: DesignSource
@@ -130,6 +135,7 @@ class Build:
     results: dict[str, Any] = dataclasses.field(repr=False)
     field: Any = dataclasses.field(default=None, repr=False)
     operation: Operation | None = dataclasses.field(default=None, repr=False)
+    transport: Any = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -217,6 +223,7 @@ def _build_tree(
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
+    transport_spec = read_transport(top)
     progress("size")
     grade = bed_grader(
         culture,
@@ -224,6 +231,8 @@ def _build_tree(
         2**spec.generations,
         spec.bed.residence_time,
         spec.bed.length,
+        transport=transport_spec,
+        temperature=spec.fluid.temperature,
     )
     design = size_tree(spec, bed_grade=grade)
     check_size(sum(level.count for level in design.levels), allow_large=allow_large)
@@ -257,6 +266,8 @@ def _build_tree(
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
     operation = operate(timing, solution, generations, window, culture.seeded, feed, drain, limits)
+    progress("transport")
+    transport = run_transport(solution, culture, transport_spec)
     checks = (
         *culture_checks(
             solution,
@@ -268,6 +279,7 @@ def _build_tree(
             target_kind=spec.targets.kind,
             target_levels=spec.targets.levels,
         ),
+        *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
         *fabrication_results(findings),
@@ -304,6 +316,9 @@ def _build_tree(
             flow_driven=supply.inlet.kind == "flow",
         )
     results["field"] = None if field_run is None else field_run.results
+    if field_run is not None:
+        transport = _field_transport(transport, field_run, layout, culture, progress)
+    results["transport"] = transport.results
     return Build(
         source,
         spec.name,
@@ -317,7 +332,19 @@ def _build_tree(
         results,
         field_run,
         operation,
+        transport,
     )
+
+
+def _field_transport(transport, field_run, layout, culture, progress: Progress):
+    """The oxygen map on the field mesh, where there is something to map (cells, or oxygen
+    through the roof)."""
+    if not (transport.cells or transport.results["roof_conductance"] > 0):
+        return transport
+    from chipflow.transport.field import with_field
+
+    progress("oxygen field")
+    return with_field(transport, field_run.solution, layout, culture.seeded)
 
 
 def _targets_window(spec) -> ShearWindow | None:
@@ -337,8 +364,11 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     top = source.top
     design = load_network_design(top)
     culture, limits = read_culture(top), read_limits(top)
+    transport_spec = read_transport(top)
     progress("solve")
     solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    progress("transport")
+    transport = run_transport(solution, culture, transport_spec)
     progress("check")
     generations = level_rows(solution)
     operation = operate(
@@ -346,6 +376,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     checks = (
         *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
+        *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
     )
@@ -372,6 +403,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     results["fabrication"] = None
     results["warnings"] = []
     results["field"] = None
+    results["transport"] = transport.results
     return Build(
         source,
         design.name,
@@ -384,6 +416,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         None,
         results,
         operation=operation,
+        transport=transport,
     )
 
 

@@ -6,6 +6,7 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 from chipflow.report.figures import generation_labels
+from chipflow.report.transport import transport_lines
 from chipflow.units import lab_number
 
 __all__ = [
@@ -152,6 +153,7 @@ def totals_and_checks(results: Mapping[str, Any]) -> str:
             f"{field['area_outside_window']:.1%} of the seeded floor outside the shear window "
             f"({field['mesh_triangles']} triangles)"
         )
+    lines += transport_lines(results)
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")
     checks = list(results.get("checks") or [])

@@ -18,6 +18,7 @@ from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
 from chipflow.report.figures import generation_labels
 from chipflow.report.operation import operation_html
+from chipflow.report.transport import transport_html
 from chipflow.units import lab_number
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
@@ -565,6 +566,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _channels(results),
         _notes(results),
         operation_html(results),
+        transport_html(results),
         "<h2>Checks</h2>",
         _window(results),
         _checks(results),
