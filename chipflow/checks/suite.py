@@ -179,7 +179,7 @@ def bed_grader(
     bed_length: float | None,
     *,
     transport=None,
-    temperature: float = 310.15,
+    temperature: float | None = None,
 ):
     """A ``bed_grade(depth, width) -> (fails, warnings, reason)`` for the depth choice of
     :func:`chipflow.design.sizing.size_tree`: the build's oxygen checks on one bed channel.
@@ -201,8 +201,8 @@ def bed_grader(
         The bed's residence time [s] or length [m] (one of them).
     transport : TransportSpec, optional
         The roof's gas permeability (none: an impermeable roof).
-    temperature : float
-        Fluid temperature [K].
+    temperature : float or None
+        Fluid temperature [K] (None: 37 degC).
 
     Examples
     --------

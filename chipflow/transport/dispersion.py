@@ -171,12 +171,13 @@ def step_times(mean, variance, fractions=(0.5, 0.9)) -> list[np.ndarray]:
 
     mu = np.asarray(mean, float)
     var = np.asarray(variance, float)
-    sharp = ~(var > 1e-12 * mu * mu)
-    lam = np.where(sharp, 1.0, mu**3 / np.where(sharp, 1.0, var))
+    spread = np.isfinite(mu) & np.isfinite(var) & (mu > 0) & (var > 1e-12 * mu * mu)
+    safe_mu = np.where(spread, mu, 1.0)
+    lam = safe_mu**3 / np.where(spread, var, 1.0)
     out = []
     for q in fractions:  # two quantiles
-        t = invgauss.ppf(q, np.where(sharp, 1.0, mu / lam), scale=lam)
-        out.append(np.where(sharp, mu, t))
+        t = invgauss.ppf(q, safe_mu / lam, scale=lam)
+        out.append(np.where(spread, t, mu))
     return out
 
 

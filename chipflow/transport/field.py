@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 
 from chipflow.errors import FieldError
-from chipflow.transport.march import _wall_state
+from chipflow.transport.march import _wall_state, wall_geometry
 from chipflow.transport.species import Species
 
 __all__ = ["FieldTransport", "solve_field_transport", "with_field", "seeded_triangles"]
@@ -190,15 +190,15 @@ def solve_field_transport(
     uptake = np.where(seeded, species.uptake, 0.0)
     ambient = 0.0 if species.ambient is None else species.ambient
     wall = np.full(len(tri), float(roof) if species.ambient is not None else 0.0)
-    xhat = np.full(len(tri), _DEVELOPED)
     hd = h / d
+    rep = lambda a: np.repeat(a[:, None], 3, axis=1).ravel()  # noqa: E731
+    geometry = wall_geometry(np.full(3 * len(tri), _DEVELOPED), rep(hd), rep(wall))
 
     def source(c_vertex):
         """Net flux into the liquid at each (triangle, vertex) [mol/(m^2 s)] and its slope."""
         cv = c_vertex[tri]  # (n, 3)
-        rep = lambda a: np.repeat(a[:, None], 3, axis=1).ravel()  # noqa: E731
         g, dg, cf, _, _ = _wall_state(
-            np.maximum(cv.ravel(), 0.0), rep(xhat), rep(hd), rep(uptake), species.km,
+            np.maximum(cv.ravel(), 0.0), geometry, rep(hd), rep(uptake), species.km,
             rep(wall), ambient,
         )  # fmt: skip
         return g.reshape(-1, 3), dg.reshape(-1, 3), cf.reshape(-1, 3)

@@ -42,7 +42,8 @@ from chipflow.transport.species import Species, floor_concentration, uptake_flux
 from chipflow.transport.transfer import (
     cross_resistance,
     graetz_coordinate,
-    plate_sherwood,
+    plate_limits,
+    robin_sherwood,
     tube_sherwood,
 )
 
@@ -61,7 +62,7 @@ STEPS = 48
 PROFILE_STATIONS = np.linspace(0.0, 1.0, 17)
 #: Flows below this fraction of the largest are stagnant.
 STAGNANT = 1e-12
-_ROBIN_ITERATIONS = 3
+_ROBIN_ITERATIONS = 2
 
 
 @dataclass(frozen=True)
@@ -171,21 +172,29 @@ def _phi1(z: np.ndarray) -> np.ndarray:
     return np.where(small, 1.0 + 0.5 * z, np.expm1(safe) / safe)
 
 
-def _wall_state(cb, xhat, hd, uptake, km, wall, ambient):
+def wall_geometry(xhat, hd, wall) -> tuple[np.ndarray, ...]:
+    """What the transfer at Graetz coordinates ``xhat`` needs whatever the concentration: the
+    floor's flux and concentration Sherwood limits, the cross resistance ``B`` and the roof's
+    resistance ``R_r`` [s/m] (``hd = h / D`` [s/m], ``wall`` the roof conductance [m/s])."""
+    s_flux, s_conc = plate_limits(xhat)
+    roof_r = hd / robin_sherwood(s_flux, s_conc, wall * hd)
+    return s_flux, s_conc, hd * cross_resistance(xhat), roof_r
+
+
+def _wall_state(cb, geometry, hd, uptake, km, wall, ambient):
     """Net flux into the liquid per floor area and its slope in ``cb``, the floor concentration
-    and the floor and roof fluxes, at bulk ``cb`` and Graetz coordinate ``xhat`` (``hd = h/D``)."""
-    cross = hd * cross_resistance(xhat)
-    roof_r = hd / plate_sherwood(xhat, wall * hd)
+    and the floor and roof fluxes, at bulk ``cb`` (``geometry`` from :func:`wall_geometry`)."""
+    s_flux, s_conc, cross, roof_r = geometry
     denom = 1.0 + wall * roof_r
     drive = ambient - cb
     ce = cb - cross * wall * drive / denom
     dce = np.where(ce > 0.0, 1.0 + cross * wall / denom, 0.0)
-    sh = plate_sherwood(xhat, 0.0)
+    shift = cross * cross * wall / denom
+    sh = s_flux
     for _ in range(_ROBIN_ITERATIONS):
-        resistance = hd / sh - cross * cross * wall / denom
-        cf, _ = floor_concentration(ce, resistance, uptake, km)
-        sh = plate_sherwood(xhat, uptake_slope(cf, uptake, km) * hd)
-    resistance = hd / sh - cross * cross * wall / denom
+        cf, _ = floor_concentration(ce, hd / sh - shift, uptake, km)
+        sh = robin_sherwood(s_flux, s_conc, uptake_slope(cf, uptake, km) * hd)
+    resistance = hd / sh - shift
     cf, slope = floor_concentration(ce, resistance, uptake, km)
     # on a dry floor (zero-order uptake faster than transfer) the cells take what arrives
     wet = cf > 0.0
@@ -258,18 +267,23 @@ def march_channels(
     taken = np.zeros(n)
     let_in = np.zeros(n)
 
-    def xhat(s):
-        return graetz_coordinate(s * length, d, shear_rate, depth)
+    # the transfer's geometry at every station and step midpoint, once for the whole march
+    points = np.empty(2 * STEPS + 1)
+    points[0::2], points[1::2] = grid, 0.5 * (grid[1:] + grid[:-1])
+    xhat = graetz_coordinate(np.outer(length, points), d, shear_rate[:, None], depth[:, None])
+    geometry = wall_geometry(xhat, hd[:, None], wall[:, None])
+
+    def at(j):
+        return tuple(g[:, j] for g in geometry)
 
     for k in range(STEPS):  # march steps (the channels are vectorised)
         dx = length * (grid[k + 1] - grid[k])
-        g0, dg0, cf0, _, _ = _wall_state(c, xhat(grid[k]), hd, uptake, km, wall, ambient)
+        g0, dg0, cf0, _, _ = _wall_state(c, at(2 * k), hd, uptake, km, wall, ambient)
         bulk[:, k] = c
         floor[:, k] = c if k == 0 else cf0
         half = c + a * g0 * 0.5 * dx * _phi1(a * dg0 * 0.5 * dx)
-        mid = 0.5 * (grid[k] + grid[k + 1])
         gm, dgm, _, jf, jr = _wall_state(
-            np.maximum(half, 0.0), xhat(mid), hd, uptake, km, wall, ambient
+            np.maximum(half, 0.0), at(2 * k + 1), hd, uptake, km, wall, ambient
         )
         new = np.maximum(c + a * gm * dx * _phi1(a * dgm * dx), 0.0)
         # split the step's change between floor and roof in proportion to their fluxes
@@ -279,7 +293,7 @@ def march_channels(
         taken += width * dx * jf * ratio
         let_in += width * dx * jr * ratio
         c = new
-    _, _, cf_end, _, _ = _wall_state(c, xhat(1.0), hd, uptake, km, wall, ambient)
+    _, _, cf_end, _, _ = _wall_state(c, at(2 * STEPS), hd, uptake, km, wall, ambient)
     bulk[:, -1] = c
     floor[:, -1] = cf_end
     below = np.zeros(n)
@@ -416,8 +430,9 @@ def march_network(channels: ChannelSet, species: Species) -> SpeciesTransport:
         _stagnant(out, stagnant, node, ch, seeded_uptake, wall, species)
 
     moles_in = float(np.sum(ch.port_inflow * species.inlet))
-    leaving = ch.port_outflow > 0
-    moles_out = float(np.sum(ch.port_outflow[leaving] * np.nan_to_num(node[leaving])))
+    # a port that only stagnant channels reach lets (next to) nothing leave
+    leaving = (ch.port_outflow > 0) & np.isfinite(node)
+    moles_out = float(np.sum(ch.port_outflow[leaving] * node[leaving]))
     active_rows = ~stagnant
     taken = float(out["uptake"][active_rows].sum())
     let_in = float(out["wall_influx"][active_rows].sum())

@@ -34,7 +34,7 @@ from chipflow.transport.march import (
     SpeciesTransport,
     march_network,
 )
-from chipflow.transport.oxygen import o2_solubility
+from chipflow.transport.oxygen import INCUBATOR_TEMPERATURE, o2_solubility
 from chipflow.transport.species import Species
 
 __all__ = [
@@ -94,10 +94,16 @@ class TransportRun:
         }
 
 
-def oxygen_species(culture: Culture, temperature: float) -> Species:
-    """Oxygen as the design declares it, at the fluid ``temperature`` [K]: supplied at
-    ``o2_inlet`` (or in equilibrium with the incubator gas), taken up by the cells only when
-    the design declares them."""
+def _kelvin(temperature: float | None) -> float:
+    """The fluid's temperature [K]; a fluid given without one is taken at 37 degC."""
+    return INCUBATOR_TEMPERATURE if temperature is None else float(temperature)
+
+
+def oxygen_species(culture: Culture, temperature: float | None) -> Species:
+    """Oxygen as the design declares it, at the fluid ``temperature`` [K] (None: 37 degC):
+    supplied at ``o2_inlet`` (or in equilibrium with the incubator gas), taken up by the cells
+    only when the design declares them."""
+    temperature = _kelvin(temperature)
     equilibrium = float(o2_solubility(temperature)) * culture.o2_ambient
     supply = equilibrium if culture.o2_inlet is None else culture.o2_inlet
     return Species(
@@ -125,7 +131,7 @@ def channel_set(solution: Solution, culture: Culture, spec: TransportSpec) -> Ch
     net = solution.network
     flow = np.asarray(solution.flow, float)
     forward = flow >= 0
-    h = float(o2_solubility(solution.fluid.temperature))
+    h = float(o2_solubility(_kelvin(solution.fluid.temperature)))
     wall = np.zeros(net.n_channels)
     if spec.roof_permeability > 0 and spec.roof_thickness:
         wall[~net.round] = spec.roof_permeability / (spec.roof_thickness * h)
@@ -305,7 +311,7 @@ def run_transport(
     c0 = _chip_inlet(net, ox)
     seeded = ch.seeded & np.isfinite(ox.floor_min)
     area = ch.floor_area
-    chip = ~ch.round
+    chip = ~ch.round & np.isfinite(ox.floor_min)
     pool = seeded if seeded.any() else chip
     lowest = None
     if pool.any():
@@ -400,7 +406,7 @@ def run_transport(
 def bed_oxygen(
     culture: Culture,
     spec: TransportSpec | None,
-    temperature: float,
+    temperature: float | None,
     flow: float,
     width: float,
     depth: float,
@@ -413,8 +419,8 @@ def bed_oxygen(
     culture : Culture
     spec : TransportSpec or None
         The roof's permeability (None: impermeable).
-    temperature : float
-        [K].
+    temperature : float or None
+        [K] (None: 37 degC).
     flow : float
         [m^3/s].
     width, depth, length : float
@@ -423,7 +429,7 @@ def bed_oxygen(
     from chipflow.physics.duct import flow_state
 
     spec = spec or TransportSpec()
-    h = float(o2_solubility(temperature))
+    h = float(o2_solubility(_kelvin(temperature)))
     wall = 0.0
     if spec.roof_permeability > 0 and spec.roof_thickness:
         wall = spec.roof_permeability / (spec.roof_thickness * h)

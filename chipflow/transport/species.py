@@ -73,10 +73,8 @@ def uptake_flux(floor: np.ndarray, uptake: float | np.ndarray, km: float) -> np.
     """Michaelis-Menten uptake ``V c / (K_m + c)`` [mol/(m^2 s)] at floor concentrations
     ``floor`` [mol/m^3]; zero-order (``km`` = 0) takes ``V`` while ``c > 0``."""
     c = np.maximum(np.asarray(floor, float), 0.0)
-    v = np.asarray(uptake, float)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        frac = np.where(c > 0.0, c / (km + c), 0.0)
-    return v * frac
+    # a dry floor (c = 0) takes nothing: the denominator is kept non-zero there
+    return np.asarray(uptake, float) * (c / (km + c + (c <= 0.0)))
 
 
 def uptake_slope(floor: np.ndarray, uptake: float | np.ndarray, km: float) -> np.ndarray:
@@ -118,9 +116,11 @@ def floor_concentration(
     k = 1.0 / np.asarray(resistance, float)
     b = k * ce - k * km - np.asarray(uptake, float)
     root = np.sqrt(b * b + 4.0 * k * k * ce * km)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        # the two forms of the larger root, each free of cancellation on its side of B = 0
-        cf = np.where(b >= 0.0, (b + root) / (2.0 * k), 2.0 * k * ce * km / (root - b))
-        cf = np.where(np.isfinite(cf), cf, 0.0)
-        slope = np.where(root > 0.0, k * (cf + km) / root, np.where(b > 0.0, 1.0, 0.0))
+    # the two forms of the larger root, each free of cancellation on its side of B = 0
+    negative = b < 0.0
+    cf = np.where(
+        negative, 2.0 * k * ce * km / np.where(negative, root - b, 1.0), (b + root) * (0.5 / k)
+    )
+    live = root > 0.0
+    slope = np.where(live, k * (cf + km) / np.where(live, root, 1.0), np.where(b > 0.0, 1.0, 0.0))
     return np.maximum(cf, 0.0), slope

@@ -63,6 +63,8 @@ __all__ = [
     "TUBE_SH_CONCENTRATION",
     "graetz_coordinate",
     "plate_sherwood",
+    "plate_limits",
+    "robin_sherwood",
     "tube_sherwood",
     "cross_resistance",
 ]
@@ -103,14 +105,26 @@ def _joined(developed: float, leveque: float, xhat: np.ndarray) -> np.ndarray:
     return (developed**_BLEND + (leveque * x ** (-1.0 / 3.0)) ** _BLEND) ** (1.0 / _BLEND)
 
 
+def plate_limits(xhat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Local Sherwood numbers on the depth at Graetz coordinate ``xhat`` at a uniform wall flux
+    and at a uniform wall concentration."""
+    return (
+        _joined(SH_FLUX, LEVEQUE_FLUX, xhat),
+        _joined(SH_CONCENTRATION, LEVEQUE_CONCENTRATION, xhat),
+    )
+
+
+def robin_sherwood(s_flux: np.ndarray, s_conc: np.ndarray, biot) -> np.ndarray:
+    """Between the limits of :func:`plate_limits` for a wall of Biot number ``biot``."""
+    weight = 1.0 / (1.0 + _ROBIN * np.asarray(biot) / s_flux)
+    return weight * s_flux + (1.0 - weight) * s_conc
+
+
 def plate_sherwood(xhat: np.ndarray, biot: np.ndarray) -> np.ndarray:
     """Local Sherwood number on the depth at Graetz coordinate ``xhat`` for a wall whose flux
     changes with its concentration at the rate ``biot = (dJ/dc) h / D`` [-] (0: a uniform flux;
     large: a uniform concentration)."""
-    s_flux = _joined(SH_FLUX, LEVEQUE_FLUX, xhat)
-    s_conc = _joined(SH_CONCENTRATION, LEVEQUE_CONCENTRATION, xhat)
-    weight = 1.0 / (1.0 + _ROBIN * np.asarray(biot) / s_flux)
-    return weight * s_flux + (1.0 - weight) * s_conc
+    return robin_sherwood(*plate_limits(xhat), biot)
 
 
 def tube_sherwood(biot: np.ndarray) -> np.ndarray:
