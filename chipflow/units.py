@@ -471,6 +471,7 @@ RESULT_UNITS: dict[str, str] = {
     "o2_out": "mol/m^3",
     "o2_floor_min": "mol/m^3",
     "o2_supply": "mol/m^3",
+    "o2_inlet": "mol/m^3",
     "o2_chip_inlet": "mol/m^3",
     "o2_equilibrium": "mol/m^3",
     "o2_critical": "mol/m^3",

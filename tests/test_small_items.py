@@ -166,8 +166,8 @@ def test_depth_choice_prefers_the_depth_whose_bed_passes_the_oxygen_checks() -> 
     assert bed.depth == pytest.approx(100e-6)
     # at a fixed residence time the floor is flow x time / depth: the 50 um bed has twice the
     # cells of the 100 um one, which use more oxygen than the flow brings (mass balance:
-    # 2e9 x 4.8e-17 x 120 s / (50 um x 0.202 mol/m^3) = 1.14 of it)
-    assert 2e9 * 4.8e-17 * 120 / (50e-6 * 0.2024) > 1 > 2e9 * 4.8e-17 * 120 / (100e-6 * 0.2024)
+    # 2e9 x 4.8e-17 x 120 s / (50 um x 0.200 mol/m^3) = 1.15 of it)
+    assert 2e9 * 4.8e-17 * 120 / (50e-6 * 0.2) > 1 > 2e9 * 4.8e-17 * 120 / (100e-6 * 0.2)
     checks = {c.name: c for c in build.checks}
     assert checks["hypoxic share of the seeded floor"].status == "pass"
     note = next(w for w in build.results["warnings"] if w.startswith("depth choice"))

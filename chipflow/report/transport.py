@@ -56,8 +56,8 @@ def transport_lines(results: Mapping[str, Any]) -> list[str]:
     lines = []
     if t.get("o2_floor_min") is not None:
         line = (
-            f"oxygen: {t['o2_chip_inlet']:.3g} mol/m^3 at the chip inlet, lowest floor "
-            f"{t['o2_floor_min']:.3g} mol/m^3 ({_where(t.get('lowest'))})"
+            f"oxygen: {t['o2_chip_inlet']:.4g} mol/m^3 at the chip inlet, lowest floor "
+            f"{t['o2_floor_min']:.4g} mol/m^3 ({_where(t.get('lowest'))})"
         )
         if t.get("hypoxic_fraction") is not None:
             line += (

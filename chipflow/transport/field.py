@@ -281,3 +281,44 @@ def with_field(transport, field_solution, layout, seeded: str):
     ft = solve_field_transport(field_solution, species, transport.chip_inlet, tri_seeded, roof)
     results = {**transport.results, "field": ft.to_dict()}
     return dataclasses.replace(transport, results=results, field=ft)
+
+
+def mask_oxygen(
+    solution, cell, temperature: float | None, inlet: float | None = None
+) -> tuple[FieldTransport, dict[str, Any]]:
+    """Oxygen on the field of a mask drawn elsewhere (``chipflow analyse --cell-type``).
+
+    The whole floor carries ``cell`` (a :class:`chipflow.checks.cell_types.CellType`) at the
+    assumed 1e5 cells/cm^2 with its uptake and critical oxygen; the roof is impermeable; the
+    inlet holds ``inlet`` [mol/m^3] (None: in equilibrium with the incubator air at
+    ``temperature`` [K]).
+
+    Returns
+    -------
+    transport : FieldTransport
+    results : dict
+        JSON-able SI values (``o2_inlet``, ``o2_critical``, ``o2_floor_min``,
+        ``hypoxic_fraction``, ``o2_out``, ...).
+    """
+    from chipflow.checks.transport import CELL_DENSITY_DEFAULT
+    from chipflow.spec.culture import O2_CRITICAL_DEFAULT, Culture
+    from chipflow.transport.run import oxygen_species
+
+    culture = Culture(
+        cell_type=cell.name,
+        cells=cell.o2_consumption is not None,
+        cell_density=CELL_DENSITY_DEFAULT,
+        o2_consumption=cell.o2_consumption or 0.0,
+        o2_inlet=inlet,
+        o2_critical=cell.o2_critical if cell.o2_critical is not None else O2_CRITICAL_DEFAULT,
+    )
+    species = oxygen_species(culture, temperature)
+    seeded = np.ones(len(solution.mesh.triangles), bool)
+    ft = solve_field_transport(solution, species, species.inlet, seeded)
+    results = {
+        "o2_inlet": species.inlet,
+        "o2_critical": species.critical,
+        "o2_uptake": species.uptake,
+        **ft.to_dict(),
+    }
+    return ft, results

@@ -5,13 +5,15 @@
   ``(p_atm - p_H2O(37 degC)) x 0.95 x 0.2095`` = 18.9 kPa (142 mmHg), with the standard
   atmosphere ``p_atm`` = 101325 Pa (a definition), the saturation pressure of water from the
   IAPWS-IF97 equation (Wagner et al. 2000) and 20.95 % oxygen in dry air (common practice).
-- **Solubility.** Henry's law ``c = H p`` with ``H`` = 1.3e-5 mol/(m^3 Pa) at 298.15 K and a
-  temperature dependence ``d ln H / d(1/T)`` = 1500 K (R. Sander, Compilation of Henry's law
-  constants (version 5.0.0) for water as solvent, Atmos. Chem. Phys. 23 (2023) 10901-12440,
-  the entry for O2). At 37 degC ``H`` = 1.07e-5 mol/(m^3 Pa), so medium equilibrated with the
-  incubator air holds 0.202 mol/m^3: the "about 0.2 mol/m^3 air-equilibrated" of Sci Rep
-  2017;7:42113, Table 1. Culture medium dissolves a few per cent less oxygen than water (salts
-  and proteins); give ``o2_inlet`` when it is measured.
+- **Solubility.** Henry's law ``c = H p``, with ``H`` from the oxygen solubility of fresh water
+  under one atmosphere of water-saturated air of Benson & Krause (Limnol Oceanogr 29 (1984)
+  620-632; the equation of the standard dissolved-oxygen tables, 0-40 degC):
+  ``H = C* / (0.2095 (p_atm - p_H2O))``. At 37 degC ``C*`` = 6.73 mg/L and
+  ``H`` = 1.056e-5 mol/(m^3 Pa), so medium equilibrated with the incubator air holds
+  0.200 mol/m^3: the "about 0.2 mol/m^3 air-equilibrated" of Sci Rep 2017;7:42113, Table 1.
+  (Sander's compilation, Atmos Chem Phys 23 (2023) 10901, gives 1.3e-5 mol/(m^3 Pa) at 25 degC
+  with 1500 K: 1.07e-5 at 37 degC, within 2 %.) Culture medium dissolves a few per cent less
+  oxygen than water (salts and proteins); give ``o2_inlet`` when it is measured.
 - **PDMS.** Oxygen permeability of poly(dimethylsiloxane) about 800 Barrer at 35 degC
   (Merkel, Bondar, Nagai, Freeman & Pinnau, J Polym Sci B 38 (2000) 415-434; from memory,
   medium confidence), 1 Barrer = 3.346e-16 mol/(m s Pa) (1e-10 cm^3(STP) cm / (cm^2 s cmHg)).
@@ -23,7 +25,7 @@ Examples
 >>> round(incubator_o2_pressure())                 # Pa, 37 degC, 5 % CO2, humidified
 18916
 >>> round(float(o2_solubility(310.15)) * incubator_o2_pressure(), 4)   # mol/m^3
-0.2024
+0.1997
 """
 
 from __future__ import annotations
@@ -42,6 +44,7 @@ __all__ = [
     "PDMS_O2_SOURCE",
     "AMBIENT_SOURCE",
     "SOLUBILITY_SOURCE",
+    "O2_MOLAR_MASS",
     "water_vapour_pressure",
     "o2_solubility",
     "incubator_o2_pressure",
@@ -70,8 +73,11 @@ AMBIENT_SOURCE = (
     "x 0.95 x 0.2095"
 )
 SOLUBILITY_SOURCE = (
-    "Henry's law, O2 in water 1.3e-5 mol/(m^3 Pa) at 25 degC, 1500 K (Sander, Atmos Chem Phys 2023)"
+    "oxygen solubility of fresh water, Benson & Krause, Limnol Oceanogr 1984 (the standard "
+    "dissolved-oxygen tables)"
 )
+#: Molar mass of O2 [g/mol].
+O2_MOLAR_MASS = 31.9988
 
 # IAPWS-IF97 region 4 (saturation line) coefficients n1..n10 (Wagner et al., J Eng Gas
 # Turbines Power 122 (2000) 150-182, Table 34)
@@ -87,10 +93,9 @@ _IF97 = (
     -0.23855557567849,
     0.65017534844798e3,
 )
-# Henry's law constant of O2 in water (Sander 2023): value at 298.15 K [mol/(m^3 Pa)] and
-# d ln H / d(1/T) [K]
-_H_298 = 1.3e-5
-_H_SLOPE = 1500.0
+# Benson & Krause (1984): ln C* [mg/L] = a0 + a1/T + a2/T^2 + a3/T^3 + a4/T^4 under 1 atm of
+# water-saturated air
+_BENSON_KRAUSE = (-139.34411, 1.575701e5, -6.642308e7, 1.243800e10, -8.621949e11)
 
 
 def water_vapour_pressure(temperature: float) -> float:
@@ -111,11 +116,15 @@ def water_vapour_pressure(temperature: float) -> float:
 
 
 def o2_solubility(temperature: float | np.ndarray) -> float | np.ndarray:
-    """Henry's law solubility of oxygen in water ``c / p`` [mol/(m^3 Pa)] at ``temperature`` [K].
-
-    ``H(T) = 1.3e-5 exp(1500 (1/T - 1/298.15))`` (Sander 2023, see the module notes).
-    """
-    return _H_298 * np.exp(_H_SLOPE * (1.0 / np.asarray(temperature, float) - 1.0 / 298.15))
+    """Henry's law solubility of oxygen in water ``c / p`` [mol/(m^3 Pa)] at ``temperature``
+    [K]: Benson & Krause's (1984) saturation concentration under one atmosphere of humid air
+    over the oxygen partial pressure it stands for (see the module notes; fitted over
+    0-40 degC)."""
+    t = np.asarray(temperature, float)
+    a = _BENSON_KRAUSE
+    saturated = np.exp(a[0] + a[1] / t + a[2] / t**2 + a[3] / t**3 + a[4] / t**4)  # mg/L
+    p_w = np.vectorize(water_vapour_pressure)(t)
+    return saturated / O2_MOLAR_MASS / (O2_IN_DRY_AIR * (STANDARD_ATMOSPHERE - p_w))
 
 
 def incubator_o2_pressure(
