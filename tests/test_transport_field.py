@@ -13,7 +13,7 @@ from chipflow.build import build_design
 from chipflow.field import FieldPort, FieldRegion, solve_field
 from chipflow.physics.duct import flow_state
 from chipflow.transport.field import solve_field_transport
-from chipflow.transport.march import PROFILE_STATIONS, march_channels, wall_geometry, _wall_state
+from chipflow.transport.march import PROFILE_STATIONS, _wall_state, march_channels, wall_geometry
 from chipflow.transport.species import Species
 
 L, W, H, MU, D, C0 = 10e-3, 400e-6, 100e-6, 1e-3, 3e-9, 0.2

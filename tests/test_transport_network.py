@@ -30,8 +30,11 @@ def tree(levels: int = 3, *, tubing: bool = True):
         for k, node in enumerate(ends):
             for side in "ab":
                 child = f"d{g}{k}{side}"
-                b.channel(f"c{child}", node, child, width=400e-6 / 2**g, depth=50e-6,
-                          length=3e-3, generation=g, role="distribution" if g else "bed")  # fmt: skip
+                role = "distribution" if g else "bed"
+                b.channel(
+                    f"c{child}", node, child, width=400e-6 / 2**g, depth=50e-6, length=3e-3,
+                    generation=g, role=role,
+                )  # fmt: skip
                 nxt.append(child)
         ends = nxt
     for k, node in enumerate(ends):
