@@ -87,6 +87,9 @@ def culture_checks(
 ) -> list[CheckResult]:
     """Checks of what the cells feel and get.
 
+    Every channel of the network, tubing included and with or without a generation, is checked
+    for laminar flow and entrance length; the oxygen checks are in :func:`transport_checks`.
+
     Parameters
     ----------
     solution : Solution
@@ -108,9 +111,6 @@ def culture_checks(
         Which wall shear ``targets`` limits: "floor", "mean" or "max".
     target_levels : str, optional
         Where ``targets`` applies: "all" levels or only the "bed".
-
-    Every channel of the network, tubing included and with or without a generation, is checked
-    for laminar flow and entrance length. The oxygen checks are :func:`transport_checks`.
     """
     net = solution.network
     out: list[CheckResult] = []
