@@ -14,15 +14,16 @@ Discretisation: linear (P1) concentration on the mesh vertices, the advection in
 form with the flow's own discrete fluxes (the mean of the quadratic velocity over each
 triangle, which satisfies the flow solve's continuity exactly against every linear test
 function, so moles are conserved to the solver's precision), stabilised by streamline upwind
-Petrov-Galerkin (SUPG: Brooks & Hughes, Comput Methods Appl Mech Eng 32 (1982) 199) with
+Petrov-Galerkin (SUPG [Brooks1982]_) with
 the optimal upwind weight ``coth(Pe) - 1/Pe`` of the element Peclet number, uptake and
 permeation lumped at the vertices and solved by Newton's method. The inlet port holds the
 oxygen that reaches the chip; the outlet lets it leave with the flow.
 
 References
 ----------
-.. [1] A. N. Brooks and T. J. R. Hughes, "Streamline upwind/Petrov-Galerkin formulations for
-   convection dominated flows", Comput. Methods Appl. Mech. Eng. 32 (1982) 199-259.
+.. [Brooks1982] A. N. Brooks and T. J. R. Hughes, "Streamline upwind/Petrov-Galerkin
+   formulations for convection dominated flows", Comput. Methods Appl. Mech. Eng. 32 (1982)
+   199-259.
 """
 
 from __future__ import annotations

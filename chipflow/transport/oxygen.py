@@ -99,11 +99,12 @@ _BENSON_KRAUSE = (-139.34411, 1.575701e5, -6.642308e7, 1.243800e10, -8.621949e11
 
 
 def water_vapour_pressure(temperature: float) -> float:
-    """Saturation pressure of water [Pa] at ``temperature`` [K] (IAPWS-IF97, 273.15-647.1 K).
+    """Saturation pressure of water [Pa] at ``temperature`` [K] (IAPWS-IF97 [IF97]_,
+    273.15-647.1 K).
 
     References
     ----------
-    .. [1] W. Wagner et al., "The IAPWS industrial formulation 1997 for the thermodynamic
+    .. [IF97] W. Wagner et al., "The IAPWS industrial formulation 1997 for the thermodynamic
        properties of water and steam", J. Eng. Gas Turbines Power 122 (2000) 150-182, eq. 30.
     """
     n = _IF97
