@@ -89,9 +89,9 @@ ARIS_TABLE = (
 def aris_factor(aspect: float, *, terms: int = 80) -> float:
     """``f`` of a rectangular duct of ``aspect`` = short side / long side, from Aris's cell
     problem [Aris1956]_: ``K - D = (1/D) sum a_mn^2 <phi_mn^2> / lambda_mn`` over the Neumann
-    eigenfunctions ``phi_mn = cos(m pi y / w) cos(n pi z / h)`` of the section, ``a_mn`` the coefficients of
-    ``u / U - 1`` (the exact duct velocity of Bruus 2008, by Gauss-Legendre quadrature), in units
-    of ``U^2 h^2 / (210 D)``.
+    eigenfunctions ``phi_mn = cos(m pi y / w) cos(n pi z / h)`` of the section, ``a_mn`` the
+    coefficients of ``u / U - 1`` (the exact duct velocity of Bruus 2008, by Gauss-Legendre
+    quadrature), in units of ``U^2 h^2 / (210 D)``.
 
     References
     ----------
