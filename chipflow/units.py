@@ -507,6 +507,8 @@ RESULT_UNITS: dict[str, str] = {
     "tubing_t90": "s",
     "tubing_share": "1",
     "waves": "1",
+    "stagnant": "1",
+    "residual": "1",
     # per-channel extremes of a level
     "flow_min": "m^3/s",
     "flow_max": "m^3/s",
