@@ -32,7 +32,7 @@ import numpy as np
 from chipflow.checks import CheckResult, fabrication_results, worst_status
 from chipflow.checks.cell_types import ShearWindow
 from chipflow.checks.culture import check_floor_outside
-from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks
+from chipflow.checks.suite import bed_grader, culture_checks, pressure_checks, transport_checks
 from chipflow.design.model import TreeDesign
 from chipflow.design.sizing import size_tree
 from chipflow.errors import ChipflowError, SpecError
@@ -51,7 +51,9 @@ from chipflow.spec.operation import read_tree_operation
 from chipflow.spec.reader import Table, parse_design_text
 from chipflow.spec.supply import AUTO_PRESSURE_LABEL, SupplySpec, read_supply
 from chipflow.spec.tolerances import read_tolerances
+from chipflow.spec.transport import read_transport
 from chipflow.spec.tree import load_tree_spec
+from chipflow.transport.run import run_transport
 from chipflow.units import RESULT_UNITS
 
 __all__ = [
@@ -143,6 +145,9 @@ class Build:
         was not run).
     operation : Operation or None
         Time-varying operation: pulsation, draining, rocking, wall deformation.
+    transport : TransportRun or None
+        Oxygen and solutes along the channels, the dosing delay (and, with the field, the
+        oxygen map): :func:`chipflow.transport.run_transport`.
     """
 
     source: DesignSource
@@ -157,6 +162,7 @@ class Build:
     results: dict[str, Any] = dataclasses.field(repr=False)
     field: Any = dataclasses.field(default=None, repr=False)
     operation: Operation | None = dataclasses.field(default=None, repr=False)
+    transport: Any = dataclasses.field(default=None, repr=False)
 
     @property
     def status(self) -> str:
@@ -250,6 +256,7 @@ def _build_tree(
     chip, port_keepout = read_chip(top)
     export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
     read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
+    transport_spec = read_transport(top)
     progress("size")
     grade = bed_grader(
         culture,
@@ -257,6 +264,8 @@ def _build_tree(
         2**spec.generations,
         spec.bed.residence_time,
         spec.bed.length,
+        transport=transport_spec,
+        temperature=spec.fluid.temperature,
     )
     design = size_tree(spec, bed_grade=grade)
     check_size(sum(level.count for level in design.levels), allow_large=allow_large)
@@ -294,6 +303,8 @@ def _build_tree(
     operation = operate(
         timing, solution, generations, window, culture.seeded, feed, drain, limits, soft=soft
     )
+    progress("transport")
+    transport = run_transport(solution, culture, transport_spec)
     checks = (
         *culture_checks(
             solution,
@@ -306,6 +317,7 @@ def _build_tree(
             target_levels=spec.targets.levels,
             oscillating=operation.oscillating,
         ),
+        *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
         *fabrication_results(findings),
@@ -342,6 +354,8 @@ def _build_tree(
             flow_driven=supply.inlet.kind == "flow",
         )
     results["field"] = None if field_run is None else field_run.results
+    if field_run is not None:
+        transport = _field_transport(transport, field_run, layout, culture, progress)
     if field_run is not None and window is not None:
         # the field's map of the seeded floor is a check too, so the verdict counts it
         checks = (
@@ -356,6 +370,7 @@ def _build_tree(
         )
         results["checks"] = [c.to_dict() for c in checks]
         results["status"] = worst_status(checks)
+    results["transport"] = transport.results
     return Build(
         source,
         spec.name,
@@ -369,6 +384,7 @@ def _build_tree(
         results,
         field_run,
         operation,
+        transport,
     )
 
 
@@ -396,15 +412,19 @@ def nominal_tree(source: DesignSource) -> tuple[TreeDesign, Solution, dict[str, 
     solution = solve_tree(design)
     generations = level_rows(solution)
     targets = _targets_window(spec)
-    checks = culture_checks(
-        solution,
-        generations,
-        culture,
-        culture.window,
-        culture.residence_time or spec.bed.residence_time,
-        targets=targets,
-        target_kind=spec.targets.kind,
-        target_levels=spec.targets.levels,
+    transport = run_transport(solution, culture, read_transport(top))
+    checks = (
+        *culture_checks(
+            solution,
+            generations,
+            culture,
+            culture.window,
+            culture.residence_time or spec.bed.residence_time,
+            targets=targets,
+            target_kind=spec.targets.kind,
+            target_levels=spec.targets.levels,
+        ),
+        *transport_checks(transport),
     )
     supply = {"mode": "the design flow into the trunk (nominal tree: no supply or tubing)"}
     results = _results(
@@ -419,7 +439,19 @@ def nominal_tree(source: DesignSource) -> tuple[TreeDesign, Solution, dict[str, 
         culture.window or targets,
     )
     results["warnings"] = list(design.warnings)
+    results["transport"] = transport.results
     return design, solution, results
+
+
+def _field_transport(transport, field_run, layout, culture, progress: Progress):
+    """The oxygen map on the field mesh, where there is something to map (cells, or oxygen
+    through the roof)."""
+    if not (transport.cells or transport.results["roof_conductance"] > 0):
+        return transport
+    from chipflow.transport.field import with_field
+
+    progress("oxygen field")
+    return with_field(transport, field_run.solution, layout, culture.seeded)
 
 
 def _targets_window(spec) -> ShearWindow | None:
@@ -439,11 +471,14 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     top = source.top
     design = load_network_design(top)
     culture, limits = read_culture(top), read_limits(top)
+    transport_spec = read_transport(top)
     progress("solve")
     soft = solve_operating_point(
         design.operation.walls, design.network, design.fluid, design.pressures, design.flows
     )
     solution = soft.solution
+    progress("transport")
+    transport = run_transport(solution, culture, transport_spec)
     progress("check")
     generations = level_rows(solution)
     operation = operate(
@@ -464,6 +499,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
             culture.residence_time,
             oscillating=operation.oscillating,
         ),
+        *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
     )
@@ -490,6 +526,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     results["fabrication"] = None
     results["warnings"] = []
     results["field"] = None
+    results["transport"] = transport.results
     return Build(
         source,
         design.name,
@@ -502,6 +539,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         None,
         results,
         operation=operation,
+        transport=transport,
     )
 
 

@@ -84,6 +84,10 @@ def _registry() -> pint.UnitRegistry:
 #: The one unit registry of chipflow. Offset temperatures ("37 degC") convert on their own.
 ureg = _registry()
 ureg.define("cell = [] = cells")
+# gas permeability of membranes: 1e-10 cm^3(STP) cm / (cm^2 s cmHg), 22414 cm^3/mol at STP
+ureg.define(
+    "barrer = 1e-10 * (1e-6 / 22.414e-3) * 1e-2 / (1e-4 * 1333.22) mol / (m * s * Pa) = Barrer"
+)
 
 
 @dataclass(frozen=True)
@@ -127,6 +131,7 @@ KINDS: dict[str, Kind] = {
     "volume": Kind("volume", "m**3", "2 uL"),
     "angle": Kind("angle", "radian", "10 deg"),
     "compliance": Kind("hydraulic compliance", "m**3/Pa", "1e-15 m^3/Pa"),
+    "permeability": Kind("gas permeability", "mol/(m*s*Pa)", "800 barrer"),
     "dimensionless": Kind("plain number", "dimensionless", "0.5"),
 }
 
@@ -466,6 +471,48 @@ RESULT_UNITS: dict[str, str] = {
     "time": "s",
     "heads": "m",
     "head_difference": "m",
+    # transport (results["transport"], channels.csv)
+    "o2_in": "mol/m^3",
+    "o2_out": "mol/m^3",
+    "o2_floor_min": "mol/m^3",
+    "o2_supply": "mol/m^3",
+    "o2_inlet": "mol/m^3",
+    "o2_chip_inlet": "mol/m^3",
+    "o2_equilibrium": "mol/m^3",
+    "o2_critical": "mol/m^3",
+    "o2_ambient": "Pa",
+    "o2_km": "mol/m^3",
+    "o2_diffusivity": "m^2/s",
+    "o2_uptake": "mol/(m^2*s)",
+    "o2_used": "mol/s",
+    "o2_delivered": "mol/s",
+    "o2_used_fraction": "1",
+    "roof_influx": "mol/s",
+    "roof_conductance": "m/s",
+    "tubing_conductance": "m/s",
+    "peclet": "1",
+    "damkohler": "1",
+    "hypoxic_fraction": "1",
+    "diffusion_time": "s",
+    "oxygen_use_fraction": "1",
+    "stations": "1",
+    "bulk": "mol/m^3",
+    "floor": "mol/m^3",
+    "floor_lowest": "mol/m^3",
+    "diffusivity": "m^2/s",
+    "inlet_concentration": "mol/m^3",
+    "uptake_per_cell": "mol/s",
+    "km": "mol/m^3",
+    "c_in": "mol/m^3",
+    "c_out": "mol/m^3",
+    "c_floor_min": "mol/m^3",
+    "t50": "s",
+    "t90": "s",
+    "tubing_t50": "s",
+    "tubing_t90": "s",
+    "tubing_share": "1",
+    "waves": "1",
+    "stagnant": "1",
     # per-channel extremes of a level
     "flow_min": "m^3/s",
     "flow_max": "m^3/s",

@@ -24,10 +24,13 @@ def test_absent_sections_give_cited_defaults():
     top = parse_design_text('name = "x"', "chip.toml")
     c, lim = read_culture(top), read_limits(top)
     assert c.window is None and c.cell_type is None and c.seeded == "bed"
-    # 1e5 cells/cm^2 = 1e9 cells/m^2 (assumed); Sci Rep 2017;7:42113 Table 1: 0.2 mol/m^3,
-    # 3e-9 m^2/s; hepatocyte uptake 4.8e-17 mol/s as the cautious default.
+    # 1e5 cells/cm^2 = 1e9 cells/m^2 (assumed); Sci Rep 2017;7:42113 Table 1: 3e-9 m^2/s,
+    # K_m 7.39e-3 mol/m^3; hepatocyte uptake 4.8e-17 mol/s as the cautious default; the inlet
+    # in equilibrium with the incubator (None: worked out at the fluid's temperature), whose
+    # oxygen is (101325 Pa - 6282 Pa water vapour at 37 degC) x 0.95 x 0.2095 = 18.9 kPa
     assert c.cell_density == pytest.approx(1e9) and "assumption" in c.cell_density_source
-    assert (c.o2_inlet, c.o2_diffusivity) == (0.2, 3e-9)
+    assert (c.o2_inlet, c.o2_diffusivity, c.o2_km) == (None, 3e-9, 7.39e-3)
+    assert c.o2_ambient == pytest.approx((101325 - 6282) * 0.95 * 0.2095, rel=1e-4)
     assert c.o2_consumption == DEFAULT_O2_CONSUMPTION == 4.8e-17
     assert not c.cells  # no cells declared: no oxygen check
     # Duffy et al. 1998 (from memory): 200 kPa low end; safety factor 2 (ours); no pump.

@@ -56,6 +56,15 @@ CUSTOM_WALLS = {
     **PERISTALTIC,
 }
 WAVEFORM = str(ROOT / "tests" / "data" / "pump_period.csv")
+SOLUTE = {"name": "glucose", "diffusivity": "6.7e-10 m^2/s", "inlet": "5.5 mol/m^3",
+          "uptake": "1e-16 mol/s", "km": "0.5 mol/m^3"}  # fmt: skip
+SOLUTES = {"solutes": [SOLUTE]}
+POROUS_TUBING = {
+    "supply": {
+        "tubing_outer_diameter": "2 mm", "tubing_modulus": "2 MPa",
+        "tubing_o2_permeability": "100 barrer",
+    }
+}  # fmt: skip
 
 # (section, key): (context changes, the change, what shows it)
 #   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
@@ -172,6 +181,24 @@ CASES = {
         {"culture": {"outside_window_limit": "10 %"}},
         "build",
     ),
+    ("culture", "o2_km"): ({}, {"culture": {"o2_km": "1e-3 mol/m^3"}}, "build"),
+    ("culture", "o2_ambient"): ({}, {"culture": {"o2_ambient": "15 kPa"}}, "build"),
+    ("culture", "o2_critical"): ({}, {"culture": {"o2_critical": "0.05 mol/m^3"}}, "build"),
+    ("supply", "tubing_o2_permeability"): (
+        POROUS_TUBING,
+        {"supply": {"tubing_o2_permeability": "800 barrer"}},
+        "build",
+    ),
+    ("walls", "o2_permeability"): (WALLS, {"walls": {"o2_permeability": "100 barrer"}}, "build"),
+    ("solutes", "name"): (SOLUTES, {"solutes": [{**SOLUTE, "name": "lactate"}]}, "build"),
+    ("solutes", "diffusivity"): (
+        SOLUTES,
+        {"solutes": [{**SOLUTE, "diffusivity": "5e-10 m^2/s"}]},
+        "build",
+    ),
+    ("solutes", "inlet"): (SOLUTES, {"solutes": [{**SOLUTE, "inlet": "25 mol/m^3"}]}, "build"),
+    ("solutes", "uptake"): (SOLUTES, {"solutes": [{**SOLUTE, "uptake": "3e-16 mol/s"}]}, "build"),
+    ("solutes", "km"): (SOLUTES, {"solutes": [{**SOLUTE, "km": "0.1 mol/m^3"}]}, "build"),
     ("fabrication", "depths"): ({}, {"fabrication": {"depths": ["60 um"]}}, "build"),
     ("fabrication", "grid"): ({}, {"fabrication": {"grid": "5 um"}}, "build"),
     ("fabrication", "min_feature"): ({}, {"fabrication": {"min_feature": "40 um"}}, "build"),

@@ -57,6 +57,8 @@ _ROW_KEYS = (
     "confidence",
     "o2_consumption",
     "o2_source",
+    "o2_critical",
+    "o2_critical_source",
     "aliases",
     "oscillatory_shear_min",
     "oscillatory_shear_max",
@@ -150,6 +152,10 @@ class CellType:
         Oxygen uptake per cell [mol/s], when known.
     o2_source : str
         Citation of ``o2_consumption`` ("" when unknown).
+    o2_critical : float or None
+        Floor oxygen below which the cells count as hypoxic [mol/m^3], when known.
+    o2_critical_source : str
+        Citation of ``o2_critical`` ("" when unknown).
     aliases : tuple of str
         Other names the row is found by (e.g. ``HUVEC`` for ``endothelial``).
     """
@@ -164,6 +170,8 @@ class CellType:
     o2_source: str = ""
     aliases: tuple[str, ...] = ()
     oscillatory: tuple[float, float, str] | None = None
+    o2_critical: float | None = None
+    o2_critical_source: str = ""
 
     def window(self) -> ShearWindow:
         """The cited shear window of this cell type (with its oscillatory window, if any)."""
@@ -211,6 +219,10 @@ def parse_cell_types(
         o2_source = row.string("o2_source", "")
         if o2 is not None and not o2_source.strip():
             raise row.error("o2_source", "an oxygen uptake needs its citation")
+        critical = row.quantity("o2_critical", "concentration", None)
+        critical_source = row.string("o2_critical_source", "")
+        if critical is not None and not critical_source.strip():
+            raise row.error("o2_critical_source", "a critical oxygen needs its citation")
         aliases = data[name].get("aliases", [])
         if not isinstance(aliases, list) or not all(isinstance(a, str) for a in aliases):
             raise row.error("aliases", 'expected a list of names, e.g. ["HUVEC"]')
@@ -225,6 +237,8 @@ def parse_cell_types(
             o2_source,
             tuple(aliases),
             _oscillatory(row),
+            critical,
+            critical_source,
         )
     return rows
 

@@ -1,7 +1,8 @@
 """Which checks a build runs, from its solved network, its per-level rows and the design.
 
 :func:`culture_checks` grades what the cells feel and get (floor shear per generation, bed
-residence time, oxygen diffusion and supply, even perfusion, laminar flow, entrance length);
+residence time, even perfusion, laminar flow, entrance length); :func:`transport_checks` the
+oxygen their floor sees and the dosing delay (from :func:`chipflow.transport.run_transport`);
 :func:`pressure_checks` what the chip and the pump must hold. Each check function of this
 package is pure; this module only chooses them and feeds them.
 """
@@ -20,15 +21,16 @@ from chipflow.checks.flow import check_entrance_length, check_reynolds, check_un
 from chipflow.checks.pressure import check_bond_pressure, check_pump_pressure
 from chipflow.checks.result import CheckResult
 from chipflow.checks.transport import (
-    check_oxygen_diffusion,
-    check_oxygen_supply,
+    check_dosing,
+    check_floor_oxygen,
+    check_hypoxic_share,
     check_residence_time,
 )
 from chipflow.network import Solution
 from chipflow.network.summary import generation_labels, port_pressure_range
 from chipflow.spec.culture import Culture, Limits
 
-__all__ = ["culture_checks", "pressure_checks", "bed_grader"]
+__all__ = ["culture_checks", "transport_checks", "pressure_checks", "bed_grader"]
 
 
 class _ChannelLabels:
@@ -90,6 +92,9 @@ def culture_checks(
 ) -> list[CheckResult]:
     """Checks of what the cells feel and get.
 
+    Every channel of the network, tubing included and with or without a generation, is checked
+    for laminar flow and entrance length; the oxygen checks are in :func:`transport_checks`.
+
     Parameters
     ----------
     solution : Solution
@@ -117,8 +122,8 @@ def culture_checks(
         operation checks them instead, :func:`chipflow.operation.operate`).
 
     Every channel of the network, tubing included and with or without a generation, is checked
-    for laminar flow and entrance length; the oxygen checks run only where the design declares
-    cells (``culture.cells``).
+    for laminar flow and entrance length. The oxygen checks are
+    :func:`transport_checks` (they need the species solved along the network).
     """
     net = solution.network
     out: list[CheckResult] = []
@@ -138,22 +143,6 @@ def culture_checks(
         of_bed: list[CheckResult] = []
         if residence_target is not None:
             of_bed.append(check_residence_time(bed["residence_time"], residence_target))
-        if culture.cells:
-            of_bed.append(
-                check_oxygen_diffusion(bed["depth"], bed["residence_time"], culture.o2_diffusivity)
-            )
-            area = sum(rows[i]["count"] * rows[i]["width"] * rows[i]["length"] for i in seeded)
-            of_bed.append(
-                check_oxygen_supply(
-                    max(r["flow_total"] for r in rows),
-                    area,
-                    culture.cell_density,
-                    culture.o2_consumption,
-                    culture.o2_inlet,
-                    consumption_source=culture.o2_consumption_source,
-                    density_source=culture.cell_density_source,
-                )
-            )
         of_bed.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
         out += [replace(r, level=label) for r in of_bed]
     if net.n_channels:
@@ -170,19 +159,54 @@ def culture_checks(
     return out
 
 
+def _place(entry: dict[str, Any] | None) -> str:
+    if not entry:
+        return ""
+    generation = entry.get("generation", -1)
+    level = f"{entry['role']} generation {generation}" if generation >= 0 else entry["role"]
+    return f"channel {entry['channel']}, {level}"
+
+
+def transport_checks(run) -> list[CheckResult]:
+    """The oxygen the seeded floor sees (where the design declares cells) and the dosing delay.
+
+    Parameters
+    ----------
+    run : chipflow.transport.TransportRun
+    """
+    res = run.results
+    out: list[CheckResult] = []
+    if run.cells and res["hypoxic_fraction"] is not None:
+        where = _place(res["lowest"])
+        critical, source = res["o2_critical"], res["o2_critical_source"]
+        out.append(check_hypoxic_share(res["hypoxic_fraction"], critical, source, where))
+        out.append(check_floor_oxygen(res["o2_floor_min"], critical, source, where))
+    slowest = res["dosing"]["slowest"]
+    if slowest is not None and np.isfinite(slowest["t90"]):
+        out.append(
+            check_dosing(slowest["t50"], slowest["t90"], slowest["tubing_t50"], _place(slowest))
+        )
+    return out
+
+
 def bed_grader(
     culture: Culture,
     total_flow: float,
     bed_count: int,
     residence_time: float | None,
     bed_length: float | None,
+    *,
+    transport=None,
+    temperature: float | None = None,
 ):
     """A ``bed_grade(depth, width) -> (fails, warnings, reason)`` for the depth choice of
-    :func:`chipflow.design.sizing.size_tree`: the bed's oxygen checks at that geometry.
+    :func:`chipflow.design.sizing.size_tree`: the build's oxygen checks on one bed channel.
 
     The bed's residence time is the design's (its length follows from it), or follows from
-    a given ``bed_length`` [m]; its floor area is ``count * width * length``. The checks are
-    the build's own :func:`check_oxygen_diffusion` and :func:`check_oxygen_supply`.
+    a given ``bed_length`` [m]. One bed channel, fed at the supply's oxygen, is marched by the
+    1D transport of the build (:func:`chipflow.transport.run.bed_oxygen`) and graded by the
+    build's own :func:`check_hypoxic_share` and :func:`check_floor_oxygen`; without cells
+    there is nothing to grade.
 
     Parameters
     ----------
@@ -193,35 +217,39 @@ def bed_grader(
         Number of bed channels.
     residence_time, bed_length : float or None
         The bed's residence time [s] or length [m] (one of them).
+    transport : TransportSpec, optional
+        The roof's gas permeability (none: an impermeable roof).
+    temperature : float or None
+        Fluid temperature [K] (None: 37 degC).
 
     Examples
     --------
-    Endothelial-like defaults; at 100 um the oxygen needs (1e-4)^2 / (2 * 3e-9) = 1.67 s to
-    cross the depth (Einstein 1905), longer than a 1 s residence time:
+    Hepatocytes (4.8e-17 mol/s each, Sci Rep 2017) at 2e5 cells/cm^2 under an impermeable roof,
+    16 bed channels sharing 2 uL/min for 120 s: at the same residence time a 50 um bed has
+    three times the floor of a 150 um one (floor = flow x time / depth), and its cells use
+    more oxygen than the flow brings:
 
     >>> from chipflow.spec.culture import Culture
-    >>> grade = bed_grader(Culture(), 50e-9 / 60, 16, 1.0, None)
-    >>> grade(100e-6, 400e-6)[:2], grade(50e-6, 400e-6)[:2]
-    ((1, 0), (0, 0))
+    >>> cells = Culture(cells=True, cell_density=2e9, o2_critical=0.02)
+    >>> grade = bed_grader(cells, 2e-9 / 60, 16, 120.0, None)
+    >>> grade(150e-6, 600e-6)[:2], grade(50e-6, 600e-6)[:2]
+    ((0, 0), (1, 1))
     """
+    from functools import lru_cache
 
+    from chipflow.transport.run import bed_oxygen
+
+    @lru_cache(maxsize=256)
     def grade(depth: float, width: float) -> tuple[int, int, str]:
+        if not culture.cells:
+            return 0, 0, "no cells are declared"
         q = total_flow / bed_count
-        if residence_time is not None:
-            t = residence_time
-            length = t * q / (width * depth)
-        else:
-            length = bed_length
-            t = length * width * depth / q
+        length = residence_time * q / (width * depth) if residence_time is not None else bed_length
+        ox = bed_oxygen(culture, transport, temperature, q, width, depth, length)
+        critical, source = culture.o2_critical, culture.o2_critical_source
         results = [
-            check_oxygen_diffusion(depth, t, culture.o2_diffusivity),
-            check_oxygen_supply(
-                total_flow,
-                bed_count * width * length,
-                culture.cell_density,
-                culture.o2_consumption,
-                culture.o2_inlet,
-            ),
+            check_hypoxic_share(float(ox.below_critical[0]), critical, source),
+            check_floor_oxygen(float(ox.floor_min[0]), critical, source),
         ]
         bad = [r for r in results if r.status != "pass"]
         reason = "; ".join(f"{r.name} would {r.status}: {r.message}" for r in bad)

@@ -1,4 +1,14 @@
-"""Transport in the culture bed: residence time, oxygen diffusion and oxygen supply.
+"""Transport in the culture bed: residence time, floor oxygen, hypoxic share, dosing delay.
+
+The oxygen checks of a build grade what the 1D transport of :mod:`chipflow.transport` finds on
+the seeded floor: :func:`check_hypoxic_share` (the share of the seeded floor below the cells'
+critical oxygen), :func:`check_floor_oxygen` (the lowest floor oxygen against that value) and
+:func:`check_dosing` (the time a step change at the pump takes to reach the bed, as
+information). :func:`check_oxygen_diffusion` and :func:`check_oxygen_supply` are the lumped
+estimates of earlier versions (diffusion time across the depth against the residence time; the
+share of the inlet oxygen the cells would use at the inlet concentration); builds report their
+numbers as context (``transport.context`` in results.json) but no longer grade them: a bed can
+pass both while its downstream floor is hypoxic.
 
 Defaults and thresholds
 -----------------------
@@ -11,6 +21,13 @@ Defaults and thresholds
   25 % warns; diffusion time up to half the residence time passes and up to the whole of it
   warns; oxygen use up to 50 % of the inlet oxygen passes and up to 100 % warns (beyond 100 %
   the flow cannot deliver what the cells consume).
+- Hypoxic share (chipflow's own limits): none of the seeded floor below the critical oxygen
+  passes; any warns; more than 10 % fails. A tenth of the cells short of oxygen is a zone large
+  enough to change what the whole culture reports (viability, metabolism, gene expression), and
+  the model's floor oxygen is uncertain by more than its 2 % numerical error (the uptake per
+  cell alone varies several-fold between cultures).
+- Lowest floor oxygen: passes at or above twice the critical value, warns below (the same
+  uncertainty of the uptake; below the critical value the hypoxic share says how much).
 
 Examples
 --------
@@ -38,6 +55,11 @@ __all__ = [
     "check_residence_time",
     "check_oxygen_diffusion",
     "check_oxygen_supply",
+    "check_hypoxic_share",
+    "check_floor_oxygen",
+    "check_dosing",
+    "HYPOXIC_FAIL_SHARE",
+    "FLOOR_O2_MARGIN",
 ]
 
 #: Oxygen diffusivity in water at 37 C [m^2/s] (Sci Rep 2017;7:42113, Table 1).
@@ -54,6 +76,10 @@ DIFFUSION_WARN_RATIO = 0.5
 #: Fractions of inlet oxygen used above which the supply check warns / fails (chipflow's own).
 O2_WARN_FRACTION = 0.5
 O2_FAIL_FRACTION = 1.0
+#: Share of the seeded floor below the critical oxygen above which the check fails (ours).
+HYPOXIC_FAIL_SHARE = 0.10
+#: The lowest floor oxygen passes at or above this multiple of the critical value (ours).
+FLOOR_O2_MARGIN = 2.0
 
 
 def diffusion_time(depth: float, diffusivity: float = O2_DIFFUSIVITY_37C) -> float:
@@ -202,3 +228,93 @@ def check_oxygen_supply(
     return CheckResult(
         "oxygen used in the bed", status, fraction, O2_WARN_FRACTION, "1", source, message
     )
+
+
+def check_hypoxic_share(
+    share: float, critical: float, critical_source: str, lowest_where: str = ""
+) -> CheckResult:
+    """Share of the seeded floor whose oxygen lies below the cells' critical value.
+
+    Passes when none does, warns when some does, fails above :data:`HYPOXIC_FAIL_SHARE`
+    (chipflow's own limits, see the module notes).
+
+    Parameters
+    ----------
+    share : float
+        Hypoxic share of the seeded floor [-].
+    critical : float
+        The cells' critical floor oxygen [mol/m^3].
+    critical_source : str
+        Where the critical value comes from.
+    lowest_where : str, optional
+        Where the floor oxygen is lowest, for the message.
+
+    >>> check_hypoxic_share(0.0, 0.02, "x").status, check_hypoxic_share(0.2, 0.02, "x").status
+    ('pass', 'fail')
+    """
+    status = grade_upper(share, 0.0, HYPOXIC_FAIL_SHARE)
+    message = (
+        f"{share:.1%} of the seeded floor lies below the critical oxygen {critical:.3g} mol/m^3"
+    )
+    if status != "pass":
+        message += (
+            f"{' (lowest ' + lowest_where + ')' if lowest_where else ''}: raise the flow, "
+            "shorten the bed, seed fewer cells or let oxygen in through the roof (a shallower "
+            "bed helps where the Damkohler number is above about 0.1)"
+        )
+    source = (
+        f"critical oxygen: {critical_source}; limits: chipflow's own (any hypoxic floor warns, "
+        f"more than {HYPOXIC_FAIL_SHARE:.0%} fails)"
+    )
+    return CheckResult(
+        "hypoxic share of the seeded floor", status, share, HYPOXIC_FAIL_SHARE, "1", source, message
+    )
+
+
+def check_floor_oxygen(
+    lowest: float, critical: float, critical_source: str, where: str = ""
+) -> CheckResult:
+    """The lowest floor oxygen of the seeded floor against the cells' critical value.
+
+    Passes at or above :data:`FLOOR_O2_MARGIN` times the critical value and warns below (the
+    hypoxic share check grades how much of the floor lies below the critical value itself).
+
+    >>> check_floor_oxygen(0.15, 0.02, "x").status, check_floor_oxygen(0.03, 0.02, "x").status
+    ('pass', 'warn')
+    """
+    limit = FLOOR_O2_MARGIN * critical
+    status = "pass" if lowest >= limit else "warn"
+    place = f" ({where})" if where else ""
+    message = (
+        f"the floor oxygen falls to {lowest:.3g} mol/m^3{place}, "
+        f"{lowest / critical:.2g} times the critical {critical:.3g} mol/m^3"
+    )
+    if status != "pass":
+        message += "; the cells' uptake varies several-fold: measure it, or give them more oxygen"
+    source = (
+        f"critical oxygen: {critical_source}; pass at {FLOOR_O2_MARGIN:g}x or more (chipflow's "
+        "own margin)"
+    )
+    return CheckResult("lowest floor oxygen", status, lowest, limit, "mol/m^3", source, message)
+
+
+def check_dosing(t50: float, t90: float, tubing_t50: float, where: str = "") -> CheckResult:
+    """The dosing delay, as information (always passes): how long a step change at the pump
+    takes to bring the slowest bed channel's outlet to 50 % and 90 % of the new concentration,
+    and how much of it the supply tubing takes.
+
+    >>> check_dosing(300.0, 340.0, 290.0).message.split(";")[0]
+    'a step change at the pump reaches 50 % at the slowest bed outlet after 300 s, 90 % after 340 s'
+    """
+    share = tubing_t50 / t50 if t50 > 0 else 0.0
+    place = f" ({where})" if where else ""
+    message = (
+        f"a step change at the pump reaches 50 % at the slowest bed outlet after {t50:.3g} s, "
+        f"90 % after {t90:.3g} s{place}; the supply tubing takes {tubing_t50:.3g} s "
+        f"({share:.0%}) of the 50 % time"
+    )
+    source = (
+        "Taylor-Aris dispersion (Taylor 1953; Aris 1956) along the path, inverse Gaussian "
+        "arrival; information only"
+    )
+    return CheckResult("dosing delay to the bed", "pass", t90, None, "s", source, message)

@@ -30,6 +30,12 @@ SI_UNITS = units_of(
     "pressure_drop",
     "field_shear",
     "network_resistance",
+    "o2_inlet",
+    "o2_critical",
+    "o2_floor_min",
+    "o2_out",
+    "o2_uptake",
+    "hypoxic_fraction",
 )
 
 
@@ -68,7 +74,17 @@ class _Point(click.ParamType):
     type=click.Choice(["mm", "um", "cm", "m", "in", "mil"]),
     help="Drawing units when the file states none ($INSUNITS).",
 )
-@click.option("--cell-type", help="Judge the floor shear against this cell type's window.")
+@click.option(
+    "--cell-type",
+    help="Judge the floor shear against this cell type's window, and map the oxygen its "
+    "cells (1e5 per cm^2) leave on the floor against their critical value.",
+)
+@click.option(
+    "--o2-inlet",
+    type=QUANTITY("concentration"),
+    help="Oxygen in the medium at the inlet, e.g. 0.2mol/m^3 (default: in equilibrium with "
+    "incubator air; needs --cell-type).",
+)
 @click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), help="Write files.")
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as JSON.")
 @fluid_options
@@ -83,6 +99,7 @@ def command(
     punch,
     units,
     cell_type,
+    o2_inlet,
     outdir,
     as_json,
     fluid,
@@ -90,7 +107,8 @@ def command(
     """Solve the flow field of MASK, a DXF drawn in any CAD program.
 
     Closed polylines are channels, circles port pads; the ports are holes of the punch's
-    diameter at --inlet and --outlet (coordinates in the file's units).
+    diameter at --inlet and --outlet (coordinates in the file's units). With --cell-type the
+    oxygen the cells leave on the floor is solved on the same field.
 
     \b
     Example:
@@ -102,6 +120,8 @@ def command(
 
     if (flow is None) == (pressure is None):
         raise SpecError("give either --flow or --pressure")
+    if o2_inlet is not None and cell_type is None:
+        raise SpecError("--o2-inlet needs --cell-type (whose cells take up the oxygen)")
     window = None
     if cell_type is not None:
         cells = lookup(cell_type, where="--cell-type")
@@ -119,11 +139,18 @@ def command(
         window=window,
     )
     results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
+    oxygen = None
+    if cell_type is not None:
+        from chipflow.transport.field import mask_oxygen
+
+        oxygen, results["transport"] = mask_oxygen(
+            analysis.solution, cells, fluid.temperature, o2_inlet
+        )
     results["units"] = SI_UNITS
     if outdir is not None:
         from chipflow.export.analysis import write_analysis
 
-        write_analysis(analysis, results, outdir)
+        write_analysis(analysis, results, outdir, oxygen)
     if as_json:
         click.echo(json.dumps(results, indent=2, sort_keys=True))
         return
@@ -141,9 +168,17 @@ def command(
             f"{cell_type} window {window[0]:.3g}-{window[1]:.3g} Pa: "
             f"{analysis.floor.below:.1%} of the floor below, {analysis.floor.above:.1%} above"
         )
+    if oxygen is not None:
+        t = results["transport"]
+        click.echo(
+            f"oxygen: {t['o2_inlet']:.3g} mol/m^3 in, lowest floor {t['o2_floor_min']:.3g} "
+            f"mol/m^3, {t['hypoxic_fraction']:.1%} of the floor below the {cell_type} critical "
+            f"{t['o2_critical']:.3g} mol/m^3, {t['o2_out']:.3g} mol/m^3 out"
+        )
     _echo_channels(analysis.channels)
     if outdir is not None:
-        click.echo(f"wrote results.json and field.svg to {outdir}/")
+        extra = " and oxygen.svg" if oxygen is not None else ""
+        click.echo(f"wrote results.json, field.svg{extra} to {outdir}/")
 
 
 def _echo_channels(table) -> None:

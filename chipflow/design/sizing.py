@@ -28,9 +28,9 @@ Choice rule for the depths (documented in the report): among all subsets of the 
 that give every generation an exact or compromise width,
 
 0. when the bed can be graded against the culture and transport checks (``bed_grade``: the
-   oxygen diffusion time across its depth against its residence time, the oxygen its cells
-   use against the oxygen the flow brings), the fewest of those checks that fail, then that
-   warn;
+   hypoxic share and the lowest floor oxygen of one bed channel marched by the build's 1D
+   transport, :func:`chipflow.checks.suite.bed_grader`), the fewest of those checks that
+   fail, then that warn;
 1. the fewest generations with a compromise,
 2. then the fewest distinct depths (each depth is one more mask and SU-8 layer),
 3. then, per generation (trunk first), the shallowest depth of the subset that reaches the best

@@ -11,8 +11,11 @@ from chipflow.export.outdir import staged_folder
 __all__ = ["write_analysis"]
 
 
-def write_analysis(analysis, results: dict[str, Any], outdir: str | Path) -> list[Path]:
-    """Write ``results.json`` and ``field.svg`` of a mask analysis into ``outdir``.
+def write_analysis(
+    analysis, results: dict[str, Any], outdir: str | Path, oxygen=None
+) -> list[Path]:
+    """Write ``results.json`` and ``field.svg`` of a mask analysis into ``outdir`` (and
+    ``oxygen.svg`` with an oxygen map).
 
     Parameters
     ----------
@@ -20,6 +23,8 @@ def write_analysis(analysis, results: dict[str, Any], outdir: str | Path) -> lis
     results : dict
         The JSON-able results (SI values and their units).
     outdir : str or path-like
+    oxygen : FieldTransport, optional
+        The oxygen on the field (:func:`chipflow.transport.field.mask_oxygen`).
 
     Returns
     -------
@@ -30,8 +35,14 @@ def write_analysis(analysis, results: dict[str, Any], outdir: str | Path) -> lis
 
     outdir = Path(outdir)
     figure = svg_text(field_shear_figure(analysis.solution, analysis.window))
-    text = json.dumps(results, indent=2, sort_keys=True, allow_nan=False) + "\n"
+    names = ["results.json", "field.svg"]
+    texts = [json.dumps(results, indent=2, sort_keys=True, allow_nan=False) + "\n", figure]
+    if oxygen is not None:
+        from chipflow.report.transport_figure import oxygen_map_figure
+
+        names.append("oxygen.svg")
+        texts.append(svg_text(oxygen_map_figure(oxygen)))
     with staged_folder(outdir) as stage:
-        (stage / "results.json").write_bytes(text.encode("utf-8"))
-        (stage / "field.svg").write_bytes(figure.encode("utf-8"))
-    return [outdir / "results.json", outdir / "field.svg"]
+        for name, text in zip(names, texts, strict=True):  # two or three files
+            (stage / name).write_bytes(text.encode("utf-8"))
+    return [outdir / name for name in names]

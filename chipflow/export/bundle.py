@@ -14,6 +14,8 @@ when everything succeeded (see :mod:`chipflow.export.outdir`):
 ``report.html``             one self-contained report: tables, checks, figures, cautions
 ``results.json``            the results in SI units with a "units" map
 ``channels.csv``            one row per channel, SI units named in the header
+``oxygen.svg``              with the field: the floor oxygen of the 2D field, against the cells'
+                            critical oxygen
 ==========================  =====================================================================
 
 Every file is deterministic: the same design file gives the same bytes.
@@ -43,9 +45,11 @@ from chipflow.units import RESULT_UNITS, tidy
 
 __all__ = ["write_build", "output_names", "CSV_COLUMNS"]
 
-#: Columns of channels.csv; numeric ones carry their SI unit in the header.
-#: channels.csv columns: every channel key, with the width measured on the mask after the width
-CSV_COLUMNS = (*CHANNEL_KEYS[:6], "mask_width", *CHANNEL_KEYS[6:])
+#: Columns of channels.csv; numeric ones carry their SI unit in the header: every channel key,
+#: with the width measured on the mask after the width, then the oxygen of the transport
+#: (bulk at the upstream and downstream ends, lowest floor value; no floor for tubing).
+TRANSPORT_COLUMNS = ("o2_in", "o2_out", "o2_floor_min")
+CSV_COLUMNS = (*CHANNEL_KEYS[:6], "mask_width", *CHANNEL_KEYS[6:], *TRANSPORT_COLUMNS)
 
 
 def _slug(name: str) -> str:
@@ -73,6 +77,8 @@ def output_names(build: Build) -> list[str]:
         ]
     if build.field is not None:
         names.append("field.svg")
+    if getattr(build.transport, "field", None) is not None:
+        names.append("oxygen.svg")
     if build.results["generations"]:
         names.append("profile.svg")
     if build.results.get("channels"):
@@ -107,6 +113,10 @@ def channels_csv(build: Build) -> str:
     if drawn is not None:
         mask[: drawn.size] = drawn
     columns["mask_width"] = mask
+    n = columns["width"].size
+    transport = {} if build.transport is None else build.transport.columns()
+    for key in TRANSPORT_COLUMNS:
+        columns[key] = np.asarray(transport.get(key, np.full(n, np.nan)), float)
     text = io.StringIO()
     writer = csv.writer(text, lineterminator="\n")
     writer.writerow(f"{k} [{RESULT_UNITS[k]}]" if k in RESULT_UNITS else k for k in CSV_COLUMNS)
@@ -193,6 +203,15 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
             text = svg_text(field_shear_figure(run.solution, run.window, run.zoom(layout)))
             (stage / "field.svg").write_bytes(text.encode("utf-8"))
             figures["Floor wall shear of the 2D field, against the cell window"] = text
+        oxygen_map = getattr(build.transport, "field", None)
+        if oxygen_map is not None:
+            from chipflow.report.transport_figure import oxygen_map_figure
+
+            progress("oxygen figure")
+            zoom = None if layout is None or build.field is None else build.field.zoom(layout)
+            text = svg_text(oxygen_map_figure(oxygen_map, zoom))
+            (stage / "oxygen.svg").write_bytes(text.encode("utf-8"))
+            figures["Floor oxygen of the 2D field, against the cells' critical oxygen"] = text
         progress("report")
         profile = svg_text(profile_figure(build.results)) if build.results["generations"] else None
         if profile is not None:

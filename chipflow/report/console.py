@@ -6,6 +6,7 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 from chipflow import display
+from chipflow.report.transport import transport_lines
 
 __all__ = [
     "console_summary",
@@ -234,6 +235,7 @@ def totals_and_checks(results: Mapping[str, Any]) -> str:
             f"network, {display.fraction(field['area_outside_window'])} of the seeded floor "
             f"outside the shear window ({field['mesh_triangles']} triangles)"
         )
+    lines += transport_lines(results)
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")
     lines.append(verdict_line(results))

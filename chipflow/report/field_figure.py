@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["field_shear_figure", "BAND_COLOURS"]
+__all__ = ["field_shear_figure", "map_panels", "BAND_COLOURS"]
 
 #: Colours of the shear bands, low to high (our own palette): far below, below, in the lower
 #: and upper half of the window, above, far above.
@@ -17,6 +17,36 @@ def _bands(window: tuple[float, float] | None, shear: np.ndarray) -> np.ndarray:
         return np.linspace(0.0, top, 7)[1:-1]
     lo, hi = window
     return np.array([0.5 * lo, lo, 0.5 * (lo + hi), hi, 1.5 * hi])
+
+
+def map_panels(mesh, values, cmap, norm, zoom=None, width: float = 7.5):
+    """A figure of one value per triangle of ``mesh`` on the chip [mm], and a close-up.
+
+    ``zoom`` is the centre x, y and half-size [m] of the close-up (none without). Returns the
+    figure, its axes and the drawn collection of the first (for the colour bar).
+    """
+    from matplotlib.figure import Figure
+
+    panels = 2 if zoom is not None else 1
+    fig = Figure(figsize=(width, 2.6 * panels))
+    axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
+    mm = 1e3
+    x, y = mesh.points[:, 0] * mm, mesh.points[:, 1] * mm
+    art = None
+    for k, ax in enumerate(axes):
+        drawn = ax.tripcolor(
+            x, y, mesh.triangles, facecolors=values, cmap=cmap, norm=norm, rasterized=True
+        )
+        art = drawn if art is None else art
+        ax.set_aspect("equal")
+        ax.set_xlabel("x [mm]")
+        ax.set_ylabel("y [mm]")
+        if k == 1:
+            cx, cy, half = zoom
+            ax.set_xlim((cx - half) * mm, (cx + half) * mm)
+            ax.set_ylim((cy - half) * mm, (cy + half) * mm)
+            ax.set_title("close-up", fontsize=9)
+    return fig, axes, art
 
 
 def field_shear_figure(solution, window: tuple[float, float] | None, zoom=None, *, width=7.5):
@@ -40,7 +70,6 @@ def field_shear_figure(solution, window: tuple[float, float] | None, zoom=None, 
 
     matplotlib.use("Agg")
     from matplotlib.colors import BoundaryNorm, ListedColormap
-    from matplotlib.figure import Figure
 
     mesh = solution.mesh
     shear = solution.floor_shear
@@ -48,23 +77,7 @@ def field_shear_figure(solution, window: tuple[float, float] | None, zoom=None, 
     cmap = ListedColormap(BAND_COLOURS)
     top = max(float(np.nanmax(shear, initial=0.0)), 2.0 * float(edges[-1]))
     norm = BoundaryNorm(np.concatenate([[0.0], edges, [top]]), cmap.N)
-    panels = 2 if zoom is not None else 1
-    fig = Figure(figsize=(width, 2.6 * panels))
-    axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
-    mm = 1e3
-    x, y = mesh.points[:, 0] * mm, mesh.points[:, 1] * mm
-    for k, ax in enumerate(axes):
-        art = ax.tripcolor(
-            x, y, mesh.triangles, facecolors=shear, cmap=cmap, norm=norm, rasterized=True
-        )
-        ax.set_aspect("equal")
-        ax.set_xlabel("x [mm]")
-        ax.set_ylabel("y [mm]")
-        if k == 1:
-            cx, cy, half = zoom
-            ax.set_xlim((cx - half) * mm, (cx + half) * mm)
-            ax.set_ylim((cy - half) * mm, (cy + half) * mm)
-            ax.set_title("close-up", fontsize=9)
+    fig, axes, art = map_panels(mesh, shear, cmap, norm, zoom, width)
     bar = fig.colorbar(art, ax=list(axes), shrink=0.9, spacing="uniform")
     bar.set_ticks(edges)
     bar.set_ticklabels([f"{e:.3g}" for e in edges])

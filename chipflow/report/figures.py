@@ -14,7 +14,13 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["profile_figure", "svg_text", "path_edges", "PROFILE_PANELS"]
+__all__ = [
+    "profile_figure",
+    "svg_text",
+    "path_edges",
+    "PROFILE_PANELS",
+    "OXYGEN_PANEL",
+]
 
 #: Panel titles of the profile figure, top to bottom.
 PROFILE_PANELS = (
@@ -25,6 +31,8 @@ PROFILE_PANELS = (
     "floor wall shear",
     "residence time",
 )
+#: Title of the panel added below them when the results hold the oxygen transport.
+OXYGEN_PANEL = "oxygen along the path"
 
 # Our own palette: ink for lines, a teal for totals, a warm sand for the bed band and a soft
 # green for the shear window.
@@ -109,7 +117,9 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
 
     Panels (top to bottom): pressure at each generation's ends (kPa or Pa), flow per channel
     and total flow (uL/min), total cross-section (mm^2), mean velocity (mm/s), floor wall shear
-    (Pa; mean and peak shear too, the cell type's window shaded) and residence time (s). Axes
+    (Pa; mean and peak shear too, the cell type's window shaded), residence time (s) and, when
+    the results hold the transport (``transport.profile``), the oxygen along the path (bulk and
+    lowest floor, mol/m^3, with the cells' critical value). Axes
     whose values span more than a factor of 30 are logarithmic. The bed is shaded in every panel.
     For a time-varying supply (results rows with ``min``/``max``) the flow, velocity and floor
     shear panels shade the range each level sweeps over time around the table's value.
@@ -137,8 +147,11 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
 
     labels = generation_labels(generations)
     count = _column(generations, "count")
-    fig = Figure(figsize=(width, panel_height * len(PROFILE_PANELS) + 0.8))
-    axes = fig.subplots(len(PROFILE_PANELS), 1, sharex=True)
+    transport = results.get("transport") or {}
+    oxygen = bool(transport.get("profile")) and len(transport.get("levels", [])) == len(generations)
+    titles = (*PROFILE_PANELS, OXYGEN_PANEL) if oxygen else PROFILE_PANELS
+    fig = Figure(figsize=(width, panel_height * len(titles) + 0.8))
+    axes = fig.subplots(len(titles), 1, sharex=True)
     name = results.get("design", {}).get("name", "")
     fig.suptitle(
         f"{name}: profile from inlet to outlet" if name else "profile from inlet to outlet",
@@ -207,9 +220,11 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
     ax.legend(loc="best", fontsize=7, frameon=False)
     if _use_log(*shown):
         _log_axis(ax)
+    if oxygen:
+        _oxygen_panel(axes[len(PROFILE_PANELS)], transport, start, end)
 
     roles = [g.get("role") for g in generations]
-    for axis, title in zip(axes, PROFILE_PANELS, strict=True):
+    for axis, title in zip(axes, titles, strict=True):
         for i, role in enumerate(roles):  # loop over generations
             if role == "bed":
                 axis.axvspan(start[i], end[i], color=_BED, zorder=-1, lw=0)
@@ -241,6 +256,26 @@ def profile_figure(results: Mapping[str, Any], *, width: float = 7.5, panel_heig
         hspace=_PANEL_GAP / (panel_height - _PANEL_GAP),
     )
     return fig
+
+
+def _oxygen_panel(ax, transport: Mapping[str, Any], start: np.ndarray, end: np.ndarray) -> None:
+    """Bulk and lowest floor oxygen along the path, each level drawn over its own stretch."""
+    profile = transport["profile"]
+    s = np.asarray(profile["stations"], float)
+    for i, level in enumerate(profile["levels"]):  # loop over generations
+        x = start[i] + s * (end[i] - start[i])
+        first = i == 0
+        ax.plot(x, level["bulk"], color=_INK, lw=1.4, label="bulk (mean)" if first else None)
+        ax.plot(
+            x, level["floor_lowest"], color=_TEAL, lw=1.2, ls="--",
+            label="floor (lowest channel)" if first else None,
+        )  # fmt: skip
+    critical = transport.get("o2_critical")
+    if critical is not None:
+        ax.axhline(critical, color="#a3262a", lw=0.9, ls=":", label="critical for the cells")
+    ax.set_ylabel("oxygen\n[mol/m\u00b3]")
+    ax.set_ylim(bottom=0.0)
+    ax.legend(loc="best", fontsize=7, frameon=False)
 
 
 def svg_text(fig) -> str:

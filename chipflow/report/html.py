@@ -18,6 +18,7 @@ from chipflow import display
 from chipflow.errors import ExportError
 from chipflow.export._files import atomic_write
 from chipflow.report.operation import operation_html
+from chipflow.report.transport import transport_html
 
 __all__ = ["write_report", "report_html", "write_markdown_summary", "CAUTIONS"]
 
@@ -550,6 +551,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _channels(results),
         _notes(results),
         operation_html(results),
+        transport_html(results),
         "<h2>Checks</h2>",
         _window(results),
         _checks(results),

@@ -10,8 +10,14 @@
     seeded = "bed"                   # where cells grow: "bed" (default) or "all" generations
     cell_density = "1e5 cell/cm^2"   # cells per floor area (default 1e5 cell/cm^2, assumed)
     o2_consumption = "4.8e-17 mol/s" # oxygen uptake per cell (default: the cell type's row)
-    o2_inlet = "0.2 mol/m^3"         # oxygen in the inflowing medium (default: air-equilibrated)
+    o2_inlet = "0.2 mol/m^3"         # oxygen in the medium at the supply (default: equilibrium
+                                     # with o2_ambient at the fluid temperature)
     o2_diffusivity = "3e-9 m^2/s"    # oxygen diffusivity in the medium (default: 37 C water)
+    o2_km = "7.39e-3 mol/m^3"        # Michaelis-Menten constant of the uptake
+    o2_ambient = "18.9 kPa"          # oxygen partial pressure of the incubator (default:
+                                     # humidified air with 5 % CO2 at 37 degC)
+    o2_critical = "0.02 mol/m^3"     # floor oxygen below which cells are hypoxic (default:
+                                     # the cell type's row)
     residence_time = "2 s"           # optional target for the bed residence time
     outside_window_limit = "50 %"    # 2D field: most of the seeded floor that may lie outside
                                      # the shear window before chipflow warns (default 50 %)
@@ -29,12 +35,15 @@ Examples
 >>> culture = read_culture(top)
 >>> culture.window.min, culture.window.max, culture.o2_consumption
 (0.001, 0.05, 4.8e-17)
+>>> culture.o2_critical, round(culture.o2_ambient)
+(0.02, 18916)
 >>> read_limits(top).bond_pressure
 200000.0
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -46,12 +55,9 @@ from chipflow.checks.cell_types import (
 )
 from chipflow.checks.culture import OUTSIDE_WINDOW_LIMIT, OUTSIDE_WINDOW_SOURCE
 from chipflow.checks.pressure import BOND_LIMIT_DEFAULT, BOND_SAFETY_FACTOR, BOND_SOURCE
-from chipflow.checks.transport import (
-    CELL_DENSITY_DEFAULT,
-    O2_DIFFUSIVITY_37C,
-    O2_INLET_CONCENTRATION,
-)
+from chipflow.checks.transport import CELL_DENSITY_DEFAULT, O2_DIFFUSIVITY_37C
 from chipflow.spec.reader import Table
+from chipflow.transport.oxygen import AMBIENT_SOURCE, incubator_o2_pressure
 
 __all__ = [
     "Culture",
@@ -74,10 +80,23 @@ CULTURE_KEYS = (
     "o2_diffusivity",
     "residence_time",
     "outside_window_limit",
+    "o2_km",
+    "o2_ambient",
+    "o2_critical",
 )
 LIMITS_KEYS = ("bond_pressure", "safety_factor", "pump_pressure")
 #: Where the cells grow: only the bed, or every generation.
 SEEDED = ("bed", "all")
+#: Michaelis-Menten constant of the oxygen uptake when the design gives none [mol/m^3]: the
+#: hepatocyte value of Sci Rep 2017;7:42113, Table 1 (an assumption for other cells).
+O2_KM_DEFAULT = 7.39e-3
+O2_KM_SOURCE = "hepatocyte value, Sci Rep 2017;7:42113 Table 1 (an assumption for other cells)"
+#: Critical floor oxygen of cells without their own [mol/m^3]: about 1 % O2 in the gas.
+O2_CRITICAL_DEFAULT = 0.01
+O2_CRITICAL_SOURCE = (
+    "assumption: about 1 % O2 in the gas (7 mmHg), the usual hypoxia condition of cell culture "
+    "(common practice, from memory)"
+)
 
 
 @dataclass(frozen=True)
@@ -105,10 +124,20 @@ class Culture:
         value; unused when ``cells`` is False).
     o2_consumption_source : str
         Citation of the uptake.
-    o2_inlet : float
-        Oxygen concentration of the inflowing medium [mol/m^3].
+    o2_inlet : float or None
+        Oxygen concentration of the medium at the supply [mol/m^3]; None: in equilibrium with
+        ``o2_ambient`` at the fluid temperature.
     o2_diffusivity : float
         Oxygen diffusivity in the medium [m^2/s].
+    o2_km : float
+        Michaelis-Menten constant of the cells' oxygen uptake [mol/m^3].
+    o2_km_source : str
+    o2_ambient : float
+        Oxygen partial pressure of the incubator gas [Pa].
+    o2_ambient_source : str
+    o2_critical : float
+        Floor oxygen below which the cells count as hypoxic [mol/m^3].
+    o2_critical_source : str
     residence_time : float or None
         Target bed residence time [s], if the design sets one here.
     outside_window_limit : float
@@ -126,11 +155,17 @@ class Culture:
     cell_density_source: str = "assumption: 1e5 cells/cm^2"
     o2_consumption: float = DEFAULT_O2_CONSUMPTION
     o2_consumption_source: str = DEFAULT_O2_SOURCE
-    o2_inlet: float = O2_INLET_CONCENTRATION
+    o2_inlet: float | None = None
     o2_diffusivity: float = O2_DIFFUSIVITY_37C
     residence_time: float | None = None
     outside_window_limit: float = OUTSIDE_WINDOW_LIMIT
     outside_window_source: str = OUTSIDE_WINDOW_SOURCE
+    o2_km: float = O2_KM_DEFAULT
+    o2_km_source: str = O2_KM_SOURCE
+    o2_ambient: float = dataclasses.field(default_factory=incubator_o2_pressure)
+    o2_ambient_source: str = AMBIENT_SOURCE
+    o2_critical: float = O2_CRITICAL_DEFAULT
+    o2_critical_source: str = O2_CRITICAL_SOURCE
 
 
 @dataclass(frozen=True)
@@ -208,6 +243,16 @@ def read_culture(top: Table) -> Culture:
             "must be a share of the floor from 0 % to 100 %, got "
             f"{table.data['outside_window_limit']!r}",
         )
+    inlet = table.quantity("o2_inlet", "concentration", None, positive=False)
+    km = table.quantity("o2_km", "concentration", None, positive=False)
+    ambient = table.quantity("o2_ambient", "pressure", None, positive=False, maximum=1e6)
+    critical = table.quantity("o2_critical", "concentration", None)
+    if critical is not None:
+        critical_source = top.file_label
+    elif cell is not None and cell.o2_critical is not None:
+        critical, critical_source = cell.o2_critical, cell.o2_critical_source
+    else:
+        critical, critical_source = O2_CRITICAL_DEFAULT, O2_CRITICAL_SOURCE
     return Culture(
         cell_type=name,
         cells=uptake is not None,
@@ -217,11 +262,17 @@ def read_culture(top: Table) -> Culture:
         cell_density_source=("assumption: 1e5 cells/cm^2" if density is None else top.file_label),
         o2_consumption=DEFAULT_O2_CONSUMPTION if uptake is None else uptake,
         o2_consumption_source=uptake_source,
-        o2_inlet=O2_INLET_CONCENTRATION if inlet is None else inlet,
+        o2_inlet=inlet,
         o2_diffusivity=table.quantity("o2_diffusivity", "diffusivity", O2_DIFFUSIVITY_37C),
         residence_time=table.quantity("residence_time", "time", None),
         outside_window_limit=OUTSIDE_WINDOW_LIMIT if outside is None else outside,
         outside_window_source=OUTSIDE_WINDOW_SOURCE if outside is None else top.file_label,
+        o2_km=O2_KM_DEFAULT if km is None else km,
+        o2_km_source=O2_KM_SOURCE if km is None else top.file_label,
+        o2_ambient=incubator_o2_pressure() if ambient is None else ambient,
+        o2_ambient_source=AMBIENT_SOURCE if ambient is None else top.file_label,
+        o2_critical=critical,
+        o2_critical_source=critical_source,
     )
 
 

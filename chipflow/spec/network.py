@@ -74,9 +74,19 @@ TOP_KEYS = (
     "limits",
     "walls",
     "compliances",
+    "solutes",
 )
 _CHANNEL_KEYS = ("name", "from", "to", "width", "depth", "length", "generation", "role")
-_TUBE_KEYS = ("name", "from", "to", "diameter", "length", "role")
+_TUBE_KEYS = (
+    "name",
+    "from",
+    "to",
+    "diameter",
+    "length",
+    "role",
+    "o2_permeability",
+    "outer_diameter",
+)
 _PORT_KEYS = ("node", "flow", "pressure", "head", "label", "amplitude", "frequency", "area")
 _SUPPLY_LABELS = {
     "flow": "syringe pump",

@@ -101,8 +101,8 @@ def _damper(table: Table, node: str, where: str) -> Damper:
 
 def _tubing(table: Table) -> TubingWall | None:
     given = [k for k in ("tubing_outer_diameter", "tubing_modulus") if k in table]
-    if not given:
-        return None
+    if not given or (given == ["tubing_outer_diameter"] and "tubing_o2_permeability" in table):
+        return None  # no elastic tubing (the outer diameter serves the gas permeation alone)
     if len(given) == 1:
         missing = ({"tubing_outer_diameter", "tubing_modulus"} - set(given)).pop()
         raise table.error(

@@ -13,6 +13,8 @@
     tubing_diameter = "0.5 mm" # inner diameter of the tubing on both sides
     inlet_tubing = "30 cm"     # tubing length from the pump to the inlet port (0 or absent: none)
     outlet_tubing = "10 cm"    # tubing length from the outlet port to the outlet
+    tubing_o2_permeability = "800 barrer"  # gas-permeable tubing (needs
+                               # tubing_outer_diameter; chipflow.spec.transport)
 
 Without a ``[supply]`` section the tree is fed by a syringe pump at its design flow straight
 into the inlet port, and the outlet is open to the atmosphere.
@@ -45,6 +47,7 @@ SUPPLY_KEYS = (
     "inlet_tubing",
     "outlet_tubing",
     *OPERATION_SUPPLY_KEYS,
+    "tubing_o2_permeability",
 )
 #: The kinds of inlet supply of a tree design.
 INLETS = ("syringe", "pressure", "reservoir", *OPERATION_INLETS)

@@ -106,6 +106,7 @@ TOP_KEYS = (
     "export",
     "tolerances",
     "walls",
+    "solutes",
 )
 TREE_KEYS = (
     "flow",

@@ -7,6 +7,8 @@
     modulus = "1.32 MPa"        # Young's modulus (required for "custom"; overrides the preset)
     poisson_ratio = 0.5         # default 0.5 (nearly incompressible elastomer)
     roof_thickness = "1 mm"     # elastomer above the channels
+    o2_permeability = "800 barrer"  # oxygen through the roof (PDMS: preset; read by
+                                # chipflow.spec.transport)
 
 Without ``[walls]`` the channels are rigid: no deformation, no wall compliance.
 """
@@ -18,7 +20,7 @@ from chipflow.spec.reader import Table
 
 __all__ = ["read_walls", "WALL_MATERIALS", "WALL_KEYS"]
 
-WALL_KEYS = ("material", "modulus", "poisson_ratio", "roof_thickness")
+WALL_KEYS = ("material", "modulus", "poisson_ratio", "roof_thickness", "o2_permeability")
 
 #: Preset materials: Young's modulus [Pa] and its source.
 WALL_MATERIALS = {
