@@ -121,9 +121,11 @@ def culture_checks(
         the cells' window, measured in steady flow, is not checked there (time-varying
         operation checks them instead, :func:`chipflow.operation.operate`).
 
+    Notes
+    -----
     Every channel of the network, tubing included and with or without a generation, is checked
-    for laminar flow and entrance length. The oxygen checks are
-    :func:`transport_checks` (they need the species solved along the network).
+    for laminar flow and entrance length. The oxygen checks come from :func:`transport_checks`,
+    which needs the species solved along the network.
     """
     net = solution.network
     out: list[CheckResult] = []
