@@ -364,9 +364,16 @@ def test_the_table_and_the_cases_list_the_same_keys():
 def _plain_junctions(monkeypatch):
     # the junction corrections' values are tested in test_junctions.py; here only whether a
     # key changes the build matters, so a fixed stand-in spares the 2D solves
-    from chipflow.layout import extract
+    from chipflow.layout import pieces
 
-    monkeypatch.setattr(extract, "junction_excess_length", lambda j: -0.4 * j.parent_width)
+    def stand_in(key):
+        if isinstance(key, pieces.PortKey):
+            return pieces.PieceSolution((0.1 * key.width,))
+        if isinstance(key, pieces.JunctionKey):
+            return pieces.PieceSolution(tuple(-0.1 * arm.width for arm in key.arms))
+        return pieces.PieceSolution((-0.4 * key.parent_width, 0.0, 0.0))
+
+    monkeypatch.setattr(pieces, "solve_piece", stand_in)
 
 
 @pytest.mark.parametrize("section,key", sorted(CASES), ids=lambda v: v or "top")

@@ -328,8 +328,8 @@ def test_junction_correction_does_not_depend_on_the_stub_length():
 
 
 def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkeypatch):
-    # A junction whose 2D solve fails must not stop the build nor pass silently: its channels
-    # keep their centre-to-centre lengths and the build's warnings name the level.
+    # A piece whose 2D solve fails must not stop the build nor pass silently: its channels
+    # keep their centre-to-centre lengths and the build's warnings name the place.
     from pathlib import Path
 
     import chipflow.field
@@ -337,17 +337,22 @@ def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkey
     from chipflow.errors import FieldError
     from chipflow.layout import extract_network
     from chipflow.layout.junctions import _excess
+    from chipflow.layout.pieces import solve_piece
 
     def refuse(*args, **kwargs):
         raise FieldError("a part of the domain was left without a depth")
 
     monkeypatch.setattr(chipflow.field, "solve_field", refuse)
     _excess.cache_clear()
+    solve_piece.cache_clear()
     try:
         build = build_design(Path(__file__).parents[1] / "designs" / "demo_endothelial_bed.toml")
     finally:
         _excess.cache_clear()  # later tests solve their junctions for real
+        solve_piece.cache_clear()
     plain = extract_network(build.layout, junctions=False)
     np.testing.assert_array_equal(build.solution.network.length[: plain.length.size], plain.length)
     warned = [w for w in build.results["warnings"] if "could not be solved in 2D" in w]
-    assert len(warned) == len(build.layout.junctions) > 0
+    # one warning per distinct piece: a junction per tree level, the step at each port
+    assert len(warned) == len(build.layout.pieces.keys) > 0
+    assert any("the step from the inlet port" in w for w in warned)
