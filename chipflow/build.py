@@ -221,7 +221,7 @@ def _build_tree(
     grade = bed_grader(
         culture,
         spec.flow,
-        2**spec.generations,
+        spec.bed_channels,
         spec.bed.residence_time,
         spec.bed.length,
     )

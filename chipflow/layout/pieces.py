@@ -425,14 +425,36 @@ def star_fit(y: np.ndarray) -> tuple[np.ndarray, float]:
 
 
 def _conductance(regions, ports, n: int) -> np.ndarray:
-    """(n, n) port conductance matrix of a 2D piece at unit viscosity, from n - 1 solves."""
-    from chipflow.field import solve_field
+    """(n, n) port conductance matrix of a 2D piece at unit viscosity: one mesh, one
+    factorisation, one right-hand side per port but the last (rows sum to zero)."""
+    from scipy.sparse.linalg import splu
 
+    from chipflow.errors import FieldError
+    from chipflow.field.mesh import build_mesh
+    from chipflow.field.solve import field_system
+
+    mesh = build_mesh(list(regions), list(ports), across=ACROSS)
+    system = field_system(mesh, {p.name: 0.0 for p in ports}, 1.0)
+    k = system.matrix.tocsr()
+    nu_dofs = 2 * system.space.n_nodes
+    free = system.free
+    fixed = np.setdiff1d(np.arange(k.shape[0]), free)
+    coupling = k[free][:, fixed]
+    lu = splu(
+        system.reduced,
+        permc_spec="MMD_AT_PLUS_A",
+        diag_pivot_thresh=0.0,
+        options={"SymmetricMode": True},
+    )
     y = np.zeros((n, n))
-    for k in range(n - 1):  # one solve per port but the last (rows sum to zero)
-        driven = [type(p)(p.name, p.boundary, 1.0 if i == k else 0.0) for i, p in enumerate(ports)]
-        sol = solve_field(regions, driven, 1.0, across=ACROSS)
-        y[:, k] = [sol.port_flows[p.name] for p in ports]
+    for j in range(n - 1):  # one right-hand side per driven port
+        x = np.zeros(k.shape[0])
+        x[nu_dofs + system.port_nodes[ports[j].name]] = 1.0
+        x[free] = lu.solve(-(coupling @ x[fixed]))
+        if not np.all(np.isfinite(x)):
+            raise FieldError("the piece's field solve failed (singular system)")
+        flux = k[nu_dofs:, :] @ x  # continuity rows: flux out through each pressure node
+        y[:, j] = [-flux[system.port_nodes[p.name]].sum() for p in ports]
     y[:, n - 1] = -y[:, : n - 1].sum(axis=1)
     return 0.5 * (y + y.T)
 
