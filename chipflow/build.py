@@ -285,7 +285,12 @@ def _build_tree(
     )
     attach(results, operation)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
-    results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
+    results["warnings"] = [
+        *design.warnings,
+        *layout.notes,
+        *layout.warnings,
+        *unsolved_junctions(layout),
+    ]
     field_run = None
     if run_field is None:
         from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles

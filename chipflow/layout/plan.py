@@ -3,6 +3,7 @@ the sized design before any geometry is built."""
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -122,7 +123,8 @@ class Route:
     Child ``j`` (0 lowest) lies ``offset[j]`` to the side of the parent's axis. It leaves the
     node at ``theta[j]`` (pi/2, a T, where the offset allows; inner children of a split into
     four or five at a smaller angle, so that children on one side do not overlap), runs
-    ``lead[j]`` straight, turns back to +x on one arc, and so reaches ``reach[j]`` along x.
+    ``lead[j]`` straight, turns back to +x on one arc of radius ``bend[j]``, and so reaches
+    ``reach[j]`` along x.
     Children whose path (junction correction included) is shorter than the longest get a
     :func:`detour` of angle ``phi[j]`` and leg ``leg[j]``, ``loops[j]`` times in a row, bulging
     to ``side[j]`` (away from the middle of the split), starting ``start`` [m] along x from
@@ -141,6 +143,8 @@ class Route:
     along: np.ndarray  # x length of each child's detour [m]
     loops: np.ndarray | None = None  # loops of each child's detour
     fit_error: float = 0.0
+    bend: np.ndarray | None = None  # radius of each child's arc back to +x [m]
+    disc: float = 0.0  # radius of the disc drawn at the split's node [m]
 
     @property
     def count(self) -> int:
@@ -187,33 +191,39 @@ class Plan:
 
 
 def _fan_route(g, s, rank_pitch, delta, radius, pitch):
-    """Offsets, exit angles, leads and reaches of the ``s`` children of generation ``g``."""
+    """Offsets, exit angles, leads, reaches and arc radii of the ``s`` children of generation
+    ``g``: the outermost children by :func:`fork`; inner children of a split into 4 or 5
+    leave at an angle of their own and turn back on one wider arc, with no straight lead (a
+    straight run at an angle would have walls off the grid); the middle one of an odd split
+    runs straight on (or, half a grid step off, on a slight fork)."""
     rank = np.arange(s) - (s - 1) / 2
     top = np.abs(rank).max()
     offset = np.empty(s)
     theta = np.empty(s)
     lead = np.empty(s)
     reach = np.empty(s)
+    bend = np.full(s, float(radius))
     for j in range(s):  # loop over the children of one split (2 to 5)
         r = rank[j]
         a = abs(r) * rank_pitch * pitch + delta
         sign = 1.0 if r >= 0 else -1.0
-        if abs(r) == top:
-            th, ld = fork(a, radius)
+        if abs(r) == top or r == 0:
+            th, ld = fork(a, radius) if a > 0 else (0.0, 0.0)
         else:
             target = math.pi / 2 * abs(r) / top
-            ld = (a - radius * (1 - math.cos(target))) / math.sin(target) if target > 0 else -1
-            th = target
-            if ld < 0:
-                th, ld = fork(a, radius) if a > 0 else (0.0, 0.0)
+            wide = a / (1 - math.cos(target))
+            if wide >= radius:
+                th, ld, bend[j] = target, 0.0, wide
+            else:
+                th, ld = fork(a, radius)
         offset[j] = sign * a
         theta[j] = sign * th
         lead[j] = ld
-        reach[j] = radius * math.sin(th) + (ld * math.cos(th) if th < math.pi / 2 else 0.0)
-    return offset, theta, lead, reach
+        reach[j] = bend[j] * math.sin(th) + (ld * math.cos(th) if th < math.pi / 2 else 0.0)
+    return offset, theta, lead, reach, bend
 
 
-def fan_arms(route_theta, lead, radius, widths, depths) -> list[tuple]:
+def fan_arms(route_theta, lead, bend, widths, depths) -> list[tuple]:
     """The arms (heading, width, depth, pieces from the node) of one split in the key's
     frame: the parent arriving from -x, then the children (their lead and arc)."""
     from chipflow.layout.junctions import STUB_WIDTHS
@@ -221,20 +231,20 @@ def fan_arms(route_theta, lead, radius, widths, depths) -> list[tuple]:
 
     reach = STUB_WIDTHS * max(widths)
     arms = [(math.pi, widths[0], depths[0], ())]
-    for th, ld in zip(route_theta, lead, strict=True):
-        pieces = [("L", ld)] if ld > 0 else []
+    for th, ld, r in zip(route_theta, lead, bend, strict=True):
+        pieces = [("L", float(ld))] if ld > 0 else []
         if th != 0:
-            pieces.append(("A", radius, -th))
+            pieces.append(("A", float(r), -float(th)))
         arms.append((float(th), widths[1], depths[1], key_arms(tuple(pieces), reach)))
     return arms
 
 
-def fan_key(route_theta, lead, radius, widths, depths, rules: LayoutRules):
+def fan_key(route_theta, lead, bend, widths, depths, rules: LayoutRules):
     """The geometry key of one split (:func:`chipflow.layout.pieces.junction_key`), with the
     key's arm order, rotation and mirror."""
     from chipflow.layout.pieces import junction_disc, junction_key
 
-    arms = fan_arms(route_theta, lead, radius, widths, depths)
+    arms = fan_arms(route_theta, lead, bend, widths, depths)
     headings = np.array([a[0] for a in arms])
     w = np.array([a[1] for a in arms])
     disc = junction_disc(headings, w, rules.min_feature)
@@ -252,15 +262,15 @@ def _compensate(route, widths, depths, radius, rules, room):
     from chipflow.layout import pieces as _pieces
     from chipflow.layout.junctions import STUB_WIDTHS
 
-    offset, theta, lead, reach = route
+    offset, theta, lead, reach, bend = route
     s = offset.size
-    key, order, _, _ = fan_key(theta, lead, radius, widths, depths, rules)
+    key, order, _, _ = fan_key(theta, lead, bend, widths, depths, rules)
     sol = _pieces.solve_piece(key)
     per_arm = np.empty(s + 1)
     per_arm[order] = np.asarray(sol.lengths, float)
     if np.any(np.isnan(per_arm)):
         per_arm = np.zeros(s + 1)  # unsolved: counted as drawn (said by the build)
-    excess = lead + radius * np.abs(theta) - reach  # length beyond the x advance
+    excess = lead + bend * np.abs(theta) - reach  # length beyond the x advance
     total = excess + per_arm[1:]
     extra = total.max() - total
     extra[extra < 1e-12] = 0.0
@@ -278,7 +288,19 @@ def _compensate(route, widths, depths, radius, rules, room):
     start = float(reach.max()) + STUB_WIDTHS * max(widths)
     return (
         Route(
-            offset, theta, lead, reach, phi, leg, side, start, extra, along, loops, sol.fit_error
+            offset,
+            theta,
+            lead,
+            reach,
+            phi,
+            leg,
+            side,
+            start,
+            extra,
+            along,
+            loops,
+            sol.fit_error,
+            bend,
         ),  # fmt: skip
         bulge,
     )
@@ -328,6 +350,14 @@ def plan_layout(
             need.append((radius[g] + width[g] + (gap if g < n else bed_gap)) / below[g])
     pitch = ceil_grid(max(max(need), pitch_floor) + slack, 2 * grid)
 
+    def disc_of(route) -> float:
+        """The disc at a split's node, as the engine will draw it."""
+        from chipflow.layout.pieces import junction_disc
+
+        headings = np.r_[math.pi, route.theta]
+        return junction_disc(headings, np.r_[width[g - 1], np.full(route.count, width[g])],
+                             rules.min_feature)  # fmt: skip
+
     routes: list = [None]
     theta = np.zeros(n + 1)
     lead_in = np.zeros(n + 1)
@@ -349,8 +379,10 @@ def plan_layout(
             share = np.where(outer, 2.0, 1.0)
             floor = max(floor, float(np.max((share * bulge + width[g] + wall) / below[g])))
         else:
-            o, t, ld, rc = route
-            full = Route(o, t, ld, rc, zero, zero, np.sign(o), float(rc.max()), zero, zero)
+            o, t, ld, rc, bend = route
+            full = Route(o, t, ld, rc, zero, zero, np.sign(o), float(rc.max()), zero, zero,
+                         None, 0.0, bend)  # fmt: skip
+        full = dataclasses.replace(full, disc=disc_of(full))
         routes.append(full)
         theta[g], lead_in[g], offset[g] = abs(full.theta[0]), full.lead[0], abs(full.offset[0])
     if floor + slack > pitch + 1e-12:  # a detour does not fit beside its child: wider lanes
@@ -362,9 +394,13 @@ def plan_layout(
         route = routes[g]
         parity = (half[g + 1] - half[g]) % grid
         span = float(route.reach.max()) + max(width[g], width[g + 1]) + gap
+        # the run into the next junction reaches past its disc: its middle, where its width is
+        # measured, and the cut for merging lie clear of it
+        clear = 2 * (routes[g + 1].disc + rules.alignment_margin) + grid
+        span = max(span, float(route.reach.max()) + clear)
         if np.any(route.along > 0):  # the detours, then room for the next junction
             end = route.start + float(route.along.max())
-            span = max(span, end + max(width[g], width[g + 1]) + gap)
+            span = max(span, end + max(width[g], width[g + 1]) + gap, end + clear)
         straight[g] = ceil_grid(span, grid, parity)
         straight[g] -= float(route.reach[0])
         advance[g] = float(route.reach[0]) + straight[g]
@@ -372,7 +408,10 @@ def plan_layout(
     r_hole = chip.punch_diameter / 2
     # the first junction's x (port centre on the grid) has the parity of generation 1
     trunk = ceil_grid(
-        rules.port_keepout + max(width[0], width[min(1, n)]) + gap,
+        max(
+            rules.port_keepout + max(width[0], width[min(1, n)]) + gap,
+            2 * (routes[1].disc + rules.alignment_margin) + grid if n else 0.0,
+        ),
         grid,
         (half[min(1, n)] - r_hole) % grid,
     )
@@ -452,6 +491,8 @@ def merge_cuts(design: TreeDesign, plan: Plan, rules: LayoutRules) -> list[float
                 last = np.where(route.along > 0, end - route.start - route.along, end - route.reach)
                 run = float(last.min())
         clear = max(width[g], width[g + 1]) / 2 + rules.alignment_margin
+        if plan.routes:  # past the disc of the next junction too
+            clear = max(clear, plan.routes[g + 1].disc + rules.alignment_margin)
         if not clear + rules.grid < run:
             return [None] * n
         cuts.append(0.5 * (clear + run))

@@ -157,7 +157,8 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         """The start of child ``j`` of generation ``g``: lead, arc back to +x, detour."""
         route, r = plan.routes[g], plan.radius[g]
         th = float(route.theta[j])
-        pieces = [("L", float(route.lead[j])), ("A", r, -th)]
+        bend = r if route.bend[j] == r else float(route.bend[j])
+        pieces = [("L", float(route.lead[j])), ("A", bend, -th)]
         if route.phi[j] > 0:
             pieces.append(("L", route.start - float(route.reach[j])))
             pieces += detour_pieces(
@@ -279,7 +280,7 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
             key, order, rotation, flip = fan_key(
                 route.theta,
                 route.lead,
-                float(plan.radius[k + 1]),
+                route.bend,
                 (pg.width, cg.width),
                 (pg.depth, cg.depth),
                 rules,

@@ -43,6 +43,9 @@ MAX_POINTS = 10_000
 #: Design-file sections whose numeric keys may be swept.
 SECTIONS = tuple(k for k in TOP_KEYS if k not in ("name", "description", "tolerances"))
 
+#: Keys of [tree] that each say how the tree branches: a swept one replaces the others.
+BRANCHING = ("generations", "bed_channels", "splits")
+
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 _INT = re.compile(r"^[-+]?\d+$")
 
@@ -183,10 +186,14 @@ def grid_points(axes: Sequence[Axis]) -> list[tuple[Any, ...]]:
 
 def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[Any]) -> dict:
     """A copy of a parsed design with each dotted key set to its value (tables created as
-    needed; tuples become lists).
+    needed; tuples become lists). A value for one of ``tree.generations``,
+    ``tree.bed_channels`` and ``tree.splits`` replaces the other two (all three say how the
+    tree branches).
 
     >>> with_values({"tree": {"flow": "1 uL/min"}}, ["tree.flow"], ["2 uL/min"])
     {'tree': {'flow': '2 uL/min'}}
+    >>> with_values({"tree": {"bed_channels": 32}}, ["tree.splits"], [(3, 2)])
+    {'tree': {'splits': [3, 2]}}
     """
     out = copy.deepcopy(dict(data))
     for key, value in zip(keys, values, strict=True):
@@ -197,6 +204,9 @@ def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[A
             if not isinstance(child, dict):
                 raise SpecError(f"--vary {key}: {part} is not a table in the design file")
             table = child
+        if path == ["tree"] and last in BRANCHING:
+            for other in BRANCHING:
+                table.pop(other, None)
         table[last] = list(value) if isinstance(value, tuple) else value
     return out
 
