@@ -10,8 +10,10 @@ Two kinds of design file build:
 - **tree designs** (a ``[tree]`` table) are sized, drawn on the chip, extracted back into a
   network from the drawing (so the solver sees exactly the geometry of the mask), connected to
   their supply and tubing, solved and checked;
-- **explicit networks** (``[[channels]]``/``[[tubes]]``) are solved and checked as given; they
-  have no drawing, so no mask files.
+- **explicit networks** (``[[channels]]``/``[[tubes]]``) are drawn when every node a channel
+  touches has ``at`` (the same engine as trees: masks, ports, pieces, the network extracted from
+  the drawing with its tubing added), and otherwise solved and checked as given (no mask
+  files; their channels' widths and depths still meet the fabrication rules).
 
 Stages report their name to an optional ``progress`` callable, for the command line.
 """
@@ -162,8 +164,8 @@ def build_design(
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
         when the chip is small enough to solve in seconds
-        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
-        no field.
+        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). An explicit network without
+        coordinates has no drawing: asking for its field is an error.
 
     Returns
     -------
@@ -185,7 +187,7 @@ def build_design(
         if "tree" in top:
             return _build_tree(source, progress, allow_large, field)
         if is_network_design(top):
-            return _build_network(source, progress)
+            return _build_network(source, progress, field)
     except ChipflowError as exc:
         # every message names the design file once, whichever stage raised it
         if source.path in str(exc):
@@ -338,12 +340,53 @@ def _targets_window(spec) -> ShearWindow | None:
 
 
 # -- explicit networks ---------------------------------------------------------------------------
-def _build_network(source: DesignSource, progress: Progress) -> Build:
+def _build_network(
+    source: DesignSource, progress: Progress, run_field: bool | None = None
+) -> Build:
+    from chipflow.layout import LayoutRules
+    from chipflow.spec.tree import read_fabrication
+
     top = source.top
     design = load_network_design(top)
     culture, limits = read_culture(top), read_limits(top)
+    rules = LayoutRules.from_fabrication(read_fabrication(top))
+    read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
+    layout = export = None
+    network = design.network
+    if design.drawing is not None:
+        from chipflow.layout import check_rules
+        from chipflow.layout.engine import draw_sketch
+        from chipflow.layout.extract import unsolved_junctions
+        from chipflow.layout.routes import network_sketch
+        from chipflow.spec.chip import read_chip
+
+        chip, port_keepout = read_chip(top)
+        if port_keepout is not None:
+            rules = replace(rules, port_keepout=port_keepout)
+        export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
+        progress("layout")
+        layout = draw_sketch(network_sketch(design.drawing, design.name, chip, rules))
+        progress("extract")
+        network = drawn_network(design, layout)
+        findings = check_rules(layout, rules)
+        warnings = [*layout.warnings, *unsolved_junctions(layout)]
+    else:
+        if run_field:
+            raise SpecError(
+                f"{source.path}: --field solves the flow on the drawing, and this network is "
+                f"{design.undrawn}"
+            )
+        from chipflow.layout.check import size_findings
+
+        rect = ~network.round
+        names = np.asarray(network.channel_names(), dtype=str)
+        labels = np.char.add(np.char.add("channel '", names), "'")
+        findings = size_findings(
+            network.width[rect], network.depth[rect], labels[rect], names[rect], rules
+        )
+        warnings = [design.undrawn] if design.undrawn else []
     progress("solve")
-    solution = solve(design.network, design.fluid, design.pressures, design.flows)
+    solution = solve(network, design.fluid, design.pressures, design.flows)
     progress("check")
     generations = level_rows(solution)
     operation = operate(
@@ -353,6 +396,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         *culture_checks(solution, generations, culture, culture.window, culture.residence_time),
         *pressure_checks(solution, limits),
         *operation.checks,
+        *fabrication_results(findings),
     )
     supply = {
         "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
@@ -374,21 +418,81 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     attach(results, operation)
     results["channels"] = channel_rows(solution)
-    results["fabrication"] = None
-    results["warnings"] = []
-    results["field"] = None
+    results["fabrication"] = None if layout is None else _fabrication_dict(layout, export, findings)
+    results["warnings"] = warnings
+    field_run = None
+    if layout is not None:
+        if run_field is None:
+            from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+            run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+        if run_field:
+            from chipflow.field.run import run_field as solve_chip_field
+
+            progress("field")
+            field_run = solve_chip_field(
+                layout, solution, design.fluid.viscosity, culture.window, culture.seeded,
+                flow_driven=None,
+            )  # fmt: skip
+    results["field"] = None if field_run is None else field_run.results
     return Build(
         source,
         design.name,
         design.description,
         design.fluid,
         None,
-        None,
+        layout,
         solution,
         tuple(checks),
-        None,
+        export,
         results,
+        field_run,
         operation=operation,
+    )
+
+
+def drawn_network(design, layout: Layout):
+    """The network of a drawn explicit network: the drawing's channels (with their pieces'
+    corrections) and the design's tubes, nodes named as in the file.
+
+    Raises
+    ------
+    SpecError
+        Where a channel's given ``length`` differs from its drawn length by more than
+        :data:`~chipflow.spec.network.LENGTH_TOLERANCE`.
+    """
+    from chipflow.layout import extract_network
+    from chipflow.network import Network
+    from chipflow.spec.network import LENGTH_TOLERANCE
+
+    drawn = layout.channels.length
+    for i, route in enumerate(design.drawing.routes):  # the channels given with a length
+        if route.length is None or abs(route.length - drawn[i]) <= LENGTH_TOLERANCE * drawn[i]:
+            continue
+        raise SpecError(
+            f"{route.where}.length: channel {route.name!r} is given {route.length * 1e3:.4g} mm "
+            f"long but drawn {drawn[i] * 1e3:.4g} mm long through its nodes and corners (more "
+            f"than {LENGTH_TOLERANCE:.0%} apart); leave length out, or move its corners"
+        )
+    chip = extract_network(layout)
+    given = design.network
+    tubes = np.flatnonzero(given.round)
+    names = list(chip.node_names)
+    names += [n for n in given.node_names if n not in names]
+    index = {n: i for i, n in enumerate(names)}
+    remap = np.array([index[n] for n in given.node_names])
+    channel_names = [*chip.channel_names(), *(given.channel_name(int(t)) for t in tubes)]
+    return Network.from_arrays(
+        np.concatenate([chip.node_a, remap[given.node_a[tubes]]]),
+        np.concatenate([chip.node_b, remap[given.node_b[tubes]]]),
+        np.concatenate([chip.width, given.width[tubes]]),
+        np.concatenate([chip.depth, given.depth[tubes]]),
+        np.concatenate([chip.length, given.length[tubes]]),
+        round=np.concatenate([chip.round, given.round[tubes]]),
+        names=channel_names,
+        generation=np.concatenate([chip.generation, given.generation[tubes]]),
+        role=np.concatenate([chip.role, given.role[tubes]]),
+        node_names=names,
     )
 
 

@@ -274,6 +274,13 @@ def draw_sketch(sketch: Sketch) -> Layout:
             frags.append((shapely.intersection(cat["outline"][chans], cover), deep, ends))
         if spec is not None:
             kind, key, rotation, mirror = spec.kind, spec.key, spec.rotation, spec.mirror
+        elif (
+            headings.size == 2
+            and abs(abs(math.remainder(headings[0] - headings[1], 2 * math.pi)) - math.pi) < 1e-9
+            and widths[0] == widths[1]
+            and arm_depths[0] == arm_depths[1]
+        ):
+            continue  # a node on a straight channel of one width: nothing to correct
         else:
             stub_reach = STUB_WIDTHS * float(widths.max())
             arms = [

@@ -25,7 +25,8 @@ Kinds of key
     arms it is the least-squares fit of the star's conductance matrix to ``Y`` (its ``N``
     resistances against the ``N (N - 1) / 2`` conductances of the 2D piece), and the relative
     misfit is kept (:attr:`PieceSolution.fit_error`). For two arms (an elbow or a width step)
-    only the series resistance is defined; its excess is shared equally between the arms.
+    only the series resistance is defined; both arms get the same equivalent length, so most
+    of the excess lands on the arm of higher resistance per length (the narrower, shallower).
 :class:`PortKey`
     A punched hole of a diameter and the channel leaving it: the hole is at the port pressure
     (its liquid column is a reservoir), the channel's mouth is the arc of the hole's rim. The
@@ -473,9 +474,9 @@ def _junction_lengths(key: JunctionKey) -> PieceSolution:
     except FieldError:
         return PieceSolution((math.nan,) * n, math.nan)
     lengths = np.asarray(lengths)
-    if n == 2:
+    if n == 2:  # the same equivalent length on both arms
         excess = 1.0 / -y[0, 1] - float(np.sum(per_length * lengths))
-        return PieceSolution(tuple((excess / 2 / per_length).tolist()))
+        return PieceSolution((excess / float(per_length.sum()),) * 2)
     r, error = star_fit(y)
     return PieceSolution(tuple((r / per_length - lengths).tolist()), error)
 
