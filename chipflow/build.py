@@ -418,6 +418,10 @@ def _build_network(
     )
     attach(results, operation)
     results["channels"] = channel_rows(solution)
+    if layout is not None:  # each drawn channel's width on the mask (tubing: none)
+        mask = layout.channels.mask_width
+        for i, row in enumerate(results["channels"]):  # a network written by hand
+            row["mask_width"] = float(mask[i]) if i < mask.size else None
     results["fabrication"] = None if layout is None else _fabrication_dict(layout, export, findings)
     results["warnings"] = warnings
     field_run = None

@@ -106,6 +106,9 @@ def test_every_width_on_the_written_dxf_is_the_solved_width(twin, tmp_path):
     measured = widths_on_the_dxf(twin, tmp_path)
     np.testing.assert_allclose(measured, net.width[:n], rtol=0, atol=1e-9)  # 1 nm
     np.testing.assert_array_equal(twin.results["fabrication"]["mask_width"], net.width[:n])
+    rows = twin.results["channels"]  # the channel table of a drawn network, tubing last
+    assert [r["mask_width"] for r in rows[:n]] == net.width[:n].tolist()
+    assert rows[n]["role"] == "tubing" and rows[n]["mask_width"] is None
 
 
 def test_lengths_are_the_drawn_centrelines_plus_the_junction_corrections(twin):

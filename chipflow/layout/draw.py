@@ -3,15 +3,20 @@
 What the drawing looks like
 ---------------------------
 Flow runs along +x. The inlet port sits on the left, the outlet port on the right. The trunk
-(generation 0) leaves the inlet rim straight along +x to the first junction. At every junction
-the parent ends and its two children leave symmetrically, one turning up and one turning down:
-each child leaves the junction at an angle ``theta`` (90 degrees - a T - when the lateral
-offset allows it, less otherwise), turns back to +x on one circular arc of centreline radius
-``bend_radius * width`` and runs straight to the next junction. Every channel of a generation
-is the same shape, mirrored for the lower child, so every inlet-to-bed path has the same
-length and the same bends. The bed channels lie side by side, at least width + ``[bed].gap``
-apart (more if a wider upper generation needs it), run along +x and are met by the collecting
-tree, which is the distribution tree mirrored about the middle of the bed.
+(generation 0) leaves the inlet rim straight along +x to the first junction. At a binary
+junction the parent ends and its two children leave symmetrically, one turning up and one
+turning down: each child leaves the junction at an angle ``theta`` (90 degrees - a T - when
+the lateral offset allows it, less otherwise), turns back to +x on one circular arc of
+centreline radius ``bend_radius * width`` and runs straight to the next junction. Every
+channel of a generation is the same shape, mirrored for the lower child, so every
+inlet-to-bed path has the same length and the same bends. A split into 3 to 5 is a fan: its
+outermost children leave as a T (or Y), the inner ones of a split into 4 or 5 at a smaller
+angle on one wider arc, the middle one of an odd split straight on; the children whose path
+(junction correction included) is shorter than the longest get a detour of arcs that evens
+out every child's resistance (see :class:`~chipflow.layout.plan.Route`). The bed channels lie
+side by side, at least width + ``[bed].gap`` apart (more if a wider upper generation or a
+detour needs it), run along +x and are met by the collecting tree, which is the distribution
+tree mirrored about the middle of the bed.
 
 A bed channel longer than ``max_straight_length``, or than the room between the trees, folds
 into a serpentine of an odd number of equal runs joined by half-turns (every bed channel folds
@@ -36,17 +41,19 @@ solved width to 1 nm.
 Where the children leave at 90 degrees the junction is a T with a flat far wall. Where they
 leave at a smaller angle (a Y), the junction gets a disc as wide as the widest channel meeting
 there: it rounds the parent's end and blunts the wall tip between the two children, so no
-sliver of PDMS is left. Port holes are
-drawn as pads of the punch diameter joined to their channel.
+sliver of PDMS is left (where neighbouring arms meet at less than 90 degrees the disc reaches
+past the tip; see :func:`~chipflow.layout.pieces.junction_disc`). Port holes are drawn as pads
+of the punch diameter joined to their channel.
 
 Lengths and junctions
 ---------------------
 Centrelines run from junction centre to junction centre (the inlet and outlet channels start
-at the rim of the port hole, since the punched hole itself has no resistance). Each channel's
-``length`` is the exact length of its centreline with its arcs as true circles. The layout
-also records the geometry of each level's junction (:class:`~chipflow.layout.junctions.
-Junction`), from which the network takes each junction's equivalent-length correction, so
-that the junction area is counted once (see :mod:`chipflow.layout.extract`).
+at the rim of the port hole). Each channel's ``length`` is the exact length of its centreline
+with its arcs as true circles. The layout also records its pieces: the junction of each level
+(a binary split as a :class:`~chipflow.layout.junctions.Junction`, a fan as an N-arm
+:class:`~chipflow.layout.pieces.JunctionKey`) and the step at each port, from which the network
+takes the equivalent-length corrections, so that every junction and port step is counted once
+(see :mod:`chipflow.layout.extract`).
 
 Mask layers
 -----------
@@ -78,7 +85,7 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     Parameters
     ----------
     design : TreeDesign
-        The sized, mirrored tree (at least one generation).
+        The sized, mirrored tree (at least one generation; splits of 2 to 5).
     chip : Chip, optional
         Footprint, edge margin and punch (default a 75 x 25 mm slide).
     rules : LayoutRules, optional
