@@ -257,3 +257,10 @@ def test_vary_and_sweep_take_explicit_networks(tmp_path):
     assert len(rows) == 3
     bad = runner.invoke(main, ["sweep", str(TWIN), "--vary", "channels.nope.width=1mm,2mm"])
     assert bad.exit_code == 2 and "no [[channels]] entry with name 'nope'" in bad.stderr
+
+
+def test_a_position_for_a_node_off_the_chip_is_refused():
+    data = tomllib.loads(TWIN.read_text())
+    data["nodes"][0]["at"] = ["2 mm", "2 mm"]  # the pump: only the tubing reaches it
+    with pytest.raises(SpecError, match=r"nodes\[0\]\.at: no channel reaches this node"):
+        build_design(DesignSource.from_dict(data, "pump.toml"), field=False)

@@ -174,15 +174,17 @@ def draw_sketch(sketch: Sketch) -> Layout:
                 tail[sel] = shapely.polygons(_place(offset_ring(tt, g.width)[None] + start, g))
             length[sel] = t.length
             bends[sel] = t.bends
-            # straight runs that lie along neither grid axis: measured on the mask later
-            d = np.diff(xy, axis=1)
-            off_axis = straight[None, :] & (np.abs(d[..., 0]) > 1e-12) & (np.abs(d[..., 1]) > 1e-12)
-            mem, seg = np.nonzero(off_axis)
-            if mem.size:
-                run = d[mem, seg]
+            # straight runs that lie along neither grid axis: measured on the mask later (the
+            # members are moved copies of one template: its runs' directions decide)
+            d0 = np.diff(xy[0], axis=0)
+            off_axis = straight & (np.abs(d0[:, 0]) > 1e-12) & (np.abs(d0[:, 1]) > 1e-12)
+            if off_axis.any():
+                seg = np.flatnonzero(off_axis)
+                run = np.diff(xy, axis=1)[:, seg].reshape(-1, 2)
+                mem = np.repeat(np.arange(sel.size), seg.size)
                 seg_len = np.hypot(run[:, 0], run[:, 1])
                 normal = np.column_stack((-run[:, 1], run[:, 0])) / seg_len[:, None]
-                mid = xy[mem, seg] + run / 2
+                mid = xy[:, seg].reshape(-1, 2) + run / 2
                 oblique.append((first_channel[gi] + sel[mem], mid, normal, seg_len))
         first, last = (g.node_b, g.node_a) if g.reverse else (g.node_a, g.node_b)
         if g.cut is None:

@@ -69,10 +69,12 @@ def axis_cuts(centreline: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarra
     same = idx[1:] == idx[:-1]
     n = centreline.size
     along_x = same & (np.abs(d[:, 1]) <= 1e-12) & (np.abs(d[:, 0]) > 0)
-    along_y = same & (np.abs(d[:, 0]) <= 1e-12) & (np.abs(d[:, 1]) > 0)
     mid_x, run_x = _longest(xy, idx, n, along_x, 0)
-    mid_y, run_y = _longest(xy, idx, n, along_y, 1)
     use_x = run_x > 0
+    if use_x.all():  # every channel has a run along x (every tree channel does)
+        return mid_x, run_x, np.zeros(n, dtype=int)
+    along_y = same & (np.abs(d[:, 0]) <= 1e-12) & (np.abs(d[:, 1]) > 0)
+    mid_y, run_y = _longest(xy, idx, n, along_y, 1)
     use_y = ~use_x & (run_y > 0)
     mid = np.where(use_x[:, None], mid_x, mid_y)
     run = np.where(use_x, run_x, run_y)

@@ -310,6 +310,13 @@ def load_network_design(top: Table) -> NetworkDesign:
     }
     on_chip = [n for n in (known or {}) if n in ends] if known else sorted(ends)
     missing = [n for n in on_chip if n not in positions]
+    for item in node_tables:  # a position only for a node on the chip
+        if "at" in item and item.string("name") not in ends:
+            raise item.error(
+                "at",
+                "no channel reaches this node (only tubes, or nothing): it is off the "
+                "chip and has no position; leave 'at' out",
+            )
     drawn = bool(channels) and not missing
     routes = []
     for item in channels:
