@@ -10,8 +10,10 @@ Two kinds of design file build:
 - **tree designs** (a ``[tree]`` table) are sized, drawn on the chip, extracted back into a
   network from the drawing (so the solver sees exactly the geometry of the mask), connected to
   their supply and tubing, solved and checked;
-- **explicit networks** (``[[channels]]``/``[[tubes]]``) are solved and checked as given; they
-  have no drawing, so no mask files.
+- **explicit networks** (``[[channels]]``/``[[tubes]]``) are drawn when every node a channel
+  touches has ``at`` (the same engine as trees: masks, ports, pieces, the network extracted from
+  the drawing with its tubing added), and otherwise solved and checked as given (no mask
+  files; their channels' widths and depths still meet the fabrication rules).
 
 Stages report their name to an optional ``progress`` callable, for the command line.
 """
@@ -201,8 +203,8 @@ def build_design(
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
         when the chip is small enough to solve in seconds
-        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
-        no field.
+        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). An explicit network without
+        coordinates has no drawing: asking for its field is an error.
 
     Returns
     -------
@@ -224,7 +226,7 @@ def build_design(
         if "tree" in top:
             return _build_tree(source, progress, allow_large, field)
         if is_network_design(top):
-            return _build_network(source, progress)
+            return _build_network(source, progress, field)
     except ChipflowError as exc:
         # every message names the design file once, whichever stage raised it
         if source.path in str(exc):
@@ -261,7 +263,7 @@ def _build_tree(
     grade = bed_grader(
         culture,
         spec.flow,
-        2**spec.generations,
+        spec.bed_channels,
         spec.bed.residence_time,
         spec.bed.length,
         transport=transport_spec,
@@ -335,41 +337,26 @@ def _build_tree(
     )
     attach(results, operation)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
-    results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
-    field_run = None
-    if run_field is None:
-        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
-
-        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
-    if run_field:
-        from chipflow.field.run import run_field as solve_chip_field
-
-        progress("field")
-        field_run = solve_chip_field(
-            layout,
-            soft.rigid,  # the field models rigid walls: compare it with the rigid network
-            spec.fluid.viscosity,
-            window,
-            culture.seeded,
-            flow_driven=supply.inlet.kind == "flow",
-        )
+    results["warnings"] = [
+        *design.warnings,
+        *layout.notes,
+        *layout.warnings,
+        *unsolved_junctions(layout),
+    ]
+    field_run = _field(
+        layout,
+        soft.rigid,  # the field models rigid walls: compare it with the rigid network
+        spec.fluid.viscosity,
+        window,
+        culture.seeded,
+        supply.inlet.kind == "flow",
+        run_field,
+        progress,
+    )
     results["field"] = None if field_run is None else field_run.results
-    if field_run is not None:
-        transport = _field_transport(transport, field_run, layout, culture, progress)
-    if field_run is not None and window is not None:
-        # the field's map of the seeded floor is a check too, so the verdict counts it
-        checks = (
-            *checks,
-            check_floor_outside(
-                field_run.results["area_outside_window"],
-                window,
-                culture.outside_window_limit,
-                by_zone=field_run.results["outside_by_zone"],
-                source=culture.outside_window_source,
-            ),
-        )
-        results["checks"] = [c.to_dict() for c in checks]
-        results["status"] = worst_status(checks)
+    checks, transport = _field_outcome(
+        field_run, checks, transport, results, layout, culture, window, progress
+    )
     results["transport"] = transport.results
     return Build(
         source,
@@ -443,6 +430,53 @@ def nominal_tree(source: DesignSource) -> tuple[TreeDesign, Solution, dict[str, 
     return design, solution, results
 
 
+def _field(
+    layout: Layout,
+    solution: Solution,
+    viscosity: float,
+    window: ShearWindow | None,
+    seeded: str,
+    flow_driven: bool | None,
+    run: bool | None,
+    progress: Progress,
+):
+    """The field solve of a drawing, when asked for or small enough by default (None: not
+    solved)."""
+    if run is None:
+        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+        run = estimate_triangles(layout) <= AUTO_TRIANGLES
+    if not run:
+        return None
+    from chipflow.field.run import run_field as solve_chip_field
+
+    progress("field")
+    return solve_chip_field(layout, solution, viscosity, window, seeded, flow_driven=flow_driven)
+
+
+def _field_outcome(field_run, checks, transport, results, layout, culture, window, progress):
+    """What the field adds to a build: the oxygen map, and the share of the seeded floor
+    outside the shear window as a check (so the verdict counts it); the checks and status in
+    ``results`` follow."""
+    if field_run is None:
+        return checks, transport
+    transport = _field_transport(transport, field_run, layout, culture, progress)
+    if window is not None:
+        checks = (
+            *checks,
+            check_floor_outside(
+                field_run.results["area_outside_window"],
+                window,
+                culture.outside_window_limit,
+                by_zone=field_run.results["outside_by_zone"],
+                source=culture.outside_window_source,
+            ),
+        )
+        results["checks"] = [c.to_dict() for c in checks]
+        results["status"] = worst_status(checks)
+    return checks, transport
+
+
 def _field_transport(transport, field_run, layout, culture, progress: Progress):
     """The oxygen map on the field mesh, where there is something to map (cells, or oxygen
     through the roof)."""
@@ -467,14 +501,55 @@ def _targets_window(spec) -> ShearWindow | None:
 
 
 # -- explicit networks ---------------------------------------------------------------------------
-def _build_network(source: DesignSource, progress: Progress) -> Build:
+def _build_network(
+    source: DesignSource, progress: Progress, run_field: bool | None = None
+) -> Build:
+    from chipflow.layout import LayoutRules
+    from chipflow.spec.tree import read_fabrication
+
     top = source.top
     design = load_network_design(top)
     culture, limits = read_culture(top), read_limits(top)
     transport_spec = read_transport(top)
+    rules = LayoutRules.from_fabrication(read_fabrication(top))
+    read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
+    layout = export = None
+    network = design.network
+    if design.drawing is not None:
+        from chipflow.layout import check_rules
+        from chipflow.layout.engine import draw_sketch
+        from chipflow.layout.extract import unsolved_junctions
+        from chipflow.layout.routes import network_sketch
+        from chipflow.spec.chip import read_chip
+
+        chip, port_keepout = read_chip(top)
+        if port_keepout is not None:
+            rules = replace(rules, port_keepout=port_keepout)
+        export = read_export(top, design_hash=f"sha256:{source.sha256[:16]}")
+        progress("layout")
+        layout = draw_sketch(network_sketch(design.drawing, design.name, chip, rules))
+        progress("extract")
+        network = drawn_network(design, layout)
+        findings = check_rules(layout, rules)
+        warnings = [*layout.warnings, *unsolved_junctions(layout)]
+    else:
+        if run_field:
+            raise SpecError(
+                f"{source.path}: --field solves the flow on the drawing, and this network is "
+                f"{design.undrawn}"
+            )
+        from chipflow.layout.check import size_findings
+
+        rect = ~network.round
+        names = np.asarray(network.channel_names(), dtype=str)
+        labels = np.char.add(np.char.add("channel '", names), "'")
+        findings = size_findings(
+            network.width[rect], network.depth[rect], labels[rect], names[rect], rules
+        )
+        warnings = [design.undrawn] if design.undrawn else []
     progress("solve")
     soft = solve_operating_point(
-        design.operation.walls, design.network, design.fluid, design.pressures, design.flows
+        design.operation.walls, network, design.fluid, design.pressures, design.flows
     )
     solution = soft.solution
     progress("transport")
@@ -502,6 +577,7 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
+        *fabrication_results(findings),
     )
     supply = {
         "mode": "; ".join(f"{node}: {_supply_words(s)}" for node, s in design.supplies.items()),
@@ -523,9 +599,30 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
     )
     attach(results, operation)
     results["channels"] = channel_rows(solution)
-    results["fabrication"] = None
-    results["warnings"] = []
-    results["field"] = None
+    if layout is not None:  # each drawn channel's width on the mask (tubing: none)
+        mask = layout.channels.mask_width
+        for i, row in enumerate(results["channels"]):  # a network written by hand
+            row["mask_width"] = float(mask[i]) if i < mask.size else None
+    results["fabrication"] = None if layout is None else _fabrication_dict(layout, export, findings)
+    results["warnings"] = warnings
+    field_run = (
+        None
+        if layout is None
+        else _field(
+            layout,
+            soft.rigid,
+            design.fluid.viscosity,
+            culture.window,
+            culture.seeded,
+            None,
+            run_field,
+            progress,
+        )
+    )
+    results["field"] = None if field_run is None else field_run.results
+    checks, transport = _field_outcome(
+        field_run, checks, transport, results, layout, culture, culture.window, progress
+    )
     results["transport"] = transport.results
     return Build(
         source,
@@ -533,13 +630,59 @@ def _build_network(source: DesignSource, progress: Progress) -> Build:
         design.description,
         design.fluid,
         None,
-        None,
+        layout,
         solution,
         tuple(checks),
-        None,
+        export,
         results,
+        field_run,
         operation=operation,
         transport=transport,
+    )
+
+
+def drawn_network(design, layout: Layout):
+    """The network of a drawn explicit network: the drawing's channels (with their pieces'
+    corrections) and the design's tubes, nodes named as in the file.
+
+    Raises
+    ------
+    SpecError
+        Where a channel's given ``length`` differs from its drawn length by more than
+        :data:`~chipflow.spec.network.LENGTH_TOLERANCE`.
+    """
+    from chipflow.layout import extract_network
+    from chipflow.network import Network
+    from chipflow.spec.network import LENGTH_TOLERANCE
+
+    drawn = layout.channels.length
+    for i, route in enumerate(design.drawing.routes):  # the channels given with a length
+        if route.length is None or abs(route.length - drawn[i]) <= LENGTH_TOLERANCE * drawn[i]:
+            continue
+        raise SpecError(
+            f"{route.where}.length: channel {route.name!r} is given {route.length * 1e3:.4g} mm "
+            f"long but drawn {drawn[i] * 1e3:.4g} mm long through its nodes and corners (more "
+            f"than {LENGTH_TOLERANCE:.0%} apart); leave length out, or move its corners"
+        )
+    chip = extract_network(layout)
+    given = design.network
+    tubes = np.flatnonzero(given.round)
+    names = list(chip.node_names)
+    names += [n for n in given.node_names if n not in names]
+    index = {n: i for i, n in enumerate(names)}
+    remap = np.array([index[n] for n in given.node_names])
+    channel_names = [*chip.channel_names(), *(given.channel_name(int(t)) for t in tubes)]
+    return Network.from_arrays(
+        np.concatenate([chip.node_a, remap[given.node_a[tubes]]]),
+        np.concatenate([chip.node_b, remap[given.node_b[tubes]]]),
+        np.concatenate([chip.width, given.width[tubes]]),
+        np.concatenate([chip.depth, given.depth[tubes]]),
+        np.concatenate([chip.length, given.length[tubes]]),
+        round=np.concatenate([chip.round, given.round[tubes]]),
+        names=channel_names,
+        generation=np.concatenate([chip.generation, given.generation[tubes]]),
+        role=np.concatenate([chip.role, given.role[tubes]]),
+        node_names=names,
     )
 
 

@@ -13,3 +13,25 @@ def dask_scheduler():
         n_workers=1, threads_per_worker=2, processes=False, dashboard_address=None
     ) as cluster:
         yield cluster.scheduler_address
+
+
+def _stand_in_piece(key):
+    """Equivalent lengths of a drawing's pieces without their 2D solves [m]: a tenth of a width
+    for a port step, minus a tenth of each arm's width at a junction, minus 0.4 parent widths at
+    a binary split (the values are tested in test_junctions.py; these stand-ins keep builds fast
+    where only the build's plumbing is tested)."""
+    from chipflow.layout import pieces
+
+    if isinstance(key, pieces.PortKey):
+        return pieces.PieceSolution((0.1 * key.width,))
+    if isinstance(key, pieces.JunctionKey):
+        return pieces.PieceSolution(tuple(-0.1 * arm.width for arm in key.arms))
+    return pieces.PieceSolution((-0.4 * key.parent_width, 0.0, 0.0))
+
+
+@pytest.fixture
+def plain_pieces(monkeypatch):
+    """Builds in the test use :func:`_stand_in_piece` instead of the pieces' 2D solves."""
+    from chipflow.layout import pieces
+
+    monkeypatch.setattr(pieces, "solve_piece", _stand_in_piece)

@@ -127,7 +127,7 @@ ERRORS = {
     ),
     "tree design without generations": (
         '[tree]\nflow = "5 uL/min"\n',
-        "give exactly one of generations and bed_channels",
+        "give exactly one of generations, bed_channels and splits",
     ),
     "nothing to check": ('name = "empty"\n', "nothing to check"),
 }

@@ -26,6 +26,20 @@ from chipflow.spec.tree import load_tree_spec
 
 ROOT = Path(__file__).parents[1]
 DEMO = tomllib.loads((ROOT / "designs" / "demo_endothelial_bed.toml").read_text())
+# the keys of explicit networks are changed on the bundled network drawn from coordinates
+TWIN = tomllib.loads((ROOT / "designs" / "twin_culture_manifold.toml").read_text())
+ON_TWIN = {"__design__": TWIN}
+
+
+def _entry(section: str, name: str, key: str, value) -> dict:
+    """A change of one entry of a list of tables of the twin design."""
+    items = copy.deepcopy(TWIN[section])
+    for item in items:
+        if item["name"] == name:
+            item[key] = value
+    return {section: items}
+
+
 TWO_LEVEL = {"fabrication": {"depths": ["30 um", "100 um"], "max_width_to_depth": 12}}
 
 VARIED = {
@@ -84,6 +98,18 @@ CASES = {
     ("tree", "flow"): ({}, {"tree": {"flow": "10 uL/min"}}, "build"),
     ("tree", "generations"): ({}, {"tree": {"bed_channels": None, "generations": 4}}, "build"),
     ("tree", "bed_channels"): ({}, {"tree": {"bed_channels": 16}}, "build"),
+    ("tree", "splits"): ({}, {"tree": {"bed_channels": None, "splits": [2, 3, 2]}}, "build"),
+    ("nodes", "at"): (ON_TWIN, _entry("nodes", "join", "at", ["62 mm", "12.5 mm"]), "build"),
+    ("channels", "via"): (
+        ON_TWIN,
+        _entry(
+            "channels",
+            "feed upper",
+            "via",
+            [["14 mm", "14.5 mm"], ["18 mm", "14.5 mm"], ["18 mm", "16.5 mm"]],
+        ),  # fmt: skip
+        "build",
+    ),
     ("tree", "rule"): (
         {},
         {"tree": {"rule": "shear-target"}, "targets": {"shear": "0.9 Pa"}},
@@ -342,7 +368,7 @@ VALUES = {
 
 
 #: The key tables of the reference page, by their ``:name:``.
-KEY_TABLES = ("tree-design-keys", "time-varying-supply-keys")
+KEY_TABLES = ("tree-design-keys", "time-varying-supply-keys", "network-design-keys")
 
 
 def documented_keys() -> set[tuple[str, str]]:
@@ -366,9 +392,11 @@ def documented_keys() -> set[tuple[str, str]]:
 
 
 def merged(*changes: dict) -> dict:
-    data = copy.deepcopy(DEMO)
+    data = copy.deepcopy(changes[0].get("__design__", DEMO) if changes else DEMO)
     for change in changes:
         for k, v in change.items():
+            if k == "__design__":
+                continue
             if isinstance(v, dict):
                 section = data.setdefault(k, {})
                 for kk, vv in v.items():
@@ -412,12 +440,10 @@ def test_the_table_and_the_cases_list_the_same_keys():
 
 
 @pytest.fixture(autouse=True)
-def _plain_junctions(monkeypatch):
+def _plain_junctions(plain_pieces):
     # the junction corrections' values are tested in test_junctions.py; here only whether a
     # key changes the build matters, so a fixed stand-in spares the 2D solves
-    from chipflow.layout import extract
-
-    monkeypatch.setattr(extract, "junction_excess_length", lambda j: -0.4 * j.parent_width)
+    return plain_pieces
 
 
 @pytest.mark.parametrize("section,key", sorted(CASES), ids=lambda v: v or "top")

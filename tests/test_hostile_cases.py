@@ -138,7 +138,7 @@ def test_a_tree_too_large_for_the_machine_is_refused(tmp_path, monkeypatch):
     assert_refused(result, "channels", "mask vertices", "100 MiB", "--allow-large")
     assert nothing_written(tmp_path)
     # the demo has 32 bed channels: 94 drawn channels (31 + 32 + 31)
-    assert "94 channels (about 2,820 mask vertices) need about 171 MB" in result.stderr
+    assert "94 channels (about 2,820 mask vertices) need about 178 MB" in result.stderr
     assert build_file(tmp_path, DEMO, "--allow-large").exit_code in (0, 1)
 
 

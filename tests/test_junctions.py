@@ -328,8 +328,8 @@ def test_junction_correction_does_not_depend_on_the_stub_length():
 
 
 def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkeypatch):
-    # A junction whose 2D solve fails must not stop the build nor pass silently: its channels
-    # keep their centre-to-centre lengths and the build's warnings name the level.
+    # A piece whose 2D solve fails must not stop the build nor pass silently: its channels
+    # keep their centre-to-centre lengths and the build's warnings name the place.
     from pathlib import Path
 
     import chipflow.field
@@ -337,17 +337,111 @@ def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkey
     from chipflow.errors import FieldError
     from chipflow.layout import extract_network
     from chipflow.layout.junctions import _excess
+    from chipflow.layout.pieces import solve_piece
 
     def refuse(*args, **kwargs):
         raise FieldError("a part of the domain was left without a depth")
 
     monkeypatch.setattr(chipflow.field, "solve_field", refuse)
     _excess.cache_clear()
+    solve_piece.cache_clear()
     try:
         build = build_design(Path(__file__).parents[1] / "designs" / "demo_endothelial_bed.toml")
     finally:
         _excess.cache_clear()  # later tests solve their junctions for real
+        solve_piece.cache_clear()
     plain = extract_network(build.layout, junctions=False)
     np.testing.assert_array_equal(build.solution.network.length[: plain.length.size], plain.length)
     warned = [w for w in build.results["warnings"] if "could not be solved in 2D" in w]
-    assert len(warned) == len(build.layout.junctions) > 0
+    # one warning per distinct piece: a junction per tree level, the step at each port
+    assert len(warned) == len(build.layout.pieces.keys) > 0
+    assert any("the step from the inlet port" in w for w in warned)
+
+
+def star_resistance(lengths, widths, parent_extra, child_extra):
+    """chipflow's network of an N-arm junction: a star of the arms' channels, the parent's
+    port at 1 Pa, every child's at 0 [Pa s/m^3]."""
+    n = len(widths)
+    net = Network.from_arrays(
+        [0] + [1] * (n - 1),
+        [1] + list(range(2, n + 1)),
+        widths,
+        H,
+        [lengths[0] + parent_extra] + [lengths[i] + child_extra[i - 1] for i in range(1, n)],
+    )
+    fluid = Fluid("test", MU, 1000.0, 310.15)
+    pressures = {"n0": 1.0, **{f"n{i}": 0.0 for i in range(2, n + 1)}}
+    return 1.0 / solve(net, fluid, pressures, None).port_flow["n0"]
+
+
+def check_fan(headings, widths, r_2d, straight, step, disc):
+    """A fan's network resistance (with chipflow's corrections, and without) against the 2D
+    solve written here, put on the exact series: the 2D excess over the test's own straight
+    stubs (same grid or mesh) is added to the exact series of plain stubs."""
+    from chipflow.layout.junctions import STUB_WIDTHS
+    from chipflow.layout.pieces import junction_key, solve_piece
+
+    stub = STUB_WIDTHS * max(widths)
+    arms = [(h, w, H, ()) for h, w in zip(headings, widths, strict=True)]
+    key, order, _, _ = junction_key(arms, disc)
+    lengths = np.empty(len(widths))
+    lengths[order] = solve_piece(key).lengths
+    own = {w: per_length(straight, w, stub, step) for w in set(widths)}
+
+    def star(r_arm):
+        return r_arm[0] + 1.0 / np.sum(1.0 / np.asarray(r_arm[1:]))
+
+    r_own = star([own[w][0] * stub + own[w][1] / 2 for w in widths])
+    r_exact = star([float(duct.resistance(w, H, stub, MU)) for w in widths])
+    independent = r_exact + (r_2d - r_own)
+    corrected = star_resistance([stub] * len(widths), widths, lengths[0], lengths[1:])
+    plain = star_resistance([stub] * len(widths), widths, 0.0, np.zeros(len(widths) - 1))
+    return corrected / independent - 1, plain / independent - 1
+
+
+def test_a_three_way_split_matches_a_finite_difference_solve():
+    # parent from -x, children up, straight on and down: every wall on the MAC grid
+    w0, w1, dx = 200e-6, 120e-6, 10e-6
+    stub = 3 * w0
+    poly = shapely.union_all(
+        [
+            shapely.box(-stub, -w0 / 2, 0, w0 / 2),
+            shapely.box(-w1 / 2, 0, w1 / 2, stub),
+            shapely.box(0, -w1 / 2, stub, w1 / 2),
+            shapely.box(-w1 / 2, -stub, w1 / 2, 0),
+        ]
+    )
+    ports = [
+        (shapely.box(-stub - 3 * dx, -w0 / 2, -stub, w0 / 2), 1.0),
+        (shapely.box(-w1 / 2, stub, w1 / 2, stub + 3 * dx), 0.0),
+        (shapely.box(stub, -w1 / 2, stub + 3 * dx, w1 / 2), 0.0),
+        (shapely.box(-w1 / 2, -stub - 3 * dx, w1 / 2, -stub), 0.0),
+    ]
+    r_2d = 1.0 / fd_port_flows(poly, ports, H, MU, dx)[0]
+    headings = [math.pi, math.pi / 2, 0.0, -math.pi / 2]
+    err, plain = check_fan(headings, [w0, w1, w1, w1], r_2d, fd_straight, dx, 0.0)
+    assert abs(err) < 0.01
+    assert abs(plain) > 0.02  # without the corrections the split is counted wrong
+
+
+def test_a_four_way_split_matches_a_finite_element_solve():
+    # parent from -x; children at +-90 and +-45 degrees, the disc that blunts their wedges
+    from chipflow.layout.pieces import junction_disc
+
+    w0, w1, size = 200e-6, 120e-6, 15e-6
+    stub = 3 * w0
+    headings = [math.pi, math.pi / 2, math.pi / 4, -math.pi / 4, -math.pi / 2]
+    widths = [w0, w1, w1, w1, w1]
+    disc = junction_disc(np.array(headings), np.array(widths), 25e-6)
+    assert disc > w0 / 2  # the 45 degree wedges need more than the Y's disc
+    polys, ports = [], []
+    for h, w in zip(headings, widths, strict=True):
+        poly, end, _, n = _stub(np.zeros(2), h, stub, w)
+        polys.append(poly)
+        ports.append((shapely.LineString([end + n * w / 2, end - n * w / 2]), 0.0))
+    ports[0] = (ports[0][0], 1.0)
+    polys.append(shapely.Point(0, 0).buffer(disc, quad_segs=16))
+    r_2d = 1.0 / fem_port_flows(shapely.union_all(polys), ports, H, MU, size)[0]
+    err, plain = check_fan(headings, widths, r_2d, fem_straight, size, disc)
+    assert abs(err) < 0.01
+    assert abs(plain) > 0.02

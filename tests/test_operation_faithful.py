@@ -41,12 +41,10 @@ ZETA3 = 1.202056903159594285  # Apery's constant, zeta(3)
 
 
 @pytest.fixture(autouse=True)
-def _plain_junctions(monkeypatch):
+def _plain_junctions(plain_pieces):
     # junction corrections are tested in test_junctions.py; these builds need none of their
     # 2D solves, so a fixed stand-in keeps them fast
-    from chipflow.layout import extract
-
-    monkeypatch.setattr(extract, "junction_excess_length", lambda j: -0.4 * j.parent_width)
+    return plain_pieces
 
 
 # -- soft roofs, self-consistent -----------------------------------------------------------------

@@ -59,12 +59,27 @@ def test_fabrication_section_parsed_in_si():
     assert hi == pytest.approx(1.5e-3) and "roof-sag" in hi_rule
 
 
-def test_bed_channels_must_be_a_power_of_two():
+def test_bed_channels_need_prime_factors_of_at_most_five():
     with pytest.raises(
-        SpecError, match=r"t.toml: tree.bed_channels: .*12 is not \(nearest: 8 or 16\)"
+        SpecError,
+        match=r"t.toml: tree.bed_channels: 49 bed channels cannot be reached .* nearest counts "
+        r"that work: 48 or 50",
     ):
-        load(BASE.replace("generations = 3", "bed_channels = 12"))
-    assert load(BASE.replace("generations = 3", "bed_channels = 16")).generations == 4
+        load(BASE.replace("generations = 3", "bed_channels = 49"))
+    assert load(BASE.replace("generations = 3", "bed_channels = 16")).splits == (2, 2, 2, 2)
+    spec = load(BASE.replace("generations = 3", "bed_channels = 12"))
+    assert spec.splits == (3, 2, 2) and spec.bed_channels == 12 and spec.generations == 3
+    assert "splits 3, 2, 2 for 12 bed channels" in spec.split_note
+    given = load(BASE.replace("generations = 3", "splits = [2, 3, 2]"))
+    assert given.splits == (2, 3, 2) and given.split_note == ""
+    for bad, words in (
+        ("splits = [2, 6]", "6 is not a branching factor from 2 to 5"),
+        ("splits = []", "give a list of whole numbers 2 to 5"),
+        ('splits = ["3"]', "give a list of whole numbers 2 to 5"),
+        ("splits = [3, 2]\nbed_channels = 6", "give exactly one of generations"),
+    ):
+        with pytest.raises(SpecError, match=words):
+            load(BASE.replace("generations = 3", bad))
 
 
 @pytest.mark.parametrize(

@@ -321,7 +321,9 @@ def test_tolerances_that_would_empty_a_channel_are_refused(demo) -> None:
         variation_problem(demo, Tolerances(depth=0.3, distribution="normal"))
 
 
-def test_explicit_networks_are_refused() -> None:
+def test_explicit_networks_are_varied_by_their_mould_levels() -> None:
+    # an explicit network (drawn or not) has one depth error per distinct depth
     build = build_design(ROOT / "designs" / "bench_loop_network.toml")
-    with pytest.raises(SpecError, match="tree"):
-        variation_problem(build, Tolerances())
+    problem = variation_problem(build, Tolerances())
+    assert problem.level_depths.tolist() == pytest.approx([50e-6])
+    assert problem.names[0] == "depth of mould level 1 (50 um)"

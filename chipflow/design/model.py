@@ -29,7 +29,7 @@ class Level:
     role : str
         One of :data:`ROLES`.
     count : int
-        Number of parallel channels in this level (``2**generation`` for a bifurcating tree).
+        Number of parallel channels in this level (the product of the splits before it).
     width, depth : float
         Channel cross-section [m].
     length : float
@@ -62,7 +62,7 @@ class Level:
 
 @dataclass(frozen=True)
 class TreeDesign:
-    """A sized, mirrored bifurcating tree.
+    """A sized, mirrored tree.
 
     Attributes
     ----------
@@ -101,8 +101,15 @@ class TreeDesign:
 
     @property
     def generations(self) -> int:
-        """Number of bifurcating generations ``n`` (the bed has ``2**n`` channels)."""
+        """Number of splitting generations ``n``."""
         return self.bed.generation
+
+    @property
+    def splits(self) -> tuple[int, ...]:
+        """Branching factor of each generation 0..n-1 (the number of children of each of its
+        channels)."""
+        counts = [lv.count for lv in self.distribution] + [self.bed.count]
+        return tuple(b // a for a, b in zip(counts[:-1], counts[1:], strict=True))
 
     @property
     def bed(self) -> Level:

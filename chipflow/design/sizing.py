@@ -1,19 +1,23 @@
 """Branching rules and fabrication-aware inverse sizing of a mirrored bifurcating tree.
 
 Rules (``[tree] rule``), each giving width, depth, count and flow per generation ``g = 0..n``
-(the bed is generation ``n``; every channel of generation ``g`` carries ``Q / 2**g``):
+(the bed is generation ``n``; every channel of generation ``g`` carries ``Q / N_g``, where
+``N_g`` is the product of the splits of the generations before it, ``2**g`` for a bifurcating
+tree):
 
 ``equal-shear``
     Every generation has the same wall shear as the trunk (the trunk given by ``trunk_width``,
     or sized to the shear target). For round tubes this is Murray's law, ``d**3`` proportional
-    to the flow (Murray, PNAS 12 (1926) 207). For rectangular channels it is the
+    to the flow (Murray, PNAS 12 (1926) 207), for any number of children: a parent splitting
+    into ``k`` alike children has ``d_parent**3 = k d_child**3``. For rectangular channels it is the
     generalisation to constant-depth channels (Emerson et al., Lab Chip 6 (2006) 447), solved
     here with the exact duct series rather than the parallel-plate formula.
 ``shear-target``
     Each generation is sized to its own target (one value or one per generation).
 ``area-growth``
     The total cross-section grows by ``growth`` per generation, so the mean velocity falls by
-    exactly that factor per generation (continuity), as in a vascular bed.
+    exactly that factor per generation (continuity), as in a vascular bed; each channel of
+    generation ``g`` has ``1 / N_g`` of it.
 ``table``
     Widths and depths given per generation; only checked against the fabrication limits.
 
@@ -324,8 +328,8 @@ def _fail(spec: TreeSpec, g: int, options: list[Candidate], need: str, window) -
     role = "bed" if g == n else "distribution"
     drawable = [c for c in options if not math.isnan(c.width)]
     where = (
-        f"{spec.source}: generation {g} ({role}, {2**g} channel{'s' * (g > 0)}, "
-        f"{format_quantity(spec.flow / 2**g, 'uL/min')} each)"
+        f"{spec.source}: generation {g} ({role}, {spec.count(g)} channel{'s' * (g > 0)}, "
+        f"{format_quantity(spec.flow / spec.count(g), 'uL/min')} each)"
     )
     if not drawable:
         binding = options[0].binding
@@ -494,8 +498,9 @@ def size_tree(
     """
     n, fab, mu = spec.generations, spec.fabrication, spec.fluid.viscosity
     kind, targets = spec.targets.kind, spec.targets
-    flows = spec.flow / 2.0 ** np.arange(n + 1)
-    warnings: list[str] = []
+    counts = np.array([spec.count(g) for g in range(n + 1)])
+    flows = spec.flow / counts
+    warnings: list[str] = [spec.split_note] if spec.split_note else []
     windows = [targets.window(g, n) for g in range(n + 1)]
     round_tubes = spec.shape == "round"
     sized_targets: list[float | None] = [None] * (n + 1)
@@ -562,7 +567,7 @@ def size_tree(
             Level(
                 g,
                 role,
-                2**g,
+                int(counts[g]),
                 float(widths[g]),
                 float(depths[g]),
                 float(length),
@@ -633,7 +638,10 @@ def _size_rectangular(spec, flows, windows, warnings, bed_grade=None) -> list[tu
         if g == 0 and spec.trunk_depth is not None:
             allowed = [spec.trunk_depth]
         if area0 is not None:
-            area = area0 * (spec.growth / 2.0) ** g
+            if set(spec.splits) <= {2}:
+                area = area0 * (spec.growth / 2.0) ** g
+            else:
+                area = area0 * spec.growth**g / spec.count(g)
             need = f"area {format_quantity(area, 'um^2')}"
             row = [candidates(flows[g], h, fab, mu, kind, area=area) for h in allowed]
         else:

@@ -5,9 +5,9 @@ per-generation table of ``chipflow check``. Once the layout exists, the network 
 the drawing replaces this one (same channel roles and generations, drawn lengths).
 
 Node numbering: 0 is the inlet, 1 the outlet; the split nodes after distribution generation
-``g`` and the merge nodes before collection generation ``g`` follow, ``2**g`` of each per
-generation. Channel ``j`` of a level connects to node ``j // 2`` of the level before, so the
-whole tree is built with integer arithmetic on arrays.
+``g`` and the merge nodes before collection generation ``g`` follow, one per channel of the
+generation. Channel ``j`` of a level whose channels split into ``s`` connects to node
+``j // s`` of the level before, so the whole tree is built with integer arithmetic on arrays.
 """
 
 from __future__ import annotations
@@ -42,23 +42,27 @@ def tree_arrays(design: TreeDesign) -> dict[str, np.ndarray]:
     ([0, 2, 2, 3], [2, 3, 3, 1])
     """
     n = design.generations
+    splits = design.splits
+    counts = np.cumprod([1, *splits])  # channels per generation 0..n
     # first node index of the split nodes after distribution generation g, and of the merge
-    # nodes before collection generation g (2**g nodes each)
-    split = 2 + np.concatenate(([0], np.cumsum(2 ** np.arange(n))))[:n]
-    merge = 2 + (2**n - 1) + split - 2
-    n_nodes = 2 + 2 * (2**n - 1)
+    # nodes before collection generation g (one per channel of generation g)
+    split = 2 + np.concatenate(([0], np.cumsum(counts[:n])))[:n]
+    inner = int(counts[:n].sum())
+    merge = 2 + inner + split - 2
+    n_nodes = 2 + 2 * inner
     a_parts, b_parts, level_parts = [], [], []
     for index, level in enumerate(design.levels):
         g, j = level.generation, np.arange(level.count)
+        s = splits[g - 1] if g > 0 else 1  # children per channel of the generation before
         if level.role == "distribution":
-            a = np.zeros(level.count, int) if g == 0 else split[g - 1] + j // 2
+            a = np.zeros(level.count, int) if g == 0 else split[g - 1] + j // s
             b = split[g] + j
         elif level.role == "bed":
-            a = np.zeros(level.count, int) if n == 0 else split[n - 1] + j // 2
-            b = np.ones(level.count, int) if n == 0 else merge[n - 1] + j // 2
+            a = np.zeros(level.count, int) if n == 0 else split[n - 1] + j // s
+            b = np.ones(level.count, int) if n == 0 else merge[n - 1] + j // s
         else:
             a = merge[g] + j
-            b = np.ones(level.count, int) if g == 0 else merge[g - 1] + j // 2
+            b = np.ones(level.count, int) if g == 0 else merge[g - 1] + j // s
         a_parts.append(a)
         b_parts.append(b)
         level_parts.append(np.full(level.count, index))

@@ -177,6 +177,7 @@ def compare_with_network(
     network_solution,
     window: tuple[float, float] | None,
     seeded: str = "all",
+    ports: tuple[str, str] = ("inlet", "outlet"),
 ) -> FieldComparison:
     """Compare a chip's field with its solved network.
 
@@ -191,6 +192,8 @@ def compare_with_network(
         Floor shear window of the cells [Pa].
     seeded : {"all", "bed"}
         Where cells grow.
+    ports : (str, str)
+        The ports of high and low pressure between which the resistances are given.
     """
     mesh = solution.mesh
     ch = layout.channels
@@ -238,10 +241,13 @@ def compare_with_network(
         }
 
     names = list(net.network.node_names)
-    p_in, p_out = (float(net.pressure[names.index(n)]) for n in ("inlet", "outlet"))
-    q_net = float(np.abs(net.flow[:n_ch][ch.node_a == names.index("inlet")]).sum())
+    high, low = ports
+    p_in, p_out = (float(net.pressure[names.index(n)]) for n in (high, low))
+    node = names.index(high)
+    q_net = float(np.abs(net.flow[:n_ch][ch.node_a == node]).sum())
+    q_net -= float(net.flow[:n_ch][ch.node_b == node].sum())
     return FieldComparison(
-        resistance=solution.resistance("inlet", "outlet"),
+        resistance=solution.resistance(high, low),
         network_resistance=(p_in - p_out) / q_net,
         floor=floor,
         zones=zones,

@@ -13,7 +13,7 @@ from chipflow.field.model import FieldSolution
 from chipflow.field.solve import scaled
 from chipflow.layout.model import Layout
 
-__all__ = ["FieldRun", "run_field"]
+__all__ = ["FieldRun", "run_field", "port_pair"]
 
 
 @dataclass(frozen=True)
@@ -47,6 +47,17 @@ class FieldRun:
         return float(x), float(y), half
 
 
+def port_pair(layout: Layout, network_solution) -> tuple[str, str]:
+    """The ports between which a chip's resistance is given: a tree's inlet and outlet, else
+    the ports of highest and lowest pressure in the network's solution."""
+    names = {p.name for p in layout.ports}
+    if {"inlet", "outlet"} <= names:
+        return "inlet", "outlet"
+    nodes = list(network_solution.network.node_names)
+    ranked = sorted(names, key=lambda n: float(network_solution.pressure[nodes.index(n)]))
+    return ranked[-1], ranked[0]
+
+
 def run_field(
     layout: Layout,
     network_solution,
@@ -54,50 +65,58 @@ def run_field(
     window,
     seeded: str = "all",
     *,
-    flow_driven: bool = True,
+    flow_driven: bool | None = True,
     **options,
 ) -> FieldRun:
     """Solve the field of ``layout`` at the operating point of the network's supply.
 
-    The field is solved at the network's inlet and outlet node pressures and then scaled
-    (it is linear) to the flow the supply would drive through the field's own resistance:
-    the network's flow for a flow-driven supply (a syringe pump), or the supply's pressure
-    over the tubing plus the field resistance for a pressure-driven one. Resistances do not
-    depend on the scaling.
+    The field is solved at the network's port node pressures. For a tree (an inlet and an
+    outlet), it is then scaled (it is linear) to the flow the supply would drive through the
+    field's own resistance: the network's flow for a flow-driven supply (a syringe pump), or
+    the supply's pressure over the tubing plus the field resistance for a pressure-driven one.
+    Resistances do not depend on the scaling.
 
     Parameters
     ----------
     layout : Layout
     network_solution : chipflow.network.Solution
-        The chip's network solution (tubing included); its ``inlet`` and ``outlet`` node
-        pressures drive the field, so flows and shear compare one to one.
+        The chip's network solution (tubing included); its port node pressures drive the
+        field, so flows and shear compare one to one.
     viscosity : float
         [Pa s].
     window : ShearWindow or (float, float) or None
         The cells' floor shear window [Pa].
     seeded : {"all", "bed"}
-    flow_driven : bool
-        True when the supply sets the flow, False when it sets a pressure (or a head).
+    flow_driven : bool or None
+        True when the supply sets the flow, False when it sets a pressure (or a head); None:
+        the field stays at the network's port pressures (an explicit network's supplies).
     **options
         Passed to :func:`chipflow.field.solve_field` (``across``, ``mesh_size``).
     """
     names = list(network_solution.network.node_names)
+    high, low = port_pair(layout, network_solution)
     pressures = {
-        port: float(network_solution.pressure[names.index(port)]) for port in ("inlet", "outlet")
+        p.name: float(network_solution.pressure[names.index(p.name)]) for p in layout.ports
     }
     if window is not None and not isinstance(window, tuple):
         window = (float(window.min), float(window.max))
     solution = solve_layout(layout, pressures, viscosity, **options)
     n_ch = len(layout.channels.width)
     ch = layout.channels
-    q_net = float(abs(network_solution.flow[:n_ch][ch.node_a == names.index("inlet")]).sum())
-    q_field = solution.port_flows["inlet"]
-    if flow_driven:
+    node = names.index(high)
+    q_net = float(abs(network_solution.flow[:n_ch][ch.node_a == node]).sum())
+    q_net -= float(network_solution.flow[:n_ch][ch.node_b == node].sum())
+    q_field = solution.port_flows[high]
+    if flow_driven is None:
+        q_op = q_field
+    elif flow_driven:
         q_op = q_net
     else:  # the supply's pressure across tubing (network) and chip (field) in series
         p_supply = float(network_solution.pressure.max() - network_solution.pressure.min())
-        r_tubing = (p_supply - (pressures["inlet"] - pressures["outlet"])) / q_net
-        q_op = p_supply / (r_tubing + solution.resistance("inlet", "outlet"))
+        r_tubing = (p_supply - (pressures[high] - pressures[low])) / q_net
+        q_op = p_supply / (r_tubing + solution.resistance(high, low))
     solution = scaled(solution, q_op / q_field)
-    comparison = compare_with_network(solution, layout, network_solution, window, seeded)
+    comparison = compare_with_network(
+        solution, layout, network_solution, window, seeded, ports=(high, low)
+    )
     return FieldRun(solution, comparison, window, comparison_dict(comparison))

@@ -34,10 +34,12 @@ __all__ = [
 
 #: Peak memory of a whole build per drawn channel [bytes] (measured 2026-12-02 between 2^8 and
 #: 2^12 bed channels with benchmarks/memory_per_channel.py: 14 830; it predicts 3.1 GB at 2^16
-#: bed channels, where 3.2 GB was observed).
-BYTES_PER_CHANNEL = 15_000
+#: bed channels, where 3.2 GB was observed; measured again 2026-12-04 with the drawing engine:
+#: 15 122 bytes and 177 MB, against 14 684 bytes and 172 MB for the drawing before it, side by
+#: side on the same machine).
+BYTES_PER_CHANNEL = 15_200
 #: Peak memory of a build before its channels [bytes] (same measurement).
-BASE_BYTES = 170e6
+BASE_BYTES = 177e6
 #: Mask vertices per drawn channel [-] (same measurement).
 VERTICES_PER_CHANNEL = 30
 #: Share of the machine's total memory a build may need before it is refused [-].
@@ -67,7 +69,7 @@ def estimate_size(channels: int) -> SizeEstimate:
     """The estimate for a tree of ``channels`` drawn channels.
 
     >>> round(estimate_size(786_430).memory / 1e9, 1)   # 2^18 bed channels
-    12.0
+    12.1
     """
     channels = int(channels)
     return SizeEstimate(

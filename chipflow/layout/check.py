@@ -33,7 +33,7 @@ import shapely
 from chipflow.layout.model import Layout
 from chipflow.layout.rules import LayoutRules
 
-__all__ = ["Finding", "check_rules", "RULES"]
+__all__ = ["Finding", "check_rules", "size_findings", "RULES"]
 
 RULES = ("min_width", "min_gap", "overlap", "outline", "port_keepout", "roof_sag", "tall_wall")
 
@@ -77,7 +77,86 @@ def _outlines(layout: Layout) -> np.ndarray:
 
 def _label(layout: Layout, i: int) -> str:
     ch = layout.channels
+    if ch.names is not None:
+        return f"channel {str(ch.names[i])!r}"
     return f"{ch.role[i]} channel gen {ch.generation[i]} #{ch.index[i]}"
+
+
+def _labels(layout: Layout) -> np.ndarray:
+    """:func:`_label` of every channel, vectorised."""
+    ch = layout.channels
+    if ch.names is not None:
+        return np.char.add(np.char.add("channel '", ch.names.astype(str)), "'")
+    text = np.char.add(ch.role.astype(str), " channel gen ")
+    text = np.char.add(np.char.add(text, ch.generation.astype(str)), " #")
+    return np.char.add(text, ch.index.astype(str))
+
+
+def _groups(layout: Layout) -> np.ndarray:
+    """Channels reported together: a tree's levels; each named channel on its own."""
+    ch = layout.channels
+    if ch.names is not None:
+        return np.asarray(ch.names, dtype=str)
+    return np.char.add(ch.role.astype(str), ch.generation.astype(str))
+
+
+def size_findings(
+    width: np.ndarray,
+    depth: np.ndarray,
+    labels: np.ndarray,
+    groups: np.ndarray,
+    rules: LayoutRules,
+    x: np.ndarray | None = None,
+    y: np.ndarray | None = None,
+) -> list[Finding]:
+    """The rules of a channel's cross-section alone: ``min_width``, ``roof_sag`` and
+    ``tall_wall``, one finding per group of channels that break one (a tree level, or a named
+    channel), at the middle of its first channel ``x``, ``y`` [m] (NaN when not drawn).
+
+    They apply whether or not a network is drawn.
+
+    >>> f = size_findings(np.array([2e-3]), np.array([100e-6]), np.array(["channel 'c'"]),
+    ...                   np.array(["c"]), LayoutRules())
+    >>> f[0].rule, f[0].value
+    ('roof_sag', 20.0)
+    """
+    n = width.size
+    x = np.full(n, np.nan) if x is None else x
+    y = np.full(n, np.nan) if y is None else y
+    findings = []
+    ratio_rules = (
+        ("min_width", width, rules.min_feature, width < rules.min_feature, "m"),
+        ("roof_sag", width / depth, rules.max_width_to_depth, None, "-"),
+        ("tall_wall", depth / width, rules.max_depth_to_width, None, "-"),
+    )
+    for rule, value, limit, bad, unit in ratio_rules:
+        bad = value > limit * (1 + 1e-9) if bad is None else bad
+        if not bad.any():
+            continue
+        for group in np.unique(groups[bad]):  # loop over levels (or named channels)
+            idx = np.flatnonzero(bad & (groups == group))
+            i = int(idx[0])
+            v = float(value[i])
+            shown = (
+                f"{_um(v)} < mask minimum feature {_um(limit)}"
+                if unit == "m"
+                else f"{rule.replace('_', ' ')} ratio {v:.2f} > limit {limit:g}"
+            )
+            where = f" at {_mm(x[i], y[i])}" if np.isfinite(x[i]) else ""
+            more = f" and {idx.size - 1} more of its level" if idx.size > 1 else ""
+            findings.append(
+                Finding(
+                    rule,
+                    "error",
+                    v,
+                    float(limit),
+                    float(x[i]),
+                    float(y[i]),
+                    tuple(int(j) for j in idx),
+                    f"{labels[i]}{more}{where}: {shown}",
+                )
+            )
+    return findings
 
 
 def _um(value: float) -> str:
@@ -109,39 +188,7 @@ def check_rules(layout: Layout, rules: LayoutRules) -> tuple[Finding, ...]:
     mx, my = shapely.get_x(mid), shapely.get_y(mid)
     findings: list[Finding] = []
 
-    # per-channel limits, grouped per level
-    ratio_rules = (
-        ("min_width", ch.width, rules.min_feature, ch.width < rules.min_feature, "m"),
-        ("roof_sag", ch.width / ch.depth, rules.max_width_to_depth, None, "-"),
-        ("tall_wall", ch.depth / ch.width, rules.max_depth_to_width, None, "-"),
-    )
-    for rule, value, limit, bad, unit in ratio_rules:
-        bad = value > limit * (1 + 1e-9) if bad is None else bad
-        if not bad.any():
-            continue
-        key = np.char.add(ch.role.astype(str), ch.generation.astype(str))
-        for level in np.unique(key[bad]):  # loop over levels, not channels
-            idx = np.flatnonzero(bad & (key == level))
-            i = int(idx[0])
-            v = float(value[i])
-            shown = (
-                f"{_um(v)} < mask minimum feature {_um(limit)}"
-                if unit == "m"
-                else f"{rule.replace('_', ' ')} ratio {v:.2f} > limit {limit:g}"
-            )
-            findings.append(
-                Finding(
-                    rule,
-                    "error",
-                    v,
-                    float(limit),
-                    float(mx[i]),
-                    float(my[i]),
-                    tuple(int(j) for j in idx),
-                    f"{_label(layout, i)} and {idx.size - 1} more of its level at "
-                    f"{_mm(mx[i], my[i])}: {shown}",
-                ),
-            )
+    findings += size_findings(ch.width, ch.depth, _labels(layout), _groups(layout), rules, mx, my)
 
     # pairs of channels closer than the minimum gap that do not share a node
     tree = shapely.STRtree(out)

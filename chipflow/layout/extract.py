@@ -1,18 +1,22 @@
 """The hydraulic network of a drawn chip.
 
-Nodes are the layout's nodes: the inlet and outlet (at the rim of the port holes, since the
-punched hole itself adds no resistance) and every junction centre. Each drawn channel becomes
-one network channel between its two nodes, with its width, depth and the exact length of its
-drawn centreline, arcs counted as true circular arcs.
+Nodes are the layout's nodes: the ports (a tree's inlet and outlet at the rim of their punched
+holes, an explicit network's port nodes at the hole's centre, its channels starting at the
+rim) and every junction centre. Each drawn channel becomes one network channel between its two
+nodes, with its width, depth and the exact length of its drawn centreline, arcs counted as
+true circular arcs (a run whose walls the grid moves counts at the width the mask has: see
+:attr:`~chipflow.layout.model.DrawnChannels.hydraulic_length`).
 
-How junctions are counted: centrelines run from junction centre to junction centre, so the
-junction area is shared out to the channels that meet there, each up to the centre, and each
-junction is then counted once by its equivalent-length correction
-(:mod:`chipflow.layout.junctions`): a 2D solve of the junction as drawn gives the excess
-resistance over those centreline lengths, added to the length of the parent channel (the one
-on the trunk's side). So a channel's network ``length`` is its drawn centreline length plus,
-for a tree channel that ends in a split (or starts at a merge), that junction's correction.
-The widths are the drawn ones (a whole number of grid steps, checked on the mask).
+How pieces are counted: centrelines run from junction centre to junction centre, so the area
+of a junction is shared out to the channels that meet there, each up to the centre; and a
+channel leaving a port starts at the rim of the punched hole. Each piece of the drawing
+(:class:`~chipflow.layout.model.Pieces`) is then counted once by its equivalent lengths from
+a 2D solve of the piece as drawn (:mod:`chipflow.layout.pieces`): a symmetric split of a tree
+adds its correction to the parent channel (the one on the trunk's side), any other junction
+one correction to each arm's channel (the arms of a star equivalent to the 2D piece), a port
+step one to its channel. So a channel's network ``length`` is its drawn length plus the
+corrections of the pieces at its two ends. The widths are the drawn ones (a whole number of
+grid steps, checked on the mask).
 """
 
 from __future__ import annotations
@@ -20,47 +24,120 @@ from __future__ import annotations
 import numpy as np
 
 from chipflow.errors import LayoutError
-from chipflow.layout.junctions import junction_excess_length
+from chipflow.layout import pieces as _pieces
 from chipflow.layout.model import Layout
 from chipflow.network import Network
 
-__all__ = ["extract_network", "junction_lengths", "unsolved_junctions"]
+__all__ = [
+    "extract_network",
+    "piece_lengths",
+    "junction_lengths",
+    "unsolved_pieces",
+    "unsolved_junctions",
+    "channel_names",
+]
 
 
-def junction_lengths(layout: Layout) -> np.ndarray:
+def channel_names(layout: Layout) -> list[str]:
+    """Network names of the drawn channels: the design's names, else
+    ``<role><generation>.<index>``."""
+    ch = layout.channels
+    if ch.names is not None:
+        return [str(s) for s in ch.names]
+    names = np.char.add(
+        np.char.add(np.char.add(ch.role.astype(str), ch.generation.astype(str)), "."),
+        ch.index.astype(str),
+    )
+    return list(names)
+
+
+def piece_lengths(layout: Layout, kinds: tuple[str, ...] | None = None) -> np.ndarray:
     """Equivalent-length correction of every drawn channel [m] (0 where none applies).
+
+    Parameters
+    ----------
+    layout : Layout
+    kinds : tuple of str, optional
+        Only pieces of these kinds ("fan", "junction", "port"); default all.
 
     Raises
     ------
     LayoutError
-        When a correction would leave a channel with no positive length.
+        When the corrections would leave a channel with no positive length.
     """
     ch = layout.channels
     extra = np.zeros(ch.length.size)
-    for role, generation, junction in layout.junctions:  # one per level, not per channel
-        sel = (ch.role == role) & (ch.generation == generation)
-        extra[sel] = junction_excess_length(junction)
-    extra = np.nan_to_num(extra, nan=0.0)  # unsolved junctions: see unsolved_junctions()
-    short = ch.length + extra <= 0
+    pieces = layout.pieces
+    if pieces is None or pieces.size == 0:
+        return extra
+    for kid, key in enumerate(pieces.keys):  # one solve per distinct geometry
+        sel = pieces.key == kid
+        if kinds is not None and not np.any(np.isin(pieces.kind[sel], kinds)):
+            continue
+        lengths = np.nan_to_num(np.asarray(_pieces.solve_piece(key).lengths, float), nan=0.0)
+        for arm, dl in enumerate(lengths):  # a handful of arms
+            chans = pieces.arm_channel[sel, arm]
+            np.add.at(extra, chans[chans >= 0], dl)
+    base = ch.length if ch.hydraulic_length is None else ch.hydraulic_length
+    short = base + extra <= 0
     if np.any(short):
         i = int(np.flatnonzero(short)[0])
+        label = (
+            repr(str(ch.names[i]))
+            if ch.names is not None
+            else f"{ch.role[i]} generation {ch.generation[i]}"
+        )
         raise LayoutError(
-            f"{ch.role[i]} generation {ch.generation[i]}: the junction correction "
-            f"{extra[i] * 1e6:.1f} um exceeds the drawn length {ch.length[i] * 1e6:.1f} um"
+            f"{label}: the junction corrections {extra[i] * 1e6:.1f} um exceed the drawn length "
+            f"{ch.length[i] * 1e6:.1f} um; draw the channel longer (its junctions are closer "
+            "than a few channel widths)"
         )
     return extra
 
 
-def unsolved_junctions(layout: Layout) -> list[str]:
-    """Warnings for the junctions whose 2D solve failed: their channels keep the plain
-    centre-to-centre lengths (the solves are cached, so asking again costs nothing)."""
-    return [
-        f"the junction at the end of {role} generation {generation} could not be solved in "
-        "2D: its channels keep their centre-to-centre lengths, which overstate the "
-        "resistance by a few percent"
-        for role, generation, junction in layout.junctions
-        if np.isnan(junction_excess_length(junction))
-    ]
+#: The name this function had when only tree junctions were counted.
+junction_lengths = piece_lengths
+
+
+def _where(layout: Layout, kind: str, arm_channel: np.ndarray, node: int) -> str:
+    ch = layout.channels
+    first = int(arm_channel[arm_channel >= 0][0])
+    label = (
+        f"channel {str(ch.names[first])!r}"
+        if ch.names is not None
+        else f"{ch.role[first]} generation {ch.generation[first]}"
+    )
+    if kind == "port":
+        return f"the step from the {layout.node_names[node]} port into {label}"
+    if kind == "fan":
+        return f"the junction at the end of {label}"
+    return f"the junction at node {layout.node_names[node]!r}"
+
+
+def unsolved_pieces(layout: Layout) -> list[str]:
+    """Warnings for the pieces whose 2D solve failed: their channels keep the plain
+    centre-to-centre (rim-to-centre) lengths (the solves are cached, so asking again costs
+    nothing)."""
+    pieces = layout.pieces
+    if pieces is None:
+        return []
+    out = []
+    for kid, key in enumerate(pieces.keys):  # one per distinct geometry
+        if not np.any(np.isnan(_pieces.solve_piece(key).lengths)):
+            continue
+        first = int(np.flatnonzero(pieces.key == kid)[0])
+        place = _where(
+            layout, str(pieces.kind[first]), pieces.arm_channel[first], pieces.node[first]
+        )
+        out.append(
+            f"{place} could not be solved in 2D: its channels keep their centre-to-centre "
+            "lengths, which misstate the resistance by up to a few percent"
+        )
+    return out
+
+
+#: The name this function had when only tree junctions were counted.
+unsolved_junctions = unsolved_pieces
 
 
 def extract_network(layout: Layout, junctions: bool = True) -> Network:
@@ -71,29 +148,26 @@ def extract_network(layout: Layout, junctions: bool = True) -> Network:
     layout : Layout
         A drawn chip (see :func:`chipflow.layout.draw`).
     junctions : bool
-        Add each junction's equivalent-length correction to its parent channel (default);
-        False gives the plain centre-to-centre lengths.
+        Add each piece's equivalent-length corrections to its channels (default); False gives
+        the plain drawn lengths.
 
     Returns
     -------
     Network
-        One channel per drawn channel, in the same order, named ``<role><generation>.<index>``;
-        nodes named as in ``layout.node_names`` ("inlet", "outlet", "split<k>.<i>",
-        "merge<k>.<i>").
+        One channel per drawn channel, in the same order, named as given by the design or
+        ``<role><generation>.<index>``; nodes named as in ``layout.node_names`` (a tree's
+        "inlet", "outlet", "split<k>.<i>", "merge<k>.<i>").
     """
     ch = layout.channels
-    names = np.char.add(
-        np.char.add(np.char.add(ch.role.astype(str), ch.generation.astype(str)), "."),
-        ch.index.astype(str),
-    )
-    length = ch.length + (junction_lengths(layout) if junctions else 0.0)
+    base = ch.length if ch.hydraulic_length is None else ch.hydraulic_length
+    length = base + (piece_lengths(layout) if junctions else 0.0)
     return Network.from_arrays(
         ch.node_a,
         ch.node_b,
         ch.width,
         ch.depth,
         length,
-        names=list(names),
+        names=channel_names(layout),
         generation=ch.generation,
         role=ch.role,
         node_names=layout.node_names,

@@ -30,12 +30,13 @@ def merge_layer(geoms: np.ndarray, hood: np.ndarray | None) -> shapely.Geometry:
 
     Fragments overlap only near the junction whose neighbourhood ``hood`` they join, and
     neighbourhoods meet only along the cuts across straight runs, where both sides share the
-    same two vertices (see :func:`_cuts`). So each neighbourhood is merged on its own (a
-    handful of small polygons), and the merged neighbourhoods, which then form a polygonal
-    coverage, are joined by a coverage union, which only drops their shared edges. One big
-    overlay of the whole layer is superlinear: the walls between bed channels make thousands
-    of holes. Should the pieces not form a clean coverage (or ``hood`` is None, when a cut
-    did not fit), the plain union of all fragments is taken instead.
+    same two vertices (see ``cut`` in :class:`chipflow.layout.sketch.ChannelGroup`). So each
+    neighbourhood is merged on its own (a handful of small polygons), and the merged
+    neighbourhoods, which then form a polygonal coverage, are joined by a coverage union, which
+    only drops their shared edges. One big overlay of the whole layer is superlinear: the walls
+    between bed channels make thousands of holes. Should the pieces not form a clean coverage
+    (or ``hood`` is None, when a cut did not fit), the plain union of all fragments is taken
+    instead.
     """
     geoms = np.asarray(geoms, dtype=object)
     keep = ~shapely.is_empty(geoms)
@@ -104,14 +105,16 @@ def stitch(local: np.ndarray) -> shapely.Geometry | None:
         return None
     grp_of_v = np.full(nv, -1)
     grp_of_v[a] = e_group
-    # drop vertices that only served shared edges and lie on a straight horizontal run
+    # drop vertices that only served shared edges and lie on a straight run along x or y
     pred = np.full(nv, -1)
     pred[b] = a
     on_cut = np.zeros(nv, dtype=bool)
     on_cut[np.concatenate((vid[: a_xy.shape[0]][shared], vid[a_xy.shape[0] :][shared]))] = True
     used = succ >= 0
     flat = used & on_cut
-    flat[flat] = (vert[pred[flat], 1] == vert[flat, 1]) & (vert[succ[flat], 1] == vert[flat, 1])
+    f = np.flatnonzero(flat)
+    along = [(vert[pred[f], k] == vert[f, k]) & (vert[succ[f], k] == vert[f, k]) for k in (1, 0)]
+    flat[f] = along[0] | along[1]
     # rings: cycles of succ; label them, start each at its smallest vertex, rank by doubling
     verts = np.flatnonzero(used)
     cyc = coo_matrix((np.ones(verts.size), (verts, succ[verts])), shape=(nv, nv))

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-__all__ = ["MaskLayer", "PortMark", "DrawnChannels", "Layout"]
+__all__ = ["MaskLayer", "PortMark", "DrawnChannels", "Pieces", "Layout"]
 
 
 @dataclass(frozen=True)
@@ -86,8 +86,20 @@ class DrawnChannels:
         Number of bends (circular arcs) along each channel.
     mask_width : numpy.ndarray or None
         Width measured on the merged, grid-snapped mask polygons across the middle of each
-        channel's longest straight run along x [m] (see :mod:`chipflow.layout.widths`); the
-        drawing checks that it equals ``width`` to 1 nm.
+        channel's longest axis-aligned straight run [m] (see :mod:`chipflow.layout.widths`);
+        the drawing checks that it equals ``width`` to 1 nm. A channel without such a run
+        (every run oblique) has the width measured across its longest oblique run.
+    names : numpy.ndarray of str or None
+        Channel names given by the design (explicit networks); None: named from role,
+        generation and index.
+    region : numpy.ndarray of str or None
+        The culture region each channel belongs to ("" for shared channels); None: all "".
+    kind : numpy.ndarray of str or None
+        What each drawn element is ("channel"); None: all channels.
+    hydraulic_length : numpy.ndarray or None
+        The length at ``width`` that has the resistance of the channel as the mask has it
+        [m]: its drawn length, where oblique runs (whose walls the grid moves) count at the
+        width measured on the mask. None: the drawn length.
     """
 
     centreline: np.ndarray
@@ -103,6 +115,60 @@ class DrawnChannels:
     outline: np.ndarray | None = None
     bends: np.ndarray | None = None
     mask_width: np.ndarray | None = None
+    names: np.ndarray | None = None
+    region: np.ndarray | None = None
+    kind: np.ndarray | None = None
+    hydraulic_length: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class Pieces:
+    """The pieces of a drawing whose flow is not that of straight channels, as arrays.
+
+    Junctions (where channels meet) and port steps (where a punched hole meets its channel)
+    are pieces. Each has a geometry key (hashable, rotation- and mirror-normalised, rounded)
+    under which its 2D solve is done once (:func:`chipflow.layout.pieces.solve_piece`); the
+    same key at many places (every junction of a tree level) is solved once.
+
+    Attributes
+    ----------
+    keys : tuple
+        The distinct geometry keys.
+    kind : numpy.ndarray of str
+        (P,) "fan" (a symmetric tree split: one solve with the children at one pressure, the
+        correction on the parent), "junction" (an N-port solve, one correction per arm) or
+        "port" (a punched hole into its channel).
+    key : numpy.ndarray of int
+        (P,) index into ``keys``.
+    node : numpy.ndarray of int
+        (P,) layout node the piece sits at.
+    x, y : numpy.ndarray
+        (P,) its position [m] (the node; for a port, the hole's centre).
+    rotation : numpy.ndarray
+        (P,) angle that turns the key's frame into the chip frame [rad] (after ``mirror``).
+    mirror : numpy.ndarray of bool
+        (P,) the key's frame is mirrored (y -> -y) before the rotation.
+    arm_channel : numpy.ndarray of int
+        (P, A) the channel of each arm of the key, in the key's arm order (-1: no arm).
+    arm_end : numpy.ndarray of int
+        (P, A) which end of that channel the piece joins (0: ``node_a``, 1: ``node_b``).
+    """
+
+    keys: tuple
+    kind: np.ndarray
+    key: np.ndarray
+    node: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    rotation: np.ndarray
+    mirror: np.ndarray
+    arm_channel: np.ndarray
+    arm_end: np.ndarray
+
+    @property
+    def size(self) -> int:
+        """Number of pieces."""
+        return int(self.key.size)
 
 
 @dataclass(frozen=True)
@@ -131,10 +197,12 @@ class Layout:
         Node names ("inlet", "outlet", junction names).
     warnings : tuple of str
         Soft misses found while drawing (e.g. bed channels drawn longer than designed).
-    junctions : tuple of (str, int, Junction)
-        The junction geometry at the end of each tree level that splits or merges: the
-        parent channel's role and generation and the :class:`~chipflow.layout.junctions.
-        Junction` drawn there (one per level; every junction of a level is alike).
+    pieces : Pieces or None
+        The junctions and port steps of the drawing (see :class:`Pieces`); the network counts
+        each once by its equivalent lengths (:mod:`chipflow.layout.extract`).
+    notes : tuple of str
+        How the drawing was decided (e.g. the order of the splits of a tree), for the
+        sizing notes.
     """
 
     name: str
@@ -147,4 +215,5 @@ class Layout:
     node_xy: np.ndarray
     node_names: tuple[str, ...]
     warnings: tuple[str, ...] = ()
-    junctions: tuple = ()
+    pieces: Pieces | None = None
+    notes: tuple[str, ...] = ()

@@ -419,7 +419,8 @@ def _fabrication(results: Mapping[str, Any]) -> str:
     if fab is None:
         return (
             "<p>This design is an explicit channel network without a drawing: no mask files "
-            "were written.</p>"
+            "were written. Its channels' cross-sections are checked against the fabrication "
+            "rules that need no drawing (minimum feature, roof sag, tall walls).</p>"
         )
     mirror = fab.get("mirror")
     rows = [
@@ -446,6 +447,11 @@ def _fabrication(results: Mapping[str, Any]) -> str:
 def _junctions(results: Mapping[str, Any]) -> str:
     """The junction and bend section: the 2D field against the network."""
     field = results.get("field")
+    if not field and results.get("fabrication") is None:
+        return (
+            "<p>This network is not drawn (its nodes have no positions), so it has no 2D "
+            "field to solve.</p>"
+        )
     if not field:
         return (
             "<p>The 2D field was not solved for this build (large chips only with "

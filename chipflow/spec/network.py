@@ -10,6 +10,8 @@
 
     [[nodes]]                           # optional; when present, every node must be listed
     name = "pump"
+    # at = ["12 mm", "5 mm"]            # position on the chip: when every node a channel
+                                        # touches has one, the network is drawn
 
     [[tubes]]                           # round tubing: inner diameter and length
     name = "feed"
@@ -27,6 +29,7 @@
     length = "10 mm"
     generation = 0                      # optional, whole number
     role = "distribution"               # optional, default "channel"
+    # via = [["14 mm", "5 mm"], ["14 mm", "9 mm"]]   # corners of a drawn channel
 
     [[ports]]                           # one supply per port node
     node = "pump"
@@ -36,15 +39,24 @@
 
 Positive flow in a channel runs from ``from`` to ``to``. Tubes and channels share one set of
 names. Nodes are created on first mention unless ``[[nodes]]`` lists them.
+
+Drawn networks: when every node that a channel touches (the chip's nodes; a node only tubes
+reach, such as a pump, is off the chip) has ``at``, the network is drawn
+(:mod:`chipflow.layout.routes`): each channel runs from its ``from`` node through its ``via``
+corners to its ``to`` node, with arc bends; its ``length`` comes from the drawing (a given
+``length`` must agree with it within 1 %). The chip's nodes with a port or a tube are
+punched holes. ``[chip]``, ``[fabrication]``, ``[export]`` and ``[tolerances]`` apply as for
+trees.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from chipflow.errors import NetworkError
+from chipflow.errors import NetworkError, SpecError
 from chipflow.network.model import Network, NetworkBuilder, unknown_name_message
 from chipflow.network.supply import Supply, boundary_conditions
 from chipflow.operation.model import OperationSpec
@@ -53,6 +65,8 @@ from chipflow.spec.fluid import read_fluid
 from chipflow.spec.reader import MAX_NAME_LENGTH, Table, read_design_file
 
 __all__ = [
+    "ChannelRoute",
+    "NetworkDrawing",
     "NetworkDesign",
     "load_network_design",
     "read_network_design",
@@ -75,8 +89,14 @@ TOP_KEYS = (
     "walls",
     "compliances",
     "solutes",
+    "fabrication",
+    "chip",
+    "export",
+    "tolerances",
 )
-_CHANNEL_KEYS = ("name", "from", "to", "width", "depth", "length", "generation", "role")
+_CHANNEL_KEYS = ("name", "from", "to", "width", "depth", "length", "generation", "role", "via")
+#: A given channel length may differ from the drawn one by this much [-].
+LENGTH_TOLERANCE = 0.01
 _TUBE_KEYS = (
     "name",
     "from",
@@ -93,6 +113,57 @@ _SUPPLY_LABELS = {
     "pressure": "pressure controller",
     "head": "gravity reservoir",
 }
+
+
+@dataclass(frozen=True)
+class ChannelRoute:
+    """A channel of a drawn network, as the design file gives it.
+
+    Attributes
+    ----------
+    name, a, b : str
+        The channel and its ``from`` and ``to`` nodes.
+    width, depth : float
+        [m].
+    role : str
+    generation : int
+    via : tuple of (float, float)
+        Corner points [m], in order from ``a`` to ``b``.
+    length : float or None
+        The length given in the file [m], checked against the drawing.
+    where : str
+        The channel's place in the file, for messages.
+    """
+
+    name: str
+    a: str
+    b: str
+    width: float
+    depth: float
+    role: str
+    generation: int
+    via: tuple[tuple[float, float], ...]
+    length: float | None
+    where: str
+
+
+@dataclass(frozen=True)
+class NetworkDrawing:
+    """What a network with coordinates needs to be drawn.
+
+    Attributes
+    ----------
+    positions : dict
+        Node name to ``(x, y)`` [m], for every node a channel touches.
+    routes : tuple of ChannelRoute
+        The channels, in file order.
+    ports : tuple of str
+        The chip's nodes that are punched holes: those with a port or a tube.
+    """
+
+    positions: Mapping[str, tuple[float, float]]
+    routes: tuple[ChannelRoute, ...]
+    ports: tuple[str, ...]
 
 
 @dataclass(frozen=True)
@@ -116,6 +187,13 @@ class NetworkDesign:
         Node name to imposed inflow [m^3/s] (syringe pumps).
     supplies : dict
         Node name to the :class:`~chipflow.network.supply.Supply` given in the file.
+    operation : OperationSpec
+    drawing : NetworkDrawing or None
+        How to draw it, when every node of the chip has ``at``; None otherwise (solved only).
+        When drawn, the channel lengths of ``network`` are the straight distances through
+        the corners, until the build replaces them by the drawing's.
+    undrawn : str
+        Why the network is not drawn, in one line ("" when it is).
     """
 
     name: str
@@ -126,6 +204,8 @@ class NetworkDesign:
     flows: Mapping[str, float]
     supplies: Mapping[str, Supply] = field(default_factory=dict)
     operation: OperationSpec = field(default_factory=OperationSpec)
+    drawing: NetworkDrawing | None = None
+    undrawn: str = ""
 
 
 def is_network_design(top: Table) -> bool:
@@ -192,14 +272,17 @@ def load_network_design(top: Table) -> NetworkDesign:
     builder = NetworkBuilder()
     known: dict[str, int] | None = None
     node_tables = top.tables("nodes", [])
+    positions: dict[str, tuple[float, float]] = {}
     if node_tables:
         known = {}
         for item in node_tables:
-            item.only(("name", "description"))
+            item.only(("name", "description", "at"))
             node = item.string("name")
             if node in known:
                 raise item.error("name", f"duplicated node name {node!r}")
             known[node] = builder.node(node)
+            if "at" in item:
+                positions[node] = _point(item, "at", item._get("at", None), item.where("at"))
 
     seen: dict[str, str] = {}
 
@@ -229,19 +312,55 @@ def load_network_design(top: Table) -> NetworkDesign:
             length=item.quantity("length", "length"),
             role=item.string("role", "tubing"),
         )
+    ends = {
+        n
+        for item in channels
+        for n in (item._get("from", ""), item._get("to", ""))
+        if isinstance(n, str)
+    }
+    on_chip = [n for n in (known or {}) if n in ends] if known else sorted(ends)
+    missing = [n for n in on_chip if n not in positions]
+    for item in node_tables:  # a position only for a node on the chip
+        if "at" in item and item.string("name") not in ends:
+            raise item.error(
+                "at",
+                "no channel reaches this node (only tubes, or nothing): it is off the "
+                "chip and has no position; leave 'at' out",
+            )
+    drawn = bool(channels) and not missing
+    routes = []
     for item in channels:
         item.only(_CHANNEL_KEYS)
         label = claim(item)
         a, b = _endpoints(item, known)
+        via = tuple(
+            _point(item, "via", v, f"{item.where('via')}[{i}]")
+            for i, v in enumerate(_list(item, "via"))
+        )
+        if via and not drawn:
+            raise item.error(
+                "via", "corners draw a channel, but the network is not drawn: " + _why(missing)
+            )
+        given = item.quantity("length", "length", None if drawn else REQUIRED_LENGTH)
+        if given is REQUIRED_LENGTH:
+            raise item.error(
+                "length", "missing required key (or give every node 'at' to draw the network)"
+            )
+        width = item.quantity("width", "length")
+        depth = item.quantity("depth", "length")
+        generation = int(item.number("generation", -1, integer=True, minimum=0))
+        role = item.string("role", "channel")
+        length = given
+        if drawn:  # until the drawing: the straight distance through the corners
+            path = [positions[a], *via, positions[b]]
+            length = sum(math.dist(p, q) for p, q in zip(path[:-1], path[1:], strict=True))
+            if not length > 0:
+                raise item.error("to", f"nodes {a!r} and {b!r} are at the same place")
+            routes.append(
+                ChannelRoute(label, a, b, width, depth, role, generation, via, given, item.where())
+            )
         builder.channel(
-            label,
-            a,
-            b,
-            width=item.quantity("width", "length"),
-            depth=item.quantity("depth", "length"),
-            length=item.quantity("length", "length"),
-            generation=int(item.number("generation", -1, integer=True, minimum=0)),
-            role=item.string("role", "channel"),
+            label, a, b, width=width, depth=depth, length=length, generation=generation, role=role
         )
     try:
         network = builder.build()
@@ -274,7 +393,54 @@ def load_network_design(top: Table) -> NetworkDesign:
     from chipflow.spec.operation import read_network_operation
 
     operation = read_network_operation(top, network, top.tables("ports", []))
-    return NetworkDesign(name, description, fluid, network, pressures, flows, supplies, operation)
+    drawing, undrawn = None, ""
+    if drawn:
+        tube_ends = {n for item in tubes for n in (item.string("from"), item.string("to"))}
+        holes = tuple(n for n in on_chip if n in supplies or n in tube_ends)
+        drawing = NetworkDrawing({n: positions[n] for n in on_chip}, tuple(routes), holes)
+    elif channels:
+        undrawn = "not drawn, solved only: " + (
+            _why(missing)
+            if positions
+            else "no node has a position ('at' in [[nodes]]), so there is no mask to write"
+        )
+    return NetworkDesign(
+        name, description, fluid, network, pressures, flows, supplies, operation, drawing, undrawn
+    )
+
+
+#: Marks a channel length that is required because the network is not drawn.
+REQUIRED_LENGTH = object()
+
+
+def _why(missing: list[str]) -> str:
+    """Why a network is not drawn, in words."""
+    shown = ", ".join(repr(n) for n in missing[:6])
+    more = f" and {len(missing) - 6} more" if len(missing) > 6 else ""
+    return (
+        f"node{'s' * (len(missing) > 1)} {shown}{more} "
+        f"{'have' if len(missing) > 1 else 'has'} no 'at' (give every node a channel touches "
+        "a position in [[nodes]] to draw it)"
+    )
+
+
+def _list(item: Table, key: str) -> list:
+    value = item._get(key, [])
+    if not isinstance(value, list):
+        raise item.error(key, 'expected a list of points, e.g. [["14 mm", "5 mm"]]')
+    return value
+
+
+def _point(item: Table, key: str, value, where: str) -> tuple[float, float]:
+    """A position ``["12 mm", "5 mm"]`` in metres."""
+    from chipflow.units import to_si
+
+    if not isinstance(value, list) or len(value) != 2:
+        raise SpecError(f'{where}: expected a point [x, y] with units, e.g. ["12 mm", "5 mm"]')
+    x, y = (to_si(v, "length", where=where) for v in value)
+    if not (math.isfinite(x) and math.isfinite(y)):
+        raise SpecError(f"{where}: the coordinates must be finite")
+    return float(x), float(y)
 
 
 def read_network_design(path: str | Path) -> NetworkDesign:

@@ -1,9 +1,10 @@
 """Tree design files: the ``[tree]``, ``[bed]``, ``[targets]`` and ``[fabrication]`` sections.
 
-A tree design file describes a mirrored bifurcating perfusion tree: one inlet, ``n``
-distributing generations, a bed of ``2**n`` parallel channels, and ``n`` collecting generations
-back to one outlet. :func:`load_tree_spec` reads it into a frozen :class:`TreeSpec` (SI floats
-only); :func:`chipflow.design.sizing.size_tree` turns that into a sized
+A tree design file describes a mirrored perfusion tree: one inlet, ``n`` distributing
+generations, each splitting every channel into 2 to 5 (``splits``), a bed of as many parallel
+channels as the product of the splits, and ``n`` collecting generations back to one outlet.
+:func:`load_tree_spec` reads it into a frozen :class:`TreeSpec` (SI floats only);
+:func:`chipflow.design.sizing.size_tree` turns that into a sized
 :class:`~chipflow.design.model.TreeDesign`.
 
 .. code-block:: toml
@@ -16,7 +17,9 @@ only); :func:`chipflow.design.sizing.size_tree` turns that into a sized
 
     [tree]
     flow = "10 uL/min"           # total design flow through the trunk
-    generations = 4              # bifurcating generations n (or: bed_channels = 16, a power of 2)
+    generations = 4              # bifurcating generations n, or:
+    # bed_channels = 48          # any count whose prime factors are 2, 3 or 5, or:
+    # splits = [3, 2, 2, 2, 2]   # the branching factor (2 to 5) of each generation
     rule = "equal-shear"         # "equal-shear" | "shear-target" | "area-growth" | "table"
     shape = "rectangular"        # or "round" (tubes for comparison with Murray's law; not drawable)
     trunk_width = "400 um"       # optional start of equal-shear / area-growth (else [targets])
@@ -83,6 +86,9 @@ __all__ = [
     "SHEAR_KINDS",
     "read_fabrication",
     "load_tree_spec",
+    "split_order",
+    "counts_that_work",
+    "SPLIT_RANGE",
 ]
 
 RULES = ("equal-shear", "shear-target", "area-growth", "table")
@@ -112,6 +118,7 @@ TREE_KEYS = (
     "flow",
     "generations",
     "bed_channels",
+    "splits",
     "rule",
     "shape",
     "trunk_width",
@@ -286,7 +293,9 @@ class TreeSpec:
     flow : float
         Total design flow [m^3/s].
     generations : int
-        Bifurcating generations ``n`` (the bed has ``2**n`` channels).
+        Splitting generations ``n``.
+    splits : tuple of int
+        Branching factor of each generation 0..n-1, 2 to 5 (the bed has their product).
     rule, shape : str
         See :data:`RULES`, :data:`SHAPES`.
     trunk_width, trunk_depth : float or None
@@ -321,6 +330,21 @@ class TreeSpec:
     targets: Targets
     fabrication: Fabrication
     source: str = "<design>"
+    splits: tuple[int, ...] | None = None
+    split_note: str = ""
+
+    def __post_init__(self) -> None:
+        if self.splits is None:  # a bifurcating tree
+            object.__setattr__(self, "splits", (2,) * self.generations)
+
+    @property
+    def bed_channels(self) -> int:
+        """Number of bed channels: the product of the splits."""
+        return math.prod(self.splits)
+
+    def count(self, generation: int) -> int:
+        """Number of channels of ``generation`` (0: the trunk)."""
+        return math.prod(self.splits[:generation])
 
 
 def _picometre(depth: float | None) -> float | None:
@@ -441,20 +465,97 @@ def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
     )
 
 
-def _generations(tree: Table) -> int:
-    if ("generations" in tree) == ("bed_channels" in tree):
-        raise tree.error(None, "give exactly one of generations and bed_channels")
+#: Branching factors a junction may have [-].
+SPLIT_RANGE = (2, 5)
+
+
+def counts_that_work(count: int) -> tuple[int, int]:
+    """The nearest bed channel counts below and above ``count`` whose prime factors are all
+    2, 3 or 5 (at least 2).
+
+    >>> counts_that_work(49), counts_that_work(7)
+    ((48, 50), (6, 8))
+    """
+
+    def works(c: int) -> bool:
+        for p in (2, 3, 5):
+            while c % p == 0:
+                c //= p
+        return c == 1
+
+    below = next((c for c in range(count - 1, 1, -1) if works(c)), 2)
+    above = next(c for c in range(count + 1, 2 * count + 3) if works(c))
+    return below, above
+
+
+def split_order(count: int) -> tuple[tuple[int, ...], str]:
+    """The splits chipflow draws for ``count`` bed channels, and why, in one sentence.
+
+    Binary splits need no compensation (their two children are mirror images); a split into
+    3 or 5 does: its children differ in shape, and the shorter ones get a detour whose length
+    evens out every child's resistance. A detour needs room beside its channel, which the
+    generations near the trunk have most of (their children lie a whole subtree apart). So a
+    count is split into its prime factors, the 5s first, then the 3s, then the 2s.
+
+    >>> split_order(48)[0], split_order(45)[0], split_order(16)[0]
+    ((3, 2, 2, 2, 2), (5, 3, 3), (2, 2, 2, 2))
+    """
+    factors = []
+    c = count
+    for p in (5, 3, 2):
+        while c % p == 0:
+            factors.append(p)
+            c //= p
+    splits = tuple(factors)
+    if set(splits) <= {2}:
+        return splits, ""
+    shown = ", ".join(str(f) for f in splits)
+    note = (
+        f"splits {shown} for {count} bed channels: the splits into 3 or 5 come first, near the "
+        "trunk, where their children lie far enough apart for the detours that even out "
+        "their resistances; the binary splits, which need none, follow towards the bed"
+    )
+    return splits, note
+
+
+def _splits(tree: Table) -> tuple[tuple[int, ...], str]:
+    given = [k for k in ("generations", "bed_channels", "splits") if k in tree]
+    if len(given) != 1:
+        raise tree.error(None, "give exactly one of generations, bed_channels and splits")
     if "generations" in tree:
-        return int(tree.number("generations", integer=True, minimum=0, maximum=20))
+        n = int(tree.number("generations", integer=True, minimum=0, maximum=20))
+        return (2,) * n, ""
+    if "splits" in tree:
+        raw = tree._get("splits", None)
+        lo, hi = SPLIT_RANGE
+        if (
+            not isinstance(raw, list)
+            or not raw
+            or not all(isinstance(v, int) and not isinstance(v, bool) for v in raw)
+        ):
+            raise tree.error(
+                "splits", f"give a list of whole numbers {lo} to {hi}, one per generation"
+            )
+        if not all(lo <= v <= hi for v in raw):
+            bad = next(v for v in raw if not lo <= v <= hi)
+            raise tree.error(
+                "splits", f"{bad} is not a branching factor from {lo} to {hi} (e.g. [3, 2, 2])"
+            )
+        if len(raw) > 20 or math.prod(raw) > 2**20:
+            raise tree.error("splits", f"at most 20 generations and {2**20:,} bed channels")
+        return tuple(raw), ""
     count = int(tree.number("bed_channels", integer=True, minimum=1, maximum=2**20))
-    n = count.bit_length() - 1
-    if 2**n != count:
+    if count == 1:
+        return (), ""
+    splits, note = split_order(count)
+    if math.prod(splits) != count:
+        below, above = counts_that_work(count)
         raise tree.error(
             "bed_channels",
-            f"a bifurcating tree has a power of two bed channels; {count} is not "
-            f"(nearest: {2**n} or {2 ** (n + 1)})",
+            f"{count} bed channels cannot be reached by splits of 2 to 5 (its prime factors "
+            f"must all be 2, 3 or 5); nearest counts that work: {below} or {above}",
         )
-    return n
+    return splits, note
 
 
 def load_tree_spec(top: Table) -> TreeSpec:
@@ -478,7 +579,8 @@ def load_tree_spec(top: Table) -> TreeSpec:
     tree = top.table("tree")
     tree.only(TREE_KEYS)
     fab = read_fabrication(top)
-    n = _generations(tree)
+    splits, split_note = _splits(tree)
+    n = len(splits)
     rule = tree.choice("rule", RULES)
     shape = tree.choice("shape", SHAPES, "rectangular")
     targets = _read_targets(top, n)
@@ -573,4 +675,6 @@ def load_tree_spec(top: Table) -> TreeSpec:
         targets=targets,
         fabrication=fab,
         source=top.source,
+        splits=splits,
+        split_note=split_note,
     )

@@ -1,7 +1,9 @@
 """Design sweeps: a grid over numeric design-file keys.
 
 An axis is written ``KEY=VALUES``, where KEY is a dotted design-file key (``tree.flow``,
-``fabrication.depths``, ``bed.gap``) and VALUES either
+``fabrication.depths``, ``bed.gap``; in an explicit network an entry of a list of tables by
+its name: ``channels.NAME.width``, ``tubes.NAME.length``, ``nodes.NAME.at``,
+``ports.NODE.flow``) and VALUES either
 
 - a range ``FROM..TO:N``: N evenly spaced values from FROM to TO, both included, in FROM's
   unit (``5uL/min..20uL/min:16``; plain numbers too: ``1.2..1.8:4``; whole numbers stay whole
@@ -35,6 +37,7 @@ import numpy as np
 
 from chipflow import display
 from chipflow.errors import SpecError
+from chipflow.spec.network import TOP_KEYS as NETWORK_KEYS
 from chipflow.spec.tree import TOP_KEYS
 
 __all__ = [
@@ -50,7 +53,17 @@ __all__ = [
 #: Largest grid accepted.
 MAX_POINTS = 10_000
 #: Design-file sections whose numeric keys may be swept.
-SECTIONS = tuple(k for k in TOP_KEYS if k not in ("name", "description", "tolerances"))
+SECTIONS = tuple(
+    dict.fromkeys(
+        k for k in (*TOP_KEYS, *NETWORK_KEYS) if k not in ("name", "description", "tolerances")
+    )
+)
+#: Lists of tables of an explicit network, and the key that names their entries.
+NAMED = {"channels": "name", "tubes": "name", "nodes": "name", "ports": "node",
+         "compliances": "node"}  # fmt: skip
+
+#: Keys of [tree] that each say how the tree branches: a swept one replaces the others.
+BRANCHING = ("generations", "bed_channels", "splits")
 
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 _INT = re.compile(r"^[-+]?\d+$")
@@ -173,6 +186,11 @@ def parse_axis(text: str) -> Axis:
             f"{where}: unknown key {key!r}: no design section [{parts[0]}]{hint} "
             f"(sections: {', '.join(SECTIONS)})"
         )
+    if parts[0] in NAMED and len(parts) != 3:
+        raise SpecError(
+            f"{where}: unknown key {key!r}: an entry of [[{parts[0]}]] is named, e.g. "
+            f"{parts[0]}.NAME.{'width' if parts[0] == 'channels' else 'length'}"
+        )
     if not spec.strip():
         raise SpecError(f"{where}: empty range: no values after '='")
     if ".." in spec:
@@ -192,22 +210,45 @@ def grid_points(axes: Sequence[Axis]) -> list[tuple[Any, ...]]:
 
 def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[Any]) -> dict:
     """A copy of a parsed design with each dotted key set to its value (tables created as
-    needed; tuples become lists).
+    needed; tuples become lists). A value for one of ``tree.generations``,
+    ``tree.bed_channels`` and ``tree.splits`` replaces the other two (all three say how the
+    tree branches).
 
     >>> with_values({"tree": {"flow": "1 uL/min"}}, ["tree.flow"], ["2 uL/min"])
     {'tree': {'flow': '2 uL/min'}}
+    >>> with_values({"tree": {"bed_channels": 32}}, ["tree.splits"], [(3, 2)])
+    {'tree': {'splits': [3, 2]}}
+    >>> with_values({"channels": [{"name": "c1", "width": "1 mm"}]}, ["channels.c1.width"],
+    ...             ["2 mm"])
+    {'channels': [{'name': 'c1', 'width': '2 mm'}]}
     """
     out = copy.deepcopy(dict(data))
     for key, value in zip(keys, values, strict=True):
         *path, last = key.split(".")
         table = out
+        if path and path[0] in NAMED and isinstance(out.get(path[0]), list):
+            table = _named_entry(out[path[0]], path[0], path[1], key)
+            path = []
         for part in path:
             child = table.setdefault(part, {})
             if not isinstance(child, dict):
                 raise SpecError(f"--vary {key}: {part} is not a table in the design file")
             table = child
+        if path == ["tree"] and last in BRANCHING:
+            for other in BRANCHING:
+                table.pop(other, None)
         table[last] = list(value) if isinstance(value, tuple) else value
     return out
+
+
+def _named_entry(entries: list, section: str, name: str, key: str) -> dict:
+    """The entry of a list of tables whose name (or node) is ``name``."""
+    field = NAMED[section]
+    for entry in entries:
+        if isinstance(entry, dict) and entry.get(field) == name:
+            return entry
+    known = ", ".join(str(e.get(field)) for e in entries if isinstance(e, dict))
+    raise SpecError(f"--vary {key}: no [[{section}]] entry with {field} {name!r} (known: {known})")
 
 
 def design_text(value: Any) -> str:

@@ -267,20 +267,15 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
     Parameters
     ----------
     build : Build
-        A built tree design (its drawn, extracted and solved network).
+        A built design: a tree or an explicit network (drawn or not); its solved network.
     tolerances : Tolerances
         Checked against the design: the extreme draw must leave every width and depth positive.
 
     Raises
     ------
     SpecError
-        For an explicit network (nothing drawn: no mould levels) or out-of-range tolerances.
+        For out-of-range tolerances.
     """
-    if build.layout is None:
-        raise SpecError(
-            f"{build.source.path}: tolerances apply to drawn designs: give a [tree] design "
-            "(an explicit network has no mask or mould levels)"
-        )
     solution = build.solution
     net = solution.network
     rect = ~net.round

@@ -132,8 +132,13 @@ def sweep_design(
     keys = tuple(a.key for a in axes)
     if len(set(keys)) != len(keys):
         raise SpecError("--vary: each key may be swept only once")
-    if "tree" not in source.top:
-        raise SpecError(f"{source.path}: sweeps apply to tree designs (a [tree] table)")
+    from chipflow.spec.network import is_network_design
+
+    if "tree" not in source.top and not is_network_design(source.top):
+        raise SpecError(
+            f"{source.path}: sweeps apply to tree designs ([tree]) and explicit networks "
+            "([[channels]] and [[tubes]])"
+        )
     points = grid_points(axes)
     base = (dict(source.top.data), source.path, keys)
     first = _point(base, points[0])

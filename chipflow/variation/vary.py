@@ -167,7 +167,7 @@ def vary_build(
     Raises
     ------
     SpecError
-        For an explicit network or tolerances out of range for this design.
+        For tolerances out of range for this design.
     """
     problem = variation_problem(build, tolerances)
     tol = problem.tolerance_vector(tolerances)
