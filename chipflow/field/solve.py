@@ -193,9 +193,7 @@ def field_system(
     a = a[vfree][:, vfree].tocsr()
     bx, by = bx[:, vfree].tocsr(), by[:, vfree].tocsr()
     p_fixed = pressure[fixed]
-    rhs = np.concatenate(
-        [-(bx[fixed].T @ p_fixed), -(by[fixed].T @ p_fixed), np.zeros(pfree.size)]
-    )
+    rhs = np.concatenate([-(bx[fixed].T @ p_fixed), -(by[fixed].T @ p_fixed), np.zeros(pfree.size)])
     flux = {
         name: (np.asarray(bx[nodes].sum(axis=0)).ravel(), np.asarray(by[nodes].sum(axis=0)).ravel())
         for name, nodes in port_nodes.items()
