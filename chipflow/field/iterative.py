@@ -60,6 +60,12 @@ RTOL = 1e-8
 MAXITER = 2000
 
 
+def _dot(a: np.ndarray, b: np.ndarray) -> float:
+    """``a . b`` on this thread: BLAS threads spinning for one dot product cost more than
+    they save on a shared machine."""
+    return float(np.einsum("i,i->", a, b))
+
+
 @dataclass
 class MinresResult:
     """What :func:`minres` returns.
@@ -105,7 +111,7 @@ def minres(
     v_prev = np.zeros(n)
     v = np.array(b, float)
     z = precondition(v)
-    gamma = float(np.sqrt(z @ v))
+    gamma = float(np.sqrt(_dot(z, v)))
     if gamma == 0.0:
         return MinresResult(x, 0, 0.0)
     start = eta = gamma
@@ -117,12 +123,12 @@ def minres(
     for it in range(1, maxiter + 1):
         z = z / gamma  # not in place: the preconditioner may return its argument
         az = matvec(z)
-        delta = float(az @ z)
+        delta = _dot(az, z)
         az -= (delta / gamma) * v
         az -= (gamma / gamma_prev) * v_prev
         v_prev, v = v, az
         z_next = precondition(v)
-        square = float(z_next @ v)
+        square = _dot(z_next, v)
         if not square >= 0.0:
             raise FieldError(
                 "the iterative field solve broke down (the preconditioner is not positive "
@@ -203,8 +209,16 @@ def block_preconditioner(a, laplacian, mass: np.ndarray) -> BlockPreconditioner:
     """
     import pyamg
 
-    ml_a = pyamg.smoothed_aggregation_solver(a, symmetry="symmetric", max_coarse=500)
-    ml_p = pyamg.smoothed_aggregation_solver(laplacian, symmetry="symmetric", max_coarse=500)
+    # the prolongators smoothed with row-sum weights (no spectral radius estimates), the
+    # coarsest level factorised (no dense pseudo-inverse)
+    options = {
+        "symmetry": "symmetric",
+        "max_coarse": 500,
+        "smooth": ("jacobi", {"weighting": "local"}),
+        "coarse_solver": "splu",
+    }
+    ml_a = pyamg.smoothed_aggregation_solver(a, **options)
+    ml_p = pyamg.smoothed_aggregation_solver(laplacian, **options)
     return BlockPreconditioner(
         ml_a.aspreconditioner(cycle="V"),
         ml_p.aspreconditioner(cycle="V"),
