@@ -68,7 +68,6 @@ def plain_monte_carlo(build, samples: int, seed: int = 0) -> np.ndarray:
     names = list(net.node_names)
     rng = np.random.default_rng(seed)
     depth_levels = np.unique(net.depth[~net.round])
-    level_of = np.searchsorted(depth_levels, net.depth)
     m = depth_levels.size
     draws = rng.uniform(-1.0, 1.0, (samples, m + 3))
     d_err = draws[:, :m] * TOL["depth"]
@@ -88,9 +87,10 @@ def plain_monte_carlo(build, samples: int, seed: int = 0) -> np.ndarray:
     r1 = np.asarray(resistance(w, h, 1.0, 1.0, tube))
     t1 = np.asarray(wall_shear_floor(w, h, 1.0, 1.0, tube))
     # the network's own resistance per channel, junction corrections included, as a length
-    nominal_r1 = np.asarray(
-        resistance(sections[:, 0], sections[:, 1], 1.0, 1.0, tube)
-    )[cls] * build.fluid.viscosity
+    nominal_r1 = (
+        np.asarray(resistance(sections[:, 0], sections[:, 1], 1.0, 1.0, tube))[cls]
+        * build.fluid.viscosity
+    )
     dp = sol.pressure[net.node_a] - sol.pressure[net.node_b]
     with np.errstate(divide="ignore", invalid="ignore"):
         length = np.where(sol.flow != 0, dp / sol.flow / nominal_r1, net.length)
@@ -180,7 +180,7 @@ def main() -> None:
         costs = {}
         for what, run in (
             ("plain", lambda n, b=build: plain_monte_carlo(b, n)),
-            ("vary", lambda n, b=build: vary_build(b, tol[n], workers=1)),
+            ("vary", lambda n, b=build, t=tol: vary_build(b, t[n], workers=1)),
         ):
             small = _best(lambda r=run: r(args.small), args.repeat)
             large = _best(lambda r=run: r(args.samples), args.repeat)
@@ -219,7 +219,9 @@ def _whole_processes(samples: int, repeat: int) -> None:
             subprocess.run(argv, check=True, capture_output=True, env=env)
             end = os.times()
             times[name].append(
-                end.children_user - start.children_user + end.children_system
+                end.children_user
+                - start.children_user
+                + end.children_system
                 - start.children_system
             )
     bare = statistics.median(times["bare import"])

@@ -161,9 +161,9 @@ def build_design(
         :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
-        when the chip is small enough to solve in seconds
-        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). Explicit networks have no drawing and
-        no field.
+        when the field is estimated to take at most 10 s and 1 GB
+        (:func:`chipflow.field.budget.field_by_default`). Explicit networks have no drawing
+        and no field.
 
     Returns
     -------
@@ -288,9 +288,9 @@ def _build_tree(
     results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
     field_run = None
     if run_field is None:
-        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+        from chipflow.field.budget import field_by_default
 
-        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+        run_field = field_by_default(layout)
     if run_field:
         from chipflow.field.run import run_field as solve_chip_field
 

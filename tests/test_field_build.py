@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from chipflow.build import DesignSource, build_design
 from chipflow.cli import main
 from chipflow.field import FieldPort, FieldRegion, solve_field
-from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+from chipflow.field.budget import estimate_layout_field
 from chipflow.physics import duct
 
 
@@ -99,13 +99,19 @@ def test_build_command_field_switch(tmp_path):
     assert json.loads((off / "results.json").read_text())["field"] is None
 
 
-def test_field_is_on_by_default_only_for_small_chips(tmp_path):
+def test_field_is_on_by_default_when_its_estimate_fits(tmp_path, monkeypatch):
+    from chipflow.field import budget
+
     small = build_design(small_demo(tmp_path, beds=2))
-    assert estimate_triangles(small.layout) <= AUTO_TRIANGLES
+    assert estimate_layout_field(small.layout).fits()
     assert small.results["field"] is not None
+    # a chip whose field would take longer than the default limit is built without it
     data = tomllib.loads(open("chipflow/data/demo.toml", encoding="utf-8").read())
-    big = build_design(DesignSource.from_dict(data, "demo.toml"), field=False)
-    assert estimate_triangles(big.layout) > AUTO_TRIANGLES  # so a default build skips it
+    monkeypatch.setattr(
+        budget, "DEFAULT_SECONDS", 0.5 * estimate_layout_field(small.layout).seconds
+    )
+    big = build_design(DesignSource.from_dict(data, "demo.toml"))
+    assert not estimate_layout_field(big.layout).fits() and big.results["field"] is None
 
 
 def test_depth_step_in_series_adds_the_two_resistances():

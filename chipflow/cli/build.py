@@ -75,7 +75,7 @@ def _run(
     "--field/--no-field",
     default=None,
     help="Solve the 2D flow field of the drawing and compare it with the network (default: "
-    "only for chips small enough to solve in seconds).",
+    "when it is estimated to take at most 10 s and 1 GB).",
 )
 def command(design: str, outdir: str | None, allow_large: bool, field: bool | None) -> int:
     """Size, draw, solve and check DESIGN; write mask files, previews, report and results.
@@ -105,8 +105,8 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
 @click.option(
     "--field/--no-field",
     default=None,
-    help="Solve the 2D flow field of the drawing (default: only for small chips; the demo "
-    "takes about half a minute).",
+    help="Solve the 2D flow field of the drawing (default: when it is estimated to take at "
+    "most 10 s and 1 GB, as for the demo; solved fields are cached).",
 )
 def demo_command(outdir: str | None, field: bool | None) -> int:
     """Build the bundled demo design: an endothelial bed on a slide-sized chip.
