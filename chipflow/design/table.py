@@ -228,7 +228,7 @@ def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
             "so these numbers are the tree's alone"
         )
         return f"{generation_table_text(design, solution)}\n{note}", ok
-    build = build_design(DesignSource(top.source, top, ""))
+    build = build_design(DesignSource(top.source, top, ""), field=False)  # no field in check
     ok = build.status != "fail"
     table = generation_table_dict(build.design, build.solution)
     if as_json:

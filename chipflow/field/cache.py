@@ -71,7 +71,11 @@ def _canonical(value: Any) -> str:
         return float(value).hex()
     if isinstance(value, str):
         return repr(value)
+    if isinstance(value, bytes):
+        return f"bytes({hashlib.sha256(value).hexdigest()})"
     if isinstance(value, np.ndarray):
+        if value.dtype == object:
+            return _canonical(value.tolist())
         data = np.ascontiguousarray(value)
         digest = hashlib.sha256(data.tobytes()).hexdigest()
         return f"array({data.dtype.str},{data.shape},{digest})"
@@ -145,9 +149,9 @@ def cached(
     kind : str
         What is cached (``"junction"``, a piece's kind): part of the key.
     key : hashable
-        The geometry: nested tuples, lists and mappings of numbers and strings, numpy arrays
-        or frozen dataclasses of those. Floats are keyed exactly (round them first where
-        nearly equal geometries should share an entry).
+        The geometry: nested tuples, lists and mappings of numbers, strings and bytes (a
+        shapely geometry's WKB), numpy arrays or frozen dataclasses of those. Floats are keyed
+        exactly (round them first where nearly equal geometries should share an entry).
     compute : callable
         Returns the result as a mapping of names to numbers or numpy arrays (no objects).
     settings : mapping, optional

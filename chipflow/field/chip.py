@@ -57,20 +57,11 @@ def solve_layout(
     settings = {k: options[k] for k in sorted(options)}
     unit = cached(
         "chip",
-        _hashable(key),
+        key,
         lambda: _solution_arrays(solve_field(regions, unit_ports, 1.0, **options)),
         settings,
     )
     return _from_arrays(unit, pressures[high] - pressures[low], pressures, viscosity)
-
-
-def _hashable(value):
-    """WKB bytes as arrays of bytes, so that the field cache can key them."""
-    if isinstance(value, bytes):
-        return np.frombuffer(value, dtype=np.uint8)
-    if isinstance(value, list | tuple):
-        return tuple(_hashable(v) for v in value)
-    return value
 
 
 def _solution_arrays(sol: FieldSolution) -> dict[str, np.ndarray]:

@@ -54,9 +54,14 @@ def field_shear_figure(solution, window: tuple[float, float] | None, zoom=None, 
     mm = 1e3
     x, y = mesh.points[:, 0] * mm, mesh.points[:, 1] * mm
     for k, ax in enumerate(axes):
-        art = ax.tripcolor(
-            x, y, mesh.triangles, facecolors=shear, cmap=cmap, norm=norm, rasterized=True
-        )
+        tris, colours = mesh.triangles, shear
+        if k == 1:  # the close-up draws only the triangles that can show in it
+            cx, cy, half = zoom
+            corner = mesh.points[tris]
+            low, high = corner.min(axis=1), corner.max(axis=1)
+            near = np.all((high >= [cx - half, cy - half]) & (low <= [cx + half, cy + half]), 1)
+            tris, colours = tris[near], shear[near]
+        art = ax.tripcolor(x, y, tris, facecolors=colours, cmap=cmap, norm=norm, rasterized=True)
         ax.set_aspect("equal")
         ax.set_xlabel("x [mm]")
         ax.set_ylabel("y [mm]")
