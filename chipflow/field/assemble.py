@@ -137,6 +137,7 @@ def assemble_parts(
     depth: np.ndarray,
     lateral: np.ndarray,
     friction: np.ndarray,
+    keep: np.ndarray | None = None,
 ):
     """The blocks of the weak form: the scalar velocity block ``A`` and the two divergence
     blocks ``B_x``, ``B_y`` (the saddle-point matrix is ``[[A, 0, Bx^T], [0, A, By^T],
@@ -153,18 +154,25 @@ def assemble_parts(
         Lateral viscosity ``beta mu`` per triangle [Pa s].
     friction : numpy.ndarray
         ``k mu`` per triangle [Pa s/m^2].
+    keep : numpy.ndarray of bool, optional
+        The velocity nodes to keep (the free ones), numbered in their order; the others'
+        rows and columns are never formed. All by default.
 
     Returns
     -------
     (scipy.sparse.csr_matrix, scipy.sparse.csr_matrix, scipy.sparse.csr_matrix)
-        ``A`` (``n_nodes`` square), ``B_x`` and ``B_y`` (``n_points`` x ``n_nodes``).
+        ``A`` (kept nodes square), ``B_x`` and ``B_y`` (``n_points`` x kept nodes).
     """
     from scipy import sparse
 
     t_ref, m_ref = _reference()
     area, grads = _geometry(points, triangles)
-    nn, npts = space.n_nodes, space.n_points
-    nodes = space.nodes.astype(np.int32)
+    npts = space.n_points
+    if keep is None:
+        keep = np.ones(space.n_nodes, bool)
+    nn = int(keep.sum())
+    number = np.where(keep, np.cumsum(keep) - 1, -1).astype(np.int32)
+    nodes = number[space.nodes]  # -1: a node left out
     scalar = None
     # in chunks of triangles, so that the element arrays stay small beside the matrix
     step = 200_000
@@ -176,17 +184,23 @@ def assemble_parts(
         local += (depth[sl] * friction[sl] * area[sl])[:, None, None] * m_ref
         rows = np.repeat(nodes[sl], 6, axis=1).ravel()
         cols = np.tile(nodes[sl], (1, 6)).ravel()
-        part = sparse.csr_matrix((local.ravel(), (rows, cols)), shape=(nn, nn))
+        on = (rows >= 0) & (cols >= 0)
+        part = sparse.csr_matrix((local.ravel()[on], (rows[on], cols[on])), shape=(nn, nn))
         scalar = part if scalar is None else scalar + part
-        del gg, stiff, local, rows, cols, part
+        del gg, stiff, local, rows, cols, on, part
     # B: int h phi_a d(lambda_k)/dx_d; int phi_a = 0 for vertices, area / 3 for edges, so
     # only the three edge nodes of each triangle enter
     weight = (depth * area / 3.0)[:, None, None]
     b_rows = np.repeat(triangles.astype(np.int32), 3, axis=1).ravel()
     b_cols = np.tile(nodes[:, 3:], (1, 3)).ravel()
+    on = b_cols >= 0
+    b_rows, b_cols = b_rows[on], b_cols[on]
     blocks = [
         sparse.csr_matrix(
-            ((grads[:, :, d][:, :, None] * weight).repeat(3, axis=2).ravel(), (b_rows, b_cols)),
+            (
+                (grads[:, :, d][:, :, None] * weight).repeat(3, axis=2).ravel()[on],
+                (b_rows, b_cols),
+            ),
             shape=(npts, nn),
         )
         for d in range(2)
