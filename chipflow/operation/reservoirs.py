@@ -25,7 +25,6 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import solve_ivp
 
 from chipflow.errors import SpecError
 from chipflow.network import solve
@@ -122,6 +121,8 @@ def drain_reservoirs(
     end = float(span) if span is not None else 6.0 * tau
     if not np.isfinite(end) or end <= 0:
         raise SpecError("draining reservoirs: the network does not connect them to anything")
+
+    from scipy.integrate import solve_ivp  # only for draining reservoirs (a second to load)
 
     def rhs(_t, h):
         return matrix @ h - offset / a
