@@ -58,15 +58,24 @@ def plain_monte_carlo(build, samples: int, seed: int = 0) -> np.ndarray:
     """The floor: per-level 5/50/95 percentiles of the mean floor shear (G, 3) [Pa].
 
     Written with numpy and scipy alone from the build's network arrays; the same perturbation
-    model as ``chipflow vary`` (see the module's text).
+    model as ``chipflow vary`` (see the module's text); the samples are solved in batches of
+    at most 300,000 channel-samples (one sparse solve each; a single block-diagonal system of
+    every sample exceeds SuperLU's memory at 2^10 bed channels).
     """
+    batch = max(1, 300_000 // build.solution.network.n_channels)
+    rng = np.random.default_rng(seed)
+    means = [_plain_batch(build, min(batch, samples - i), rng) for i in range(0, samples, batch)]
+    return np.percentile(np.concatenate(means), [5, 50, 95], axis=0).T
+
+
+def _plain_batch(build, samples: int, rng) -> np.ndarray:
+    """Per-level mean floor shear of ``samples`` perturbed networks (S, G) [Pa]."""
     import scipy.sparse as sp
     from scipy.sparse.linalg import spsolve
 
     sol = build.solution
     net = sol.network
     names = list(net.node_names)
-    rng = np.random.default_rng(seed)
     depth_levels = np.unique(net.depth[~net.round])
     m = depth_levels.size
     draws = rng.uniform(-1.0, 1.0, (samples, m + 3))
@@ -136,8 +145,7 @@ def plain_monte_carlo(build, samples: int, seed: int = 0) -> np.ndarray:
     tau = t1[:, cls] * mu[:, None] * np.abs(q)
     gen = net.generation
     levels = np.unique(gen[gen >= 0])
-    mean = np.stack([tau[:, gen == lv].mean(axis=1) for lv in levels], axis=1)  # per level
-    return np.percentile(mean, [5, 50, 95], axis=0).T
+    return np.stack([tau[:, gen == lv].mean(axis=1) for lv in levels], axis=1)  # per level
 
 
 def _cpu(fn) -> float:
