@@ -106,7 +106,7 @@ def command(design: str, outdir: str | None, allow_large: bool, field: bool | No
     "--field/--no-field",
     default=None,
     help="Solve the 2D flow field of the drawing (default: when it is estimated to take at "
-    "most 10 s and 1 GB, as for the demo; solved fields are cached).",
+    "most 10 s and 1 GB; the demo's needs about 1.05 GB, so ask for it).",
 )
 def demo_command(outdir: str | None, field: bool | None) -> int:
     """Build the bundled demo design: an endothelial bed on a slide-sized chip.

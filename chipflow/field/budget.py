@@ -41,15 +41,14 @@ BASE_BYTES = 200e6
 #: Reference size of the power laws below [triangles].
 _REFERENCE = 1.0e5
 #: Direct solve, whole field step: processor time per triangle at the reference size [s]
-#: (demo: 5.0 s for 108k triangles; 2^6 tree: 17.5 s for 154k) and its growth exponent
-#: beyond linear [-] (1 here; the two chips alone would say 2.5, but the second has two
-#: depths and a costlier ordering).
-DIRECT_SECONDS = 4.6e-5
-DIRECT_SECONDS_GROWTH = 1.0
-#: Direct solve: memory above the base per triangle at the reference size [bytes] (demo: 722
-#: MB at 108k, 2^6 tree: 1478 MB at 154k) and its growth exponent beyond linear [-].
-DIRECT_BYTES = 4.8e3
-DIRECT_BYTES_GROWTH = 1.5
+#: (demo: about 6 s for 108k triangles, 2^6 tree: 9 s for 154k, mesh included) and its
+#: growth exponent beyond linear [-].
+DIRECT_SECONDS = 5.5e-5
+DIRECT_SECONDS_GROWTH = 0.25
+#: Direct solve: memory above the base per triangle at the reference size [bytes] (demo: 7.8
+#: kB, 2^6 tree: 7.4 kB) and its growth exponent beyond linear [-].
+DIRECT_BYTES = 7.6e3
+DIRECT_BYTES_GROWTH = 0.0
 #: Iterative solve, whole field step: processor time per triangle [s] (90-125 iterations
 #: whatever the size; 194 us per triangle measured on the demo and the 2^6 tree, 165 us on
 #: the 2^8 tree of 630k triangles, under load).
@@ -100,9 +99,12 @@ def estimate_field(triangles: int, solver: str = "auto") -> FieldEstimate:
 
     Examples
     --------
-    >>> e = estimate_field(110_000)
+    >>> e = estimate_field(50_000)
     >>> e.solver, e.fits()
     ('direct', True)
+    >>> e = estimate_field(110_000)   # the demo: about 1.04 GB at its peak
+    >>> e.solver, e.fits()
+    ('direct', False)
     >>> e = estimate_field(1_000_000)
     >>> e.solver, round(e.peak_bytes / 1e9, 1), e.fits()
     ('iterative', 1.9, False)

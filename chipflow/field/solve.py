@@ -237,8 +237,8 @@ def solve_reduced(
     ----------
     system : FieldSystem
     solver : {"auto", "direct", "splu", "spsolve", "iterative"}
-        ``direct`` (or ``splu``) factorises with a minimum-degree ordering of the symmetrised
-        pattern (the matrix is symmetric); ``spsolve`` is scipy's plain call; ``iterative`` is
+        ``direct`` (or ``splu``) factorises with the column approximate minimum degree
+        ordering and partial pivoting; ``spsolve`` is scipy's plain call; ``iterative`` is
         preconditioned MINRES (:mod:`chipflow.field.iterative`, needs ``mesh`` and
         ``viscosity``); ``auto`` takes :func:`choose_solver` of the system's size.
     rtol : float
@@ -253,12 +253,9 @@ def solve_reduced(
     stats = {} if stats is None else stats
     if solver in ("direct", "splu"):
         stats["solver"] = "direct"
-        lu = splu(
-            system.matrix(),
-            permc_spec="MMD_AT_PLUS_A",
-            diag_pivot_thresh=0.0,
-            options={"SymmetricMode": True},
-        )
+        # COLAMD with partial pivoting: the minimum-degree ordering of A + A^T without
+        # pivoting fills some chips ten times more (a 57k-triangle tree: 106 s against 1.5 s)
+        lu = splu(system.matrix(), permc_spec="COLAMD")
         return lu.solve(system.rhs)
     if solver == "spsolve":
         stats["solver"] = "spsolve"
