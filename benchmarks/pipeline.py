@@ -25,8 +25,8 @@ It then prints the fitted scaling exponent of build time against bed channels (2
 Part 2 (skipped with ``--no-cli``) times whole processes, interleaved and repeated
 (``--repeat``), and prints medians and ratios: a bare
 ``python -c "import numpy, scipy.sparse, pint; pint.UnitRegistry()"``, ``chipflow --version``,
-``chipflow channel ...`` and ``chipflow demo`` (with its field: a warm field cache, one
-filled by an earlier run, and a cold one, an empty folder each time; and without its field).
+``chipflow channel ...`` and ``chipflow demo`` with a warm field cache (filled by an earlier
+run) and a cold one (an empty folder each time), and ``chipflow demo --field`` warm.
 
 Targets (2-core machine): ``channel`` within 1.3x of the bare import; the demo under 1.5 s
 whole process; GDSII within 3x and DXF and previews within 1.5x of their floors at 2^10 and
@@ -395,19 +395,15 @@ def run_cli(repeat: int, out: Path) -> None:
     chipflow = [exe] if exe else [sys.executable, "-c", "from chipflow.cli import main; main()"]
     demo = [*chipflow, "demo", "-o", str(out / "demo")]
     warm = out / "field-cache-warm"
-    subprocess.run(
-        demo, check=True, capture_output=True, env={**env, "CHIPFLOW_FIELD_CACHE": str(warm)}
-    )
+    warm_env = {**env, "CHIPFLOW_FIELD_CACHE": str(warm)}
+    subprocess.run([*demo, "--field"], check=True, capture_output=True, env=warm_env)
     cases = {
         "bare import": ([sys.executable, "-c", BARE], {}),
         "chipflow --version": ([*chipflow, "--version"], {}),
         "chipflow channel": ([*chipflow, *CHANNEL], {}),
         "chipflow demo, warm cache": (demo, {"CHIPFLOW_FIELD_CACHE": str(warm)}),
         "chipflow demo, cold cache": (demo, {"CHIPFLOW_FIELD_CACHE": "cold"}),
-        "chipflow demo --no-field, warm": (
-            [*demo, "--no-field"],
-            {"CHIPFLOW_FIELD_CACHE": str(warm)},
-        ),
+        "chipflow demo --field, warm": ([*demo, "--field"], {"CHIPFLOW_FIELD_CACHE": str(warm)}),
     }
     times: dict[str, list[tuple[float, float]]] = {name: [] for name in cases}
     for run in range(repeat):  # interleaved, so that the machine's load hits every case alike
