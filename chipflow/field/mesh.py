@@ -231,9 +231,10 @@ def build_mesh(
     _, j = tree.query(probes, k=1)
     step = size[j].reshape(3, -1).min(axis=0)
     n = np.maximum(1, np.ceil(length / step - 1e-9).astype(int))
-    # segment ends closer than a thousandth of the smallest triangle are one point: two
-    # outlines meeting a few nanometres apart would otherwise be refined down to that gap
-    vertices, segments = _split(a, b, n, grid, merge=1e-3 * float(size.min()))
+    # segment ends closer than a grid step (or a thousandth of the smallest triangle) are one
+    # point: two outlines meeting a few nanometres apart would otherwise be refined down to
+    # that gap (a sliver's own small width must not shrink the tolerance below the grid)
+    vertices, segments = _split(a, b, n, grid, merge=max(grid, 1e-3 * float(size.min())))
     holes = _inner_points(np.array(_polygons(domain), dtype=object))
     depths = np.array([d for _, d in pieces])
     parts = [np.array(_polygons(piece), dtype=object) for piece, _ in pieces]  # one per depth
@@ -276,7 +277,7 @@ def _split(a: np.ndarray, b: np.ndarray, n: np.ndarray, grid: float, merge: floa
     the first of them); the inner points belong to one segment.
     """
     ends = np.concatenate([a, b])
-    if merge > grid:
+    if merge > 0:
         from scipy.sparse import coo_matrix
         from scipy.sparse.csgraph import connected_components
         from scipy.spatial import cKDTree
