@@ -287,22 +287,29 @@ def _build_tree(
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
     field_run = None
+    limit = None
     if run_field is None:
-        from chipflow.field.budget import field_by_default
+        from chipflow.field.budget import field_by_default, max_triangles
 
         run_field = field_by_default(layout)
+        limit = max_triangles()  # the mesh may come out larger than estimated
     if run_field:
+        from chipflow.errors import MeshBudgetError
         from chipflow.field.run import run_field as solve_chip_field
 
         progress("field")
-        field_run = solve_chip_field(
-            layout,
-            solution,
-            spec.fluid.viscosity,
-            window,
-            culture.seeded,
-            flow_driven=supply.inlet.kind == "flow",
-        )
+        try:
+            field_run = solve_chip_field(
+                layout,
+                solution,
+                spec.fluid.viscosity,
+                window,
+                culture.seeded,
+                flow_driven=supply.inlet.kind == "flow",
+                max_triangles=limit,
+            )
+        except MeshBudgetError as exc:  # only when not asked for: then it is left out
+            results["warnings"].append(f"field not solved by default: {exc}; ask with --field")
     results["field"] = None if field_run is None else field_run.results
     return Build(
         source,

@@ -27,6 +27,7 @@ __all__ = [
     "estimate_field",
     "estimate_layout_field",
     "field_by_default",
+    "max_triangles",
 ]
 
 #: ``chipflow build`` solves the field by default when it is estimated to take at most this
@@ -136,3 +137,20 @@ def field_by_default(layout) -> bool:
     """Whether ``chipflow build`` solves the field of ``layout`` without being asked: when
     :func:`estimate_layout_field` fits in :data:`DEFAULT_SECONDS` and :data:`DEFAULT_BYTES`."""
     return estimate_layout_field(layout).fits()
+
+
+def max_triangles(seconds: float | None = None, peak_bytes: float | None = None) -> int:
+    """The largest mesh whose :func:`estimate_field` fits in ``seconds`` [s] and
+    ``peak_bytes`` [bytes] (by default :data:`DEFAULT_SECONDS` and :data:`DEFAULT_BYTES`).
+
+    A default build meshes the chip and leaves the field out when the mesh came out larger
+    than this (a drawing can mesh finer than :func:`estimate_field` expects).
+
+    >>> 100_000 < max_triangles() < 200_000
+    True
+    """
+    lo, hi = 0, 1 << 30
+    while hi - lo > 1:  # the estimates grow with the triangles
+        mid = (lo + hi) // 2
+        lo, hi = (mid, hi) if estimate_field(mid).fits(seconds, peak_bytes) else (lo, mid)
+    return lo

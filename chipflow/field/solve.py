@@ -26,7 +26,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from chipflow.errors import FieldError
+from chipflow.errors import FieldError, MeshBudgetError
 from chipflow.field.assemble import assemble_parts, p2_space, p2_values, pressure_parts
 from chipflow.field.calibration import floor_factor, friction, lateral_factor
 from chipflow.field.iterative import RTOL, block_preconditioner, minres
@@ -55,6 +55,7 @@ def solve_field(
     across: float = 4.0,
     solver: str = "auto",
     rtol: float = RTOL,
+    max_triangles: int | None = None,
 ) -> FieldSolution:
     """Mesh the mask and solve the depth-averaged flow.
 
@@ -78,6 +79,9 @@ def solve_field(
         larger ones iteratively (MINRES with multigrid, memory linear in the mesh).
     rtol : float
         Relative residual at which the iterative solve stops [-] (:data:`RTOL`).
+    max_triangles : int, optional
+        Raise :class:`~chipflow.errors.MeshBudgetError` instead of solving when the mesh has
+        more triangles.
 
     Returns
     -------
@@ -92,6 +96,10 @@ def solve_field(
         raise FieldError(f"viscosity must be positive, got {viscosity!r} Pa s")
     t0 = time.perf_counter()
     mesh = build_mesh(list(regions), list(ports), mesh_size=mesh_size, across=across)
+    if max_triangles is not None and len(mesh.triangles) > max_triangles:
+        raise MeshBudgetError(
+            f"the mesh has {len(mesh.triangles)} triangles, more than the {max_triangles} allowed"
+        )
     t1 = time.perf_counter()
     pressures = {p.name: float(p.pressure) for p in ports}
     sol = solve_on_mesh(mesh, pressures, viscosity, solver=solver, rtol=rtol)
