@@ -25,7 +25,8 @@ It then prints the fitted scaling exponent of build time against bed channels (2
 Part 2 (skipped with ``--no-cli``) times whole processes, interleaved and repeated
 (``--repeat``), and prints medians and ratios: a bare
 ``python -c "import numpy, scipy.sparse, pint; pint.UnitRegistry()"``, ``chipflow --version``,
-``chipflow channel ...`` and ``chipflow demo``.
+``chipflow channel ...`` and ``chipflow demo`` with a warm field cache (filled by an earlier
+run) and a cold one (an empty folder each time), and ``chipflow demo --field`` warm.
 
 Targets (2-core machine): ``channel`` within 1.3x of the bare import; the demo under 1.5 s
 whole process; GDSII within 3x and DXF and previews within 1.5x of their floors at 2^10 and
@@ -379,32 +380,49 @@ def run_sizes(sizes: list[int], out: Path) -> None:
         print(f"scaling exponent of build time vs bed channels (2^10 and up): {slope:.2f}")
 
 
-def _time_process(argv: list[str], env: dict[str, str]) -> float:
-    start = time.perf_counter()
+def _time_process(argv: list[str], env: dict[str, str]) -> tuple[float, float]:
+    """Wall and processor time [s] of one whole process."""
+    start, cpu = time.perf_counter(), os.times()
     subprocess.run(argv, check=True, capture_output=True, env=env)
-    return time.perf_counter() - start
+    end = os.times()
+    used = end.children_user - cpu.children_user + end.children_system - cpu.children_system
+    return time.perf_counter() - start, used
 
 
 def run_cli(repeat: int, out: Path) -> None:
     exe = shutil.which("chipflow")
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
-    chipflow = [exe] if exe else [sys.executable, "-m", "chipflow.cli"]
+    chipflow = [exe] if exe else [sys.executable, "-c", "from chipflow.cli import main; main()"]
+    demo = [*chipflow, "demo", "-o", str(out / "demo")]
+    warm = out / "field-cache-warm"
+    warm_env = {**env, "CHIPFLOW_FIELD_CACHE": str(warm)}
+    subprocess.run([*demo, "--field"], check=True, capture_output=True, env=warm_env)
     cases = {
-        "bare import": [sys.executable, "-c", BARE],
-        "chipflow --version": [*chipflow, "--version"],
-        "chipflow channel": [*chipflow, *CHANNEL],
-        "chipflow demo": [*chipflow, "demo", "-o", str(out / "demo")],
+        "bare import": ([sys.executable, "-c", BARE], {}),
+        "chipflow --version": ([*chipflow, "--version"], {}),
+        "chipflow channel": ([*chipflow, *CHANNEL], {}),
+        "chipflow demo, warm cache": (demo, {"CHIPFLOW_FIELD_CACHE": str(warm)}),
+        "chipflow demo, cold cache": (demo, {"CHIPFLOW_FIELD_CACHE": "cold"}),
+        "chipflow demo --field, warm": ([*demo, "--field"], {"CHIPFLOW_FIELD_CACHE": str(warm)}),
     }
-    times: dict[str, list[float]] = {name: [] for name in cases}
-    for _ in range(repeat):  # interleaved, so that the machine's load hits every case alike
-        for name, argv in cases.items():
-            times[name].append(_time_process(argv, env))
-    bare = statistics.median(times["bare import"])
-    print(f"\nwhole processes, median of {repeat} interleaved runs [s] (ratio to the bare import)")
+    times: dict[str, list[tuple[float, float]]] = {name: [] for name in cases}
+    for run in range(repeat):  # interleaved, so that the machine's load hits every case alike
+        for name, (argv, extra) in cases.items():
+            if extra.get("CHIPFLOW_FIELD_CACHE") == "cold":  # an empty cache folder each time
+                extra = {"CHIPFLOW_FIELD_CACHE": str(out / f"field-cache-cold-{run}")}
+            times[name].append(_time_process(argv, {**env, **extra}))
+    bare = [statistics.median(v) for v in zip(*times["bare import"], strict=True)]
+    print(
+        f"\nwhole processes, median of {repeat} interleaved runs: wall [s] (range), its ratio "
+        "to the bare import, processor time [s] and its ratio"
+    )
     for name, values in times.items():
-        med = statistics.median(values)
-        spread = f"{min(values):.2f}-{max(values):.2f}"
-        print(f"  {name:<20} {med:6.2f}  ({spread})  {med / bare:5.2f}x")
+        wall, cpu = (statistics.median(v) for v in zip(*values, strict=True))
+        spread = f"{min(v[0] for v in values):.2f}-{max(v[0] for v in values):.2f}"
+        print(
+            f"  {name:<31} {wall:6.2f}  ({spread})  {wall / bare[0]:5.2f}x  "
+            f"{cpu:6.2f}  {cpu / bare[1]:5.2f}x"
+        )
 
 
 def main() -> None:

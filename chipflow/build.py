@@ -202,8 +202,8 @@ def build_design(
         :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
-        when the chip is small enough to solve in seconds
-        (:data:`chipflow.field.chip.AUTO_TRIANGLES`). An explicit network without
+        when the field is estimated to take at most 10 s and 1 GB
+        (:func:`chipflow.field.budget.field_by_default`). An explicit network without
         coordinates has no drawing: asking for its field is an error.
 
     Returns
@@ -352,6 +352,7 @@ def _build_tree(
         supply.inlet.kind == "flow",
         run_field,
         progress,
+        results["warnings"],
     )
     results["field"] = None if field_run is None else field_run.results
     checks, transport = _field_outcome(
@@ -439,19 +440,32 @@ def _field(
     flow_driven: bool | None,
     run: bool | None,
     progress: Progress,
+    warnings: list[str],
 ):
-    """The field solve of a drawing, when asked for or small enough by default (None: not
-    solved)."""
+    """The field solve of a drawing: when asked for, or by default when it is estimated to fit
+    the budget (:func:`chipflow.field.budget.field_by_default`); None when not solved. A mesh
+    that comes out larger than estimated leaves a default field out with a line in
+    ``warnings``; an asked-for field is always solved."""
+    limit = None
     if run is None:
-        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+        from chipflow.field.budget import field_by_default, max_triangles
 
-        run = estimate_triangles(layout) <= AUTO_TRIANGLES
+        run = field_by_default(layout)
+        limit = max_triangles()  # the mesh may come out larger than estimated
     if not run:
         return None
+    from chipflow.errors import MeshBudgetError
     from chipflow.field.run import run_field as solve_chip_field
 
     progress("field")
-    return solve_chip_field(layout, solution, viscosity, window, seeded, flow_driven=flow_driven)
+    try:
+        return solve_chip_field(
+            layout, solution, viscosity, window, seeded, flow_driven=flow_driven,
+            max_triangles=limit,
+        )  # fmt: skip
+    except MeshBudgetError as exc:  # only when not asked for: then it is left out
+        warnings.append(f"field not solved by default: {exc}; ask with --field")
+        return None
 
 
 def _field_outcome(field_run, checks, transport, results, layout, culture, window, progress):
@@ -617,6 +631,7 @@ def _build_network(
             None,
             run_field,
             progress,
+            warnings,
         )
     )
     results["field"] = None if field_run is None else field_run.results

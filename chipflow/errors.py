@@ -21,6 +21,7 @@ __all__ = [
     "ArgumentError",
     "TooLargeError",
     "FieldError",
+    "MeshBudgetError",
 ]
 
 
@@ -62,3 +63,8 @@ class TooLargeError(LayoutError):
 
 class FieldError(ChipflowError, ValueError):
     """A mask cannot be meshed or solved as a flow field (no ports, disconnected, ...)."""
+
+
+class MeshBudgetError(FieldError):
+    """A field's mesh has more triangles than the solve was allowed (see
+    :func:`chipflow.field.budget.max_triangles`)."""

@@ -13,7 +13,7 @@ from click.testing import CliRunner
 from chipflow.build import DesignSource, build_design
 from chipflow.cli import main
 from chipflow.field import FieldPort, FieldRegion, solve_field
-from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+from chipflow.field.budget import estimate_layout_field
 from chipflow.physics import duct
 
 
@@ -99,13 +99,19 @@ def test_build_command_field_switch(tmp_path):
     assert json.loads((off / "results.json").read_text())["field"] is None
 
 
-def test_field_is_on_by_default_only_for_small_chips(tmp_path):
+def test_field_is_on_by_default_when_its_estimate_fits(tmp_path, monkeypatch):
+    from chipflow.field import budget
+
     small = build_design(small_demo(tmp_path, beds=2))
-    assert estimate_triangles(small.layout) <= AUTO_TRIANGLES
+    assert estimate_layout_field(small.layout).fits()
     assert small.results["field"] is not None
+    # a chip whose field would take longer than the default limit is built without it
     data = tomllib.loads(open("chipflow/data/demo.toml", encoding="utf-8").read())
-    big = build_design(DesignSource.from_dict(data, "demo.toml"), field=False)
-    assert estimate_triangles(big.layout) > AUTO_TRIANGLES  # so a default build skips it
+    monkeypatch.setattr(
+        budget, "DEFAULT_SECONDS", 0.5 * estimate_layout_field(small.layout).seconds
+    )
+    big = build_design(DesignSource.from_dict(data, "demo.toml"))
+    assert not estimate_layout_field(big.layout).fits() and big.results["field"] is None
 
 
 def test_depth_step_in_series_adds_the_two_resistances():
@@ -143,3 +149,28 @@ def test_overlay_slivers_between_depths_join_a_neighbour():
     expected = duct.resistance(w, 100e-6, length, 1e-3) + duct.resistance(w, 50e-6, length, 1e-3)
     assert sol.resistance("in", "out") == pytest.approx(expected, rel=0.01)
     assert len(sol.mesh.triangles) < 20_000
+
+
+def test_a_mesh_larger_than_its_estimate_leaves_the_default_field_out(tmp_path, monkeypatch):
+    # the estimate comes from the drawing; the mesh can come out finer (slivers where two
+    # depth layers nearly coincide): a default build then says so instead of solving for long
+    from chipflow.errors import MeshBudgetError
+    from chipflow.field import budget, cache
+
+    design = small_demo(tmp_path, beds=2)
+    monkeypatch.setattr(budget, "max_triangles", lambda *a, **k: 10)
+    # an empty cache: a field found in the cache costs nothing and is used whatever its size
+    monkeypatch.setenv("CHIPFLOW_FIELD_CACHE", str(tmp_path / "cache"))
+    monkeypatch.setattr(cache, "_memory", {})
+    left_out = build_design(design)
+    assert left_out.results["field"] is None
+    assert any("field not solved by default" in w for w in left_out.results["warnings"])
+    asked = build_design(design, field=True)  # asked for: no limit
+    assert asked.results["field"]["mesh_triangles"] > 10
+    regions = [FieldRegion(shapely.box(0, 0, 1e-3, 1e-4), 5e-5)]
+    ports = [
+        FieldPort("in", shapely.LineString([(0, 0), (0, 1e-4)]), 1.0),
+        FieldPort("out", shapely.LineString([(1e-3, 0), (1e-3, 1e-4)]), 0.0),
+    ]
+    with pytest.raises(MeshBudgetError, match="more than the 10 allowed"):
+        solve_field(regions, ports, 1e-3, max_triangles=10)

@@ -321,13 +321,13 @@ def test_junction_correction_does_not_depend_on_the_stub_length():
     old = junctions.STUB_WIDTHS
     try:
         junctions.STUB_WIDTHS = 5.0
-        b = junctions._excess.__wrapped__(j.key())
+        b = junctions._excess(j.key())  # the solve itself, past the cache
     finally:
         junctions.STUB_WIDTHS = old
     assert b == pytest.approx(a, abs=0.01 * 200e-6)
 
 
-def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkeypatch):
+def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkeypatch, tmp_path):
     # A piece whose 2D solve fails must not stop the build nor pass silently: its channels
     # keep their centre-to-centre lengths and the build's warnings name the place.
     from pathlib import Path
@@ -335,21 +335,23 @@ def test_a_junction_that_cannot_be_solved_keeps_plain_lengths_and_says_so(monkey
     import chipflow.field
     from chipflow.build import build_design
     from chipflow.errors import FieldError
+    from chipflow.field import cache
     from chipflow.layout import extract_network
-    from chipflow.layout.junctions import _excess
     from chipflow.layout.pieces import solve_piece
 
     def refuse(*args, **kwargs):
         raise FieldError("a part of the domain was left without a depth")
 
     monkeypatch.setattr(chipflow.field, "solve_field", refuse)
-    _excess.cache_clear()
+    # an empty cache of its own, so that the pieces are solved (and fail) here, and later
+    # tests do not see the failures
+    monkeypatch.setenv("CHIPFLOW_FIELD_CACHE", str(tmp_path))
+    monkeypatch.setattr(cache, "_memory", {})
     solve_piece.cache_clear()
     try:
         build = build_design(Path(__file__).parents[1] / "designs" / "demo_endothelial_bed.toml")
     finally:
-        _excess.cache_clear()  # later tests solve their junctions for real
-        solve_piece.cache_clear()
+        solve_piece.cache_clear()  # later tests solve their pieces for real
     plain = extract_network(build.layout, junctions=False)
     np.testing.assert_array_equal(build.solution.network.length[: plain.length.size], plain.length)
     warned = [w for w in build.results["warnings"] if "could not be solved in 2D" in w]

@@ -70,3 +70,19 @@ def test_cached_registry_converts_as_pint_does(tmp_path: Path, cache: str) -> No
         values = json.loads(_python(code, CHIPFLOW_UNIT_CACHE=setting))
         assert values == pytest.approx([v for _, _, v in CONVERSIONS], rel=1e-12)
     assert any(folder.glob("*.pickle")) == (cache != "off")
+
+
+def test_a_tree_build_loads_no_root_finder_integrator_or_multigrid(tmp_path: Path) -> None:
+    # scipy.optimize and scipy.integrate cost a large share of a small build's start-up; the
+    # sizing has its own root finder, the reservoir ODEs load the integrator when they run and
+    # the multigrid solver loads only for large fields
+    code = (
+        "import sys, json\n"
+        "from chipflow.build import build_design\n"
+        f"build_design({str(ROOT / 'designs' / 'demo_endothelial_bed.toml')!r}, field=False)\n"
+        "print(json.dumps(sorted(sys.modules)))\n"
+    )
+    loaded = set(json.loads(_python(code, CHIPFLOW_FIELD_CACHE=str(tmp_path))))
+    assert "chipflow.layout" in loaded  # the tree was drawn
+    for heavy in ("scipy.optimize", "scipy.integrate", "pyamg"):
+        assert heavy not in loaded, f"a tree build imported {heavy}"

@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from chipflow.network import NetworkBuilder, solve
 from chipflow.physics.fluid import water
@@ -14,6 +16,7 @@ from chipflow.transport.dispersion import (
     aris_factor,
     dispersion_coefficient,
     rectangle_factor,
+    step_times,
 )
 from chipflow.transport.run import run_transport
 
@@ -166,3 +169,31 @@ def test_mixing_of_arrival_times_at_a_junction():
     expected = (q[0] * tau[0] + q[1] * tau[1]) / (q[0] + q[1]) + tau[2]
     assert run.dose.mean[2] == pytest.approx(expected, rel=1e-12)
     assert abs(run.dose.residual) < 1e-12
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    mean=st.floats(1e-3, 1e5),
+    spread=st.floats(1e-3, 30.0),
+    q=st.sampled_from([0.1, 0.5, 0.9, 0.99]),
+)
+def test_step_times_are_the_inverse_gaussian_quantiles_of_scipy(mean, spread, q):
+    # reference library: scipy.stats.invgauss (mean mu, shape lambda = mu^3 / variance is its
+    # mu / lambda with scale lambda); chipflow computes the quantile itself to keep scipy.stats
+    # out of a build's start-up
+    from scipy.stats import invgauss
+
+    variance = (spread * mean) ** 2
+    lam = mean**3 / variance
+    (t,) = step_times([mean], [variance], (q,))
+    assert t[0] == pytest.approx(invgauss.ppf(q, mean / lam, scale=lam), rel=1e-7)
+
+
+def test_narrow_step_times_tend_to_the_normal_quantiles():
+    # analytic limit: the inverse Gaussian of a vanishing relative spread is normal (its shape
+    # lambda / mu grows without bound); there scipy.stats.invgauss itself loses its digits
+    from statistics import NormalDist
+
+    mean, sd = 30.0, 30.0 * 1e-5
+    for q, t in zip((0.1, 0.9), step_times([mean], [sd * sd], (0.1, 0.9)), strict=True):
+        assert t[0] == pytest.approx(mean + NormalDist().inv_cdf(q) * sd, abs=1e-3 * sd)

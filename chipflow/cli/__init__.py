@@ -44,6 +44,7 @@ class _Group(click.Group):
         "analyse": ("chipflow.cli.analyse", "command"),
         "vary": ("chipflow.cli.vary", "command"),
         "sweep": ("chipflow.cli.sweep", "command"),
+        "cache": ("chipflow.cli.cache", "command"),
         "demo": ("chipflow.cli.build", "demo_command"),
     }
 

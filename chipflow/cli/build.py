@@ -79,7 +79,7 @@ def _run(
     "--field/--no-field",
     default=None,
     help="Solve the 2D flow field of the drawing and compare it with the network (default: "
-    "only for chips small enough to solve in seconds).",
+    "when it is estimated to take at most 10 s and 1 GB).",
 )
 @settings_option
 @click.option(
@@ -160,8 +160,8 @@ def _watch(
 @click.option(
     "--field/--no-field",
     default=None,
-    help="Solve the 2D flow field of the drawing (default: only for small chips; the demo "
-    "takes about half a minute).",
+    help="Solve the 2D flow field of the drawing (default: when it is estimated to take at "
+    "most 10 s and 1 GB; the demo's needs about 1.05 GB, so ask for it).",
 )
 def demo_command(outdir: str | None, field: bool | None) -> int:
     """Build the bundled demo design: an endothelial bed on a slide-sized chip.

@@ -22,7 +22,7 @@ tree):
     Widths and depths given per generation; only checked against the fabrication limits.
 
 Inverse sizing: for each generation and each allowed mould depth the width that gives the
-target shear is found by root finding (:func:`scipy.optimize.brentq`) on the exact duct physics
+target shear is found by root finding (Illinois false position) on the exact duct physics
 of :mod:`chipflow.physics.duct`. A width is *exact* when it lies inside the drawable widths of
 that depth (:meth:`~chipflow.spec.tree.Fabrication.width_limits`); otherwise the nearest
 drawable width is a *compromise* when its shear still lies inside the target window, and
@@ -55,7 +55,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq
 
 from chipflow.design.model import Level, TreeDesign
 from chipflow.errors import ArgumentError, DesignError
@@ -143,7 +142,34 @@ def width_for_shear(
     f_lo, f_hi = miss(lo), miss(hi)
     if f_lo * f_hi > 0:
         return float("nan")
-    return math.exp(brentq(miss, lo, hi, xtol=1e-14, rtol=1e-13))
+    return math.exp(_bracketed_root(miss, lo, hi, f_lo, f_hi))
+
+
+def _bracketed_root(f, a: float, b: float, fa: float, fb: float, tol: float = 1e-14) -> float:
+    """A root of ``f`` between ``a`` and ``b`` (``fa``, ``fb`` of opposite signs), to ``tol``.
+
+    The Illinois variant of the false-position method: superlinear like the secant method and
+    the bracket is kept (Dowell and Jarratt, BIT 11 (1971) 168-174); a few lines instead of
+    importing scipy.optimize for one root per generation.
+
+    >>> round(_bracketed_root(lambda x: x * x - 2.0, 0.0, 2.0, -2.0, 2.0), 12)
+    1.414213562373
+    """
+    for _ in range(200):
+        if fa == 0.0:
+            return a
+        if fb == 0.0 or abs(b - a) <= tol * max(1.0, abs(b)):
+            return b
+        c = b - fb * (b - a) / (fb - fa)
+        if not (min(a, b) < c < max(a, b)):
+            c = 0.5 * (a + b)  # rounding pushed the secant out of the bracket
+        fc = f(c)
+        if fc * fb < 0:
+            a, fa = b, fb  # the root lies between b and c
+        else:
+            fa *= 0.5  # Illinois: halve the stale end's value
+        b, fb = c, fc
+    return b
 
 
 def size_channel(

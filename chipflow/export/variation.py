@@ -84,7 +84,7 @@ def vary_to_folder(
 
     source = read_design_source(design, settings)
     tolerances = read_tolerances(source.top).with_options(**options)
-    build = build_design(source)
+    build = build_design(source, field=False)  # the field plays no part in the tolerances
     variation = vary_build(
         build, tolerances, scheduler=scheduler, workers=workers, progress=progress
     )

@@ -22,7 +22,14 @@ from functools import cache
 
 import numpy as np
 
-__all__ = ["P2Space", "p2_space", "assemble_system", "p2_values"]
+__all__ = [
+    "P2Space",
+    "p2_space",
+    "assemble_parts",
+    "assemble_system",
+    "pressure_parts",
+    "p2_values",
+]
 
 # six-point rule exact to degree 4 on a triangle (Strang and Fix 1973); weights sum to 1
 _A1, _B1, _W1 = 0.445948490915965, 0.108103018168070, 0.223381589678011
@@ -123,15 +130,18 @@ def _geometry(points: np.ndarray, triangles: np.ndarray):
     return 0.5 * np.abs(det), grads
 
 
-def assemble_system(
+def assemble_parts(
     points: np.ndarray,
     triangles: np.ndarray,
     space: P2Space,
     depth: np.ndarray,
     lateral: np.ndarray,
     friction: np.ndarray,
+    keep: np.ndarray | None = None,
 ):
-    """The matrix ``[[A, B^T], [B, 0]]`` of the weak form, velocity dofs first.
+    """The blocks of the weak form: the scalar velocity block ``A`` and the two divergence
+    blocks ``B_x``, ``B_y`` (the saddle-point matrix is ``[[A, 0, Bx^T], [0, A, By^T],
+    [Bx, By, 0]]``: both velocity components share ``A``).
 
     Parameters
     ----------
@@ -144,6 +154,71 @@ def assemble_system(
         Lateral viscosity ``beta mu`` per triangle [Pa s].
     friction : numpy.ndarray
         ``k mu`` per triangle [Pa s/m^2].
+    keep : numpy.ndarray of bool, optional
+        The velocity nodes to keep (the free ones), numbered in their order; the others'
+        rows and columns are never formed. All by default.
+
+    Returns
+    -------
+    (scipy.sparse.csr_matrix, scipy.sparse.csr_matrix, scipy.sparse.csr_matrix)
+        ``A`` (kept nodes square), ``B_x`` and ``B_y`` (``n_points`` x kept nodes).
+    """
+    from scipy import sparse
+
+    t_ref, m_ref = _reference()
+    area, grads = _geometry(points, triangles)
+    npts = space.n_points
+    if keep is None:
+        keep = np.ones(space.n_nodes, bool)
+    nn = int(keep.sum())
+    number = np.where(keep, np.cumsum(keep) - 1, -1).astype(np.int32)
+    nodes = number[space.nodes]  # -1: a node left out
+    scalar = None
+    # in chunks of triangles, so that the element arrays stay small beside the matrix
+    step = 200_000
+    for s in range(0, len(triangles), step):
+        sl = slice(s, s + step)
+        gg = np.einsum("nid,njd->nij", grads[sl], grads[sl])  # grad lambda_i . grad lambda_j
+        stiff = np.einsum("nij,ijab->nab", gg, t_ref) * area[sl, None, None]
+        local = (depth[sl] * lateral[sl])[:, None, None] * stiff
+        local += (depth[sl] * friction[sl] * area[sl])[:, None, None] * m_ref
+        rows = np.repeat(nodes[sl], 6, axis=1).ravel()
+        cols = np.tile(nodes[sl], (1, 6)).ravel()
+        on = (rows >= 0) & (cols >= 0)
+        part = sparse.csr_matrix((local.ravel()[on], (rows[on], cols[on])), shape=(nn, nn))
+        scalar = part if scalar is None else scalar + part
+        del gg, stiff, local, rows, cols, on, part
+    # B: int h phi_a d(lambda_k)/dx_d; int phi_a = 0 for vertices, area / 3 for edges, so
+    # only the three edge nodes of each triangle enter
+    weight = (depth * area / 3.0)[:, None, None]
+    b_rows = np.repeat(triangles.astype(np.int32), 3, axis=1).ravel()
+    b_cols = np.tile(nodes[:, 3:], (1, 3)).ravel()
+    on = b_cols >= 0
+    b_rows, b_cols = b_rows[on], b_cols[on]
+    blocks = [
+        sparse.csr_matrix(
+            (
+                (grads[:, :, d][:, :, None] * weight).repeat(3, axis=2).ravel()[on],
+                (b_rows, b_cols),
+            ),
+            shape=(npts, nn),
+        )
+        for d in range(2)
+    ]
+    return scalar, blocks[0], blocks[1]
+
+
+def assemble_system(
+    points: np.ndarray,
+    triangles: np.ndarray,
+    space: P2Space,
+    depth: np.ndarray,
+    lateral: np.ndarray,
+    friction: np.ndarray,
+):
+    """The matrix ``[[A, B^T], [B, 0]]`` of the weak form, velocity dofs first.
+
+    Parameters as :func:`assemble_parts`.
 
     Returns
     -------
@@ -152,35 +227,28 @@ def assemble_system(
     """
     from scipy import sparse
 
-    t_ref, m_ref = _reference()
+    a, bx, by = assemble_parts(points, triangles, space, depth, lateral, friction)
+    return sparse.bmat([[a, None, bx.T], [None, a, by.T], [bx, by, None]], format="csr")
+
+
+def pressure_parts(
+    points: np.ndarray, triangles: np.ndarray, conductance: np.ndarray, weight: np.ndarray
+):
+    """Linear-element stiffness ``int c grad q . grad r`` and lumped mass ``int w q`` on the
+    vertices, with ``c`` (``conductance``) and ``w`` (``weight``) constant per triangle.
+
+    Returns
+    -------
+    (scipy.sparse.csr_matrix, numpy.ndarray)
+        The stiffness matrix (``n_points`` square) and the lumped mass of each vertex.
+    """
+    from scipy import sparse
+
     area, grads = _geometry(points, triangles)
-    gg = np.einsum("nid,njd->nij", grads, grads)  # grad lambda_i . grad lambda_j
-    stiff = np.einsum("nij,ijab->nab", gg, t_ref) * area[:, None, None]
-    local = (depth * lateral)[:, None, None] * stiff + (depth * friction * area)[
-        :, None, None
-    ] * m_ref
-    nn, npts = space.n_nodes, space.n_points
-    nodes = space.nodes.astype(np.int32)
-    rows = np.repeat(nodes, 6, axis=1).ravel()
-    cols = np.tile(nodes, (1, 6)).ravel()
-    scalar = sparse.csr_matrix((local.ravel(), (rows, cols)), shape=(nn, nn))
-    # B: int h phi_a d(lambda_k)/dx_d; int phi_a = 0 for vertices, area / 3 for edges, so
-    # only the three edge nodes of each triangle enter
-    weight = (depth * area / 3.0)[:, None, None]
-    b_rows = np.repeat(triangles.astype(np.int32), 3, axis=1).ravel()
-    b_cols = np.tile(nodes[:, 3:], (1, 3)).ravel()
-    blocks = [
-        sparse.csr_matrix(
-            ((grads[:, :, d][:, :, None] * weight).repeat(3, axis=2).ravel(), (b_rows, b_cols)),
-            shape=(npts, nn),
-        )
-        for d in range(2)
-    ]
-    return sparse.bmat(
-        [
-            [scalar, None, blocks[0].T],
-            [None, scalar, blocks[1].T],
-            [blocks[0], blocks[1], None],
-        ],
-        format="csr",
-    )
+    local = np.einsum("nid,njd->nij", grads, grads) * (conductance * area)[:, None, None]
+    rows = np.repeat(triangles, 3, axis=1).ravel()
+    cols = np.tile(triangles, (1, 3)).ravel()
+    n = len(points)
+    stiff = sparse.csr_matrix((local.ravel(), (rows, cols)), shape=(n, n))
+    lumped = np.bincount(triangles.ravel(), np.repeat(weight * area / 3.0, 3), minlength=n)
+    return stiff, lumped

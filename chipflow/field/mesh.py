@@ -231,7 +231,10 @@ def build_mesh(
     _, j = tree.query(probes, k=1)
     step = size[j].reshape(3, -1).min(axis=0)
     n = np.maximum(1, np.ceil(length / step - 1e-9).astype(int))
-    vertices, segments = _split(a, b, n, grid)
+    # segment ends closer than a grid step (or a thousandth of the smallest triangle) are one
+    # point: two outlines meeting a few nanometres apart would otherwise be refined down to
+    # that gap (a sliver's own small width must not shrink the tolerance below the grid)
+    vertices, segments = _split(a, b, n, grid, merge=max(grid, 1e-3 * float(size.min())))
     holes = _inner_points(np.array(_polygons(domain), dtype=object))
     depths = np.array([d for _, d in pieces])
     parts = [np.array(_polygons(piece), dtype=object) for piece, _ in pieces]  # one per depth
@@ -267,12 +270,29 @@ def build_mesh(
     return mesh
 
 
-def _split(a: np.ndarray, b: np.ndarray, n: np.ndarray, grid: float):
+def _split(a: np.ndarray, b: np.ndarray, n: np.ndarray, grid: float, merge: float = 0.0):
     """Vertices and segments of segments ``a -> b`` split into ``n`` equal pieces.
 
-    Segment ends are shared (merged on the grid); the inner points belong to one segment.
+    Segment ends are shared (merged on the grid, and ends closer than ``merge`` [m] taken as
+    the first of them); the inner points belong to one segment.
     """
-    ends = np.round(np.concatenate([a, b]) / grid)
+    ends = np.concatenate([a, b])
+    if merge > 0:
+        from scipy.sparse import coo_matrix
+        from scipy.sparse.csgraph import connected_components
+        from scipy.spatial import cKDTree
+
+        pairs = cKDTree(ends).query_pairs(merge, output_type="ndarray")
+        if len(pairs):
+            graph = coo_matrix(
+                (np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(len(ends),) * 2
+            )
+            _, label = connected_components(graph, directed=False)
+            first = np.full(label.max() + 1, len(ends))
+            np.minimum.at(first, label, np.arange(len(ends)))
+            ends = ends[first[label]]
+            a, b = ends[: len(a)], ends[len(a) :]
+    ends = np.round(ends / grid)
     uniq, inv = np.unique(ends, axis=0, return_inverse=True)
     inv = inv.ravel()
     ia, ib = inv[: len(a)], inv[len(a) :]

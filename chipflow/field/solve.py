@@ -26,14 +26,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from chipflow.errors import FieldError
-from chipflow.field.assemble import assemble_system, p2_space, p2_values
+from chipflow.errors import FieldError, MeshBudgetError
+from chipflow.field.assemble import assemble_parts, p2_space, p2_values, pressure_parts
 from chipflow.field.calibration import floor_factor, friction, lateral_factor
+from chipflow.field.iterative import RTOL, block_preconditioner, minres
 from chipflow.field.mesh import build_mesh
 from chipflow.field.model import FieldMesh, FieldPort, FieldRegion, FieldSolution
 
 __all__ = [
+    "DIRECT_MAX_UNKNOWNS",
     "FieldSystem",
+    "choose_solver",
     "field_system",
     "solve_field",
     "solve_on_mesh",
@@ -50,7 +53,9 @@ def solve_field(
     *,
     mesh_size: float | None = None,
     across: float = 4.0,
-    solver: str = "splu",
+    solver: str = "auto",
+    rtol: float = RTOL,
+    max_triangles: int | None = None,
 ) -> FieldSolution:
     """Mesh the mask and solve the depth-averaged flow.
 
@@ -68,9 +73,15 @@ def solve_field(
         Triangle edges across a channel [-]; edges are also at most ``2 depth / across``.
         At 4 (the default) a straight channel's resistance is within 0.4 % of the exact
         series for h/w from 0.25 to 2 (0.07 % for square channels), at 8 within 0.06 %.
-    solver : {"splu", "spsolve"}
-        Sparse direct solve of the reduced saddle-point system: ``splu`` factorises with a
-        fill-reducing ordering of the symmetrised pattern; ``spsolve`` is the plain call.
+    solver : {"auto", "direct", "iterative", "splu", "spsolve"}
+        How the saddle-point system is solved (:func:`solve_reduced`): ``auto`` factorises
+        systems of up to :data:`DIRECT_MAX_UNKNOWNS` unknowns directly (sparse LU) and solves
+        larger ones iteratively (MINRES with multigrid, memory linear in the mesh).
+    rtol : float
+        Relative residual at which the iterative solve stops [-] (:data:`RTOL`).
+    max_triangles : int, optional
+        Raise :class:`~chipflow.errors.MeshBudgetError` instead of solving when the mesh has
+        more triangles.
 
     Returns
     -------
@@ -85,40 +96,85 @@ def solve_field(
         raise FieldError(f"viscosity must be positive, got {viscosity!r} Pa s")
     t0 = time.perf_counter()
     mesh = build_mesh(list(regions), list(ports), mesh_size=mesh_size, across=across)
+    if max_triangles is not None and len(mesh.triangles) > max_triangles:
+        raise MeshBudgetError(
+            f"the mesh has {len(mesh.triangles)} triangles, more than the {max_triangles} allowed"
+        )
     t1 = time.perf_counter()
-    sol = solve_on_mesh(mesh, {p.name: float(p.pressure) for p in ports}, viscosity, solver=solver)
+    pressures = {p.name: float(p.pressure) for p in ports}
+    sol = solve_on_mesh(mesh, pressures, viscosity, solver=solver, rtol=rtol)
     sol.stats["mesh_seconds"] = t1 - t0
     return sol
 
 
+#: Reduced unknowns up to which ``solver="auto"`` factorises the system directly: the sparse
+#: LU is faster there and its memory still small (measured by ``benchmarks/field.py``; see
+#: :mod:`chipflow.field.budget`).
+DIRECT_MAX_UNKNOWNS = 500_000
+
+
 @dataclass(frozen=True)
 class FieldSystem:
-    """The assembled problem of one mesh, with the fixed values in place.
+    """The assembled problem of one mesh, reduced to its free unknowns.
+
+    The reduced matrix is ``[[A, 0, Bx^T], [0, A, By^T], [Bx, By, 0]]`` over the free
+    velocity nodes (both components) and the free pressure nodes.
 
     Attributes
     ----------
-    matrix : scipy.sparse.csr_matrix
-        The full saddle-point matrix, velocity dofs first, then the pressures.
-    reduced : scipy.sparse.csc_matrix
-        The matrix of the free unknowns.
+    a : scipy.sparse.csr_matrix
+        Scalar velocity block of the free velocity nodes.
+    bx, by : scipy.sparse.csr_matrix
+        Divergence blocks, free pressure nodes by free velocity nodes.
     rhs : numpy.ndarray
         Right-hand side of the free unknowns (from the port pressures).
-    free : numpy.ndarray
-        Indices of the free unknowns.
-    x : numpy.ndarray
-        Full solution vector holding the fixed values (wall velocities, port pressures).
+    velocity_free : numpy.ndarray
+        Free velocity nodes (not on a wall).
+    pressure_free : numpy.ndarray
+        Free pressure nodes (not on a port).
+    pressure : numpy.ndarray
+        Pressure of every vertex, the port pressures in place [Pa].
     space : P2Space
-    port_nodes : dict of str to numpy.ndarray
-        Pressure nodes of each port.
+    port_flux : dict of str to (numpy.ndarray, numpy.ndarray)
+        Per port the x and y rows whose product with the free velocities is the flux out of
+        the domain through the port [m^3/s per (m/s)].
     """
 
-    matrix: object
-    reduced: object
+    a: object
+    bx: object
+    by: object
     rhs: np.ndarray
-    free: np.ndarray
-    x: np.ndarray
+    velocity_free: np.ndarray
+    pressure_free: np.ndarray
+    pressure: np.ndarray
     space: object
-    port_nodes: dict
+    port_flux: dict
+
+    @property
+    def size(self) -> int:
+        """Number of reduced unknowns."""
+        return int(2 * self.velocity_free.size + self.pressure_free.size)
+
+    def matvec(self, x: np.ndarray) -> np.ndarray:
+        """The reduced matrix times ``x``."""
+        n = self.velocity_free.size
+        ux, uy, p = x[:n], x[n : 2 * n], x[2 * n :]
+        return np.concatenate(
+            [self.a @ ux + self.bx.T @ p, self.a @ uy + self.by.T @ p, self.bx @ ux + self.by @ uy]
+        )
+
+    def matrix(self):
+        """The reduced saddle-point matrix (scipy.sparse.csc_matrix)."""
+        from scipy import sparse
+
+        a, bx, by = self.a, self.bx, self.by
+        return sparse.bmat([[a, None, bx.T], [None, a, by.T], [bx, by, None]], format="csc")
+
+    def flows(self, x: np.ndarray) -> dict[str, float]:
+        """Flow into the domain through each port [m^3/s] for the reduced solution ``x``."""
+        n = self.velocity_free.size
+        ux, uy = x[:n], x[n : 2 * n]
+        return {name: -float(fx @ ux + fy @ uy) for name, (fx, fy) in self.port_flux.items()}
 
 
 def field_system(
@@ -127,71 +183,137 @@ def field_system(
     """Assemble the problem on ``mesh`` with the port pressures [Pa] and viscosity [Pa s]."""
     space = p2_space(mesh.points, mesh.triangles)
     lateral = viscosity * lateral_factor(mesh.depth, mesh.width)
-    k = assemble_system(
-        mesh.points, mesh.triangles, space, mesh.depth, lateral, viscosity * friction(mesh.depth)
+    wall = np.zeros(space.n_nodes, bool)
+    wall[space.edge_nodes(mesh.wall_edges)] = True
+    vfree = np.nonzero(~wall)[0]
+    # the wall nodes' rows and columns are never formed: no full matrix to reduce
+    a, bx, by = assemble_parts(
+        mesh.points,
+        mesh.triangles,
+        space,
+        mesh.depth,
+        lateral,
+        viscosity * friction(mesh.depth),
+        keep=~wall,
     )
-    nn = space.n_nodes
-    nu_dofs = 2 * nn
-    n = k.shape[0]
-    wall_nodes = space.edge_nodes(mesh.wall_edges)
-    x = np.zeros(n)
-    fixed = [wall_nodes, wall_nodes + nn]
+    pressure = np.zeros(space.n_points)
+    fixed = np.zeros(space.n_points, bool)
     port_nodes = {}
     for name, edges in mesh.port_edges.items():
         nodes = np.unique(edges)
         port_nodes[name] = nodes
-        x[nu_dofs + nodes] = port_pressures[name]
-        fixed.append(nu_dofs + nodes)
-    is_fixed = np.zeros(n, bool)
-    is_fixed[np.concatenate(fixed)] = True
-    free = np.nonzero(~is_fixed)[0]
-    fixed_dofs = np.nonzero(is_fixed)[0]
-    k_free = k[free]
-    kff = k_free[:, free].tocsc()
-    rhs = -(k_free[:, fixed_dofs] @ x[fixed_dofs])
-    return FieldSystem(k, kff, rhs, free, x, space, port_nodes)
+        pressure[nodes] = port_pressures[name]
+        fixed[nodes] = True
+    pfree = np.nonzero(~fixed)[0]
+    p_fixed = pressure[fixed]
+    rhs = np.concatenate([-(bx[fixed].T @ p_fixed), -(by[fixed].T @ p_fixed), np.zeros(pfree.size)])
+    flux = {
+        name: (np.asarray(bx[nodes].sum(axis=0)).ravel(), np.asarray(by[nodes].sum(axis=0)).ravel())
+        for name, nodes in port_nodes.items()
+    }
+    return FieldSystem(a, bx[pfree], by[pfree], rhs, vfree, pfree, pressure, space, flux)
 
 
-def solve_reduced(system: FieldSystem, solver: str = "splu") -> np.ndarray:
+def _schur_parts(mesh: FieldMesh, system: FieldSystem, viscosity: float):
+    """The Hele-Shaw pressure Laplacian and the viscous pressure mass of the free nodes."""
+    beta = lateral_factor(mesh.depth, mesh.width)
+    h = mesh.depth
+    stiff, mass = pressure_parts(
+        mesh.points, mesh.triangles, h**3 / (12.0 * viscosity), h / (beta * viscosity)
+    )
+    free = system.pressure_free
+    return stiff[free][:, free].tocsr(), mass[free]
+
+
+def choose_solver(unknowns: int) -> str:
+    """``"direct"`` up to :data:`DIRECT_MAX_UNKNOWNS` reduced unknowns, else ``"iterative"``."""
+    return "direct" if unknowns <= DIRECT_MAX_UNKNOWNS else "iterative"
+
+
+def solve_reduced(
+    system: FieldSystem,
+    solver: str = "auto",
+    *,
+    mesh: FieldMesh | None = None,
+    viscosity: float | None = None,
+    rtol: float = RTOL,
+    stats: dict | None = None,
+) -> np.ndarray:
     """Solve the reduced system; returns the free unknowns.
 
-    ``splu`` factorises with a minimum-degree ordering of the symmetrised pattern and no
-    row pivoting preference (the matrix is symmetric); ``spsolve`` is scipy's plain call.
+    Parameters
+    ----------
+    system : FieldSystem
+    solver : {"auto", "direct", "splu", "spsolve", "iterative"}
+        ``direct`` (or ``splu``) factorises with the column approximate minimum degree
+        ordering and partial pivoting; ``spsolve`` is scipy's plain call; ``iterative`` is
+        preconditioned MINRES (:mod:`chipflow.field.iterative`, needs ``mesh`` and
+        ``viscosity``); ``auto`` takes :func:`choose_solver` of the system's size.
+    rtol : float
+        Relative residual of the iterative solve [-].
+    stats : dict, optional
+        Receives ``solver``, and for the iterative solve ``iterations`` and ``residual``.
     """
     from scipy.sparse.linalg import splu, spsolve
 
-    if solver == "splu":
-        lu = splu(
-            system.reduced,
-            permc_spec="MMD_AT_PLUS_A",
-            diag_pivot_thresh=0.0,
-            options={"SymmetricMode": True},
-        )
+    if solver == "auto":
+        solver = choose_solver(system.size)
+    stats = {} if stats is None else stats
+    if solver in ("direct", "splu"):
+        stats["solver"] = "direct"
+        # COLAMD with partial pivoting: the minimum-degree ordering of A + A^T without
+        # pivoting fills some chips ten times more (a 57k-triangle tree: 106 s against 1.5 s)
+        lu = splu(system.matrix(), permc_spec="COLAMD")
         return lu.solve(system.rhs)
     if solver == "spsolve":
-        return spsolve(system.reduced, system.rhs)
-    raise FieldError(f"unknown field solver {solver!r} (valid: splu, spsolve)")
+        stats["solver"] = "spsolve"
+        return spsolve(system.matrix(), system.rhs)
+    if solver == "iterative":
+        if mesh is None or viscosity is None:
+            raise FieldError("the iterative field solve needs the mesh and the viscosity")
+        stats["solver"] = "iterative"
+        laplacian, mass = _schur_parts(mesh, system, viscosity)
+        precondition = block_preconditioner(system.a, laplacian, mass)
+        del laplacian
+        result = minres(system.matvec, system.rhs, precondition, rtol=rtol)
+        stats["iterations"] = result.iterations
+        stats["residual"] = result.residual
+        return result.x
+    raise FieldError(
+        f"unknown field solver {solver!r} (valid: auto, direct, splu, spsolve, iterative)"
+    )
 
 
 def solve_on_mesh(
-    mesh: FieldMesh, port_pressures: dict[str, float], viscosity: float, *, solver: str = "splu"
+    mesh: FieldMesh,
+    port_pressures: dict[str, float],
+    viscosity: float,
+    *,
+    solver: str = "auto",
+    rtol: float = RTOL,
 ) -> FieldSolution:
-    """Solve the flow on a given mesh with the given port pressures [Pa]."""
+    """Solve the flow on a given mesh with the given port pressures [Pa].
+
+    ``solver`` and ``rtol`` as in :func:`solve_reduced`.
+    """
     t0 = time.perf_counter()
     system = field_system(mesh, port_pressures, viscosity)
-    k, free, space, port_nodes = system.matrix, system.free, system.space, system.port_nodes
-    x = system.x.copy()
+    space = system.space
     nn = space.n_nodes
-    nu_dofs = 2 * nn
     t1 = time.perf_counter()
-    x[free] = solve_reduced(system, solver)
+    stats: dict = {}
+    x = solve_reduced(system, solver, mesh=mesh, viscosity=viscosity, rtol=rtol, stats=stats)
     if not np.all(np.isfinite(x)):
         raise FieldError("the field solve failed (singular system): check the ports and walls")
     t2 = time.perf_counter()
 
-    u, p = x[:nu_dofs], x[nu_dofs:]
-    residual = k[nu_dofs:, :] @ x  # continuity rows: flux out through each pressure node
-    flows = {name: float(-residual[nodes].sum()) for name, nodes in port_nodes.items()}
+    flows = system.flows(x)
+    nv = system.velocity_free.size
+    u = np.zeros(2 * nn)
+    u[system.velocity_free] = x[:nv]
+    u[nn + system.velocity_free] = x[nv : 2 * nv]
+    p = system.pressure.copy()
+    p[system.pressure_free] = x[2 * nv :]
     ux, uy = u[:nn], u[nn:]
     # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values
     vel = np.column_stack(
@@ -201,12 +323,12 @@ def solve_on_mesh(
     vel_vertices = np.column_stack([ux[:npts], uy[:npts]])
     speed = np.hypot(vel[:, 0], vel[:, 1])
     shear = floor_factor(mesh.depth, mesh.width) * viscosity * speed / mesh.depth
-    stats = {
-        "dofs": int(free.size),
-        "triangles": int(len(mesh.triangles)),
-        "assemble_seconds": t1 - t0,
-        "solve_seconds": t2 - t1,
-    }
+    stats.update(
+        dofs=system.size,
+        triangles=int(len(mesh.triangles)),
+        assemble_seconds=t1 - t0,
+        solve_seconds=t2 - t1,
+    )
     return FieldSolution(
         mesh=mesh,
         viscosity=viscosity,

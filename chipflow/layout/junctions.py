@@ -30,10 +30,11 @@ correction holds the junction and its children's bends; the half-turns of a fold
 counted at their centreline length (their excess is about -1 % of the arc's length).
 
 It does not depend on the viscosity or the flow (Stokes flow is linear). A tree repeats one
-junction geometry per generation, so there are at most as many solves as generations (cached
-for the process). The collecting tree's merges are the mirror images of the splits with the
-flow reversed, which in Stokes flow has the same resistance (reversibility), so they take the
-same correction.
+junction geometry per generation, so there are at most as many solves as generations, and each
+is kept in the on-disk field cache (:mod:`chipflow.field.cache`): a later build of the same
+design, in any process, solves none. The collecting tree's merges are the mirror images of the
+splits with the flow reversed, which in Stokes flow has the same resistance (reversibility), so
+they take the same correction.
 
 References
 ----------
@@ -45,7 +46,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
 
 import numpy as np
 import shapely
@@ -165,10 +165,13 @@ def junction_excess_length(j: Junction) -> float:
     """Equivalent length [m] of the parent channel that the junction ``j`` adds (negative
     when the junction conducts better than the two straight channels meeting at a point);
     NaN when the junction cannot be meshed or solved in 2D."""
-    return _excess(j.key())
+    from chipflow.field.cache import cached
+
+    settings = {"across": ACROSS, "stub_widths": STUB_WIDTHS}
+    key = j.key()
+    return float(cached("junction", key, lambda: {"excess": _excess(key)}, settings)["excess"])
 
 
-@lru_cache(maxsize=256)
 def _excess(key: tuple) -> float:
     from chipflow.errors import FieldError
     from chipflow.field import solve_field

@@ -325,13 +325,25 @@ def solve_piece(key) -> PieceSolution:
 
 @lru_cache(maxsize=1024)
 def _solve(key) -> PieceSolution:
-    if isinstance(key, Junction):
+    if isinstance(key, Junction):  # a binary split: cached on disk by its own function
         return PieceSolution((junction_excess_length(key), 0.0, 0.0))
+    from chipflow.field.cache import cached
+
+    settings = {"across": ACROSS, "stub_widths": STUB_WIDTHS}
     if isinstance(key, PortKey):
-        return PieceSolution((_port_excess(key),))
-    if isinstance(key, JunctionKey):
-        return _junction_lengths(key)
-    raise TypeError(f"not a piece key: {key!r}")
+        kind, compute = "port", lambda: {"lengths": [_port_excess(key)], "fit_error": 0.0}
+    elif isinstance(key, JunctionKey):
+
+        def compute():
+            solved = _junction_lengths(key)
+            return {"lengths": list(solved.lengths), "fit_error": solved.fit_error}
+
+        kind = "junction-arms"
+    else:
+        raise TypeError(f"not a piece key: {key!r}")
+    found = cached(kind, key, compute, settings)
+    lengths = np.atleast_1d(found["lengths"])
+    return PieceSolution(tuple(float(v) for v in lengths), float(found["fit_error"]))
 
 
 solve_piece.cache_clear = _solve.cache_clear  # type: ignore[attr-defined]
@@ -435,27 +447,18 @@ def _conductance(regions, ports, n: int) -> np.ndarray:
     from chipflow.field.solve import field_system
 
     mesh = build_mesh(list(regions), list(ports), across=ACROSS)
-    system = field_system(mesh, {p.name: 0.0 for p in ports}, 1.0)
-    k = system.matrix.tocsr()
-    nu_dofs = 2 * system.space.n_nodes
-    free = system.free
-    fixed = np.setdiff1d(np.arange(k.shape[0]), free)
-    coupling = k[free][:, fixed]
-    lu = splu(
-        system.reduced,
-        permc_spec="MMD_AT_PLUS_A",
-        diag_pivot_thresh=0.0,
-        options={"SymmetricMode": True},
-    )
+    names = [p.name for p in ports]
     y = np.zeros((n, n))
-    for j in range(n - 1):  # one right-hand side per driven port
-        x = np.zeros(k.shape[0])
-        x[nu_dofs + system.port_nodes[ports[j].name]] = 1.0
-        x[free] = lu.solve(-(coupling @ x[fixed]))
+    lu = None
+    for j in range(n - 1):  # one right-hand side per driven port (the same matrix)
+        system = field_system(mesh, {name: float(k == j) for k, name in enumerate(names)}, 1.0)
+        if lu is None:
+            lu = splu(system.matrix(), permc_spec="COLAMD")
+        x = lu.solve(system.rhs)
         if not np.all(np.isfinite(x)):
             raise FieldError("the piece's field solve failed (singular system)")
-        flux = k[nu_dofs:, :] @ x  # continuity rows: flux out through each pressure node
-        y[:, j] = [-flux[system.port_nodes[p.name]].sum() for p in ports]
+        flows = system.flows(x)  # into the domain through each port
+        y[:, j] = [flows[name] for name in names]
     y[:, n - 1] = -y[:, : n - 1].sum(axis=1)
     return 0.5 * (y + y.T)
 

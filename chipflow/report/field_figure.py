@@ -34,9 +34,14 @@ def map_panels(mesh, values, cmap, norm, zoom=None, width: float = 7.5):
     x, y = mesh.points[:, 0] * mm, mesh.points[:, 1] * mm
     art = None
     for k, ax in enumerate(axes):
-        drawn = ax.tripcolor(
-            x, y, mesh.triangles, facecolors=values, cmap=cmap, norm=norm, rasterized=True
-        )
+        tris, colours = mesh.triangles, values
+        if k == 1:  # the close-up draws only the triangles that can show in it
+            cx, cy, half = zoom
+            corner = mesh.points[tris]
+            low, high = corner.min(axis=1), corner.max(axis=1)
+            near = np.all((high >= [cx - half, cy - half]) & (low <= [cx + half, cy + half]), 1)
+            tris, colours = tris[near], values[near]
+        drawn = ax.tripcolor(x, y, tris, facecolors=colours, cmap=cmap, norm=norm, rasterized=True)
         art = drawn if art is None else art
         ax.set_aspect("equal")
         ax.set_xlabel("x [mm]")

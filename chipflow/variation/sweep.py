@@ -100,7 +100,7 @@ def _point(base: tuple[dict, str, tuple[str, ...]], values: tuple[Any, ...]) -> 
     data, path, keys = base
     source = DesignSource.from_dict(with_values(data, keys, values), path)
     try:
-        row = point_row(build_design(source))
+        row = point_row(build_design(source, field=False))  # rows hold no field numbers
     except SpecError:
         raise
     except ChipflowError as exc:

@@ -51,6 +51,10 @@ __all__ = [
 
 #: Channel-samples per batch: bounds the memory of one batch (about 30 arrays of this size).
 BATCH_ELEMENTS = 300_000
+#: Channel-samples up to which the run stays in this process unless workers are asked for:
+#: about a second of solving (0.3 us per channel and sample, measured by benchmarks/vary.py),
+#: less than starting local processes costs.
+LOCAL_ELEMENTS = 3_000_000
 
 #: SI units of the keys of the variation results.
 VARY_UNITS = {
@@ -151,7 +155,8 @@ def vary_build(
     scheduler : str, optional
         Address of a Dask distributed scheduler to run the batches on.
     workers : int, optional
-        Local processes (default one per CPU).
+        Local processes (default one per CPU; runs of at most :data:`LOCAL_ELEMENTS`
+        channel-samples stay in this process).
     progress : callable, optional
         Called with ``(done, total)`` batches.
 
@@ -177,6 +182,9 @@ def vary_build(
     params = draws * tol
     size = batch_size(problem)
     chunks = [params[i : i + size] for i in range(0, params.shape[0], size)]
+    if scheduler is None and workers is None:
+        if params.shape[0] * problem.n_channels <= LOCAL_ELEMENTS:
+            workers = 1  # a small run: no process pool
     parts = run_tasks(
         solve_batch, problem, chunks, scheduler=scheduler, workers=workers, progress=progress
     )
