@@ -467,7 +467,7 @@ def _results(
             "total_resistance": (p_in - p_out) / total_flow if total_flow > 0 else None,
             "transit_time": transit if rows else None,
             "tubing_transit_time": tubing_transit,
-            "mass_residual": float(solution.residual),
+            **_residual_dict(solution),
         },
         "generations": rows,
         "checks": [c.to_dict() for c in checks],
@@ -475,6 +475,14 @@ def _results(
         "shear_window": None if window is None else window.to_dict(),
         "units": RESULT_UNITS,
     }
+
+
+def _residual_dict(solution: Solution) -> dict[str, float]:
+    """The solve's self-check (:mod:`chipflow.network.residual`): ``mass_residual``,
+    ``law_residual``, ``condition`` and ``residual_tolerance``, all plain numbers."""
+    if solution.check is None:
+        return {"mass_residual": float(solution.residual)}
+    return {k: float(v) for k, v in solution.check.to_dict().items()}
 
 
 def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[str, Any]:

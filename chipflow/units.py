@@ -369,6 +369,9 @@ RESULT_UNITS: dict[str, str] = {
     "transit_time": "s",
     "tubing_transit_time": "s",
     "mass_residual": "1",
+    "law_residual": "1",
+    "condition": "1",
+    "residual_tolerance": "1",
     # geometry
     "count": "1",
     "width": "m",

@@ -18,6 +18,7 @@ from chipflow.cli.common import echo_table
 from chipflow.design.table import tree_check
 from chipflow.errors import SpecError
 from chipflow.network import Solution, generation_rows
+from chipflow.network.residual import RESIDUAL_UNITS
 from chipflow.network.summary import channel_rows
 from chipflow.report.console import channel_table
 from chipflow.spec.bundled import resolve_design
@@ -41,6 +42,7 @@ SI_UNITS = units_of(
     "viscosity",
     "density",
     "temperature",
+    *RESIDUAL_UNITS,
 )
 
 _UL_MIN = 6e10  # m^3/s -> uL/min
@@ -179,7 +181,18 @@ def _echo_text(design: NetworkDesign, solution: Solution) -> None:
             ),
         )
     click.echo("")
-    click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
+    click.echo(self_check_line(solution))
+
+
+def self_check_line(solution: Solution) -> str:
+    """The solve's self-check in one line (see :mod:`chipflow.network.residual`)."""
+    c = solution.check
+    if c is None:
+        return f"largest mass-conservation residual: {solution.residual:.2g} (relative)"
+    return (
+        f"self-check: mass residual {c.mass_residual:.2g}, channel law {c.law_residual:.2g} "
+        f"(relative; tolerance {c.tolerance:.2g} from condition {c.condition:.3g})"
+    )
 
 
 def check_network(top: Table, as_json: bool) -> bool:
@@ -197,6 +210,9 @@ def check_network(top: Table, as_json: bool) -> bool:
     warnings = network_warnings(solution)
     if as_json:
         report = network_report(design, solution)
+        report["residual"] = {
+            k: build.results["totals"][k] for k in RESIDUAL_UNITS if k in build.results["totals"]
+        }
         report["checks"] = build.results["checks"]
         report["status"] = build.status
         report["warnings"] = warnings

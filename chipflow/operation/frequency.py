@@ -19,6 +19,7 @@ References
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass
 
@@ -27,6 +28,7 @@ import scipy.sparse as sp
 from scipy.sparse.linalg import spsolve
 
 from chipflow.network.model import Network, NodeKey
+from chipflow.network.residual import check_network_solution
 from chipflow.operation.compliance import inertance
 from chipflow.physics.duct import resistance
 from chipflow.physics.fluid import Fluid
@@ -80,6 +82,13 @@ def harmonic_response(
         Flow ports with a harmonic flow (node to complex amplitude [m^3/s]).
     inertia : bool
         Include the inertance of the liquid in each channel.
+
+    Raises
+    ------
+    NetworkError
+        When the solution fails its self-check (:mod:`chipflow.network.residual`: mass
+        conservation with the compliances' flows, the channel law with the complex
+        impedances, conditioning).
     """
     flows = flows or {}
     n = network.n_nodes
@@ -131,5 +140,18 @@ def harmonic_response(
         ib[only_b], coupling_b.imag, free.size
     )
     if free.size:
-        pressure[free] = spsolve(matrix, rhs)
-    return HarmonicResponse(omega, pressure, y * (pressure[a] - pressure[b]))
+        with warnings.catch_warnings():  # a singular matrix: non-finite values, judged below
+            warnings.simplefilter("ignore")
+            pressure[free] = spsolve(matrix, rhs)
+    with np.errstate(all="ignore"):
+        flow = y * (pressure[a] - pressure[b])
+    check_network_solution(
+        network,
+        pressure,
+        flow,
+        z,
+        injected=injected,
+        fixed=fixed,
+        leak=1j * omega * np.asarray(node_compliance, dtype=float),
+    )
+    return HarmonicResponse(omega, pressure, flow)

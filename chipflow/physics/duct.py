@@ -225,8 +225,9 @@ def resistance(
     require_positive(width=width, depth=depth, length=length, viscosity=viscosity)
     a, b = _sides(width, depth)
     length, viscosity, rnd = np.broadcast_arrays(length, viscosity, round)
-    rect = _factors(b / a, method).k_r * viscosity * length / (a * b**3)
-    tube = 128.0 * viscosity * length / (np.pi * a**4)
+    with np.errstate(over="ignore", under="ignore"):  # sizes beyond floats: 0 or inf, judged
+        rect = _factors(b / a, method).k_r * viscosity * length / (a * b**3)  # by the solve
+        tube = 128.0 * viscosity * length / (np.pi * a**4)
     return _out(np.where(rnd, tube, rect))
 
 
