@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from chipflow.cli.common import format_table
+from chipflow.cli.common import WHOLE, format_table
 from chipflow.cli.progress import progress_bar
 
 __all__ = ["command"]
@@ -30,7 +30,7 @@ __all__ = ["command"]
     help="Output folder (default: <design name>-sweep).",
 )
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
-@click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
 def command(
     design: str, specs: tuple[str, ...], outdir: str | None, scheduler: str | None, workers
 ) -> int:

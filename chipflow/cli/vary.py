@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from chipflow.cli.common import WHOLE
 from chipflow.cli.progress import progress_bar
 from chipflow.errors import SpecError
 from chipflow.spec.tolerances import DISTRIBUTIONS, MAX_SAMPLES, parse_tolerance
@@ -31,8 +32,8 @@ class TOLERANCE(click.ParamType):
 
 @click.command("vary")
 @click.argument("design", type=click.Path(dir_okay=False, path_type=str))
-@click.option("--samples", type=click.IntRange(1, MAX_SAMPLES), help="Default 1000.")
-@click.option("--seed", type=click.IntRange(0), help="Random seed (default 0).")
+@click.option("--samples", type=WHOLE(), help=f"Default 1000 (at most {MAX_SAMPLES:,}).")
+@click.option("--seed", type=WHOLE(), help="Random seed, 0 to 2^32-1 (default 0).")
 @click.option(
     "--depth-tolerance", "depth", type=TOLERANCE("depth"), help="Per mould level: 10% or 5um."
 )
@@ -49,7 +50,7 @@ class TOLERANCE(click.ParamType):
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the results as JSON (SI units).")
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
-@click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
 def command(
     design: str,
     samples: int | None,
