@@ -157,8 +157,9 @@ def build_design(
     progress : callable, optional
         Called with the name of each stage as it starts.
     allow_large : bool, optional
-        Draw a tree even when it needs more memory than the machine can spare (see
-        :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
+        Draw a tree, and solve its field, even when they need more memory than this process
+        may use (see :func:`chipflow.layout.budget.check_size` and
+        :mod:`chipflow.field.budget`); by default such a tree or field is refused.
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
         when the chip is small enough to solve in seconds
@@ -287,14 +288,22 @@ def _build_tree(
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [*design.warnings, *layout.warnings, *unsolved_junctions(layout)]
     field_run = None
+    from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
+
+    triangles = estimate_triangles(layout)
     if run_field is None:
-        from chipflow.field.chip import AUTO_TRIANGLES, estimate_triangles
-
-        run_field = estimate_triangles(layout) <= AUTO_TRIANGLES
+        run_field = triangles <= AUTO_TRIANGLES
     if run_field:
+        from chipflow.field.budget import field_estimate
         from chipflow.field.run import run_field as solve_chip_field
+        from chipflow.resources import check_memory, time_text
 
-        progress("field")
+        estimate = check_memory(
+            field_estimate(triangles, "the field solve of the drawing"),
+            allow_large=allow_large,
+            advice="build without --field",
+        )
+        progress(f"field ({estimate.detail}, about {time_text(estimate.seconds)})")
         field_run = solve_chip_field(
             layout,
             solution,

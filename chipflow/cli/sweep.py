@@ -31,8 +31,18 @@ __all__ = ["command"]
 )
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
 @click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Run even when the workers need more memory than this process may use.",
+)
 def command(
-    design: str, specs: tuple[str, ...], outdir: str | None, scheduler: str | None, workers
+    design: str,
+    specs: tuple[str, ...],
+    outdir: str | None,
+    scheduler: str | None,
+    workers,
+    allow_large: bool,
 ) -> int:
     """Size, draw and check DESIGN at every point of a grid over one or two keys.
 
@@ -56,6 +66,8 @@ def command(
             scheduler=scheduler,
             workers=workers,
             progress=progress,
+            allow_large=allow_large,
+            notice=lambda text: click.echo(f"chipflow: {text}", err=True),
         )
     rows = []
     for r in sweep.rows:

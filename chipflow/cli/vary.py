@@ -51,6 +51,11 @@ class TOLERANCE(click.ParamType):
 @click.option("--json", "as_json", is_flag=True, help="Print the results as JSON (SI units).")
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
 @click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Run even when the samples need more memory than this process may use.",
+)
 def command(
     design: str,
     samples: int | None,
@@ -64,12 +69,15 @@ def command(
     as_json: bool,
     scheduler: str | None,
     workers: int | None,
+    allow_large: bool,
 ) -> int:
     """Spread DESIGN's floor shear, residence time and pressures over its tolerances.
 
     One depth error per mould level, one width bias for the whole mask, one supply and one
     viscosity error per chip; options override the design's [tolerances] section. Writes
-    report.html, results.json and one figure per level into OUTDIR.
+    report.html, results.json and one figure per level into OUTDIR. A run estimated to take
+    more than ten seconds says how long first; one that needs more memory than this process
+    may use is refused with its estimate (--allow-large runs it anyway).
 
     \b
     Example:
@@ -97,6 +105,8 @@ def command(
             scheduler=scheduler,
             workers=workers,
             progress=progress,
+            allow_large=allow_large,
+            notice=lambda text: click.echo(f"chipflow: {text}", err=True),
         )
     if as_json:
         from chipflow.export.variation import results_text
