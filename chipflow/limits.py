@@ -45,7 +45,7 @@ from dataclasses import dataclass
 
 from chipflow.errors import UnitError
 
-__all__ = ["Range", "RANGES", "range_for", "check_value", "SEED_MAX"]
+__all__ = ["Range", "RANGES", "range_for", "check_value", "rst_table", "SEED_MAX"]
 
 #: Largest random seed: numpy's generators take any whole number >= 0, but 32 bits is what
 #: every generator and every other tool takes, so a seed here can be reused anywhere.
@@ -103,7 +103,7 @@ class Range:
 
 
 _WIDTHS = ("width", "widths", "trunk_width", "min_width", "max_width", "min_feature", "min_gap",
-           "gap", "grid")  # fmt: skip
+           "gap")  # fmt: skip
 _DEPTHS = ("depth", "depths", "trunk_depth")
 _LENGTHS = ("length", "lengths", "max_straight_length")
 _SHEAR = ("shear", "shear_min", "shear_max")
@@ -122,6 +122,8 @@ RANGES: tuple[Range, ...] = (
           "fabrication tolerance", "length",
           "a mask bias or a mould depth error of a few micrometres is typical; a millimetre "
           "is beyond any process"),
+    Range("length", ("grid",), (), 1e-9, 1e-3, "mask grid", "length",
+          "GDSII resolves 1 nm; a grid coarser than a millimetre could not draw a channel"),
     Range("length", _DEPTHS, (), 1e-7, 0.1, "channel depth", "length",
           "soft lithography makes channels from about 1 um to 1 mm deep; 100 nm to 100 mm "
           "covers nanochannels and milled blocks"),
@@ -302,3 +304,30 @@ def rows(kinds: Iterable[str] | None = None) -> list[Range]:
     """The rows of the table (of ``kinds`` only, when given), for documentation."""
     wanted = None if kinds is None else set(kinds)
     return [r for r in RANGES if wanted is None or r.kind in wanted]
+
+
+def rst_table() -> str:
+    """The table as a reStructuredText list table (the user guide's limits page holds it;
+    a test keeps the two alike)."""
+    lines = [
+        ".. list-table::",
+        "   :header-rows: 1",
+        "   :widths: 18 30 20 32",
+        "",
+        "   * - quantity",
+        "     - keys and options",
+        "     - range",
+        "     - why",
+    ]
+    for r in RANGES:
+        keys = ", ".join(f"``{k}``" for k in r.keys) if r.keys else "any other"
+        if r.sections:
+            keys += " in " + ", ".join(f"``[{s}]``" for s in r.sections)
+        kind = "whole number" if r.kind == "whole" else r.kind.replace("_", " ")
+        lines += [
+            f"   * - {r.label}",
+            f"     - {keys} ({kind})",
+            f"     - {r.text()}" + (" (the value itself)" if r.exact else ""),
+            f"     - {r.reason}",
+        ]
+    return "\n".join(lines) + "\n"
