@@ -427,7 +427,12 @@ def solve(
     _check_arguments(network, fluid, pressures, flows, method)
     system = reduced_system(network, fluid, pressures, flows, method=method)
     pressure = system.pressure
-    if system.free.size:
+    levels = pressure[system.pressure_nodes]
+    if not (np.ptp(levels) > 0 or np.any(system.injected != 0)):
+        # no drive (one pressure everywhere, no imposed flow): the exact solution, not the
+        # rounding noise of a solve
+        pressure[system.free] = levels[0]
+    elif system.free.size:
         # Sparse direct LU (SuperLU, column minimum-degree ordering) on the CSC matrix; a
         # singular matrix gives non-finite pressures, judged by the check below.
         with warnings.catch_warnings():

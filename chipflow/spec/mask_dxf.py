@@ -151,6 +151,41 @@ def _expand(entities, depth: int = 0, layer: str | None = None):
         yield e
 
 
+def _expanded_count(doc, entities) -> int:
+    """How many entities ``entities`` become once block references are expanded, counted on
+    the block definitions (nothing is expanded); a block that references itself, directly or
+    through others, or nests deeper than :data:`MAX_BLOCK_DEPTH`, is refused."""
+    sizes: dict[str, int] = {}
+
+    def size_of(name: str, trail: tuple[str, ...]) -> int:
+        if name in sizes:
+            return sizes[name]
+        if name in trail:
+            raise SpecError(f"block {name!r} references itself")
+        if len(trail) >= MAX_BLOCK_DEPTH:
+            raise SpecError(f"block references nested more than {MAX_BLOCK_DEPTH} deep")
+        block = doc.blocks.get(name)
+        total = 0 if block is None else count(block, (*trail, name))
+        sizes[name] = total
+        return total
+
+    def count(items, trail: tuple[str, ...]) -> int:
+        total = 0
+        for e in items:
+            if e.dxftype() == "INSERT":
+                copies = max(1, int(e.dxf.get("row_count", 1))) * max(
+                    1, int(e.dxf.get("column_count", 1))
+                )
+                total += copies * size_of(e.dxf.name, trail)
+            else:
+                total += 1
+            if total > MAX_ENTITIES:
+                return total
+        return total
+
+    return count(entities, ())
+
+
 def _paths(e):
     """(path, closed) pairs of an outline entity (None: not an outline)."""
     from ezdxf import path as dxfpath
@@ -255,14 +290,12 @@ def read_mask_dxf(
     msp = doc.modelspace()
     outlines, circles, skipped = [], [], Counter()
     layers_seen: set[str] = set()
-    count = 0
     try:
+        if _expanded_count(doc, msp) > MAX_ENTITIES:
+            raise SpecError(
+                f"more than {MAX_ENTITIES:,} entities once block references are expanded"
+            )
         for e in _expand(msp):
-            count += 1
-            if count > MAX_ENTITIES:
-                raise SpecError(
-                    f"more than {MAX_ENTITIES:,} entities once block references are expanded"
-                )
             kind = e.dxftype()
             name = layer_name(e.dxf.layer)
             if kind in _OUTLINES or kind == "CIRCLE":
