@@ -40,6 +40,8 @@ __all__ = [
     "solve_reduced",
     "scaled",
     "velocity_at",
+    "check_field_flows",
+    "BALANCE_TOLERANCE",
 ]
 
 
@@ -192,6 +194,7 @@ def solve_on_mesh(
     u, p = x[:nu_dofs], x[nu_dofs:]
     residual = k[nu_dofs:, :] @ x  # continuity rows: flux out through each pressure node
     flows = {name: float(-residual[nodes].sum()) for name, nodes in port_nodes.items()}
+    check_field_flows(flows, port_pressures)
     ux, uy = u[:nn], u[nn:]
     # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values
     vel = np.column_stack(
@@ -219,6 +222,29 @@ def solve_on_mesh(
         dofs=u,
         stats=stats,
     )
+
+
+#: The flows through a field's ports must balance to this fraction of the largest of them.
+BALANCE_TOLERANCE = 1e-6
+
+
+def check_field_flows(flows: dict[str, float], port_pressures: dict[str, float]) -> None:
+    """Every field solve's own conservation check: the port flows [m^3/s] are finite and, where
+    the ports' pressures [Pa] differ, balance to :data:`BALANCE_TOLERANCE` of the largest
+    (a FieldError if not)."""
+    values = np.array(list(flows.values()), dtype=float)
+    if not np.all(np.isfinite(values)):
+        raise FieldError("the field solve gave no finite flow: check the ports and outlines")
+    largest = float(np.abs(values).max(initial=0.0))
+    if np.ptp(list(port_pressures.values()) or [0.0]) == 0 or largest == 0:
+        return
+    imbalance = abs(float(values.sum()))
+    if imbalance > BALANCE_TOLERANCE * largest:
+        raise FieldError(
+            f"the field solve does not conserve flow: the ports' flows leave "
+            f"{imbalance / largest:.2g} of the largest unaccounted (tolerance "
+            f"{BALANCE_TOLERANCE:g}); the mesh of this mask is not usable"
+        )
 
 
 def velocity_at(solution: FieldSolution, xy: np.ndarray) -> np.ndarray:
