@@ -261,11 +261,20 @@ def read_mask_dxf(
         units, an open outline, a coordinate that is not a finite number, a self-crossing
         outline, no outline (on the named layer).
     """
+    import warnings
+
+    # ezdxf's arithmetic on a broken entity (an infinite bulge) warns through numpy; the
+    # entity is refused in one line below, so the warnings are not shown
+    with warnings.catch_warnings(), np.errstate(all="ignore"):
+        warnings.simplefilter("ignore")
+        return _read_mask(str(path), layer, units)
+
+
+def _read_mask(path: str, layer: str | None, units: str | None) -> ForeignMask:
     import ezdxf
 
     from chipflow.spec.files import MAX_MASK_BYTES, check_regular_file
 
-    path = str(path)
     check_regular_file(path, MAX_MASK_BYTES, "DXF mask")
     try:
         doc = ezdxf.readfile(path)
