@@ -369,6 +369,22 @@ def _dxf(make: Callable, version: str = "R2000", units: int | None = 4):
     return write
 
 
+def _r12_text(outlines: list) -> Callable[[Path], None]:
+    """A DXF R12 file of closed polylines written as text (ezdxf takes minutes to add a
+    polyline of 100,000 vertices; reading it is what the case is about)."""
+
+    def write(path: Path) -> None:
+        parts = ["0\nSECTION\n2\nENTITIES\n"]
+        for points in outlines:
+            parts.append("0\nPOLYLINE\n8\nCHANNELS\n66\n1\n70\n1\n")
+            parts += [f"0\nVERTEX\n8\nCHANNELS\n10\n{x!r}\n20\n{y!r}\n" for x, y in points]
+            parts.append("0\nSEQEND\n")
+        parts.append("0\nENDSEC\n0\nEOF\n")
+        path.write_text("".join(parts), encoding="ascii")
+
+    return write
+
+
 def _box(x0: float, y0: float, x1: float, y1: float) -> list[tuple[float, float]]:
     return [(x0, y0), (x1, y0), (x1, y1), (x0, y1)]
 
@@ -446,7 +462,7 @@ def _mask_cases() -> list[Case]:
     run = ["--depth", "50um", "--inlet", "0,0", "--outlet", "20,0", "--flow", "5uL/min"]
     t = np.linspace(0, 2 * np.pi, 100_000, endpoint=False)
     xs = np.linspace(0, 20, 10_000)
-    many = [(x, -0.1) for x in xs] + [(x, 0.1) for x in xs[::-1]]
+    many = [(float(x), -0.1) for x in xs] + [(float(x), 0.1) for x in xs[::-1]]
     masks: dict[str, tuple[Callable, list[str]]] = {
         "straight": (_dxf(lambda d, m: _channel(m)), run),
         "um-read-as-mm": (
@@ -486,15 +502,24 @@ def _mask_cases() -> list[Case]:
         "nan-circle": (_dxf(lambda d, m: (_channel(m), m.add_circle((nan, 0), 1))), run),
         "zero-circle": (_dxf(lambda d, m: (_channel(m), m.add_circle((0, 0), 0))), run),
         "circle-100k": (
-            _dxf(
-                lambda d, m: (
-                    _channel(m),
-                    m.add_lwpolyline([(20 + 2 * np.cos(a), 2 * np.sin(a)) for a in t], close=True),
-                )
+            _r12_text(
+                [
+                    _box(0, -0.1, 20, 0.1),
+                    list(zip((20 + 2 * np.cos(t)).tolist(), (2 * np.sin(t)).tolist(), strict=True)),
+                ]
             ),
             run,
         ),  # fmt: skip
-        "collinear-20k": (_dxf(lambda d, m: m.add_lwpolyline(many, close=True)), run),
+        "collinear-20k": (_r12_text([many]), run),
+        "collinear-200k": (
+            _r12_text(
+                [
+                    [(float(x), -0.1) for x in np.linspace(0, 20, 100_000)]
+                    + [(float(x), 0.1) for x in np.linspace(20, 0, 100_000)]
+                ]
+            ),
+            run,
+        ),  # fmt: skip
         "serpentine-200": (
             _dxf(lambda d, m: m.add_lwpolyline(serpentine(200), close=True)),
             [*run[:4], "0,-99.5", *run[6:]],
@@ -878,73 +903,80 @@ def _conserved_solution(value: Any) -> str:
     return "" if worst <= CONSERVED * largest else f"net flow {worst:.3g} at a node"
 
 
-def run_case(case: Case) -> Verdict:
-    """Run one case in this process and judge it (a hang is judged by the caller)."""
+def run_case(case: Case, folder: str | None = None) -> Verdict:
+    """Run one case in this process and judge it (a hang is judged by the caller); its files
+    go into ``folder`` (default: a temporary folder of its own)."""
+    if folder is not None:
+        return _run_in(case, Path(folder))
+    with tempfile.TemporaryDirectory(prefix="hostile-") as made:
+        return _run_in(case, Path(made))
+
+
+def _run_in(case: Case, tmp: Path) -> Verdict:
     from click.testing import CliRunner
 
     from chipflow.cli import main
     from chipflow.errors import ChipflowError
 
     started = time.perf_counter()
-    with tempfile.TemporaryDirectory(prefix="hostile-") as folder:
-        tmp = Path(folder)
-        old = Path.cwd()
-        os.chdir(tmp)
-        try:
-            _make_files(case, tmp)
-            if case.api is not None:
-                try:
-                    value = case.api(tmp)
-                except ChipflowError as exc:
-                    text = str(exc)
-                    if "\n" in text:
-                        return Verdict(case.name, "traceback", f"message of many lines: {text}")
-                    return Verdict(case.name, "refused", text[:200])
-                except Exception as exc:  # noqa: BLE001 - what the runner counts
-                    return Verdict(case.name, "traceback", f"{type(exc).__name__}: {exc}"[:300])
-                why = _conserved_solution(value)
-                return Verdict(case.name, "unconserved" if why else "answered", why)
-            argv = [a.replace("{tmp}", str(tmp)) for a in case.argv]
-            result = CliRunner().invoke(main, argv)
-            seconds = time.perf_counter() - started
-            output = result.output
-            if result.exception is not None and not isinstance(result.exception, SystemExit):
-                detail = f"{type(result.exception).__name__}: {result.exception}"[:300]
-                return Verdict(case.name, "traceback", detail, seconds)
-            if "Traceback" in output or result.exit_code not in (0, 1, 2):
-                return Verdict(case.name, "traceback", output[-300:], seconds)
-            if result.exit_code == 2:
-                lines = result.stderr.splitlines()
-                if len(lines) != 1:
-                    return Verdict(case.name, "traceback", f"{len(lines)} lines: {lines[:3]}")
-                return Verdict(case.name, "refused", lines[0][:200], seconds)
-            why = ""
-            if "--json" in argv and argv[0] == "check":
-                why = _conserved_from_check(result.stdout)
-            elif argv[0] == "build" and "-o" in argv:
-                why = _conserved_from_csv(Path(argv[argv.index("-o") + 1]))
-            verdict = "unconserved" if why else "answered"
-            return Verdict(case.name, verdict, why or output.splitlines()[0][:100] if output
-                           else why, seconds)  # fmt: skip
-        finally:
-            os.chdir(old)
+    old = Path.cwd()
+    os.chdir(tmp)
+    try:
+        _make_files(case, tmp)
+        if case.api is not None:
+            try:
+                value = case.api(tmp)
+            except ChipflowError as exc:
+                text = str(exc)
+                if "\n" in text:
+                    return Verdict(case.name, "traceback", f"message of many lines: {text}")
+                return Verdict(case.name, "refused", text[:200])
+            except Exception as exc:  # noqa: BLE001 - what the runner counts
+                return Verdict(case.name, "traceback", f"{type(exc).__name__}: {exc}"[:300])
+            why = _conserved_solution(value)
+            return Verdict(case.name, "unconserved" if why else "answered", why)
+        argv = [a.replace("{tmp}", str(tmp)) for a in case.argv]
+        result = CliRunner().invoke(main, argv)
+        seconds = time.perf_counter() - started
+        output = result.output
+        if result.exception is not None and not isinstance(result.exception, SystemExit):
+            detail = f"{type(result.exception).__name__}: {result.exception}"[:300]
+            return Verdict(case.name, "traceback", detail, seconds)
+        if "Traceback" in output or result.exit_code not in (0, 1, 2):
+            return Verdict(case.name, "traceback", output[-300:], seconds)
+        if result.exit_code == 2:
+            lines = result.stderr.splitlines()
+            if len(lines) != 1:
+                return Verdict(case.name, "traceback", f"{len(lines)} lines: {lines[:3]}")
+            return Verdict(case.name, "refused", lines[0][:200], seconds)
+        why = ""
+        if "--json" in argv and argv[0] == "check":
+            why = _conserved_from_check(result.stdout)
+        elif argv[0] == "build" and "-o" in argv:
+            why = _conserved_from_csv(Path(argv[argv.index("-o") + 1]))
+        verdict = "unconserved" if why else "answered"
+        return Verdict(case.name, verdict, why or output.splitlines()[0][:100] if output
+                       else why, seconds)  # fmt: skip
+    finally:
+        os.chdir(old)
 
 
 def _run_isolated(index: int) -> Verdict:
     """Run case ``index`` in its own process, with the bound."""
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     started = time.perf_counter()
-    try:
-        done = subprocess.run(
-            [sys.executable, str(Path(__file__).resolve()), "--one", str(index)],
-            env=env,
-            capture_output=True,
-            text=True,
-            timeout=BOUND,
-            stdin=subprocess.DEVNULL,
-        )
-    except subprocess.TimeoutExpired:
-        return Verdict(catalogue()[index].name, "hang", f"over {BOUND:g} s", BOUND)
+    with tempfile.TemporaryDirectory(prefix="hostile-") as folder:
+        try:
+            done = subprocess.run(
+                [sys.executable, str(Path(__file__).resolve()), "--one", str(index), folder],
+                env=env,
+                capture_output=True,
+                text=True,
+                timeout=BOUND,
+                stdin=subprocess.DEVNULL,
+            )
+        except subprocess.TimeoutExpired:
+            return Verdict(catalogue()[index].name, "hang", f"over {BOUND:g} s", BOUND)
     seconds = time.perf_counter() - started
     try:
         data = json.loads(done.stdout.strip().splitlines()[-1])
@@ -968,11 +1000,12 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--list", action="store_true")
     parser.add_argument("--one", type=int)
+    parser.add_argument("folder", nargs="?", help="the folder of the one case (--one)")
     parser.add_argument("--only", default="", help="run the cases whose name holds this text")
     args = parser.parse_args(argv)
     cases = catalogue()
     if args.one is not None:
-        verdict = run_case(cases[args.one])
+        verdict = run_case(cases[args.one], args.folder)
         sys.stdout.write("\n" + json.dumps(verdict.__dict__) + "\n")
         return 0
     if args.list:

@@ -284,7 +284,9 @@ def _read_mask(path: str, layer: str | None, units: str | None) -> ForeignMask:
         raise SpecError(f"{path}: cannot read the DXF file ({type(exc).__name__})") from None
     if units is not None and units not in UNIT_SCALE:
         raise SpecError(f"unknown drawing unit {units!r} (valid: {', '.join(sorted(UNIT_SCALE))})")
-    code = doc.header.get("$INSUNITS", 0) if "$INSUNITS" in doc.header else None
+    # R12 has no $INSUNITS (a reader may fill in its own default): its units are unknown
+    r12 = doc.dxfversion <= "AC1009"
+    code = doc.header.get("$INSUNITS", 0) if "$INSUNITS" in doc.header and not r12 else None
     try:
         code = None if code is None else int(code)
     except (TypeError, ValueError):
@@ -366,7 +368,7 @@ def _read_mask(path: str, layer: str | None, units: str | None) -> ForeignMask:
         unit, given = INSUNITS[code], "from $INSUNITS"
     else:
         unit = infer_units(extent)
-        stated = "R12 files state none" if doc.dxfversion == "AC1009" else "$INSUNITS is 0"
+        stated = "R12 files state none" if r12 else "$INSUNITS is 0"
         if unit is None:
             raise SpecError(
                 f"{path}: the file states no drawing units ({stated}) and its size, "
