@@ -6,7 +6,8 @@ beside what it measured: processor time and peak resident memory.
 - field: ``chipflow analyse`` of serpentines of growing length (the mesh, the sparse LU and
   the channel table), against :func:`chipflow.field.budget.field_estimate` of
   :func:`~chipflow.field.budget.mask_triangles`;
-- Monte Carlo: ``chipflow vary`` of the demo and of a 2^8 tree at growing sample counts,
+- Monte Carlo: ``chipflow vary`` of the demo and of the 2^8 benchmark tree
+  (benchmarks/pipeline.py) at growing sample counts,
   against :func:`chipflow.variation.vary.variation_estimate`.
 
 Usage::
@@ -59,14 +60,20 @@ print(json.dumps({"turns": turns, "triangles": len(a.solution.mesh.triangles),
 
 _VARY = """
 import json, resource, sys, time, tomllib
+sys.path.insert(0, "benchmarks")
+from pipeline import design_text
 from chipflow.build import DesignSource, build_design
+from chipflow.spec.reader import parse_design_text
 from chipflow.spec.tolerances import Tolerances
 from chipflow.variation.problem import variation_problem
 from chipflow.variation.vary import vary_build, variation_estimate
 bed, samples = int(sys.argv[1]), int(sys.argv[2])
-data = tomllib.loads(open("designs/demo_endothelial_bed.toml").read())
-data["tree"]["bed_channels"] = bed
-build = build_design(DesignSource.from_dict(data, "bench.toml"), field=False)
+if bed == 32:
+    build = build_design("designs/demo_endothelial_bed.toml", field=False)
+else:  # the benchmark tree of benchmarks/pipeline.py
+    k = bed.bit_length() - 1
+    source = DesignSource(f"bench-{k}.toml", parse_design_text(design_text(k), "b.toml"), "")
+    build = build_design(source, field=False)
 tol = Tolerances(depth=0.1, width=2e-6, flow=0.02, viscosity=0.05, samples=samples)
 base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 est = variation_estimate(variation_problem(build, tol), tol, workers=1)

@@ -11,8 +11,11 @@ The constants are measured (``benchmarks/field.py``, 2026-12-02, the README's fi
 and ``benchmarks/heavy_steps.py``): the whole field step (mesh, assembly, LU, shear) peaked at
 861 MB for 109,126 triangles, 1,485 MB for 153,013 and 9,273 MB for 955,252, and took 5.9,
 13.8 and 107 s of processor time. A straight line through them has a slope of 9.9 kB per
-triangle; :data:`BYTES_PER_TRIANGLE` and :data:`SECONDS_PER_TRIANGLE` are set a little above
-every measurement, so the estimate errs on the large side.
+triangle. ``chipflow analyse`` of serpentines (benchmarks/heavy_steps.py, 2026-12-04, an idle
+machine) peaked at 149-1,308 MB for 2,952-201,219 triangles (5.8 kB per triangle) and took
+0.7-24.6 s (up to 0.12 ms per triangle, the channel table included).
+:data:`BYTES_PER_TRIANGLE` and :data:`SECONDS_PER_TRIANGLE` are set a little above every
+measurement, so the estimate errs on the large side.
 """
 
 from __future__ import annotations

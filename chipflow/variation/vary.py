@@ -53,9 +53,11 @@ __all__ = [
 BATCH_ELEMENTS = 300_000
 
 # -- the estimate made before a run (see variation_estimate) ----------------------------------
-#: Channel-samples solved per second of processor time (measured with
-#: benchmarks/heavy_steps.py and benchmarks/vary.py, 2026-12: 0.95-1.3 million; the lower end).
-CHANNEL_SAMPLES_PER_SECOND = 0.9e6
+#: Channel-samples solved per second of processor time: benchmarks/heavy_steps.py measured
+#: 2.7 million (the demo, 1,000,000 samples) and 3.2 million (766 channels, 100,000 samples)
+#: on an idle machine, 2026-12-04; benchmarks/vary.py 1.2 million on a loaded one. Half the
+#: idle rate, so the estimate errs on the long side.
+CHANNEL_SAMPLES_PER_SECOND = 1.5e6
 #: Peak memory of one batch being solved [bytes] (about 30 arrays of BATCH_ELEMENTS floats and
 #: the factor of its block-diagonal system; measured 80-110 MB).
 BATCH_BYTES = 120e6
@@ -132,16 +134,17 @@ def variation_estimate(
 ) -> Estimate:
     """Memory and time of a Monte Carlo run, before it starts.
 
-    Memory: the parameter matrix and the standard draws (two ``samples x factors`` arrays),
-    the per-sample results (nine values per level and sample, held twice while the batches
-    are joined), and per local worker its process and one batch; time: the channel-samples at
+    Memory: per sample three rows of factors (the draws, the parameters, a batch's copy) and
+    four copies of its nine values per level and four more (the batches' results, joined,
+    and the statistics made from them): 1.5 kB per sample of the demo measured, 2 kB
+    estimated; and per local worker its process and one batch. Time: the channel-samples at
     :data:`CHANNEL_SAMPLES_PER_SECOND`, shared between the workers.
 
     >>> from types import SimpleNamespace
     >>> p = SimpleNamespace(n_factors=4, n_channels=96, starts=np.zeros(11))
     >>> est = variation_estimate(p, Tolerances(samples=10_000_000), workers=2)
     >>> round(est.memory / 1e9, 1), round(est.seconds)
-    (10.9, 533)
+    (20.8, 320)
     """
     from chipflow.variation.execute import default_workers
 
@@ -149,7 +152,7 @@ def variation_estimate(
     levels = int(np.size(problem.starts))
     local = max(1, default_workers() if workers is None else int(workers))
     local = min(local, max(1, -(-n // batch_size(problem))))
-    per_sample = 8.0 * (2 * problem.n_factors + 2 * (5 * levels + 4) + 1)
+    per_sample = 8.0 * (3 * problem.n_factors + 4 * (5 * levels + 4) + 2)
     extra = local * WORKER_BYTES if local > 1 else 0.0
     memory = BASE_BYTES + n * per_sample + local * BATCH_BYTES + extra
     seconds = n * problem.n_channels / CHANNEL_SAMPLES_PER_SECOND / local
