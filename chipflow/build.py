@@ -198,8 +198,9 @@ def build_design(
     progress : callable, optional
         Called with the name of each stage as it starts.
     allow_large : bool, optional
-        Draw a tree even when it needs more memory than the machine can spare (see
-        :func:`chipflow.layout.budget.check_size`); by default such a tree is refused.
+        Draw a tree, and solve its field, even when they need more memory than this process
+        may use (see :func:`chipflow.layout.budget.check_size` and
+        :mod:`chipflow.field.budget`); by default such a tree or field is refused.
     field : bool, optional
         Solve the 2D field of the drawing and compare it with the network. By default only
         when the field is estimated to take at most 10 s and 1 GB
@@ -226,7 +227,7 @@ def build_design(
         if "tree" in top:
             return _build_tree(source, progress, allow_large, field)
         if is_network_design(top):
-            return _build_network(source, progress, field)
+            return _build_network(source, progress, field, allow_large)
     except ChipflowError as exc:
         # every message names the design file once, whichever stage raised it
         if source.path in str(exc):
@@ -353,6 +354,7 @@ def _build_tree(
         run_field,
         progress,
         results["warnings"],
+        allow_large,
     )
     results["field"] = None if field_run is None else field_run.results
     checks, transport = _field_outcome(
@@ -441,11 +443,17 @@ def _field(
     run: bool | None,
     progress: Progress,
     warnings: list[str],
+    allow_large: bool = False,
 ):
     """The field solve of a drawing: when asked for, or by default when it is estimated to fit
     the budget (:func:`chipflow.field.budget.field_by_default`); None when not solved. A mesh
     that comes out larger than estimated leaves a default field out with a line in
-    ``warnings``; an asked-for field is always solved."""
+    ``warnings``; an asked-for field is solved when its estimate fits the memory this process
+    may use (:func:`chipflow.resources.check_memory`; ``allow_large`` lifts the guard)."""
+    from chipflow.field.budget import field_estimate
+    from chipflow.field.chip import estimate_triangles
+    from chipflow.resources import check_memory, time_text
+
     limit = None
     if run is None:
         from chipflow.field.budget import field_by_default, max_triangles
@@ -457,7 +465,12 @@ def _field(
     from chipflow.errors import MeshBudgetError
     from chipflow.field.run import run_field as solve_chip_field
 
-    progress("field")
+    estimate = check_memory(
+        field_estimate(estimate_triangles(layout), "the field solve of the drawing"),
+        allow_large=allow_large,
+        advice="build without --field",
+    )
+    progress(f"field ({estimate.detail}, about {time_text(estimate.seconds)})")
     try:
         return solve_chip_field(
             layout, solution, viscosity, window, seeded, flow_driven=flow_driven,
@@ -516,7 +529,10 @@ def _targets_window(spec) -> ShearWindow | None:
 
 # -- explicit networks ---------------------------------------------------------------------------
 def _build_network(
-    source: DesignSource, progress: Progress, run_field: bool | None = None
+    source: DesignSource,
+    progress: Progress,
+    run_field: bool | None = None,
+    allow_large: bool = False,
 ) -> Build:
     from chipflow.layout import LayoutRules
     from chipflow.spec.tree import read_fabrication
@@ -632,6 +648,7 @@ def _build_network(
             run_field,
             progress,
             warnings,
+            allow_large,
         )
     )
     results["field"] = None if field_run is None else field_run.results
@@ -781,7 +798,7 @@ def _results(
             "total_resistance": (p_in - p_out) / total_flow if total_flow > 0 else None,
             "transit_time": transit if rows else None,
             "tubing_transit_time": tubing_transit,
-            "mass_residual": float(solution.residual),
+            **_residual_dict(solution),
         },
         "generations": rows,
         "checks": [c.to_dict() for c in checks],
@@ -789,6 +806,14 @@ def _results(
         "shear_window": None if window is None else window.to_dict(),
         "units": RESULT_UNITS,
     }
+
+
+def _residual_dict(solution: Solution) -> dict[str, float]:
+    """The solve's self-check (:mod:`chipflow.network.residual`): ``mass_residual``,
+    ``law_residual``, ``condition`` and ``residual_tolerance``, all plain numbers."""
+    if solution.check is None:
+        return {"mass_residual": float(solution.residual)}
+    return {k: float(v) for k, v in solution.check.to_dict().items()}
 
 
 def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[str, Any]:

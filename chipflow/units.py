@@ -356,6 +356,9 @@ RESULT_UNITS: dict[str, str] = {
     "transit_time": "s",
     "tubing_transit_time": "s",
     "mass_residual": "1",
+    "law_residual": "1",
+    "condition": "1",
+    "residual_tolerance": "1",
     # geometry
     "count": "1",
     "width": "m",
@@ -423,7 +426,6 @@ RESULT_UNITS: dict[str, str] = {
     "tolerance": "1",
     "iterations": "1",
     "residual": "1",
-    "law_residual": "1",
     "compliance": "m^3/Pa",
     "air_volume": "m^3",
     "damper": "m^3/Pa",

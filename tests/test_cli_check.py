@@ -42,8 +42,10 @@ def test_example_json_structure_and_values() -> None:
     assert result.exit_code == 1, result.output
     data = json.loads(result.output)
     assert set(data) == {
-        "design", "fluid", "nodes", "channels", "ports", "units", "checks", "status", "warnings"
+        "design", "fluid", "nodes", "channels", "ports", "units", "checks", "status", "warnings",
+        "residual",
     }  # fmt: skip
+    assert data["residual"]["mass_residual"] <= data["residual"]["residual_tolerance"]
     assert data["warnings"] == []
     assert data["status"] == "fail"
     assert data["design"] == "bench loop"

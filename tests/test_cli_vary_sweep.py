@@ -268,7 +268,7 @@ def test_vary_refuses_a_bad_section(tmp_path: Path) -> None:
 
 
 def test_vary_unreachable_scheduler_exits_2(tmp_path: Path, monkeypatch) -> None:
-    monkeypatch.setattr("chipflow.variation.execute.CONNECT_TIMEOUT", "1s")
+    monkeypatch.setattr("chipflow.variation.execute.PROBE_TIMEOUT", 1.0)
     _bad("vary", ["--samples", "10", "--scheduler", "tcp://127.0.0.1:9"], tmp_path)
 
 

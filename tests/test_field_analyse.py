@@ -154,8 +154,9 @@ def test_serpentine_gives_the_centreline_resistance(tmp_path):
         ("crossing", "crosses itself"),
         ("outside", "outside every channel outline"),
         ("island", "not connected to any port"),
-        ("layer", "no closed polyline on layer 'WRONG'"),
+        ("layer", "no closed outline on layer 'WRONG'"),
         ("units", "states no drawing units"),
+        ("separate", "not joined to the inlet's"),
     ],
 )
 def test_bad_masks_exit_2_with_one_line(tmp_path, case, message):
@@ -174,8 +175,15 @@ def test_bad_masks_exit_2_with_one_line(tmp_path, case, message):
         outlines.append(box(0, 2e-3, length, 2e-3 + W))
     elif case == "layer":
         args = ["--layer", "WRONG"]
-    elif case == "units":
+    elif case == "units":  # 500 units across: 0.5 m in mm or 0.5 mm in um, neither a chip
         kw["units"] = None
+        length = 0.5
+        outlines, outlet = [box(0, -W / 2, length, W / 2)], point((length, 0))
+    elif case == "separate":  # the outlet on a channel of its own, 1 um from the first
+        outlines = [
+            box(0, -W / 2, length / 2, W / 2),
+            box(length / 2 + 1e-6, -W / 2, length, W / 2),
+        ]
     mask = write_mask(tmp_path / "bad.dxf", outlines, **kw)
     out = tmp_path / "out"
     r = CliRunner().invoke(

@@ -56,7 +56,7 @@ def test_table_lists_shears_and_velocity():
 def test_impossible_target_is_one_line_exit_2():
     runner = CliRunner()
     result = runner.invoke(
-        main, ["size", "--flow", "2uL/min", "--depth", "50um", "--shear", "1e-9Pa"]
+        main, ["size", "--flow", "2uL/min", "--depth", "50um", "--shear", "2e-6Pa"]
     )
     assert result.exit_code == 2
     assert "no channel 50 um deep" in result.output

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 
 import click
 
@@ -51,9 +52,16 @@ class _Point(click.ParamType):
         try:
             if len(parts) != 2:
                 raise ValueError
-            return float(parts[0]), float(parts[1])
+            xy = float(parts[0]), float(parts[1])
+            if not all(math.isfinite(v) for v in xy):
+                raise ValueError
+            return xy
         except ValueError:
-            self.fail(f"expected two numbers X,Y in the drawing's units, got {value!r}", param, ctx)
+            self.fail(
+                f"expected two finite numbers X,Y in the drawing's units, got {value!r}",
+                param,
+                ctx,
+            )
 
 
 @click.command("analyse")
@@ -72,7 +80,13 @@ class _Point(click.ParamType):
 @click.option(
     "--units",
     type=click.Choice(["mm", "um", "cm", "m", "in", "mil"]),
-    help="Drawing units when the file states none ($INSUNITS).",
+    help="Drawing units (default: the file's $INSUNITS; without it, inferred from the "
+    "drawing's size where only one of mm and um fits a chip).",
+)
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Solve even a mesh that needs more memory than this process may use.",
 )
 @click.option(
     "--cell-type",
@@ -103,18 +117,22 @@ def command(
     outdir,
     as_json,
     fluid,
+    allow_large,
 ) -> None:
     """Solve the flow field of MASK, a DXF drawn in any CAD program.
 
-    Closed polylines are channels, circles port pads; the ports are holes of the punch's
-    diameter at --inlet and --outlet (coordinates in the file's units). With --cell-type the
-    oxygen the cells leave on the floor is solved on the same field.
+    Closed outlines are channels (polylines, splines, ellipses, hatches, solids; block
+    references expanded), circles port pads; the ports are holes of the punch's diameter at
+    --inlet and --outlet (coordinates in the file's units). What is not read is named in a
+    note. With --cell-type the oxygen the cells leave on the floor is solved on the
+    same field. A mesh too large for this process's memory is refused with its estimate.
 
     \b
     Example:
       chipflow analyse chip.dxf --depth 50um --inlet 0,0 --outlet 20,0 --flow 10uL/min
     """
     from chipflow.checks.cell_types import cell_type as lookup
+    from chipflow.cli.progress import progress_bar
     from chipflow.field.analyse import analyse_mask
     from chipflow.spec.mask_dxf import read_mask_dxf
 
@@ -127,18 +145,23 @@ def command(
         cells = lookup(cell_type, where="--cell-type")
         window = (cells.shear_min, cells.shear_max)
     m = read_mask_dxf(mask, layer, units)
-    analysis = analyse_mask(
-        m.geometry,
-        depth,
-        (inlet[0] * m.scale, inlet[1] * m.scale),
-        (outlet[0] * m.scale, outlet[1] * m.scale),
-        punch,
-        fluid.viscosity,
-        flow=flow,
-        pressure=pressure,
-        window=window,
-    )
+    with progress_bar("analyse", quiet=as_json, unit="step") as progress:
+        analysis = analyse_mask(
+            m.geometry,
+            depth,
+            (inlet[0] * m.scale, inlet[1] * m.scale),
+            (outlet[0] * m.scale, outlet[1] * m.scale),
+            punch,
+            fluid.viscosity,
+            flow=flow,
+            pressure=pressure,
+            window=window,
+            allow_large=allow_large,
+            progress=progress,
+            where=mask,
+        )
     results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
+    results["notes"] = list(m.notes)
     oxygen = None
     if cell_type is not None:
         from chipflow.transport.field import mask_oxygen
@@ -155,6 +178,8 @@ def command(
         click.echo(json.dumps(results, indent=2, sort_keys=True))
         return
     s = results["floor_shear"]
+    for note in m.notes:
+        click.echo(f"note: {note}")
     click.echo(f"mask {mask}: {m.units} drawing, channel floor {analysis.area * 1e6:.4g} mm^2")
     click.echo(
         f"inlet pressure {analysis.inlet_pressure:.4g} Pa, flow {analysis.flow * 6e10:.4g} uL/min, "

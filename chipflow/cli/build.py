@@ -73,7 +73,8 @@ def _run(
 @click.option(
     "--allow-large",
     is_flag=True,
-    help="Build even a tree that needs more memory than this machine can spare.",
+    help="Build a tree, and solve its field, even when they need more memory than this "
+    "process may use.",
 )
 @click.option(
     "--field/--no-field",

@@ -18,6 +18,7 @@ from chipflow.checks.conditions import network_warnings
 from chipflow.cli.common import echo_table, settings_option
 from chipflow.errors import SpecError
 from chipflow.network import Solution
+from chipflow.network.residual import RESIDUAL_UNITS
 from chipflow.report.console import console_summary
 from chipflow.spec.bundled import resolve_design
 from chipflow.spec.network import NetworkDesign, is_network_design, load_network_design
@@ -40,6 +41,7 @@ SI_UNITS = units_of(
     "viscosity",
     "density",
     "temperature",
+    *RESIDUAL_UNITS,
 )
 
 _UL_MIN = 6e10  # m^3/s -> uL/min
@@ -137,6 +139,17 @@ def _echo_text(design: NetworkDesign, solution: Solution) -> None:
     click.echo("")
 
 
+def self_check_line(solution: Solution) -> str:
+    """The solve's self-check in one line (see :mod:`chipflow.network.residual`)."""
+    c = solution.check
+    if c is None:
+        return f"largest mass-conservation residual: {solution.residual:.2g} (relative)"
+    return (
+        f"self-check: mass residual {c.mass_residual:.2g}, channel law {c.law_residual:.2g} "
+        f"(relative; tolerance {c.tolerance:.2g} from condition {c.condition:.3g})"
+    )
+
+
 def check_network(top: Table, as_json: bool) -> bool:
     """Solve and check an explicit-network design; print the tables (or the JSON structure).
 
@@ -151,6 +164,9 @@ def check_network(top: Table, as_json: bool) -> bool:
     warnings = network_warnings(solution)
     if as_json:
         report = network_report(design, solution)
+        report["residual"] = {
+            k: build.results["totals"][k] for k in RESIDUAL_UNITS if k in build.results["totals"]
+        }
         report["checks"] = build.results["checks"]
         report["status"] = build.status
         report["warnings"] = warnings
@@ -158,7 +174,7 @@ def check_network(top: Table, as_json: bool) -> bool:
     else:
         _echo_text(design, solution)
         click.echo(console_summary(build.results))
-        click.echo(f"largest mass-conservation residual: {solution.residual:.2g} (relative)")
+        click.echo(self_check_line(solution))
         for line in warnings:
             click.echo(f"warning: {line}")
     return build.status != "fail"

@@ -8,11 +8,19 @@ from collections.abc import Callable, Sequence
 import click
 
 from chipflow.errors import UnitError
+from chipflow.limits import check_value
 from chipflow.physics.fluid import fluid_preset
 from chipflow.report.console import format_table
 from chipflow.units import KINDS, to_si
 
-__all__ = ["QUANTITY", "echo_table", "format_table", "fluid_options", "settings_option"]
+__all__ = [
+    "QUANTITY",
+    "WHOLE",
+    "echo_table",
+    "format_table",
+    "fluid_options",
+    "settings_option",
+]
 
 
 class QUANTITY(click.ParamType):
@@ -20,7 +28,8 @@ class QUANTITY(click.ParamType):
 
     ``QUANTITY("length")`` accepts ``200um``, ``0.2 mm``, ... and rejects ``200`` (no unit)
     or ``5uL/min`` (wrong kind) with one clear line. Values must be greater than zero unless
-    ``positive=False``.
+    ``positive=False``, and within the plausible range of the option (:mod:`chipflow.limits`,
+    looked up by the option's name: ``--width`` is a channel width, ``--punch`` a punch).
     """
 
     def __init__(self, kind: str, positive: bool = True) -> None:
@@ -31,13 +40,37 @@ class QUANTITY(click.ParamType):
     def convert(self, value, param, ctx):
         if isinstance(value, float):
             return value
+        where = f"--{param.name}" if param else ""
         try:
-            si = to_si(value, self.kind, where=f"--{param.name}" if param else "")
+            si = to_si(value, self.kind, where=where)
+            if self.positive and not si > 0:
+                self.fail(f"must be greater than zero, got {value!r}", param, ctx)
+            check_value(si, self.kind, key=param.name if param else "", where=where, raw=value)
         except UnitError as exc:
             self.fail(str(exc), param, ctx)
-        if self.positive and not si > 0:
-            self.fail(f"must be greater than zero, got {value!r}", param, ctx)
         return si
+
+
+class WHOLE(click.ParamType):
+    """A whole-number option held to its range in :mod:`chipflow.limits` (``--seed``,
+    ``--samples``, ``--workers``), refused in one line with the range."""
+
+    name = "integer"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, int) and not isinstance(value, bool):
+            number = value
+        else:
+            try:
+                number = int(str(value).strip().replace("_", ""))
+            except ValueError:
+                self.fail(f"expected a whole number, got {value!r}", param, ctx)
+        where = f"--{param.name}" if param else ""
+        try:
+            check_value(number, "whole", key=param.name if param else "", where=where)
+        except UnitError as exc:
+            self.fail(str(exc), param, ctx)
+        return number
 
 
 def echo_table(

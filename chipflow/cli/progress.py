@@ -14,8 +14,11 @@ __all__ = ["progress_bar"]
 
 
 @contextlib.contextmanager
-def progress_bar(what: str, quiet: bool = False) -> Iterator[Callable[[int, int], None]]:
-    """Yield a ``(done, total)`` callback that drives a bar on a terminal (else does nothing)."""
+def progress_bar(
+    what: str, quiet: bool = False, unit: str = "batch"
+) -> Iterator[Callable[[int, int], None]]:
+    """Yield a ``(done, total)`` callback that drives a bar on a terminal (else does nothing);
+    ``unit`` names what is counted."""
     stream = sys.stderr
     if quiet or not getattr(stream, "isatty", lambda: False)():
         yield lambda done, total: None
@@ -30,7 +33,7 @@ def progress_bar(what: str, quiet: bool = False) -> Iterator[Callable[[int, int]
             bar = tqdm(
                 total=total,
                 desc=f"chipflow: {what}",
-                unit="batch",
+                unit=unit,
                 delay=1.0,
                 file=stream,
                 leave=False,

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from chipflow.cli.common import format_table, settings_option
+from chipflow.cli.common import WHOLE, format_table, settings_option
 from chipflow.cli.progress import progress_bar
 
 __all__ = ["command"]
@@ -30,7 +30,12 @@ __all__ = ["command"]
     help="Output folder (default: <design name>-sweep).",
 )
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
-@click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Run even when the workers need more memory than this process may use.",
+)
 @settings_option
 def command(
     design: str,
@@ -39,6 +44,7 @@ def command(
     scheduler: str | None,
     workers,
     settings: tuple[str, ...],
+    allow_large: bool,
 ) -> int:
     """Size, draw and check DESIGN at every point of a grid over one or two keys.
 
@@ -63,6 +69,8 @@ def command(
             workers=workers,
             progress=progress,
             settings=settings,
+            allow_large=allow_large,
+            notice=lambda text: click.echo(f"chipflow: {text}", err=True),
         )
     from chipflow.display import fraction
     from chipflow.variation.grid import value_text

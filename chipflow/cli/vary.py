@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from chipflow.cli.common import settings_option
+from chipflow.cli.common import WHOLE, settings_option
 from chipflow.cli.progress import progress_bar
 from chipflow.errors import SpecError
 from chipflow.spec.tolerances import DISTRIBUTIONS, MAX_SAMPLES, parse_tolerance
@@ -32,8 +32,8 @@ class TOLERANCE(click.ParamType):
 
 @click.command("vary")
 @click.argument("design", type=click.Path(dir_okay=False, path_type=str))
-@click.option("--samples", type=click.IntRange(1, MAX_SAMPLES), help="Default 1000.")
-@click.option("--seed", type=click.IntRange(0), help="Random seed (default 0).")
+@click.option("--samples", type=WHOLE(), help=f"Default 1000 (at most {MAX_SAMPLES:,}).")
+@click.option("--seed", type=WHOLE(), help="Random seed, 0 to 2^32-1 (default 0).")
 @click.option(
     "--depth-tolerance", "depth", type=TOLERANCE("depth"), help="Per mould level: 10% or 5um."
 )
@@ -50,7 +50,12 @@ class TOLERANCE(click.ParamType):
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the results as JSON (SI units).")
 @click.option("--scheduler", metavar="ADDRESS", help="Run on this Dask distributed scheduler.")
-@click.option("--workers", type=click.IntRange(1), help="Local processes (default: one per CPU).")
+@click.option("--workers", type=WHOLE(), help="Local processes (default: one per CPU).")
+@click.option(
+    "--allow-large",
+    is_flag=True,
+    help="Run even when the samples need more memory than this process may use.",
+)
 @settings_option
 def command(
     design: str,
@@ -66,12 +71,15 @@ def command(
     scheduler: str | None,
     workers: int | None,
     settings: tuple[str, ...],
+    allow_large: bool,
 ) -> int:
     """Spread DESIGN's floor shear, residence time and pressures over its tolerances.
 
     One depth error per mould level, one width bias for the whole mask, one supply and one
     viscosity error per chip; options override the design's [tolerances] section. Writes
-    report.html, results.json and one figure per level into OUTDIR.
+    report.html, results.json and one figure per level into OUTDIR. A run estimated to take
+    more than ten seconds says how long first; one that needs more memory than this process
+    may use is refused with its estimate (--allow-large runs it anyway).
 
     \b
     Example:
@@ -100,6 +108,8 @@ def command(
             workers=workers,
             progress=progress,
             settings=settings,
+            allow_large=allow_large,
+            notice=lambda text: click.echo(f"chipflow: {text}", err=True),
         )
     if as_json:
         from chipflow.export.variation import results_text

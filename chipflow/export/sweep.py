@@ -66,6 +66,8 @@ def sweep_to_folder(
     workers: int | None = None,
     progress=None,
     settings: Sequence[str] = (),
+    allow_large: bool = False,
+    notice=None,
 ) -> tuple[Sweep, list[Path]]:
     """Parse the ``--vary`` options, run the sweep of a design file and write its outputs.
 
@@ -82,7 +84,18 @@ def sweep_to_folder(
         from chipflow.errors import SpecError
 
         raise SpecError("--vary: at most two keys (a heat map has two axes)")
+    from chipflow.variation.execute import check_scheduler
+
     source = read_design_source(design, settings)
-    sweep = sweep_design(source, axes, scheduler=scheduler, workers=workers, progress=progress)
+    check_scheduler(scheduler)  # a bad address is one line now, not after the first point
+    sweep = sweep_design(
+        source,
+        axes,
+        scheduler=scheduler,
+        workers=workers,
+        progress=progress,
+        allow_large=allow_large,
+        notice=notice,
+    )
     target = Path(outdir) if outdir is not None else Path(f"{_slug(sweep.name)}-sweep")
     return sweep, write_sweep(sweep, target)

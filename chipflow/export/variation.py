@@ -61,6 +61,8 @@ def vary_to_folder(
     workers: int | None = None,
     progress: Callable[[int, int], None] | None = None,
     settings: Sequence[str] = (),
+    allow_large: bool = False,
+    notice: Callable[[str], None] | None = None,
 ) -> tuple[Variation, list[Path]]:
     """Build a design file, run its tolerances and write the outputs (``chipflow vary``).
 
@@ -73,20 +75,28 @@ def vary_to_folder(
         :meth:`chipflow.spec.tolerances.Tolerances.with_options`); None leaves a value alone.
     outdir : str or path-like, optional
         Output folder; default ``<design name>-tolerances``.
-    scheduler, workers, progress
+    scheduler, workers, progress, allow_large, notice
         See :func:`chipflow.variation.vary.vary_build`.
     settings : sequence of str, optional
         ``KEY=VALUE`` changes to the design file's values (``--set``).
     """
     from chipflow.build import build_design, read_design_source
     from chipflow.spec.tolerances import read_tolerances
+    from chipflow.variation.execute import check_scheduler
     from chipflow.variation.vary import vary_build
 
     source = read_design_source(design, settings)
     tolerances = read_tolerances(source.top).with_options(**options)
+    check_scheduler(scheduler)  # a bad address is one line now, not after the build
     build = build_design(source, field=False)  # the field plays no part in the tolerances
     variation = vary_build(
-        build, tolerances, scheduler=scheduler, workers=workers, progress=progress
+        build,
+        tolerances,
+        scheduler=scheduler,
+        workers=workers,
+        progress=progress,
+        allow_large=allow_large,
+        notice=notice,
     )
     target = Path(outdir) if outdir is not None else Path(f"{_slug(build.name)}-tolerances")
     return variation, write_variation(variation, target)

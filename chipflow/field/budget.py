@@ -13,11 +13,18 @@ of each solve in a fresh process, the demo and the 2^6 benchmark tree, 2026-12-0
 2-core machine while it was shared with other work, so the times are on the high side); update
 them here, in this one place, when the field's speed or memory changes. The direct solve's fill
 grows faster than its matrix, so its time and memory carry a power of the size beyond linear.
+
+Guards before heavy steps (:mod:`chipflow.resources`) take :func:`field_estimate`, the same
+estimate as an :class:`~chipflow.resources.Estimate`, of :func:`mask_triangles` for a drawing
+read by ``chipflow analyse`` (measured there by ``benchmarks/heavy_steps.py``: 149-1,308 MB for
+2,952-201,219 triangles of serpentines, 0.7-24.6 s with the channel table).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+import numpy as np
 
 __all__ = [
     "DEFAULT_SECONDS",
@@ -26,6 +33,9 @@ __all__ = [
     "FieldEstimate",
     "estimate_field",
     "estimate_layout_field",
+    "field_estimate",
+    "mask_triangles",
+    "MESH_FILL",
     "field_by_default",
     "max_triangles",
 ]
@@ -57,6 +67,9 @@ ITERATIVE_SECONDS = 1.8e-4
 #: Iterative solve: memory above the base per triangle [bytes] (2.0 kB, median of the demo,
 #: 2^6 and 2^8 in fresh processes; 979 MB in all at 630k triangles).
 ITERATIVE_BYTES = 2.0e3
+#: Triangles the mesh makes per equilateral triangle of its edge length tiling the area [-]
+#: (measured 0.34-0.40; set above them, so the estimate errs on the large side).
+MESH_FILL = 0.45
 
 
 @dataclass(frozen=True)
@@ -154,3 +167,59 @@ def max_triangles(seconds: float | None = None, peak_bytes: float | None = None)
         mid = (lo + hi) // 2
         lo, hi = (mid, hi) if estimate_field(mid).fits(seconds, peak_bytes) else (lo, mid)
     return lo
+
+
+def field_estimate(triangles: float, what: str = "the field solve"):
+    """:func:`estimate_field` as a guard's :class:`~chipflow.resources.Estimate`.
+
+    >>> field_estimate(1_000_000).text()
+    'the field solve (1,000,000 triangles): about 2.2 GB and 3 min'
+    """
+    from chipflow.resources import Estimate
+
+    t = float(triangles)
+    estimate = estimate_field(int(min(t, 1e15)))
+    shown = f"{t:,.0f}" if t < 1e12 else f"{t:.3g}"
+    return Estimate(what, estimate.peak_bytes, estimate.seconds, f"{shown} triangles")
+
+
+def mask_triangles(geometry, depth: float, across: float = 4.0) -> float:
+    """Triangles the field mesh of a drawn channel area will have, about (from above).
+
+    Each outline's typical width is ``2 area / perimeter`` (a long channel's width; half a
+    square chamber's side, so wide pieces count more triangles than they get); the mesh's
+    edges there are ``min(width, 2 depth) / across`` long. The mesh makes about
+    :data:`MESH_FILL` of the equilateral triangles of that edge that would tile the area
+    (measured 0.34-0.40 on serpentines, benchmarks/heavy_steps.py), plus two per edge
+    length along every outline.
+
+    Parameters
+    ----------
+    geometry : shapely geometry
+        Channel area [m].
+    depth : float
+        Channel depth [m].
+    across : float
+        Triangles across a channel.
+
+    >>> import shapely
+    >>> n = mask_triangles(shapely.box(0, 0, 20e-3, 200e-6), 50e-6)
+    >>> 5_000 < n < 20_000   # the mesh has about 6,000
+    True
+    """
+    import shapely
+
+    parts = np.asarray(shapely.get_parts(geometry), dtype=object)
+    if not len(parts):
+        return 0.0
+    area = shapely.area(parts)
+    perimeter = shapely.length(parts)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        width = np.where(perimeter > 0, 2.0 * area / perimeter, 0.0)
+    edge = np.minimum(width, 2.0 * depth) / across
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        count = np.where(edge > 0, area / (np.sqrt(3.0) / 4.0 * edge**2), 0.0)
+    # boundary triangles: at least two per edge length along every outline
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        rim = np.where(edge > 0, 2.0 * perimeter / edge, 0.0)
+    return float(MESH_FILL * np.sum(count) + np.sum(rim))

@@ -264,10 +264,34 @@ def build_mesh(
     _, j = tree.query(centroids, k=1)
     tri_width = width[j]
 
+    _check_separate(points, tris, domain)
     port_edges, wall_edges = _boundary_edges(points, tris, ports, grid * 1e3)
     mesh = FieldMesh(points, tris, depth, tri_width, port_edges, wall_edges)
     _check_ports(mesh, domain, ports, grid * 1e3)
     return mesh
+
+
+def _check_separate(points: np.ndarray, tris: np.ndarray, domain: shapely.Geometry) -> None:
+    """Refuse a mesh that joins outlines the domain keeps apart (outlines closer than the
+    mesh resolves would otherwise pass as one channel)."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    nt, npts = len(tris), len(points)
+    rows = np.repeat(np.arange(nt), 3)
+    graph = coo_matrix((np.ones(rows.size), (rows, nt + tris.ravel())), shape=(nt + npts,) * 2)
+    _, label = connected_components(graph, directed=False)
+    pieces = np.unique(label[:nt]).size
+    parts = _polygons(domain)
+    if pieces < len(parts):
+        gaps = shapely.distance(
+            np.array(parts[:-1], dtype=object), shapely.union_all(parts[1:])
+        ).min()
+        raise FieldError(
+            f"the mesh joins {len(parts)} separate channel outlines into {pieces}: they lie "
+            f"{gaps * 1e6:.3g} um apart, closer than the mesh resolves; join them in the "
+            "drawing or move them apart"
+        )
 
 
 def _split(a: np.ndarray, b: np.ndarray, n: np.ndarray, grid: float, merge: float = 0.0):

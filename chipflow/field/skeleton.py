@@ -165,6 +165,33 @@ def _interpolate_pressure(solution: FieldSolution, xy: np.ndarray) -> np.ndarray
     return np.ma.filled(LinearTriInterpolator(tri, solution.pressure)(xy[:, 0], xy[:, 1]), np.nan)
 
 
+def _locate(lines: np.ndarray, xy: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The nearest branch of every point ``xy`` (n, 2) and the distance along it [m].
+
+    Found on the branches' straight segments (a spatial index of segments, then one
+    projection each), so the cost grows with the points and segments, not with their product
+    as projecting onto whole long branches would (a serpentine is one long branch).
+    """
+    coords, which = shapely.get_coordinates(lines, return_index=True)
+    same = which[1:] == which[:-1]
+    a, b, seg_owner = coords[:-1][same], coords[1:][same], which[:-1][same]
+    seg_len = np.hypot(*(b - a).T)
+    start = np.r_[True, seg_owner[1:] != seg_owner[:-1]]
+    cumulative = np.cumsum(seg_len) - seg_len
+    first = np.maximum.accumulate(np.where(start, np.arange(seg_len.size), 0))
+    offset = cumulative - cumulative[first]  # length of the branch before each segment
+    segments = shapely.linestrings(np.stack([a, b], axis=1))
+    points = shapely.points(xy)
+    near = shapely.STRtree(segments).query_nearest(points, all_matches=False)
+    nearest = np.zeros(len(xy), dtype=np.int64)
+    nearest[near[0]] = near[1]
+    d = b[nearest] - a[nearest]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.einsum("ij,ij->i", xy - a[nearest], d) / np.einsum("ij,ij->i", d, d)
+    t = np.clip(np.nan_to_num(t), 0.0, 1.0)
+    return seg_owner[nearest], offset[nearest] + t * seg_len[nearest]
+
+
 def channel_table(
     geometry: shapely.Geometry,
     solution: FieldSolution,
@@ -208,12 +235,7 @@ def channel_table(
 
     length = shapely.length(lines)
     # floor triangles to their nearest branch, and their position along it
-    centroids = shapely.points(mesh.centroids)
-    tree = shapely.STRtree(lines)
-    pairs = tree.query_nearest(centroids, all_matches=False)
-    owner = np.full(len(centroids), -1)
-    owner[pairs[0]] = pairs[1]
-    along = shapely.line_locate_point(lines[owner], centroids)
+    owner, along = _locate(lines, mesh.centroids)
     boundary = shapely.boundary(area)
     middle = shapely.line_interpolate_point(lines, 0.5, normalized=True)
     half = shapely.distance(middle, boundary)

@@ -43,6 +43,8 @@ __all__ = [
     "solve_reduced",
     "scaled",
     "velocity_at",
+    "check_field_flows",
+    "BALANCE_TOLERANCE",
 ]
 
 
@@ -314,6 +316,7 @@ def solve_on_mesh(
     u[nn + system.velocity_free] = x[nv : 2 * nv]
     p = system.pressure.copy()
     p[system.pressure_free] = x[2 * nv :]
+    check_field_flows(flows, port_pressures)
     ux, uy = u[:nn], u[nn:]
     # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values
     vel = np.column_stack(
@@ -341,6 +344,29 @@ def solve_on_mesh(
         dofs=u,
         stats=stats,
     )
+
+
+#: The flows through a field's ports must balance to this fraction of the largest of them.
+BALANCE_TOLERANCE = 1e-6
+
+
+def check_field_flows(flows: dict[str, float], port_pressures: dict[str, float]) -> None:
+    """Every field solve's own conservation check: the port flows [m^3/s] are finite and, where
+    the ports' pressures [Pa] differ, balance to :data:`BALANCE_TOLERANCE` of the largest
+    (a FieldError if not)."""
+    values = np.array(list(flows.values()), dtype=float)
+    if not np.all(np.isfinite(values)):
+        raise FieldError("the field solve gave no finite flow: check the ports and outlines")
+    largest = float(np.abs(values).max(initial=0.0))
+    if np.ptp(list(port_pressures.values()) or [0.0]) == 0 or largest == 0:
+        return
+    imbalance = abs(float(values.sum()))
+    if imbalance > BALANCE_TOLERANCE * largest:
+        raise FieldError(
+            f"the field solve does not conserve flow: the ports' flows leave "
+            f"{imbalance / largest:.2g} of the largest unaccounted (tolerance "
+            f"{BALANCE_TOLERANCE:g}); the mesh of this mask is not usable"
+        )
 
 
 def velocity_at(solution: FieldSolution, xy: np.ndarray) -> np.ndarray:

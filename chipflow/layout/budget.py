@@ -4,7 +4,8 @@ A tree of 2^18 bed channels needs more than 12 GB while it is drawn and written;
 machine it would swap or be killed part-way. :func:`check_size` estimates the channels, the
 mask vertices and the peak memory of the whole build from the sized design, and refuses, in
 one line that says how big, what limit and how to go on, a build that needs more than
-:data:`MEMORY_SHARE` of the machine's memory (read at run time).
+:data:`MEMORY_SHARE` of the memory this process may use (read at run time: the machine's, or
+less under a ``ulimit`` or a control group's limit, see :func:`chipflow.resources.memory_limit`).
 
 The per-channel constants are measured by ``benchmarks/memory_per_channel.py`` (the benchmark
 trees of ``benchmarks/pipeline.py``, a whole build: sizing, drawing, solving, checks, DXF,
@@ -13,12 +14,13 @@ GDSII, previews, report); update them here, in this one place, when the build's 
 
 from __future__ import annotations
 
-import os
 from dataclasses import dataclass
 
 import numpy as np
 
 from chipflow.errors import TooLargeError
+from chipflow.resources import MEMORY_SHARE as RESOURCE_SHARE
+from chipflow.resources import limit_text, memory_limit
 
 __all__ = [
     "BYTES_PER_CHANNEL",
@@ -42,8 +44,8 @@ BYTES_PER_CHANNEL = 15_200
 BASE_BYTES = 177e6
 #: Mask vertices per drawn channel [-] (same measurement).
 VERTICES_PER_CHANNEL = 30
-#: Share of the machine's total memory a build may need before it is refused [-].
-MEMORY_SHARE = 0.75
+#: Share of the memory this process may use that a build may need before it is refused [-].
+MEMORY_SHARE = RESOURCE_SHARE
 
 
 @dataclass(frozen=True)
@@ -78,19 +80,10 @@ def estimate_size(channels: int) -> SizeEstimate:
 
 
 def total_memory() -> int | None:
-    """The machine's total memory [bytes] (``/proc/meminfo``, else ``sysconf``; None if
-    unknown)."""
-    try:
-        with open("/proc/meminfo", encoding="ascii") as f:
-            for line in f:
-                if line.startswith("MemTotal:"):
-                    return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        pass
-    try:
-        return int(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
-    except (AttributeError, ValueError, OSError):
-        return None
+    """The memory this process may use [bytes]: the machine's total, or less where a
+    ``ulimit`` or a control group sets a lower limit (None if unknown; see
+    :func:`chipflow.resources.memory_limit`)."""
+    return memory_limit()[0]
 
 
 def check_size(
@@ -105,7 +98,7 @@ def check_size(
     allow_large : bool
         Go on regardless (the command line's ``--allow-large``).
     memory : int, optional
-        Total memory [bytes] (default: this machine's, :func:`total_memory`).
+        The memory this process may use [bytes] (default: :func:`total_memory`).
     where : str
         The design file, for the message.
 
@@ -122,7 +115,10 @@ def check_size(
     chipflow.errors.TooLargeError: 2,097,152 channels (about 62,914,560 mask vertices) need ...
     """
     size = estimate_size(channels)
-    memory = total_memory() if memory is None else memory
+    source = "machine"
+    if memory is None:
+        memory = total_memory()
+        source = memory_limit()[1] if memory is not None else ""
     if allow_large or memory is None:
         return size
     limit = MEMORY_SHARE * memory
@@ -131,7 +127,7 @@ def check_size(
         raise TooLargeError(
             f"{place}{size.channels:,} channels (about {size.vertices:,} mask vertices) need "
             f"about {_bytes(size.memory, 1e9, 'GB', 1e6, 'MB')} to draw and write, more than "
-            f"{MEMORY_SHARE:.0%} of this machine's {_bytes(memory, 2**30, 'GiB', 2**20, 'MiB')}"
+            f"{MEMORY_SHARE:.0%} of {limit_text(memory, source)}"
             "; use fewer generations or bed channels, or pass --allow-large to build anyway"
         )
     return size

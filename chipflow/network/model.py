@@ -324,6 +324,34 @@ def _check_unique(names: Sequence[str], what: str) -> None:
     )
 
 
+def _sizes(name: object, **values: object) -> tuple[float, ...]:
+    """The sizes [m] of one channel as floats, or a NetworkError naming the channel."""
+    out = []
+    for what, value in values.items():
+        if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+            hint = " (convert text with chipflow.units.to_si)" if isinstance(value, str) else ""
+            raise NetworkError(
+                f"channel {name!r}: {what} must be a number of metres, got {value!r:.60}{hint}"
+            )
+        number = float(value)
+        if not (np.isfinite(number) and number > 0):
+            raise NetworkError(
+                f"channel {name!r}: {what} must be a positive length, got {number:g} m"
+            )
+        out.append(number)
+    return tuple(out)
+
+
+def _labels(name: object, **values: object) -> None:
+    if not isinstance(name, str) or not name:
+        raise NetworkError(f"a channel name must be non-empty text, got {name!r:.60}")
+    for what, value in values.items():
+        if not isinstance(value, str) or not value:
+            raise NetworkError(
+                f"channel {name!r}: {what} must be non-empty text, got {value!r:.60}"
+            )
+
+
 class NetworkBuilder:
     """Build a small network by name, one channel or tube at a time.
 
@@ -372,9 +400,23 @@ class NetworkBuilder:
             Tree generation, -1 for none.
         role : str
             "distribution", "bed", "collection", "channel", ...
+
+        Raises
+        ------
+        NetworkError
+            A size that is not a finite positive number of metres (text such as ``"200 um"``
+            included: convert it with :func:`chipflow.units.to_si`), a generation that is not
+            a whole number of at least -1, or a name, node or role that is not text.
         """
+        sizes = _sizes(name, width=width, depth=depth, length=length)
+        _labels(name, a=a, b=b, role=role)
+        if isinstance(generation, bool) or not isinstance(generation, int | np.integer):
+            raise NetworkError(f"channel {name!r}: generation must be a whole number, got "
+                               f"{generation!r:.60}")  # fmt: skip
+        if generation < -1:
+            raise NetworkError(f"channel {name!r}: generation must be -1 (none) or more")
         self._rows.append(
-            (str(name), self.node(a), self.node(b), width, depth, length, False, generation, role)
+            (str(name), self.node(a), self.node(b), *sizes, False, int(generation), role)
         )
 
     def tube(
@@ -387,10 +429,11 @@ class NetworkBuilder:
         length: float,
         role: str = TUBE_ROLE,
     ) -> None:
-        """Add a round tube of inner ``diameter`` [m] and ``length`` [m] from ``a`` to ``b``."""
-        self._rows.append(
-            (str(name), self.node(a), self.node(b), diameter, diameter, length, True, -1, role)
-        )
+        """Add a round tube of inner ``diameter`` [m] and ``length`` [m] from ``a`` to ``b``
+        (the same checks as :meth:`channel`)."""
+        d, _, ln = _sizes(name, diameter=diameter, depth=diameter, length=length)
+        _labels(name, a=a, b=b, role=role)
+        self._rows.append((str(name), self.node(a), self.node(b), d, d, ln, True, -1, role))
 
     def build(self) -> Network:
         """The validated :class:`Network`."""

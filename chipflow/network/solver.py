@@ -32,6 +32,7 @@ Two equal channels in parallel, fed at 10 uL/min, the outlet open (0 Pa):
 from __future__ import annotations
 
 import functools
+import warnings
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass
 from numbers import Real
@@ -43,6 +44,7 @@ from scipy.sparse.linalg import spsolve
 
 from chipflow.errors import ArgumentError, NetworkError
 from chipflow.network.model import Network, NodeKey, listing
+from chipflow.network.residual import Residual, check_network_solution
 from chipflow.physics.duct import METHODS, DuctFlow, flow_state, resistance
 from chipflow.physics.fluid import Fluid
 
@@ -101,11 +103,13 @@ class Solution:
     port_pressure : dict
         Node name to imposed pressure [Pa], for the pressure ports.
     residual : float
-        Largest mass-conservation residual at any free node, relative to the size of the
-        terms balanced there (``sum g (|p_a| + |p_b|)`` over its channels plus the imposed
-        flow): about 1e-16 for a well-posed network.
+        Largest net flow into a free node over the largest flow in the network
+        (``check.mass_residual``): about 1e-16 for a well-posed network.
     method : str
         Resistance method used ("series" or "approx").
+    check : Residual
+        The solution's self-check (:mod:`chipflow.network.residual`): mass and channel-law
+        residuals, the condition estimate and the tolerance they passed.
     """
 
     network: Network
@@ -116,6 +120,7 @@ class Solution:
     port_pressure: dict
     residual: float
     method: str = "series"
+    check: Residual | None = None
 
     @functools.cached_property
     def state(self) -> DuctFlow:
@@ -414,28 +419,35 @@ def solve(
     ------
     NetworkError
         Unknown nodes, a node with two boundary values, no pressure port (only flow ports),
-        flow ports that cannot balance, or a part of the network without a path to a
-        pressure port (its nodes are listed).
+        flow ports that cannot balance, a part of the network without a path to a
+        pressure port (its nodes are listed), or a solution that fails its self-check
+        (:func:`chipflow.network.residual.check_solution`: not conserved, or a system too
+        ill-conditioned for floating point, naming the channel).
     """
     _check_arguments(network, fluid, pressures, flows, method)
     system = reduced_system(network, fluid, pressures, flows, method=method)
     pressure = system.pressure
-    if system.free.size:
-        # Sparse direct LU (SuperLU, column minimum-degree ordering) on the CSC matrix.
-        pressure[system.free] = spsolve(system.matrix, system.rhs)
+    levels = pressure[system.pressure_nodes]
+    if not (np.ptp(levels) > 0 or np.any(system.injected != 0)):
+        # no drive (one pressure everywhere, no imposed flow): the exact solution, not the
+        # rounding noise of a solve
+        pressure[system.free] = levels[0]
+    elif system.free.size:
+        # Sparse direct LU (SuperLU, column minimum-degree ordering) on the CSC matrix; a
+        # singular matrix gives non-finite pressures, judged by the check below.
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            pressure[system.free] = spsolve(system.matrix, system.rhs)
     a, b = network.node_a, network.node_b
-    q = system.conductance * (pressure[a] - pressure[b])
+    with np.errstate(all="ignore"):
+        q = system.conductance * (pressure[a] - pressure[b])
+    fixed = np.zeros(network.n_nodes, dtype=bool)
+    fixed[system.pressure_nodes] = True
+    check = check_network_solution(
+        network, pressure, q, 1.0 / system.conductance, injected=system.injected, fixed=fixed
+    )
     n = network.n_nodes
     out = np.bincount(a, q, n) - np.bincount(b, q, n)  # net flow leaving each node by channel
-    # Residual of each free node's balance relative to the size of the terms summed there,
-    # sum of g (|p_a| + |p_b|) over its channels plus |injected flow|.
-    term = system.conductance * (np.abs(pressure[a]) + np.abs(pressure[b]))
-    size = np.bincount(a, term, n) + np.bincount(b, term, n) + np.abs(system.injected)
-    free = system.free
-    imbalance = np.abs(out[free] - system.injected[free])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        relative = np.where(size[free] > 0, imbalance / size[free], 0.0)
-    residual = float(relative.max(initial=0.0))
     p_nodes, q_nodes = system.pressure_nodes, system.flow_nodes
     port_nodes = np.concatenate((p_nodes, q_nodes))
     port_flows = np.concatenate((out[p_nodes], system.injected[q_nodes]))
@@ -446,6 +458,7 @@ def solve(
         flow=q,
         port_flow=PortFlows(network, port_nodes, port_flows),
         port_pressure={network.node_names[int(i)]: float(pressure[i]) for i in p_nodes},
-        residual=residual,
+        residual=check.mass_residual,
         method=method,
+        check=check,
     )

@@ -60,6 +60,7 @@ __all__ = [
     "flow_state",
     "METHODS",
     "require_positive",
+    "require_finite",
 ]
 
 #: Resistance methods: the exact series, or the one-term approximation 1 - 0.630 alpha [1]_.
@@ -151,6 +152,32 @@ def require_positive(**values: ArrayLike) -> None:
             raise ArgumentError(f"{name} must be finite and greater than zero, got {worst:g}")
 
 
+def require_finite(**values: ArrayLike) -> None:
+    """Refuse values (flows, pressure drops, velocities: any sign) that are not finite
+    numbers.
+
+    Raises
+    ------
+    ArgumentError
+        Naming the first offending argument.
+
+    >>> require_finite(flow=[1e-9, float("nan")])
+    Traceback (most recent call last):
+    ...
+    chipflow.errors.ArgumentError: flow must be a finite number or an array of them, got nan
+    """
+    for name, value in values.items():
+        try:
+            array = np.asarray(value, dtype=float)
+        except (TypeError, ValueError):
+            raise ArgumentError(f"{name} must be a number or an array of numbers") from None
+        bad = ~np.isfinite(array)
+        if bad.any():
+            raise ArgumentError(
+                f"{name} must be a finite number or an array of them, got {array[bad].flat[0]:g}"
+            )
+
+
 def _sides(width: ArrayLike, depth: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     w, h = np.broadcast_arrays(np.asarray(width, float), np.asarray(depth, float))
     return np.maximum(w, h), np.minimum(w, h)
@@ -166,18 +193,21 @@ def aspect_ratio(width: ArrayLike, depth: ArrayLike) -> np.ndarray | float:
     >>> aspect_ratio(200e-6, 50e-6)
     0.25
     """
+    require_positive(width=width, depth=depth)
     a, b = _sides(width, depth)
     return _out(b / a)
 
 
 def cross_section_area(width: ArrayLike, depth: ArrayLike, round: ArrayLike = False):
     """Cross-section area [m^2]; ``round`` channels have diameter ``width`` [m]."""
+    require_positive(width=width, depth=depth)
     w, h, rnd = np.broadcast_arrays(np.asarray(width, float), np.asarray(depth, float), round)
     return _out(np.where(rnd, np.pi / 4.0 * w * w, w * h))
 
 
 def wetted_perimeter(width: ArrayLike, depth: ArrayLike, round: ArrayLike = False):
     """Wetted perimeter [m]."""
+    require_positive(width=width, depth=depth)
     w, h, rnd = np.broadcast_arrays(np.asarray(width, float), np.asarray(depth, float), round)
     return _out(np.where(rnd, np.pi * w, 2.0 * (w + h)))
 
@@ -188,6 +218,7 @@ def hydraulic_diameter(width: ArrayLike, depth: ArrayLike, round: ArrayLike = Fa
     >>> round(hydraulic_diameter(200e-6, 50e-6) * 1e6, 3)
     80.0
     """
+    require_positive(width=width, depth=depth)
     w, h, rnd = np.broadcast_arrays(np.asarray(width, float), np.asarray(depth, float), round)
     return _out(np.where(rnd, w, 2.0 * w * h / (w + h)))
 
@@ -225,8 +256,9 @@ def resistance(
     require_positive(width=width, depth=depth, length=length, viscosity=viscosity)
     a, b = _sides(width, depth)
     length, viscosity, rnd = np.broadcast_arrays(length, viscosity, round)
-    rect = _factors(b / a, method).k_r * viscosity * length / (a * b**3)
-    tube = 128.0 * viscosity * length / (np.pi * a**4)
+    with np.errstate(over="ignore", under="ignore"):  # sizes beyond floats: 0 or inf, judged
+        rect = _factors(b / a, method).k_r * viscosity * length / (a * b**3)  # by the solve
+        tube = 128.0 * viscosity * length / (np.pi * a**4)
     return _out(np.where(rnd, tube, rect))
 
 
@@ -243,11 +275,14 @@ def poiseuille_number(width: ArrayLike, depth: ArrayLike, round: ArrayLike = Fal
 
 def mean_velocity(width: ArrayLike, depth: ArrayLike, flow: ArrayLike, round: ArrayLike = False):
     """Mean velocity ``Q / A`` [m/s] for a flow rate ``flow`` [m^3/s]."""
+    require_finite(flow=flow)
     return _out(np.asarray(flow, float) / cross_section_area(width, depth, round))
 
 
 def max_velocity(width: ArrayLike, depth: ArrayLike, flow: ArrayLike, round: ArrayLike = False):
     """Peak (centreline) velocity [m/s]; ``2 u_mean`` in a round tube."""
+    require_positive(width=width, depth=depth)
+    require_finite(flow=flow)
     a, b = _sides(width, depth)
     flow, rnd = np.broadcast_arrays(np.asarray(flow, float), round)
     rect = _factors(b / a).c_umax * flow / (a * b)
@@ -262,12 +297,16 @@ def wall_shear_mean(
     round: ArrayLike = False,
 ):
     """Perimeter-averaged wall shear stress from the force balance ``dp A / (L P)`` [Pa]."""
+    require_positive(length=length)
+    require_finite(pressure_drop=pressure_drop)
     area = cross_section_area(width, depth, round)
     perimeter = wetted_perimeter(width, depth, round)
     return _out(np.asarray(pressure_drop, float) * area / (np.asarray(length, float) * perimeter))
 
 
 def _wall_shear(width, depth, flow, viscosity, round, floor: bool):
+    require_positive(width=width, depth=depth, viscosity=viscosity)
+    require_finite(flow=flow)
     w, h, flow, viscosity, rnd = np.broadcast_arrays(
         np.asarray(width, float),
         np.asarray(depth, float),
@@ -341,6 +380,8 @@ def wall_shear_floor(
 
 def reynolds_number(velocity: ArrayLike, hydraulic_diam: ArrayLike, fluid_viscosity, density):
     """Reynolds number ``rho |u| D_h / mu`` [-] from mean velocity [m/s] and ``D_h`` [m]."""
+    require_finite(velocity=velocity)
+    require_positive(hydraulic_diam=hydraulic_diam, viscosity=fluid_viscosity, density=density)
     return _out(
         density * np.abs(np.asarray(velocity, float)) * hydraulic_diam / np.asarray(fluid_viscosity)
     )
@@ -348,6 +389,10 @@ def reynolds_number(velocity: ArrayLike, hydraulic_diam: ArrayLike, fluid_viscos
 
 def entrance_length(hydraulic_diam: ArrayLike, reynolds: ArrayLike):
     """Hydrodynamic entrance length [m], ``D_h (0.6 / (1 + 0.035 Re) + 0.056 Re)`` [3]_."""
+    require_positive(hydraulic_diam=hydraulic_diam)
+    require_finite(reynolds=reynolds)
+    if np.any(np.asarray(reynolds, float) < 0):
+        raise ArgumentError("reynolds must not be negative")
     re = np.asarray(reynolds, float)
     return _out(np.asarray(hydraulic_diam, float) * (0.6 / (1.0 + 0.035 * re) + 0.056 * re))
 
@@ -421,12 +466,7 @@ def flow_state(
         not finite, or an unknown method.
     """
     require_positive(width=width, depth=depth, length=length, viscosity=viscosity, density=density)
-    try:
-        finite = bool(np.all(np.isfinite(np.asarray(flow, dtype=float))))
-    except (TypeError, ValueError):
-        finite = False
-    if not finite:
-        raise ArgumentError("flow must be a finite number or an array of them")
+    require_finite(flow=flow)
     if method not in METHODS:
         raise ArgumentError(f"unknown resistance method {method!r} (valid: {', '.join(METHODS)})")
     w, h, length, flow, rnd = np.broadcast_arrays(

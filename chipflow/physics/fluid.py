@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from chipflow.errors import SpecError
+from chipflow.errors import ArgumentError, SpecError
 
 __all__ = [
     "Fluid",
@@ -76,8 +76,20 @@ class Fluid:
 
     def __post_init__(self) -> None:
         for label, value in (("viscosity", self.viscosity), ("density", self.density)):
+            if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
+                raise ArgumentError(
+                    f"fluid '{self.name}': {label} must be a number in SI units, got {value!r:.60}"
+                )
             if not (np.isfinite(value) and value > 0):
-                raise SpecError(f"fluid '{self.name}': {label} must be a positive number")
+                raise ArgumentError(f"fluid '{self.name}': {label} must be a positive number")
+        if self.temperature is not None and not (
+            isinstance(self.temperature, int | float | np.floating)
+            and np.isfinite(self.temperature)
+            and self.temperature > 0
+        ):
+            raise ArgumentError(
+                f"fluid '{self.name}': temperature must be a positive number of kelvin or None"
+            )
 
 
 def water_viscosity(temperature: float, density: float) -> float:
@@ -102,6 +114,7 @@ def water_viscosity(temperature: float, density: float) -> float:
     >>> round(water_viscosity(298.15, 998.0) * 1e6, 6)
     889.7351
     """
+    _require_positive(temperature=temperature, density=density)
     t = temperature / _T_STAR
     rho = density / _RHO_STAR
     mu0 = 100.0 * np.sqrt(t) / np.sum(_H0 / t ** np.arange(4))
@@ -129,6 +142,7 @@ def water_density(temperature: float) -> float:
     >>> round(water_density(293.15), 2)
     998.2
     """
+    _check_liquid_range(temperature, "water density")
     c = temperature - 273.15
     numerator = (
         999.83952
@@ -141,7 +155,19 @@ def water_density(temperature: float) -> float:
     return float(numerator / (1.0 + 16.879850e-3 * c))
 
 
+def _require_positive(**values: float) -> None:
+    for name, value in values.items():
+        if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
+            raise ArgumentError(f"{name} must be a number in SI units, got {value!r:.60}")
+        if not (np.isfinite(value) and value > 0):
+            raise ArgumentError(f"{name} must be finite and greater than zero, got {value!r}")
+
+
 def _check_liquid_range(temperature: float, what: str) -> None:
+    if isinstance(temperature, bool) or not isinstance(temperature, int | float | np.floating):
+        raise ArgumentError(
+            f"{what}: temperature must be a number of kelvin, got {temperature!r:.60}"
+        )
     if not (np.isfinite(temperature) and 273.15 <= temperature <= 373.15):
         raise SpecError(
             f"{what}: temperature {temperature - 273.15:.6g} degC is outside 0-100 degC "
@@ -185,6 +211,7 @@ def culture_medium(
         viscosity = MEDIUM_VISCOSITY_37C * (water(temperature).viscosity / water(310.15).viscosity)
     if density is None:
         density = MEDIUM_DENSITY_37C + water_density(temperature) - water_density(310.15)
+    _require_positive(viscosity=viscosity, density=density)
     return Fluid("culture medium", float(viscosity), float(density), temperature)
 
 
@@ -192,6 +219,7 @@ def custom_fluid(
     name: str, viscosity: float, density: float, temperature: float | None = None
 ) -> Fluid:
     """A liquid with given viscosity [Pa s] and density [kg/m^3]."""
+    _require_positive(viscosity=viscosity, density=density)
     return Fluid(name, float(viscosity), float(density), temperature)
 
 
@@ -212,6 +240,8 @@ def fluid_preset(
     viscosity, density : float, optional
         Overrides [Pa s], [kg/m^3].
     """
+    overrides = {"viscosity": viscosity, "density": density}
+    _require_positive(**{k: v for k, v in overrides.items() if v is not None})
     if name == "water":
         base = water(293.15 if temperature is None else temperature)
     elif name == "medium":

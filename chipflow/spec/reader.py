@@ -22,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 from chipflow.errors import SpecError
+from chipflow.limits import check_value
 from chipflow.units import to_si
 
 __all__ = [
@@ -136,25 +137,33 @@ class Table:
         """A quantity with units, converted to SI (see :func:`chipflow.units.to_si`).
 
         ``positive`` rejects zero and negative values; ``minimum``/``maximum`` are SI bounds.
+        Every value is also held to its plausible range (:mod:`chipflow.limits`).
         """
-        value = self._get(key, default)
-        if value is default:
-            return value
-        si = to_si(value, kind, where=self.where(key))
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.data[key]
+        si = self._plausible(key, kind, value, to_si(value, kind, where=self.where(key)))
         return self._bounded(key, value, si, positive, minimum, maximum)
 
     def quantities(self, key: str, kind: str, default: Any = REQUIRED, **bounds: Any) -> list:
         """A list of quantities (or a single one, returned as a one-element list)."""
-        value = self._get(key, default)
-        if value is default:
-            return value
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.data[key]
         items = value if isinstance(value, list) else [value]
         if not items:
             raise self.error(key, "expected at least one value")
         out = []
         for i, item in enumerate(items):
             where = f"{self.where(key)}[{i}]" if isinstance(value, list) else self.where(key)
-            si = to_si(item, kind, where=where)
+            si = check_value(
+                to_si(item, kind, where=where),
+                kind,
+                key=key,
+                section=self.path,
+                where=where,
+                raw=item,
+            )
             out.append(self._bounded(key, item, si, **_bounds(bounds)))
         return out
 
@@ -167,10 +176,11 @@ class Table:
         minimum: float | None = None,
         maximum: float | None = None,
     ) -> float | int:
-        """A plain number (no unit), optionally a whole number, within bounds."""
-        value = self._get(key, default)
-        if value is default:
-            return value
+        """A plain number (no unit), optionally a whole number, within bounds (and within its
+        plausible range, :mod:`chipflow.limits`)."""
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.data[key]
         if isinstance(value, bool) or not isinstance(value, int | float):
             kind = "a whole number" if integer else "a number"
             raise self.error(key, f"expected {kind}, got {_show(value)}")
@@ -178,13 +188,15 @@ class Table:
             raise self.error(key, f"expected a whole number, got {_show(value)}")
         if not math.isfinite(value):
             raise self.error(key, f"expected a finite number, got {_show(value)}")
-        return self._bounded(key, value, value, False, minimum, maximum)
+        value = self._bounded(key, value, value, False, minimum, maximum)
+        kind = "whole" if integer else "number"
+        return check_value(value, kind, key=key, section=self.path, where=self.where(key))
 
     def string(self, key: str, default: Any = REQUIRED) -> str:
         """A text value."""
-        value = self._get(key, default)
-        if value is default:
-            return value
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.data[key]
         if not isinstance(value, str):
             raise self.error(key, f"expected text in quotes, got {_show(value)}")
         return value
@@ -198,18 +210,18 @@ class Table:
         ...
         chipflow.errors.SpecError: d.toml: name: contains a control character (U+0000); ...
         """
-        value = self.string(key, default)
-        if value is default:
-            return value
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.string(key)
         check_text(value, self.where(key), max_length=max_length, multiline=False)
         return value
 
     def text(self, key: str, default: Any = REQUIRED) -> str:
         """A free text (a description): printable, line breaks allowed, at most
         :data:`MAX_TEXT_LENGTH` characters."""
-        value = self.string(key, default)
-        if value is default:
-            return value
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.string(key)
         if value:
             check_text(value, self.where(key), max_length=MAX_TEXT_LENGTH, multiline=True)
         return value
@@ -217,8 +229,10 @@ class Table:
     def choice(self, key: str, choices: Iterable[str], default: Any = REQUIRED) -> str:
         """A text value from a fixed set, with a suggestion on a near miss."""
         choices = list(choices)
-        value = self.string(key, default)
-        if value is default or value in choices:
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.string(key)
+        if value in choices:
             return value
         near = difflib.get_close_matches(str(value), choices, n=1, cutoff=0.6)
         hint = f"; did you mean '{near[0]}'?" if near else ""
@@ -226,9 +240,9 @@ class Table:
 
     def boolean(self, key: str, default: Any = REQUIRED) -> bool:
         """A true/false value."""
-        value = self._get(key, default)
-        if value is default:
-            return value
+        if key not in self.data:
+            return self._get(key, default)
+        value = self.data[key]
         if not isinstance(value, bool):
             raise self.error(key, f"expected true or false, got {_show(value)}")
         return value
@@ -243,6 +257,9 @@ class Table:
         if default is REQUIRED:
             raise self.error(key, "missing required key")
         return default
+
+    def _plausible(self, key: str, kind: str, raw: Any, si: float) -> float:
+        return check_value(si, kind, key=key, section=self.path, where=self.where(key), raw=raw)
 
     def _bounded(self, key, raw, si, positive=True, minimum=None, maximum=None):
         if positive and not si > 0:
@@ -338,20 +355,13 @@ def read_design_file(path: str | Path) -> Table:
 def read_design_bytes(path: str | Path) -> bytes:
     """The bytes of a design file, checked to be non-empty UTF-8 text (else a SpecError)."""
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        raise SpecError(f"{path}: no such design file") from None
-    except IsADirectoryError:
-        raise SpecError(f"{path}: is a folder, expected a design file (.toml)") from None
-    except OSError as exc:
-        raise SpecError(f"{path}: cannot be read ({exc.strerror})") from None
+    if path.is_dir():
+        raise SpecError(f"{path}: is a folder, expected a design file (.toml)")
+    from chipflow.spec.files import read_capped
+
+    raw = read_capped(path, MAX_DESIGN_BYTES, "design file")
     if not raw.strip():
         raise SpecError(f"{path}: the design file is empty")
-    if len(raw) > MAX_DESIGN_BYTES:
-        raise SpecError(
-            f"{path}: {len(raw)} bytes is too large for a design file (at most {MAX_DESIGN_BYTES})"
-        )
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:

@@ -29,6 +29,7 @@ from dataclasses import dataclass, field, replace
 from typing import Any
 
 from chipflow.errors import SpecError, UnitError
+from chipflow.limits import check_value, range_for
 from chipflow.spec.reader import Table
 from chipflow.units import to_si
 
@@ -46,7 +47,7 @@ DISTRIBUTIONS = ("uniform", "normal")
 #: Normal draws are cut at this many standard deviations (chipflow's own choice).
 NORMAL_CUT = 4.0
 #: Largest number of samples accepted (memory and time stay bounded).
-MAX_SAMPLES = 10_000_000
+MAX_SAMPLES = int(range_for("whole", "samples").high)
 TOLERANCE_KEYS = ("depth", "width", "flow", "viscosity", "distribution", "samples", "seed")
 
 #: What each tolerance may be: "relative" (a fraction), "length", or "either".
@@ -161,6 +162,8 @@ def parse_tolerance(value: object, name: str, where: str) -> tuple[float, bool]:
                 ) from None
     if si < 0:
         raise SpecError(f"{where}: a tolerance cannot be negative, got {value!r}")
+    if not relative:
+        check_value(si, "length", key=name, section="tolerances", where=where, raw=value)
     if relative and si >= 1.0:
         raise SpecError(f"{where}: must be below 100 %, got {value!r}")
     return si, relative
@@ -182,9 +185,8 @@ def read_tolerances(top: Table) -> Tolerances:
                 values["depth_relative"] = relative
             origin.append((name, table.where(name)))
     values["distribution"] = table.choice("distribution", DISTRIBUTIONS, "uniform")
+    # ranges of both: chipflow.limits (1 to MAX_SAMPLES samples; seeds 0 to 2^32 - 1)
     values["samples"] = int(table.number("samples", 1000, integer=True, minimum=1))
-    if values["samples"] > MAX_SAMPLES:
-        raise table.error("samples", f"at most {MAX_SAMPLES:,} samples, got {values['samples']}")
     values["seed"] = int(table.number("seed", 0, integer=True, minimum=0))
     for name in ("distribution", "samples", "seed"):
         if name in table:

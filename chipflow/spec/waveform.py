@@ -14,7 +14,9 @@ from pathlib import Path
 import numpy as np
 
 from chipflow.errors import ChipflowError, SpecError
+from chipflow.limits import check_value
 from chipflow.operation.waveform import Waveform
+from chipflow.spec.files import MAX_WAVEFORM_BYTES, read_capped
 from chipflow.units import to_si
 
 __all__ = ["read_waveform"]
@@ -25,9 +27,11 @@ _HEADER = re.compile(r"^\s*(\w+)\s*\[(.+)\]\s*$")
 def read_waveform(path: Path, where: str) -> Waveform:
     """Read a waveform CSV (see the module documentation); ``where`` locates it in messages."""
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError):
-        raise SpecError(f"{where}: cannot read the waveform file {path}") from None
+        text = read_capped(path, MAX_WAVEFORM_BYTES, "waveform file").decode("utf-8")
+    except UnicodeDecodeError:
+        raise SpecError(f"{where}: cannot read the waveform file {path} (not UTF-8 text)") from None
+    except SpecError as exc:
+        raise SpecError(f"{where}: {exc}") from None
     rows = [r for r in csv.reader(text.splitlines()) if r and any(c.strip() for c in r)]
     if len(rows) < 4:
         raise SpecError(f"{where}: {path.name}: need a header and at least three rows")
@@ -50,6 +54,12 @@ def read_waveform(path: Path, where: str) -> Waveform:
     if data.shape[1] != 2 or not np.all(np.isfinite(data)):
         raise SpecError(f"{where}: {path.name}: every row must hold two finite numbers")
     time, flow = data[:, 0] * units[0], data[:, 1] * units[1]
+    try:  # every sample within the plausible ranges of a time and a flow (chipflow.limits)
+        check_value(float(np.ptp(time)), "time", where=f"{path.name}: the period")
+        worst = float(flow[np.argmax(np.abs(flow))])
+        check_value(worst, "flow", where=f"{path.name}: the largest flow")
+    except SpecError as exc:
+        raise SpecError(f"{where}: {exc}") from None
     if np.any(np.diff(time) <= 0):
         raise SpecError(f"{where}: {path.name}: times must rise from row to row")
     waveform = Waveform.from_samples(time, flow)

@@ -20,13 +20,18 @@ from typing import Any
 
 from chipflow.errors import ChipflowError
 
-__all__ = ["run_tasks", "default_workers"]
+__all__ = ["run_tasks", "default_workers", "connect", "check_scheduler"]
 
 Progress = Callable[[int, int], None]
 
 _SHARED: Any = None
-#: How long to try to reach a Dask scheduler.
-CONNECT_TIMEOUT = "10s"
+#: Seconds to resolve a scheduler's host name and to open a TCP connection to it.
+PROBE_TIMEOUT = 3.0
+#: Seconds for a reachable scheduler to answer as a Dask scheduler (another kind of server on
+#: that port never does).
+HANDSHAKE_TIMEOUT = 5.0
+#: Address schemes of a Dask scheduler that chipflow connects to.
+SCHEMES = ("tcp", "tls")
 
 
 def default_workers() -> int:
@@ -97,24 +102,155 @@ def run_tasks(
     return out
 
 
-def _run_dask(
-    function: Callable, shared: Any, items: Sequence[Any], address: str, report: Progress
-) -> list[Any]:
+def _parse_address(address: str) -> tuple[str, str, int]:
+    """``(scheme, host, port)`` of a scheduler address, or a ChipflowError in one line."""
+    text = address.strip()
+    if not text:  # an empty address would start a new local cluster instead
+        raise ChipflowError("--scheduler: give the address of a running Dask scheduler")
+    scheme, sep, rest = text.partition("://")
+    if not sep:
+        scheme, rest = "tcp", text
+    if scheme == "inproc":  # a cluster inside this process (tests, notebooks)
+        return scheme, rest, 0
+    host, colon, port = rest.rstrip("/").rpartition(":")
+    if scheme not in SCHEMES or not colon or not host or not port.isdigit():
+        raise ChipflowError(
+            f"--scheduler {address}: not a Dask scheduler address; give tcp://HOST:PORT "
+            "(e.g. tcp://10.0.0.5:8786)"
+        )
+    number = int(port)
+    if not 0 < number < 65536:
+        raise ChipflowError(f"--scheduler {address}: port {number} is outside 1-65535")
+    return scheme, host.strip("[]"), number
+
+
+def _within(seconds: float, function: Callable[[], Any]) -> tuple[bool, Any]:
+    """Run ``function`` in a daemon thread for at most ``seconds``: ``(finished, result or
+    exception)``; a call that does not return in time is left behind (its thread dies with
+    the process)."""
+    import threading
+
+    box: dict[str, Any] = {}
+
+    def target() -> None:
+        try:
+            box["result"] = function()
+        except BaseException as exc:  # noqa: BLE001 - reported to the caller
+            box["error"] = exc
+
+    thread = threading.Thread(target=target, daemon=True, name="chipflow-connect")
+    thread.start()
+    thread.join(seconds)
+    if thread.is_alive():
+        return False, None
+    return True, box.get("error", box.get("result"))
+
+
+def connect(address: str):
+    """A ``distributed.Client`` for the scheduler at ``address``, within a bounded time.
+
+    The address is checked first (``tcp://HOST:PORT``), then the host is resolved and a TCP
+    connection opened within :data:`PROBE_TIMEOUT` seconds each, and the scheduler must
+    answer within :data:`HANDSHAKE_TIMEOUT`: a bad, unreachable or wrong-protocol address is
+    one ChipflowError line after a few seconds, never a hang.
+    """
     try:
         from distributed import Client
-        from distributed import as_completed as dask_completed
     except ImportError:  # pragma: no cover - a dependency
         raise ChipflowError(
             "--scheduler needs dask.distributed: pip install 'dask[distributed]'"
         ) from None
-    if not address.strip():  # an empty address would start a new local cluster instead
-        raise ChipflowError("--scheduler: give the address of a running Dask scheduler")
-    try:
-        client = Client(address, timeout=CONNECT_TIMEOUT, set_as_default=False)
-    except (OSError, TimeoutError, ValueError) as exc:
+    scheme, host, port = _parse_address(address)
+    where = f"--scheduler {address}"
+    if scheme == "inproc":
+        url = address.strip()
+    else:
+        _probe(where, host, port)
+        url = f"{scheme}://{host}:{port}"
+    done, found = _within(HANDSHAKE_TIMEOUT, lambda: _identity(url))
+    kind = found.get("type") if isinstance(found, dict) else None
+    if not done or kind != "Scheduler":
+        if not done:
+            why = f"no answer within {HANDSHAKE_TIMEOUT:g} s"
+        elif isinstance(found, MemoryError | ValueError | TypeError | KeyError):
+            why = "it answers in another protocol"
+        elif isinstance(found, BaseException):
+            why = str(found) or type(found).__name__
+        else:
+            why = f"it is a {kind or 'server of another kind'}"
         raise ChipflowError(
-            f"--scheduler {address}: cannot reach the Dask scheduler ({exc})"
-        ) from None
+            f"{where}: something listens there but does not answer as a Dask scheduler "
+            f"({_one_line(why)}); is it the scheduler's address and port?"
+        )
+    done, client = _within(
+        HANDSHAKE_TIMEOUT,
+        lambda: Client(url, timeout=f"{HANDSHAKE_TIMEOUT - 1:g}s", set_as_default=False),
+    )
+    if not done or isinstance(client, BaseException):
+        why = (
+            f"no answer within {HANDSHAKE_TIMEOUT:g} s"
+            if not done
+            else (str(client) or type(client).__name__)
+        )
+        raise ChipflowError(
+            f"{where}: something listens there but does not answer as a Dask scheduler "
+            f"({_one_line(why)}); is it the scheduler's address and port?"
+        )
+    return client
+
+
+def _probe(where: str, host: str, port: int) -> None:
+    """Resolve ``host`` and open a TCP connection to it, each within PROBE_TIMEOUT."""
+    import socket
+
+    done, found = _within(PROBE_TIMEOUT, lambda: socket.getaddrinfo(host, port))
+    if not done or isinstance(found, BaseException):
+        why = "no answer" if not done else (getattr(found, "strerror", None) or str(found))
+        raise ChipflowError(f"{where}: cannot resolve the host {host!r} ({why})")
+    try:
+        with socket.create_connection((host, port), timeout=PROBE_TIMEOUT):
+            pass
+    except OSError as exc:
+        why = exc.strerror or str(exc) or type(exc).__name__
+        raise ChipflowError(f"{where}: cannot reach the Dask scheduler ({why})") from None
+
+
+def _identity(url: str) -> Any:
+    """What the server at ``url`` says it is (Dask's ``identity`` call), or an exception."""
+    import asyncio
+
+    from distributed.core import rpc
+
+    async def ask() -> Any:
+        remote = rpc(url, timeout=HANDSHAKE_TIMEOUT - 1)
+        try:
+            return await asyncio.wait_for(remote.identity(), HANDSHAKE_TIMEOUT - 1)
+        finally:
+            await remote.close_rpc()
+
+    return asyncio.run(ask())
+
+
+def check_scheduler(address: str | None) -> None:
+    """Refuse a scheduler address that is malformed, unreachable or not a Dask scheduler,
+    before any work is done (one ChipflowError line within a few seconds)."""
+    if address is None:
+        return
+    client = connect(address)
+    _within(HANDSHAKE_TIMEOUT, client.close)
+
+
+def _one_line(text: str) -> str:
+    line = " ".join(text.split())
+    return line if len(line) <= 160 else line[:157] + "..."
+
+
+def _run_dask(
+    function: Callable, shared: Any, items: Sequence[Any], address: str, report: Progress
+) -> list[Any]:
+    from distributed import as_completed as dask_completed
+
+    client = connect(address)
     try:
         handle = client.scatter(shared, broadcast=True)
         futures = client.map(function, [handle] * len(items), list(items), pure=False)
@@ -125,4 +261,4 @@ def _run_dask(
             report(done, len(items))
         return out
     finally:
-        client.close()
+        _within(HANDSHAKE_TIMEOUT, client.close)

@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import copy
 import itertools
+import math
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -136,6 +137,8 @@ def _range(spec: str, where: str) -> tuple[Any, ...]:
     n = int(count)
     if n < 2:
         raise SpecError(f"{where}: empty range: give at least 2 points (FROM..TO:N, N >= 2)")
+    if n > MAX_POINTS:  # before a single value is made: 1e9 points would take gigabytes
+        raise SpecError(f"{where}: {n:,} points on one axis; a grid has at most {MAX_POINTS:,}")
     a, b = _NUMBER.match(start), _NUMBER.match(stop)
     if a is None or b is None:
         raise SpecError(f"{where}: FROM and TO must be numbers or quantities such as '5uL/min'")
@@ -196,13 +199,18 @@ def parse_axis(text: str) -> Axis:
     if ".." in spec:
         values = _range(spec, where)
     else:
-        values = tuple(_item(p, where) for p in _split(spec))
+        items = _split(spec)
+        if len(items) > MAX_POINTS:
+            raise SpecError(
+                f"{where}: {len(items):,} values on one axis; a grid has at most {MAX_POINTS:,}"
+            )
+        values = tuple(_item(p, where) for p in items)
     return Axis(key, values, text)
 
 
 def grid_points(axes: Sequence[Axis]) -> list[tuple[Any, ...]]:
     """Every combination of the axes' values, the first axis varying slowest."""
-    total = int(np.prod([len(a.values) for a in axes]))
+    total = math.prod(len(a.values) for a in axes)
     if total > MAX_POINTS:
         raise SpecError(f"--vary: {total:,} grid points; at most {MAX_POINTS:,}")
     return list(itertools.product(*(a.values for a in axes)))

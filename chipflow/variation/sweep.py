@@ -13,6 +13,7 @@ floor shear (as checked by the build): positive inside the window, negative outs
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -22,13 +23,14 @@ import numpy as np
 from chipflow.build import Build, DesignSource, build_design
 from chipflow.checks.flow import coefficient_of_variation
 from chipflow.errors import ChipflowError, SpecError
+from chipflow.resources import Estimate, check_memory
 from chipflow.spec.culture import read_culture
 from chipflow.variation.execute import run_tasks
 from chipflow.variation.grid import Axis, design_text, grid_points, with_values
 from chipflow.variation.problem import seeded_levels, window_bounds
 from chipflow.variation.statistics import window_margin
 
-__all__ = ["Sweep", "sweep_design", "point_row", "ROW_KEYS"]
+__all__ = ["Sweep", "sweep_design", "sweep_estimate", "point_row", "ROW_KEYS"]
 
 #: Numeric columns of a sweep row and their SI units.
 ROW_KEYS = {
@@ -100,13 +102,42 @@ def _point(base: tuple[dict, str, tuple[str, ...]], values: tuple[Any, ...]) -> 
     data, path, keys = base
     source = DesignSource.from_dict(with_values(data, keys, values), path)
     try:
-        row = point_row(build_design(source, field=False))  # rows hold no field numbers
+        build = build_design(source, field=False)  # rows hold no field numbers
+        row = point_row(build)
+        row["_channels"] = build.solution.network.n_channels  # for the estimate, then dropped
     except SpecError:
         raise
     except ChipflowError as exc:
         row = {**dict.fromkeys(ROW_KEYS), "status": "error", "failed": [], "message": str(exc)}
     row["values"] = [design_text(v) for v in values]
     return row
+
+
+#: A sweep estimated to take longer than this [s] says so before it goes on.
+NOTICE_SECONDS = 10.0
+
+
+def sweep_estimate(
+    points: int, first_seconds: float, channels: int, workers: int | None = None
+) -> Estimate:
+    """Memory and time of the rest of a sweep, from its first point.
+
+    Time: the first point's processor time for every other point, shared between the
+    workers; memory: one build per worker (:func:`chipflow.layout.budget.estimate_size` of
+    the first point's drawn channels, a whole build's peak).
+
+    >>> est = sweep_estimate(10_000, 1.5, 94, workers=2)
+    >>> est.detail, round(est.seconds / 3600, 1), round(est.memory / 1e6)
+    ('9,999 grid points on 2 processes', 2.1, 357)
+    """
+    from chipflow.layout.budget import estimate_size
+    from chipflow.variation.execute import default_workers
+
+    rest = max(0, points - 1)
+    local = max(1, min(default_workers() if workers is None else int(workers), max(rest, 1)))
+    per_point = estimate_size(channels).memory
+    detail = f"{rest:,} grid points on {local} process" + ("es" if local > 1 else "")
+    return Estimate("the sweep", local * per_point, rest * first_seconds / local, detail)
 
 
 def sweep_design(
@@ -116,16 +147,25 @@ def sweep_design(
     scheduler: str | None = None,
     workers: int | None = None,
     progress: Progress | None = None,
+    allow_large: bool = False,
+    notice: Callable[[str], None] | None = None,
 ) -> Sweep:
     """Build every point of the grid over ``axes`` of the design ``source``.
 
     The first point is built here first, so that bad input stops the sweep at once; the
     others run locally in processes or on a Dask cluster (:func:`run_tasks`).
 
+    After the first point, the rest is estimated (:func:`sweep_estimate`): ``notice`` gets
+    one line when it will take more than :data:`NOTICE_SECONDS`, and a sweep whose workers
+    need more than 75 % of the memory this process may use is refused unless
+    ``allow_large``.
+
     Raises
     ------
     SpecError
         An unknown key, a value the design file would refuse, or too many points.
+    TooLargeError
+        Workers that would need more memory than this process may use.
     """
     if not axes:
         raise SpecError("give at least one --vary KEY=VALUES")
@@ -141,8 +181,20 @@ def sweep_design(
         )
     points = grid_points(axes)
     base = (dict(source.top.data), source.path, keys)
+    started = time.process_time()
     first = _point(base, points[0])
+    estimate = sweep_estimate(
+        len(points),
+        time.process_time() - started,
+        first.pop("_channels", 0),
+        None if scheduler else workers,
+    )
+    check_memory(estimate, allow_large=allow_large, where=source.path, advice="use --workers 1")
+    if notice is not None and estimate.seconds > NOTICE_SECONDS:
+        notice(estimate.text())
     rest = run_tasks(
         _point, base, points[1:], scheduler=scheduler, workers=workers, progress=progress
     )
+    for row in rest:
+        row.pop("_channels", None)
     return Sweep(str(source.top.data.get("name", "design")), tuple(axes), (first, *rest))

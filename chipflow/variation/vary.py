@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 
 from chipflow.build import Build
+from chipflow.resources import Estimate, check_memory
 from chipflow.spec.tolerances import Tolerances
 from chipflow.units import RESULT_UNITS
 from chipflow.variation.batch import BatchResult, concatenate, solve_batch
@@ -44,6 +45,7 @@ __all__ = [
     "Variation",
     "vary_build",
     "batch_size",
+    "variation_estimate",
     "VARY_UNITS",
     "MODEL_NOTE",
     "WIDTH_BIAS_NOTE",
@@ -55,6 +57,25 @@ BATCH_ELEMENTS = 300_000
 #: about a second of solving (0.3 us per channel and sample, measured by benchmarks/vary.py),
 #: less than starting local processes costs.
 LOCAL_ELEMENTS = 3_000_000
+
+# -- the estimate made before a run (see variation_estimate) ----------------------------------
+#: Channel-samples solved per second of processor time: benchmarks/heavy_steps.py measured
+#: 2.7 million (the demo, 1,000,000 samples) and 3.2 million (766 channels, 100,000 samples)
+#: on an idle machine, 2026-12-04; benchmarks/vary.py 1.2 million on a loaded one. Half the
+#: idle rate, so the estimate errs on the long side.
+CHANNEL_SAMPLES_PER_SECOND = 1.5e6
+#: Peak memory of one batch being solved [bytes] (about 30 arrays of BATCH_ELEMENTS floats and
+#: the factor of its block-diagonal system; measured 80-110 MB).
+BATCH_BYTES = 120e6
+#: Memory of one local worker process before its first batch [bytes] (the imports and the
+#: problem it receives; measured 110-140 MB).
+WORKER_BYTES = 150e6
+#: Memory of the run before its samples [bytes] (the nominal build and the imports).
+BASE_BYTES = 250e6
+#: A run estimated to take longer than this [s] or to need more than NOTICE_BYTES says so
+#: before it starts.
+NOTICE_SECONDS = 10.0
+NOTICE_BYTES = 1e9
 
 #: SI units of the keys of the variation results.
 VARY_UNITS = {
@@ -136,6 +157,37 @@ def batch_size(problem: Problem) -> int:
     return int(max(1, min(4096, BATCH_ELEMENTS // max(1, problem.n_channels))))
 
 
+def variation_estimate(
+    problem: Problem, tolerances: Tolerances, workers: int | None = None
+) -> Estimate:
+    """Memory and time of a Monte Carlo run, before it starts.
+
+    Memory: per sample three rows of factors (the draws, the parameters, a batch's copy) and
+    four copies of its nine values per level and four more (the batches' results, joined,
+    and the statistics made from them): 1.5 kB per sample of the demo measured, 2 kB
+    estimated; and per local worker its process and one batch. Time: the channel-samples at
+    :data:`CHANNEL_SAMPLES_PER_SECOND`, shared between the workers.
+
+    >>> from types import SimpleNamespace
+    >>> p = SimpleNamespace(n_factors=4, n_channels=96, starts=np.zeros(11))
+    >>> est = variation_estimate(p, Tolerances(samples=10_000_000), workers=2)
+    >>> round(est.memory / 1e9, 1), round(est.seconds)
+    (20.8, 320)
+    """
+    from chipflow.variation.execute import default_workers
+
+    n = int(tolerances.samples)
+    levels = int(np.size(problem.starts))
+    local = max(1, default_workers() if workers is None else int(workers))
+    local = min(local, max(1, -(-n // batch_size(problem))))
+    per_sample = 8.0 * (3 * problem.n_factors + 4 * (5 * levels + 4) + 2)
+    extra = local * WORKER_BYTES if local > 1 else 0.0
+    memory = BASE_BYTES + n * per_sample + local * BATCH_BYTES + extra
+    seconds = n * problem.n_channels / CHANNEL_SAMPLES_PER_SECOND / local
+    detail = f"{n:,} samples of {problem.n_channels:,} channels on {local} process"
+    return Estimate("the Monte Carlo run", memory, seconds, detail + ("es" if local > 1 else ""))
+
+
 def vary_build(
     build: Build,
     tolerances: Tolerances,
@@ -143,6 +195,8 @@ def vary_build(
     scheduler: str | None = None,
     workers: int | None = None,
     progress: Progress | None = None,
+    allow_large: bool = False,
+    notice: Callable[[str], None] | None = None,
 ) -> Variation:
     """Run the Monte Carlo of ``tolerances`` on the drawn network of ``build``.
 
@@ -159,6 +213,12 @@ def vary_build(
         channel-samples stay in this process).
     progress : callable, optional
         Called with ``(done, total)`` batches.
+    allow_large : bool
+        Run even when the estimate (:func:`variation_estimate`) needs more than 75 % of the
+        memory this process may use; by default such a run is refused.
+    notice : callable, optional
+        Called with one line of text when the run is estimated to take more than
+        :data:`NOTICE_SECONDS` or :data:`NOTICE_BYTES` (the command line prints it).
 
     Returns
     -------
@@ -173,8 +233,19 @@ def vary_build(
     ------
     SpecError
         For tolerances out of range for this design.
+    TooLargeError
+        A run that needs more memory than this process may use (with its estimate).
     """
     problem = variation_problem(build, tolerances)
+    estimate = variation_estimate(problem, tolerances, None if scheduler else workers)
+    check_memory(
+        estimate,
+        allow_large=allow_large,
+        where=build.source.path,
+        advice="use fewer samples",
+    )
+    if notice is not None and (estimate.seconds > NOTICE_SECONDS or estimate.memory > NOTICE_BYTES):
+        notice(estimate.text())
     tol = problem.tolerance_vector(tolerances)
     draws = standard_draws(
         tolerances.samples, problem.n_factors, tolerances.seed, tolerances.distribution
