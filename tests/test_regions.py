@@ -287,3 +287,15 @@ def test_each_region_is_sized_for_its_share_with_its_own_splits():
     assert (a.tree.splits, b.tree.splits) == ((2, 2), (3, 2))
     assert a.tree.flow == pytest.approx(spec.flow * 0.25, rel=1e-15)
     assert b.tree.flow == pytest.approx(spec.flow * 0.75, rel=1e-15)
+
+
+def test_the_console_and_the_report_show_the_regions(dual):
+    from chipflow.report.console import totals_and_checks
+
+    build, out = dual
+    text = totals_and_checks(build.results)
+    assert "region venous: 25 % of the flow (target 25 %), 12 bed channels" in text
+    assert "in its 8 mm x 5 mm footprint" in text
+    page = (out / "report.html").read_text()
+    assert "<h3>Culture regions</h3>" in page and "arteriolar" in page
+    assert "venous:bed" in page  # the generations table labels each region's levels
