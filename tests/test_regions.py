@@ -16,6 +16,8 @@ import numpy as np
 import pytest
 import shapely
 from click.testing import CliRunner
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from chipflow.build import build_design, read_design_source
 from chipflow.cli import main
@@ -299,3 +301,60 @@ def test_the_console_and_the_report_show_the_regions(dual):
     page = (out / "report.html").read_text()
     assert "<h3>Culture regions</h3>" in page and "arteriolar" in page
     assert "venous:bed" in page  # the generations table labels each region's levels
+
+
+# -- random regions --------------------------------------------------------------------------
+def regions_design(fractions, counts, lengths, grid_um: float) -> str:
+    text = (
+        '[tree]\nflow = "10 uL/min"\nrule = "equal-shear"\nlength = "2 mm"\n'
+        '[targets]\nshear = "0.7 Pa"\n[fabrication]\ndepths = ["50 um"]\n'
+        f'grid = "{grid_um} um"\nmin_feature = "5 um"\nmax_width_to_depth = 16\n'
+        "max_depth_to_width = 10\n"
+    )
+    for i, (f, n, length) in enumerate(zip(fractions, counts, lengths, strict=True)):
+        text += (
+            f'[[regions]]\nname = "r{i}"\nflow_fraction = {f!r}\nbed_channels = {n}\n'
+            f'length = "{length} mm"\n'
+        )
+    return text
+
+
+@st.composite
+def random_regions(draw):
+    k = draw(st.integers(2, 4))
+    weights = draw(st.lists(st.floats(0.15, 1.0), min_size=k, max_size=k))
+    fractions = [w / sum(weights) for w in weights]
+    fractions[-1] = 1.0 - sum(fractions[:-1])
+    counts = draw(st.lists(st.sampled_from([2, 4, 6, 8, 9, 12, 16]), min_size=k, max_size=k))
+    lengths = draw(st.lists(st.sampled_from([1, 2, 3]), min_size=k, max_size=k))
+    return fractions, counts, lengths, draw(st.sampled_from([0.5, 1.0]))
+
+
+@settings(max_examples=15, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(random_regions())
+def test_random_regions_get_their_shares_and_keep_their_widths(case):
+    from unittest import mock
+
+    from chipflow.design.regions import size_regions
+    from chipflow.layout import Chip, LayoutRules, extract_network
+    from chipflow.layout import pieces as pieces_module
+    from chipflow.layout.regions import draw_regions
+    from chipflow.network import solve
+    from conftest import _stand_in_piece
+
+    fractions, counts, lengths, grid_um = case
+    spec = load_tree_spec(parse_design_text(regions_design(*case), "random.toml"))
+    design = size_regions(spec)
+    rules = LayoutRules.from_fabrication(design.fabrication)
+    with mock.patch.object(pieces_module, "solve_piece", _stand_in_piece):
+        layout = draw_regions(design, Chip(width=0.12, height=0.05), rules)
+        net = extract_network(layout)
+    # widths on the mask are the solved widths, to 1 nm
+    np.testing.assert_allclose(layout.channels.mask_width, net.width, rtol=0, atol=1e-9)
+    sol = solve(net, design.fluid, flows={"inlet": design.total_flow}, pressures={"outlet": 0})
+    q, region, bed = np.abs(sol.flow), net.regions(), net.role == "bed"
+    for r, n, f in zip(design.regions, counts, fractions, strict=True):
+        mine = q[bed & (region == r.name)]
+        assert mine.size == n
+        assert mine.sum() / design.total_flow == pytest.approx(f, rel=1e-6)
+        assert np.std(mine) / np.mean(mine) < 0.005

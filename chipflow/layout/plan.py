@@ -543,17 +543,21 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
     # in order of preference: the fewest runs within the limit, else the shortest runs
     candidates = ok + [p for p in reversed(fits) if p not in ok]
     chosen = None
+    on_chip = []  # the folds that fit the chip with their detours (not necessarily the footprint)
     for estimate in candidates:  # the detours of splits into 3 to 5 may need more room
         final = estimate
         if any(k > 2 for k in design.splits):
             final = plan_layout(design, chip, rules, estimate.runs)
-        if (
-            final.width_needed <= chip.width + 1e-12
-            and final.height_needed <= chip.height + 1e-12
-            and (footprint is None or plan_fits(final, footprint, rules.grid))
-        ):
-            chosen = final
-            break
+        if final.width_needed <= chip.width + 1e-12 and final.height_needed <= chip.height + 1e-12:
+            on_chip.append(final)
+            if footprint is None or plan_fits(final, footprint, rules.grid):
+                chosen = final
+                break
+    if chosen is None and on_chip:  # the detours push the bed out of its footprint
+        from chipflow.layout.footprint import footprint_error
+
+        on_chip.sort(key=lambda p: p.runs)
+        raise footprint_error(design.name, bed_count, on_chip, footprint, rules.grid)
     if chosen is None:
         final = plan_layout(design, chip, rules, candidates[0].runs)
         raise LayoutError(
