@@ -131,8 +131,9 @@ class Build:
     source : DesignSource
     name, description : str
     fluid : Fluid
-    design : TreeDesign or None
-        The sized tree (None for an explicit network).
+    design : TreeDesign, RegionsDesign or None
+        The sized tree, or the sized chip of several culture regions
+        (:class:`chipflow.design.regions.RegionsDesign`; None for an explicit network).
     layout : Layout or None
         The drawing (None for an explicit network).
     solution : Solution
@@ -156,7 +157,7 @@ class Build:
     name: str
     description: str
     fluid: Fluid
-    design: TreeDesign | None
+    design: Any  # TreeDesign, RegionsDesign or None
     layout: Layout | None
     solution: Solution
     checks: tuple[CheckResult, ...]

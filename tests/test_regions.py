@@ -358,3 +358,11 @@ def test_random_regions_get_their_shares_and_keep_their_widths(case):
         assert mine.size == n
         assert mine.sum() / design.total_flow == pytest.approx(f, rel=1e-6)
         assert np.std(mine) / np.mean(mine) < 0.005
+
+
+@pytest.mark.slow
+def test_the_field_of_a_chip_of_regions_agrees_with_its_network():
+    # the 2D field of the whole drawn chip against the network extracted from the drawing
+    build = build_design(DUAL, field=True)
+    field = build.results["field"]
+    assert field["resistance"] == pytest.approx(field["network_resistance"], rel=0.01)

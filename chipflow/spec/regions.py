@@ -178,7 +178,7 @@ def read_regions(
             raise table.error(
                 "name",
                 f"{name!r} is not a region name: 1 to 40 letters, digits, '_' or '-' (it "
-                "names the region's channels and its --vary keys)",
+                "names the region's channels and nodes)",
             )
         if name in seen:
             raise table.error("name", f"region {name!r} is named twice; every region needs its own")
