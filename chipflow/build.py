@@ -131,8 +131,9 @@ class Build:
     source : DesignSource
     name, description : str
     fluid : Fluid
-    design : TreeDesign or None
-        The sized tree (None for an explicit network).
+    design : TreeDesign, RegionsDesign or None
+        The sized tree, or the sized chip of several culture regions
+        (:class:`chipflow.design.regions.RegionsDesign`; None for an explicit network).
     layout : Layout or None
         The drawing (None for an explicit network).
     solution : Solution
@@ -156,7 +157,7 @@ class Build:
     name: str
     description: str
     fluid: Fluid
-    design: TreeDesign | None
+    design: Any  # TreeDesign, RegionsDesign or None
     layout: Layout | None
     solution: Solution
     checks: tuple[CheckResult, ...]
@@ -261,21 +262,25 @@ def _build_tree(
     read_tolerances(top)  # used by chipflow vary; checked here so that a typo fails early
     transport_spec = read_transport(top)
     progress("size")
-    grade = bed_grader(
-        culture,
-        spec.flow,
-        spec.bed_channels,
-        spec.bed.residence_time,
-        spec.bed.length,
-        transport=transport_spec,
-        temperature=spec.fluid.temperature,
-    )
-    design = size_tree(spec, bed_grade=grade)
-    check_size(sum(level.count for level in design.levels), allow_large=allow_large)
-    progress("layout")
-    keepout = {} if port_keepout is None else {"port_keepout": port_keepout}
-    rules = LayoutRules.from_fabrication(design.fabrication, **keepout)
-    layout = draw(design, chip, rules)
+    if spec.regions:
+        design, layout = _regions_drawn(spec, culture, transport_spec, chip, port_keepout,
+                                        allow_large, progress)  # fmt: skip
+        rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
+    else:
+        grade = bed_grader(
+            culture,
+            spec.flow,
+            spec.bed_channels,
+            spec.bed.residence_time,
+            spec.bed.length,
+            transport=transport_spec,
+            temperature=spec.fluid.temperature,
+        )
+        design = size_tree(spec, bed_grade=grade)
+        check_size(sum(level.count for level in design.levels), allow_large=allow_large)
+        progress("layout")
+        rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
+        layout = draw(design, chip, rules)
     progress("extract")
     network, feed, drain = with_tubing(
         extract_network(layout),
@@ -303,6 +308,10 @@ def _build_tree(
     window = culture.window or targets
     generations = level_rows(solution)
     residence_target = culture.residence_time or spec.bed.residence_time
+    region_windows = {r.name: _cell_window(r.cell_type) for r in spec.regions if r.cell_type}
+    residence_targets = {
+        r.name: culture.residence_time or r.tree.bed.residence_time for r in spec.regions
+    }
     operation = operate(
         timing, solution, generations, window, culture.seeded, feed, drain, limits, soft=soft
     )
@@ -319,6 +328,8 @@ def _build_tree(
             target_kind=spec.targets.kind,
             target_levels=spec.targets.levels,
             oscillating=operation.oscillating,
+            region_windows=region_windows,
+            residence_targets=residence_targets,
         ),
         *transport_checks(transport),
         *pressure_checks(solution, limits),
@@ -337,6 +348,7 @@ def _build_tree(
         window,
     )
     attach(results, operation)
+    results["regions"] = region_results(spec, layout, solution)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["warnings"] = [
         *design.warnings,
@@ -376,6 +388,77 @@ def _build_tree(
         operation,
         transport,
     )
+
+
+def _keepout(port_keepout: float | None) -> dict[str, float]:
+    return {} if port_keepout is None else {"port_keepout": port_keepout}
+
+
+def _cell_window(name: str) -> ShearWindow:
+    from chipflow.checks.cell_types import cell_type
+
+    return cell_type(name).window()
+
+
+def _regions_drawn(spec, culture, transport_spec, chip, port_keepout, allow_large, progress):
+    """Size and draw a chip of several culture regions (``[[regions]]``): each region's bed
+    graded with its own flow and cells, the feeders drawn to give every region its share."""
+    from chipflow.design.regions import size_regions
+    from chipflow.layout import LayoutRules
+    from chipflow.layout.budget import check_size
+    from chipflow.layout.regions import draw_regions
+
+    grades = {}
+    for r in spec.regions:  # a handful of regions
+        own = culture if r.cell_type is None else replace(culture, window=_cell_window(r.cell_type))
+        grades[r.name] = bed_grader(
+            own,
+            r.tree.flow,
+            r.tree.bed_channels,
+            r.tree.bed.residence_time,
+            r.tree.bed.length,
+            transport=transport_spec,
+            temperature=spec.fluid.temperature,
+        )
+    design = size_regions(spec, grades)
+    check_size(design.channel_count, allow_large=allow_large)
+    progress("layout")
+    rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
+    return design, draw_regions(design, chip, rules)
+
+
+def region_results(spec, layout: Layout, solution: Solution) -> list[dict[str, Any]]:
+    """results.json ``regions``: per culture region its name, target and solved share of the
+    flow, bed channel count, footprint [m] (along, across the flow: the one asked for, else
+    None) and the drawn extent of its bed [m]. A design without ``[[regions]]`` is one region
+    named ""."""
+    from chipflow.layout.footprint import bed_extent
+
+    net = solution.network
+    region = net.regions()
+    bed = net.role == "bed"
+    q = np.abs(solution.flow)
+    total = float(q[bed].sum())
+    outlines = {cr.name: cr for cr in layout.culture_regions}
+    if spec.regions:
+        entries = [(r.name, r.flow_fraction) for r in spec.regions]
+    else:
+        entries = [("", 1.0)]
+    out = []
+    for name, target in entries:  # a handful of regions
+        mine = bed & (region == name)
+        cr = outlines.get(name)
+        out.append(
+            {
+                "name": name,
+                "flow_fraction_target": target,
+                "flow_fraction": float(q[mine].sum()) / total if total > 0 else None,
+                "bed_channels": int(mine.sum()),
+                "footprint": None if cr is None or not cr.asked else list(cr.footprint),
+                "bed_extent": list(bed_extent(layout, name)),
+            }
+        )
+    return out
 
 
 def nominal_tree(source: DesignSource) -> tuple[TreeDesign, Solution, dict[str, Any]]:

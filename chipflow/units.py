@@ -372,6 +372,12 @@ RESULT_UNITS: dict[str, str] = {
     "grid": "m",
     "x": "m",
     "y": "m",
+    # culture regions (results["regions"])
+    "flow_fraction": "1",
+    "flow_fraction_target": "1",
+    "bed_channels": "1",
+    "footprint": "m",
+    "bed_extent": "m",
     # flow
     "pressure": "Pa",
     "flow": "m^3/s",

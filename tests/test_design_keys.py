@@ -40,6 +40,27 @@ def _entry(section: str, name: str, key: str, value) -> dict:
     return {section: items}
 
 
+# the keys of culture regions are changed on the demo made into two regions
+REGIONAL = {k: copy.deepcopy(v) for k, v in DEMO.items() if k != "bed"}
+REGIONAL["tree"].pop("bed_channels")
+REGIONAL["regions"] = [
+    {"name": "a", "flow_fraction": 0.25, "bed_channels": 4, "length": "2 mm"},
+    {"name": "b", "flow_fraction": 0.75, "bed_channels": 6, "length": "2 mm"},
+]
+ON_REGIONS = {"__design__": REGIONAL}
+
+
+def _region(**changes) -> dict:
+    """A change of the first region of the two-region demo (None removes a key)."""
+    items = copy.deepcopy(REGIONAL["regions"])
+    for key, value in changes.items():
+        if value is None:
+            items[0].pop(key, None)
+        else:
+            items[0][key] = value
+    return {"regions": items}
+
+
 TWO_LEVEL = {"fabrication": {"depths": ["30 um", "100 um"], "max_width_to_depth": 12}}
 
 VARIED = {
@@ -170,6 +191,30 @@ CASES = {
     ("bed", "length"): ({}, {"bed": {"residence_time": None, "length": "3 mm"}}, "build"),
     ("bed", "max_straight_length"): ({}, {"bed": {"max_straight_length": "1.5 mm"}}, "build"),
     ("bed", "gap"): ({}, {"bed": {"gap": "150 um"}}, "build"),
+    ("bed", "footprint"): ({}, {"bed": {"footprint": ["20 mm", "20 mm"]}}, "build"),
+    ("regions", "name"): (ON_REGIONS, _region(name="c"), "build"),
+    ("regions", "flow_fraction"): (
+        ON_REGIONS,
+        {
+            "regions": [
+                {**REGIONAL["regions"][0], "flow_fraction": 0.4},
+                {**REGIONAL["regions"][1], "flow_fraction": 0.6},
+            ]
+        },
+        "build",
+    ),  # fmt: skip
+    ("regions", "bed_channels"): (ON_REGIONS, _region(bed_channels=8), "build"),
+    ("regions", "splits"): (ON_REGIONS, _region(bed_channels=None, splits=[4]), "build"),
+    ("regions", "cell_type"): (ON_REGIONS, _region(cell_type="venous-endothelium"), "build"),
+    ("regions", "residence_time"): (
+        ON_REGIONS,
+        _region(length=None, residence_time="0.5 s"),
+        "build",
+    ),
+    ("regions", "length"): (ON_REGIONS, _region(length="3 mm"), "build"),
+    ("regions", "gap"): (ON_REGIONS, _region(gap="150 um"), "build"),
+    ("regions", "max_straight_length"): (ON_REGIONS, _region(max_straight_length="1 mm"), "build"),
+    ("regions", "footprint"): (ON_REGIONS, _region(footprint=["10 mm", "6 mm"]), "build"),
     ("targets", "shear_kind"): ({}, {"targets": {"shear_kind": "mean"}}, "build"),
     ("targets", "shear"): ({}, {"targets": {"shear": "0.9 Pa"}}, "build"),
     ("targets", "shear_min"): (
@@ -363,7 +408,7 @@ VALUES = {
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
     "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
     "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]", '"auto"',
-    '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)",
+    '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)", "0.25", '"25 %"', "_", "-",
 }  # fmt: skip
 
 

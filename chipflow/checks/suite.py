@@ -9,6 +9,7 @@ package is pure; this module only chooses them and feeds them.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import replace
 from typing import Any
 
@@ -89,6 +90,8 @@ def culture_checks(
     target_kind: str = "floor",
     target_levels: str = "all",
     oscillating: tuple[int, ...] = (),
+    region_windows: Mapping[str, ShearWindow | None] | None = None,
+    residence_targets: Mapping[str, float | None] | None = None,
 ) -> list[CheckResult]:
     """Checks of what the cells feel and get.
 
@@ -120,6 +123,12 @@ def culture_checks(
         Levels (indices of ``rows``; without rows, channel indices) whose flow oscillates:
         the cells' window, measured in steady flow, is not checked there (time-varying
         operation checks them instead, :func:`chipflow.operation.operate`).
+    region_windows : mapping of str to ShearWindow or None, optional
+        Per culture region (the rows' ``region``), the window of its own cells, checked on
+        its levels instead of ``window``.
+    residence_targets : mapping of str to float or None, optional
+        Per culture region, its bed's residence time target [s] instead of
+        ``residence_target``.
 
     Notes
     -----
@@ -132,20 +141,36 @@ def culture_checks(
     beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
     everything = list(range(len(rows)))
     seeded = beds if culture.seeded == "bed" and beds else everything
-    if window is not None:
-        steady = [i for i in seeded if i not in oscillating]
-        if steady or not rows:
-            out += _shear_results(solution, rows, steady, window, "floor", skip=oscillating)
+    own = region_windows or {}
+    where = [str(r.get("region", "") or "") for r in rows]
+    steady = [i for i in seeded if i not in oscillating]
+    # levels grouped by the window that applies to them (their region's cells, else window)
+    by_window: dict[int, tuple[ShearWindow, list[int]]] = {}
+    for i in steady:  # a handful of levels
+        w = own.get(where[i]) or window
+        if w is not None:
+            by_window.setdefault(id(w), (w, []))[1].append(i)
+    if window is not None and not rows:
+        out += _shear_results(solution, rows, [], window, "floor", skip=oscillating)
+    for w, levels in by_window.values():
+        out += _shear_results(solution, rows, levels, w, "floor", skip=oscillating)
     if targets is not None:
         levels = beds if target_levels == "bed" and beds else everything
         out += _shear_results(solution, rows, levels, targets, target_kind, " (design target)")
-    if beds:
-        bed = rows[beds[0]]
+    region = net.regions()
+    first_beds = {where[b]: b for b in reversed(beds)}  # each region's first bed level
+    for b in sorted(first_beds.values()):  # one bed per culture region
+        bed = rows[b]
         label = generation_labels([bed])[0]
+        name = where[b]
+        target = (residence_targets or {}).get(name, residence_target)
         of_bed: list[CheckResult] = []
-        if residence_target is not None:
-            of_bed.append(check_residence_time(bed["residence_time"], residence_target))
-        of_bed.append(check_uniformity(np.abs(solution.flow[net.role == "bed"])))
+        if target is not None:
+            of_bed.append(check_residence_time(bed["residence_time"], target))
+        mine = (net.role == "bed") & (region == name)
+        of_bed.append(check_uniformity(np.abs(solution.flow[mine])))
+        if name:
+            of_bed = [replace(r, name=f"{r.name} ({name})") for r in of_bed]
         out += [replace(r, level=label) for r in of_bed]
     if net.n_channels:
         labels = _ChannelLabels(net)

@@ -9,7 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from chipflow.physics.fluid import Fluid
-from chipflow.spec.tree import Fabrication
+from chipflow.spec.tree import Fabrication, Footprint
 
 __all__ = ["Level", "TreeDesign", "ROLES"]
 
@@ -87,6 +87,9 @@ class TreeDesign:
         Wall between neighbouring bed channels [m].
     fabrication : Fabrication or None
         The fabrication limits the design was sized for (``chipflow.spec.tree.Fabrication``).
+    footprint : Footprint or None
+        The rectangle the bed must lie in, folds included (``[bed] footprint`` or a region's);
+        None: anywhere on the chip.
     """
 
     name: str
@@ -98,6 +101,7 @@ class TreeDesign:
     max_straight_length: float | None = None
     bed_gap: float | None = None
     fabrication: Fabrication | None = None
+    footprint: Footprint | None = None
 
     @property
     def generations(self) -> int:

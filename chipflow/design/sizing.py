@@ -630,6 +630,7 @@ def size_tree(
         max_straight_length=spec.bed.max_straight_length,
         bed_gap=spec.bed.gap,
         fabrication=fab,
+        footprint=spec.bed.footprint,
     )
 
 

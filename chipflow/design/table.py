@@ -47,7 +47,7 @@ def generation_table(design: TreeDesign, solution: Solution | None = None) -> li
 
     Parameters
     ----------
-    design : TreeDesign
+    design : TreeDesign or RegionsDesign
     solution : Solution, optional
         A solved network whose channels carry ``role`` and ``generation``; by default the
         design's own tree with nominal lengths, fed with the design flow.
@@ -62,11 +62,11 @@ def generation_table(design: TreeDesign, solution: Solution | None = None) -> li
         from chipflow.design.tree_network import solve_tree
 
         solution = solve_tree(design)
-    by_level = {(r["role"], r["generation"]): r for r in level_rows(solution)}
+    levels = _levels(design)
     rows = []
-    for level in design.levels:
-        row = by_level.get((level.role, level.generation))
-        if row is None:
+    for row in level_rows(solution):
+        level = levels.get((row["region"], row["role"], row["generation"]))
+        if level is None:
             continue
         rows.append(
             {
@@ -78,6 +78,15 @@ def generation_table(design: TreeDesign, solution: Solution | None = None) -> li
             }
         )
     return rows
+
+
+def _levels(design) -> dict:
+    """The design's levels by (region, role, generation): a tree's (region ""), or those of
+    a chip of several culture regions
+    (:meth:`chipflow.design.regions.RegionsDesign.levels_by_region`)."""
+    if hasattr(design, "levels_by_region"):
+        return design.levels_by_region()
+    return {("", lv.role, lv.generation): lv for lv in design.levels}
 
 
 def generation_table_dict(design: TreeDesign, solution: Solution | None = None) -> dict:

@@ -8,8 +8,9 @@ What the file holds:
   the mask grid; islands resolved so that no filled shape contains another;
 - ``CHIP_OUTLINE`` (the chip edge), ``PORT_MARKS`` (punch positions, circles as polygons with
   a chord error below one grid step) and ``NOTES`` (text stating design, units, polarity,
-  mirroring, hole handling, grid, mask levels and the design hash). Nothing is drawn on
-  layer ``0``;
+  mirroring, hole handling, grid, mask levels and the design hash), and ``CULTURE_REGION``
+  (each culture region's outline, the rectangle its bed lies in, when the design has one: a
+  ``[bed] footprint`` or ``[[regions]]``; not a mask level). Nothing is drawn on layer ``0``;
 - no timestamps or random identifiers: the same layout and options give the same bytes.
 """
 
@@ -40,6 +41,7 @@ __all__ = [
     "OUTLINE_LAYER",
     "PORT_LAYER",
     "NOTES_LAYER",
+    "REGION_LAYER",
 ]
 
 #: Drawing units: name -> (nanometres per drawing unit, $INSUNITS code, word for the notes).
@@ -48,6 +50,8 @@ DXF_UNITS = {"um": (1000, 13, "micrometre"), "mm": (1_000_000, 4, "millimetre")}
 DXF_VERSIONS = ("R12", "R2000", "R2004", "R2007", "R2010", "R2013", "R2018")
 OUTLINE_LAYER = "CHIP_OUTLINE"
 PORT_LAYER = "PORT_MARKS"
+#: Layer of the culture regions' outlines (not a mask level).
+REGION_LAYER = "CULTURE_REGION"
 NOTES_LAYER = "NOTES"
 
 # Colour numbers (DXF colour index) for the mask levels, in level order, then cycling.
@@ -165,6 +169,8 @@ def notes_lines(layout: Layout, prepared: PreparedLayout, options: DxfOptions) -
         lines.append(f"layer {layer.name}: mask level {layer.depth * 1e6:g} um deep")
     lines.append(f"layer {OUTLINE_LAYER}: chip outline (not a mask level)")
     lines.append(f"layer {PORT_LAYER}: punched ports (not a mask level)")
+    if prepared.regions:
+        lines.append(f"layer {REGION_LAYER}: culture region outlines (not a mask level)")
     return lines
 
 
@@ -233,6 +239,8 @@ def write_dxf(layout: Layout, path: str | os.PathLike, options: DxfOptions = Dxf
         doc.layers.add(OUTLINE_LAYER, color=8)
         doc.layers.add(PORT_LAYER, color=2)
         doc.layers.add(NOTES_LAYER, color=7)
+        if prepared.regions:
+            doc.layers.add(REGION_LAYER, color=3)
         msp = doc.modelspace()
 
         def polyline(ring, layer: str) -> None:
@@ -248,6 +256,8 @@ def write_dxf(layout: Layout, path: str | os.PathLike, options: DxfOptions = Dxf
         polyline(prepared.outline, OUTLINE_LAYER)
         for _, ring in prepared.ports:
             polyline(ring, PORT_LAYER)
+        for _, ring in prepared.regions:
+            polyline(ring, REGION_LAYER)
         # port names beside the marks, and the notes below the chip
         ymin = prepared.outline[:, 1].min()
         xmin = prepared.outline[:, 0].min()

@@ -8,7 +8,8 @@ joins each island to its outline instead), and polygons with more vertices than 
 fractured. The chip
 outline, the port marks and a text label with the notes go on separate layers
 (:data:`OUTLINE_GDS_LAYER`, :data:`PORT_GDS_LAYER`, :data:`NOTES_GDS_LAYER`) that are not mask
-levels. The file carries a fixed timestamp, so the same layout gives the same bytes.
+levels, as do the culture regions' outlines (:data:`REGION_GDS_LAYER`). The file carries a
+fixed timestamp, so the same layout gives the same bytes.
 """
 
 from __future__ import annotations
@@ -32,6 +33,7 @@ __all__ = [
     "OUTLINE_GDS_LAYER",
     "PORT_GDS_LAYER",
     "NOTES_GDS_LAYER",
+    "REGION_GDS_LAYER",
     "FIXED_TIMESTAMP",
 ]
 
@@ -40,6 +42,8 @@ GDS_PRECISION = 1e-9  # database unit [m]
 OUTLINE_GDS_LAYER = 100
 PORT_GDS_LAYER = 101
 NOTES_GDS_LAYER = 102
+#: The culture regions' outlines (not a mask level).
+REGION_GDS_LAYER = 103
 #: Written as the library's creation and modification time, so that files are reproducible.
 FIXED_TIMESTAMP = datetime.datetime(2000, 1, 1, 0, 0, 0)
 
@@ -133,6 +137,8 @@ def write_gds(layout: Layout, path: str | os.PathLike, options: GdsOptions = Gds
     cell.add(gdstk.Polygon(prepared.outline * um, layer=OUTLINE_GDS_LAYER, datatype=0))
     for _, ring in prepared.ports:
         cell.add(gdstk.Polygon(ring * um, layer=PORT_GDS_LAYER, datatype=0))
+    for _, ring in prepared.regions:
+        cell.add(gdstk.Polygon(ring * um, layer=REGION_GDS_LAYER, datatype=0))
     notes = [
         f"design {layout.name}",
         "units um",

@@ -95,6 +95,9 @@ class PreparedLayout:
         (n_ports, 2) port centres in grid units (after mirroring).
     mirror : bool
     polarity : str
+    regions : tuple of (str, numpy.ndarray)
+        Culture region name and its outline ring in grid units (after mirroring); not mask
+        levels (:attr:`chipflow.layout.model.Layout.culture_regions`).
     """
 
     grid_nm: int
@@ -104,6 +107,7 @@ class PreparedLayout:
     port_centres: np.ndarray
     mirror: bool
     polarity: str
+    regions: tuple[tuple[str, np.ndarray], ...] = ()
 
 
 def grid_nanometres(grid: float) -> int:
@@ -648,11 +652,20 @@ def _prepare_layout(layout: Layout, polarity: str, mirror: bool, holes: str) -> 
         (p.name, circle_ring(c[0], c[1], p.diameter / 2 / grid))
         for p, c in zip(layout.ports, centres, strict=True)
     )
+    regions = tuple(
+        (cr.name, _canonical(_clean_ring(
+            shapely.orient_polygons(flip(_to_grid(cr.outline, grid))).exterior.coords
+        )))
+        for cr in layout.culture_regions
+    )  # fmt: skip
     for array in (
         outline_ring,
         centres,
         *(ring for _, ring in ports),
+        *(ring for _, ring in regions),
         *(ring for layer in layers for ring in layer.rings),
     ):
         array.flags.writeable = False  # shared by the writers of a build (see prepare_layout)
-    return PreparedLayout(nm, tuple(layers), outline_ring, ports, centres, mirror, polarity)
+    return PreparedLayout(
+        nm, tuple(layers), outline_ring, ports, centres, mirror, polarity, regions
+    )

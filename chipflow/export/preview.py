@@ -118,6 +118,7 @@ def _view_bounds(layout: Layout) -> tuple[float, float, float, float]:
     chip = layout.outline.bounds
     parts = [m.geometry for m in layout.layers if not m.geometry.is_empty]
     parts += [shapely.Point(p.x, p.y).buffer(p.diameter / 2) for p in layout.ports]
+    parts += [cr.outline for cr in layout.culture_regions]
     if not parts:
         return chip
     x0, y0, x1, y1 = shapely.total_bounds(np.array(parts, dtype=object)).tolist()
@@ -283,6 +284,15 @@ def plot_layout(
             va="bottom",
             fontsize=9,
         )
+
+    for cr in layout.culture_regions:  # the culture regions' outlines, dashed (not masks)
+        x0, y0, x1, y1 = cr.outline.bounds
+        ax.add_patch(
+            Rectangle((x0 * mm, y0 * mm), (x1 - x0) * mm, (y1 - y0) * mm, fill=False,
+                      edgecolor="0.4", lw=0.8, ls="--")
+        )  # fmt: skip
+        if cr.name:
+            ax.text(x0 * mm, y1 * mm, f" {cr.name}", ha="left", va="bottom", fontsize=8)
 
     view = _view_bounds(layout)
     if view != layout.outline.bounds:

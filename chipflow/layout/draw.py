@@ -100,8 +100,21 @@ def draw(design: TreeDesign, chip: Chip | None = None, rules: LayoutRules | None
     Raises
     ------
     LayoutError
-        When the design does not fit on the chip (the message gives the size it needs).
+        When the design does not fit on the chip (the message gives the size it needs), or
+        its bed does not fit its footprint (the message gives the smallest it reaches).
     """
     from chipflow.layout.tree import tree_sketch
 
-    return draw_sketch(tree_sketch(design, chip or Chip(), rules or LayoutRules()))
+    rules = rules or LayoutRules()
+    sketch = tree_sketch(design, chip or Chip(), rules)
+    footprint = getattr(design, "footprint", None)
+    if footprint is None:
+        return draw_sketch(sketch)
+    import dataclasses
+
+    from chipflow.layout.footprint import check_culture_regions, culture_region, sketch_box
+
+    region = culture_region("", sketch_box(sketch), footprint, rules.grid)
+    layout = draw_sketch(dataclasses.replace(sketch, culture_regions=(region,)))
+    check_culture_regions(layout)
+    return layout

@@ -120,12 +120,17 @@ def _neck(x0: float, y0: float, x1: float, y1: float, half: float) -> shapely.Po
     return shapely.Polygon([p0 + n, p1 + n, p1 - n, p0 - n])
 
 
-def draw_sketch(sketch: Sketch) -> Layout:
+def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
     """Draw a network with coordinates.
 
     Parameters
     ----------
     sketch : Sketch
+    masks : bool, optional
+        Merge the mask layers and measure the widths on them (default). False leaves both
+        out (no layers, no mask widths): the channels with their lengths and the pieces
+        only, for a network to solve while a drawing is still being decided (the feeders of
+        culture regions, :mod:`chipflow.layout.regions`).
 
     Returns
     -------
@@ -329,6 +334,8 @@ def draw_sketch(sketch: Sketch) -> Layout:
             )
 
     # -- 4. mask layers -------------------------------------------------------------------
+    if not masks:
+        return _unmasked(sketch, cat, depths, layer, piece_rows, keys, node_xy)
     uncut = np.concatenate([np.full(g.size, g.cut is None) for g in groups])
     hood = _hoods(n_nodes, cat["node_a"][uncut], cat["node_b"][uncut])
     any_cut = any(g.cut is not None for g in groups)
@@ -345,24 +352,7 @@ def draw_sketch(sketch: Sketch) -> Layout:
         layers.append(MaskLayer(layer_name(li + 1, float(depth)), float(depth), merged))
     layers = tuple(layers)
 
-    names = cat["names"].astype(str)
-    channels = DrawnChannels(
-        centreline=cat["centreline"],
-        length=cat["length"].astype(float),
-        width=cat["width"].astype(float),
-        depth=cat["depth"].astype(float),
-        generation=cat["generation"].astype(int),
-        role=cat["role"].astype(str),
-        index=cat["index"].astype(int),
-        node_a=cat["node_a"].astype(int),
-        node_b=cat["node_b"].astype(int),
-        layer=layer.astype(int),
-        outline=cat["outline"],
-        bends=cat["bends"].astype(int),
-        names=names if np.any(names != "") else None,
-        region=cat["region"].astype(str) if np.any(cat["region"] != "") else None,
-        kind=cat["kind"].astype(str) if np.any(cat["kind"] != "channel") else None,
-    )
+    channels = _drawn_channels(cat, layer)
 
     # -- 5. widths on the mask -------------------------------------------------------------
     mask = check_mask_widths(channels, layers, min(1e-9, grid * 1e-3))
@@ -420,6 +410,47 @@ def draw_sketch(sketch: Sketch) -> Layout:
         warnings=tuple(sketch.warnings),
         pieces=pieces,
         notes=tuple(sketch.notes),
+        culture_regions=tuple(sketch.culture_regions),
+    )
+
+
+def _drawn_channels(cat: dict, layer: np.ndarray) -> DrawnChannels:
+    names = cat["names"].astype(str)
+    return DrawnChannels(
+        centreline=cat["centreline"],
+        length=cat["length"].astype(float),
+        width=cat["width"].astype(float),
+        depth=cat["depth"].astype(float),
+        generation=cat["generation"].astype(int),
+        role=cat["role"].astype(str),
+        index=cat["index"].astype(int),
+        node_a=cat["node_a"].astype(int),
+        node_b=cat["node_b"].astype(int),
+        layer=layer.astype(int),
+        outline=cat["outline"],
+        bends=cat["bends"].astype(int),
+        names=names if np.any(names != "") else None,
+        region=cat["region"].astype(str) if np.any(cat["region"] != "") else None,
+        kind=cat["kind"].astype(str) if np.any(cat["kind"] != "channel") else None,
+    )
+
+
+def _unmasked(sketch, cat, depths, layer, piece_rows, keys, node_xy) -> Layout:
+    """The layout of ``draw_sketch(..., masks=False)``: channels and pieces, no layers."""
+    return Layout(
+        name=sketch.name,
+        outline=shapely.box(0.0, 0.0, sketch.chip.width, sketch.chip.height),
+        margin=sketch.chip.margin,
+        grid=sketch.rules.grid,
+        layers=(),
+        ports=tuple(sketch.ports),
+        channels=_drawn_channels(cat, layer),
+        node_xy=node_xy,
+        node_names=tuple(sketch.node_names),
+        warnings=tuple(sketch.warnings),
+        pieces=_pieces_table(piece_rows, tuple(keys), node_xy, sketch),
+        notes=tuple(sketch.notes),
+        culture_regions=tuple(sketch.culture_regions),
     )
 
 

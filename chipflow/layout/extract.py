@@ -40,7 +40,7 @@ __all__ = [
 
 def channel_names(layout: Layout) -> list[str]:
     """Network names of the drawn channels: the design's names, else
-    ``<role><generation>.<index>``."""
+    ``<role><generation>.<index>``, after ``<region>:`` for a culture region's channels."""
     ch = layout.channels
     if ch.names is not None:
         return [str(s) for s in ch.names]
@@ -48,6 +48,9 @@ def channel_names(layout: Layout) -> list[str]:
         np.char.add(np.char.add(ch.role.astype(str), ch.generation.astype(str)), "."),
         ch.index.astype(str),
     )
+    if ch.region is not None:
+        region = ch.region.astype(str)
+        names = np.where(region != "", np.char.add(np.char.add(region, ":"), names), names)
     return list(names)
 
 
@@ -171,4 +174,5 @@ def extract_network(layout: Layout, junctions: bool = True) -> Network:
         generation=ch.generation,
         role=ch.role,
         node_names=layout.node_names,
+        region=ch.region,
     )

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-__all__ = ["MaskLayer", "PortMark", "DrawnChannels", "Pieces", "Layout"]
+__all__ = ["MaskLayer", "PortMark", "DrawnChannels", "Pieces", "Layout", "CultureRegion"]
 
 
 @dataclass(frozen=True)
@@ -172,6 +172,33 @@ class Pieces:
 
 
 @dataclass(frozen=True)
+class CultureRegion:
+    """A culture region's outline: the rectangle its bed lies in (not a mask level).
+
+    Attributes
+    ----------
+    name : str
+        The region's name ("" for the bed of a design with one region).
+    outline : shapely.Polygon
+        The rectangle, corners on the mask grid [m]: the footprint asked for, placed around
+        the bed, or the bed's own extent where none was asked for.
+    footprint : tuple of float
+        Its size along the flow (x) and across it (y) [m].
+    bed_extent : tuple of float
+        The size of the bed as drawn (every bed channel's outline, folds included), along
+        and across [m].
+    asked : bool
+        True when the design gave the footprint.
+    """
+
+    name: str
+    outline: shapely.Polygon
+    footprint: tuple[float, float]
+    bed_extent: tuple[float, float]
+    asked: bool = True
+
+
+@dataclass(frozen=True)
 class Layout:
     """A sized design drawn on a chip.
 
@@ -203,6 +230,9 @@ class Layout:
     notes : tuple of str
         How the drawing was decided (e.g. the order of the splits of a tree), for the
         sizing notes.
+    culture_regions : tuple of CultureRegion
+        The outlines of the culture regions (a design's footprint, or each of its
+        ``[[regions]]``); not mask levels, written on a layer of their own.
     """
 
     name: str
@@ -217,3 +247,4 @@ class Layout:
     warnings: tuple[str, ...] = ()
     pieces: Pieces | None = None
     notes: tuple[str, ...] = ()
+    culture_regions: tuple[CultureRegion, ...] = ()

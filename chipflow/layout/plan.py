@@ -520,6 +520,15 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
         plans.append(plan)
     fits = [p for p in plans if p.width_needed <= chip.width + 1e-12]
     bed_count = math.prod(design.splits)
+    footprint = getattr(design, "footprint", None)
+    fewest = fits[0].runs if fits else 0
+    if footprint is not None and fits:  # the bed must lie in its footprint: the folds that do
+        from chipflow.layout.footprint import footprint_error, plan_fits
+
+        inside = [p for p in fits if plan_fits(p, footprint, rules.grid)]
+        if not inside:
+            raise footprint_error(design.name, bed_count, fits, footprint, rules.grid)
+        fits = inside
     if not fits:
         first = plans[0] if plans else plan_layout(design, chip, rules, 1, compensate=False)
         raise LayoutError(
@@ -534,13 +543,21 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
     # in order of preference: the fewest runs within the limit, else the shortest runs
     candidates = ok + [p for p in reversed(fits) if p not in ok]
     chosen = None
+    on_chip = []  # the folds that fit the chip with their detours (not necessarily the footprint)
     for estimate in candidates:  # the detours of splits into 3 to 5 may need more room
         final = estimate
         if any(k > 2 for k in design.splits):
             final = plan_layout(design, chip, rules, estimate.runs)
         if final.width_needed <= chip.width + 1e-12 and final.height_needed <= chip.height + 1e-12:
-            chosen = final
-            break
+            on_chip.append(final)
+            if footprint is None or plan_fits(final, footprint, rules.grid):
+                chosen = final
+                break
+    if chosen is None and on_chip:  # the detours push the bed out of its footprint
+        from chipflow.layout.footprint import footprint_error
+
+        on_chip.sort(key=lambda p: p.runs)
+        raise footprint_error(design.name, bed_count, on_chip, footprint, rules.grid)
     if chosen is None:
         final = plan_layout(design, chip, rules, candidates[0].runs)
         raise LayoutError(
@@ -564,6 +581,13 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
             f"longer than max_straight_length: {why}",
         )
     asked = within[0].runs
+    if footprint is not None and chosen.runs > max(asked, fewest):  # folded for the footprint
+        note = (
+            f"bed channels folded into {chosen.runs} runs of {chosen.run_length * 1e3:.3g} mm "
+            f"so that the bed lies in its {footprint.key} of {footprint.along * 1e3:g} x "
+            f"{footprint.across * 1e3:g} mm"
+        )
+        return dataclasses.replace(chosen, notes=(*chosen.notes, note)), ()
     if chosen.runs <= asked:
         return chosen, ()
     why = (

@@ -166,6 +166,8 @@ class Sketch:
         Soft misses of the generator (folds, grid snapping).
     notes : tuple of str
         How the generator decided (e.g. the order of a tree's splits).
+    culture_regions : tuple of CultureRegion
+        Outlines of culture regions (not mask levels), carried into the layout.
     """
 
     name: str
@@ -179,3 +181,4 @@ class Sketch:
     pieces: tuple[PieceSpec | None, ...] | None = None
     warnings: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    culture_regions: tuple = ()

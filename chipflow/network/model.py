@@ -95,6 +95,9 @@ class Network:
     names : tuple of str or None
         Channel names; None means the default names ``c0``, ``c1``, ... (see
         :meth:`channel_names`).
+    region : numpy.ndarray of str or None
+        The culture region of each channel ("" for shared channels, tubing); None: no
+        regions (every channel "").
     """
 
     node_a: np.ndarray
@@ -107,6 +110,7 @@ class Network:
     role: np.ndarray
     node_names: tuple[str, ...]
     names: tuple[str, ...] | None = None
+    region: np.ndarray | None = None
 
     # -- construction ---------------------------------------------------------------------
     @classmethod
@@ -124,6 +128,7 @@ class Network:
         role: ArrayLike | None = None,
         node_names: Sequence[str] | None = None,
         n_nodes: int | None = None,
+        region: ArrayLike | None = None,
     ) -> Network:
         """A validated network from per-channel arrays.
 
@@ -146,6 +151,8 @@ class Network:
             Unique node names; default ``n0``, ``n1``, ...
         n_nodes : int, optional
             Number of nodes; default ``len(node_names)`` or the largest index plus one.
+        region : array_like of str, optional
+            Culture region of each channel ("" for none); default: no regions.
 
         Raises
         ------
@@ -207,7 +214,11 @@ class Network:
             bad = np.flatnonzero((a < 0) | (b < 0) | (a >= count) | (b >= count))
             shown = listing(bad[:8].tolist(), total=bad.size)
             raise NetworkError(f"channels {shown}: node index outside 0..{count - 1}")
-        net = cls(a, b, w, h, ln, rnd, gen, rl, nodes or (), chan_names)
+        reg = None
+        if region is not None:
+            reg = _array(np.asarray(region, dtype=str), str, "region", n)
+            reg = reg if np.any(reg != "") else None
+        net = cls(a, b, w, h, ln, rnd, gen, rl, nodes or (), chan_names, reg)
         if nodes is None:
             object.__setattr__(net, "node_names", tuple(f"n{i}" for i in range(count)))
         net._validate()
@@ -263,6 +274,12 @@ class Network:
     def channel_name(self, index: int) -> str:
         """Name of channel ``index``."""
         return self.names[index] if self.names is not None else f"c{index}"
+
+    def regions(self) -> np.ndarray:
+        """The culture region of every channel ("" for shared channels and tubing)."""
+        if self.region is None:
+            return np.full(self.n_channels, "", dtype="<U1")
+        return self.region
 
     def _names_of(self, indices: np.ndarray) -> str:
         return listing([self.channel_name(int(i)) for i in indices[:8]], total=len(indices))

@@ -106,21 +106,38 @@ def level_groups(network: Network) -> list[tuple[str, int, np.ndarray]]:
     """The channels of each (role, generation), in order from inlet to outlet.
 
     Returns a list of ``(role, generation, channel indices)``; channels without a generation
-    are left out. The grouping is vectorised; only the handful of groups is looped over.
+    are left out. A network of several culture regions (``Network.region``) has one group
+    per (region, role, generation): the shared channels towards the regions first, then each
+    region's levels (in the order of their first channel), then the shared channels after
+    them. The grouping is vectorised; only the handful of groups is looped over.
     """
     tagged = np.flatnonzero(network.generation >= 0)
     if tagged.size == 0:
         return []
     roles, role_id = np.unique(network.role[tagged], return_inverse=True)
+    names, region_id = np.unique(network.regions()[tagged], return_inverse=True)
     n_gen = int(network.generation.max()) + 1
-    key = role_id.astype(np.int64) * n_gen + network.generation[tagged]
+    n_role = roles.size
+    key = (region_id.astype(np.int64) * n_role + role_id) * n_gen + network.generation[tagged]
     order = np.argsort(key, kind="stable")
     keys, starts = np.unique(key[order], return_index=True)
     members = np.split(tagged[order], starts[1:])
-    groups = [
-        (str(roles[int(k) // n_gen]), int(k) % n_gen, m) for k, m in zip(keys, members, strict=True)
-    ]
-    return sorted(groups, key=lambda g: _order(g[0], g[1]))
+    first = {}  # each region's rank: the order of its first channel
+    for k, m in zip(keys, members, strict=True):  # a handful of groups
+        name = str(names[int(k) // (n_role * n_gen)])
+        first[name] = min(first.get(name, m[0]), m[0])
+    rank = {name: i for i, name in enumerate(sorted((n for n in first if n), key=first.get))}
+    groups = []
+    for k, m in zip(keys, members, strict=True):
+        region = str(names[int(k) // (n_role * n_gen)])
+        role = str(roles[(int(k) // n_gen) % n_role])
+        if region:
+            bucket = 1 + rank[region]
+        else:
+            bucket = 0 if role in ("tubing", "port", "distribution") else 1 + len(rank)
+        groups.append((bucket, role, int(k) % n_gen, m))
+    groups.sort(key=lambda g: (g[0], *_order(g[1], g[2])))
+    return [(role, generation, m) for _, role, generation, m in groups]
 
 
 def generation_rows(solution: Solution) -> tuple[GenerationRow, ...]:
@@ -157,11 +174,15 @@ def generation_rows(solution: Solution) -> tuple[GenerationRow, ...]:
 def level_rows(solution: Solution) -> list[dict[str, Any]]:
     """One row per (role, generation) from inlet to outlet, means over the level's channels.
 
+    With culture regions, one row per (region, role, generation) (see :func:`level_groups`);
+    every row's ``region`` names its region ("" for shared channels).
+
     Channels without a generation (tubing, plain channels) are left out. Pressures at the
     level's upstream and downstream ends are the means of its end-node pressures [Pa].
     """
     net = solution.network
     rows = []
+    region = net.regions()
     for role, generation, members in level_groups(net):
         q = np.abs(solution.flow[members])
         p_a = solution.pressure[net.node_a[members]]
@@ -175,6 +196,7 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
             {
                 "generation": int(generation),
                 "role": str(role),
+                "region": str(region[members[0]]),
                 "count": int(members.size),
                 "width": float(w.mean()),
                 "depth": float(h.mean()),
@@ -205,23 +227,28 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
 
 def generation_labels(generations: Sequence[Mapping[str, Any]]) -> list[str]:
     """Short labels of levels along the path: ``d0, d1, ...`` (distribution), ``bed``, ``c1, c0``
-    (collection); other roles keep their name and generation.
+    (collection); other roles keep their name and generation. A level of a culture region
+    (a row whose ``region`` is not empty) is labelled after it: ``liver:d1``, ``liver:bed``.
 
     >>> generation_labels([{"generation": 0, "role": "distribution"},
     ...                    {"generation": 1, "role": "bed"},
     ...                    {"generation": 0, "role": "collection"}])
     ['d0', 'bed', 'c0']
+    >>> generation_labels([{"generation": 2, "role": "bed", "region": "liver"}])
+    ['liver:bed']
     """
     out = []
     for g in generations:
         role = str(g.get("role", ""))
         number = g.get("generation", "")
+        region = str(g.get("region", "") or "")
+        head = f"{region}:" if region else ""
         if role == "bed":
-            out.append("bed")
+            out.append(f"{head}bed")
         elif role in ("distribution", "collection"):
-            out.append(f"{role[0]}{number}")
+            out.append(f"{head}{role[0]}{number}")
         else:
-            out.append(f"{role} {number}".strip())
+            out.append(f"{head}{role} {number}".strip())
     return out
 
 
@@ -245,6 +272,7 @@ CHANNEL_KEYS = (
     "wall_shear_max",
     "reynolds",
     "residence_time",
+    "region",
 )
 
 
@@ -252,7 +280,8 @@ def channel_columns(solution: Solution) -> dict[str, np.ndarray]:
     """Every channel of the solved network as columns keyed by :data:`CHANNEL_KEYS` (SI).
 
     ``from``/``to`` are the end nodes as given; ``flow`` is signed (positive from ``from`` to
-    ``to``); ``pressure_in``/``pressure_out`` are the upstream and downstream end pressures.
+    ``to``); ``pressure_in``/``pressure_out`` are the upstream and downstream end pressures;
+    ``region`` is the channel's culture region ("" for shared channels and tubing).
     """
     net = solution.network
     nodes = np.asarray(net.node_names, dtype=object)
@@ -277,6 +306,7 @@ def channel_columns(solution: Solution) -> dict[str, np.ndarray]:
         "wall_shear_max": solution.wall_shear_max,
         "reynolds": solution.reynolds,
         "residence_time": solution.residence_time,
+        "region": net.regions(),
     }
 
 

@@ -207,5 +207,6 @@ def with_tubing(
         generation=np.concatenate([chip.generation, np.full(n, -1)]),
         role=np.concatenate([chip.role, np.full(n, "tubing")]),
         node_names=names,
+        region=None if chip.region is None else np.concatenate([chip.region, np.full(n, "")]),
     )
     return network, feed, drain

@@ -212,6 +212,32 @@ def verdict_line(results: Mapping[str, Any]) -> str:
     return f"checks: {counts['pass']} pass, {counts['warn']} warn, {counts['fail']} fail"
 
 
+def region_lines(results: Mapping[str, Any]) -> list[str]:
+    """One line per culture region: its share of the flow as solved and as asked, its bed
+    channels, its footprint and the drawn extent of its bed (nothing for a design of one
+    bed without a footprint)."""
+    regions = results.get("regions") or []
+    lines = []
+    for r in regions:
+        if not r["name"] and r["footprint"] is None:
+            continue
+        along, across = r["bed_extent"]
+        bed = f"bed {display.quantity(along, 'length')} x {display.quantity(across, 'length')}"
+        if r["footprint"] is not None:
+            fa, fc = r["footprint"]
+            bed += f" in its {display.quantity(fa, 'length')} x "
+            bed += f"{display.quantity(fc, 'length')} footprint"
+        head = f"region {r['name']}: " if r["name"] else "bed: "
+        share = ""
+        if r["name"]:
+            share = (
+                f"{display.fraction(r['flow_fraction'], 4)} of the flow (target "
+                f"{display.fraction(r['flow_fraction_target'], 4)}), "
+            )
+        lines.append(f"{head}{share}{r['bed_channels']} bed channels, {bed}")
+    return lines
+
+
 def totals_and_checks(results: Mapping[str, Any]) -> str:
     """The lines under the tables: supply pressure and flow, sizing notes and the checks."""
     lines: list[str] = []
@@ -235,6 +261,7 @@ def totals_and_checks(results: Mapping[str, Any]) -> str:
             f"network, {display.fraction(field['area_outside_window'])} of the seeded floor "
             f"outside the shear window ({field['mesh_triangles']} triangles)"
         )
+    lines += region_lines(results)
     lines += transport_lines(results)
     for warning in results.get("warnings") or []:
         lines.append(f"sizing: {warning}")

@@ -292,6 +292,34 @@ def _generations(results: Mapping[str, Any]) -> str:
     return _table(["generation", "role", *headers], rows, text_columns=2, row_classes=classes)
 
 
+def _regions(results: Mapping[str, Any]) -> str:
+    """The culture regions: share of the flow asked and solved, bed channels, footprint and
+    the bed's drawn extent (nothing for one bed without a footprint)."""
+    regions = [r for r in results.get("regions") or [] if r["name"] or r["footprint"]]
+    if not regions:
+        return ""
+
+    def size(pair) -> str:
+        if pair is None:
+            return "&ndash;"
+        return f"{_quantity(pair[0], 'length')} &times; {_quantity(pair[1], 'length')}"
+
+    rows = [
+        [
+            _e(r["name"] or "bed"),
+            _num(100 * r["flow_fraction_target"], 4) + " %",
+            _num(100 * r["flow_fraction"], 6) + " %",
+            str(r["bed_channels"]),
+            size(r["footprint"]),
+            size(r["bed_extent"]),
+        ]
+        for r in regions
+    ]
+    headers = ["culture region", "flow share asked", "as solved", "bed channels",
+               "footprint (along &times; across)", "bed as drawn"]  # fmt: skip
+    return "<h3>Culture regions</h3>" + _table(headers, rows, text_columns=1)
+
+
 #: Columns of the channel table of an explicit network (after channel, from and to).
 _CHANNEL_COLUMNS = (
     ("width", "width", "width"),
@@ -553,6 +581,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _operating_point(results),
         "<h2>Generations, inlet to outlet</h2>",
         _generations(results),
+        _regions(results),
         _extremes(results),
         _channels(results),
         _notes(results),

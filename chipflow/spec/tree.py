@@ -37,6 +37,15 @@ channels as the product of the splits, and ``n`` collecting generations back to 
     length = "800 um"            # ... or the bed channel length directly (exactly one of them)
     max_straight_length = "5 mm" # longer bed channels are folded by the layout
     gap = "100 um"               # wall between neighbouring bed channels (default min_gap)
+    footprint = ["10 mm", "8 mm"] # the bed lies inside this rectangle (along, across the flow)
+
+    # several culture regions instead of one [bed] (see chipflow.spec.regions):
+    # [[regions]]
+    # name = "liver"
+    # flow_fraction = 0.25
+    # bed_channels = 16          # or splits = [...]
+    # residence_time = "60 s"    # and the other [bed] keys
+    # cell_type = "hepatocyte"   # optional: this region's own cells
 
     [targets]
     shear_kind = "floor"         # "floor" (centre of the floor, default), "mean" or "max"
@@ -69,6 +78,7 @@ depth of 50 um are common practice for single-layer SU-8 moulds, not measured va
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -79,6 +89,8 @@ from chipflow.spec.reader import Table
 __all__ = [
     "Fabrication",
     "BedSpec",
+    "Footprint",
+    "read_bed",
     "Targets",
     "TreeSpec",
     "RULES",
@@ -113,6 +125,7 @@ TOP_KEYS = (
     "tolerances",
     "walls",
     "solutes",
+    "regions",
 )
 TREE_KEYS = (
     "flow",
@@ -130,7 +143,8 @@ TREE_KEYS = (
     "length",
     "lengths",
 )
-BED_KEYS = ("residence_time", "length", "max_straight_length", "gap")
+#: Keys of one bed: the ``[bed]`` table, and the same keys in each ``[[regions]]`` table.
+BED_KEYS = ("residence_time", "length", "max_straight_length", "gap", "footprint")
 TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance")
 FABRICATION_KEYS = (
     "depths",
@@ -213,8 +227,26 @@ class Fabrication:
 
 
 @dataclass(frozen=True)
+class Footprint:
+    """The rectangle a bed must lie in, folds included.
+
+    Attributes
+    ----------
+    along, across : float
+        Its size along the flow (x) and across it (y) [m].
+    key : str
+        Where the design file gives it, for messages (``"[bed] footprint"``,
+        ``"footprint of region 'liver'"``).
+    """
+
+    along: float
+    across: float
+    key: str = "[bed] footprint"
+
+
+@dataclass(frozen=True)
 class BedSpec:
-    """The bed of parallel channels.
+    """The bed of parallel channels: the ``[bed]`` table, or the bed keys of a region.
 
     Attributes
     ----------
@@ -231,12 +263,15 @@ class BedSpec:
         [m], at least ``Fabrication.min_gap`` (None: ``Fabrication.min_gap``). The drawing
         keeps at least this wall; a wider upper generation or half-grid steps that keep the
         walls on the grid may widen it.
+    footprint : Footprint or None
+        The rectangle the bed must lie in (None: anywhere on the chip).
     """
 
     residence_time: float | None = None
     length: float | None = None
     max_straight_length: float | None = None
     gap: float | None = None
+    footprint: Footprint | None = None
 
 
 @dataclass(frozen=True)
@@ -311,6 +346,9 @@ class TreeSpec:
     fabrication : Fabrication
     source : str
         File name for messages.
+    regions : tuple of RegionSpec
+        The culture regions (:mod:`chipflow.spec.regions`); empty for one bed (``[bed]``).
+        With regions, ``splits`` is empty and ``bed`` unused: each region has its own.
     """
 
     name: str
@@ -332,6 +370,7 @@ class TreeSpec:
     source: str = "<design>"
     splits: tuple[int, ...] | None = None
     split_note: str = ""
+    regions: tuple = ()
 
     def __post_init__(self) -> None:
         if self.splits is None:  # a bifurcating tree
@@ -446,6 +485,20 @@ def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
     if table is None:
         raise top.error("bed", "missing section [bed]: give residence_time or length")
     table.only(BED_KEYS)
+    return read_bed(table, fab)
+
+
+def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
+    """The bed keys of ``table`` (``[bed]``, or a ``[[regions]]`` entry, which may hold other
+    keys too): :data:`BED_KEYS`.
+
+    ``label`` names the bed in messages (``"[bed]"``, ``"region 'liver'"``).
+
+    >>> from chipflow.spec.reader import parse_design_text
+    >>> top = parse_design_text('[bed]\\nlength = "2 mm"\\nfootprint = ["10 mm", "8 mm"]')
+    >>> read_bed(top.table("bed"), Fabrication()).footprint
+    Footprint(along=0.01, across=0.008, key='[bed] footprint')
+    """
     residence = table.quantity("residence_time", "time", None)
     length = table.quantity("length", "length", None)
     if (residence is None) == (length is None):
@@ -457,11 +510,23 @@ def _read_bed(top: Table, fab: Fabrication) -> BedSpec:
             f"a wall of {gap * 1e6:.4g} um is thinner than [fabrication].min_gap "
             f"{fab.min_gap * 1e6:.4g} um; give at least that, or lower min_gap",
         )
+    footprint = None
+    if "footprint" in table:
+        sides = table.quantities("footprint", "length")
+        if len(sides) != 2:
+            raise table.error(
+                "footprint",
+                f'give two lengths, along the flow and across it (e.g. ["10 mm", "8 mm"]), '
+                f"got {len(sides)}",
+            )
+        key = "[bed] footprint" if label == "[bed]" else f"footprint of {label}"
+        footprint = Footprint(float(sides[0]), float(sides[1]), key)
     return BedSpec(
         residence_time=residence,
         length=length,
         max_straight_length=table.quantity("max_straight_length", "length", None),
         gap=gap,
+        footprint=footprint,
     )
 
 
@@ -579,10 +644,23 @@ def load_tree_spec(top: Table) -> TreeSpec:
     tree = top.table("tree")
     tree.only(TREE_KEYS)
     fab = read_fabrication(top)
-    splits, split_note = _splits(tree)
+    regional = "regions" in top
+    if regional:
+        _refuse_one_tree_keys(top, tree)
+        splits, split_note = (), ""
+    else:
+        splits, split_note = _splits(tree)
     n = len(splits)
     rule = tree.choice("rule", RULES)
     shape = tree.choice("shape", SHAPES, "rectangular")
+    given = top.data.get("targets")
+    if regional and isinstance(given, dict) and isinstance(given.get("shear"), list):
+        if len(given["shear"]) > 1:
+            raise top.error(
+                "targets.shear",
+                "with [[regions]] give one shear target (each region's tree has its own "
+                "number of generations)",
+            )
     targets = _read_targets(top, n)
     trunk_width = tree.quantity("trunk_width", "length", None)
     trunk_depth = _picometre(tree.quantity("trunk_depth", "length", None))
@@ -606,7 +684,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     if rule == "area-growth":
         if (growth is None) == (ratio is None):
             raise tree.error(None, "area-growth needs exactly one of growth and velocity_ratio")
-        if ratio is not None:
+        if ratio is not None and not regional:
             if n == 0:
                 raise tree.error("velocity_ratio", "needs at least one generation")
             growth = float(ratio) ** (1.0 / n)
@@ -637,6 +715,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     needs_target = rule == "shear-target" or (
         rule in ("equal-shear", "area-growth") and trunk_width is None
     )
+
     if needs_target and targets.target(0) is None:
         raise top.error(
             "targets",
@@ -657,7 +736,7 @@ def load_tree_spec(top: Table) -> TreeSpec:
     else:
         lengths = (tree.quantity("length", "length", 3e-3),) * n
     fluid = read_fluid(top)
-    return TreeSpec(
+    spec = TreeSpec(
         name=top.label("name", "tree"),
         description=top.text("description", ""),
         fluid=fluid,
@@ -671,10 +750,44 @@ def load_tree_spec(top: Table) -> TreeSpec:
         widths=widths,
         depths=depths,
         lengths=lengths,
-        bed=_read_bed(top, fab),
+        bed=BedSpec() if regional else _read_bed(top, fab),
         targets=targets,
         fabrication=fab,
         source=top.source,
         splits=splits,
         split_note=split_note,
     )
+    if not regional:
+        return spec
+    from chipflow.spec.regions import read_regions
+
+    nominal = tree.quantity("length", "length", 3e-3)
+    regions = read_regions(top, spec, fab, None if ratio is None else float(ratio), nominal)
+    return dataclasses.replace(spec, regions=regions)
+
+
+def _refuse_one_tree_keys(top: Table, tree: Table) -> None:
+    """With ``[[regions]]``, the keys that describe one tree's bed are the regions' own."""
+    for key in ("generations", "bed_channels", "splits"):
+        if key in tree:
+            raise tree.error(
+                key, "with [[regions]], each region gives its own bed_channels or splits"
+            )
+    if "bed" in top:
+        raise top.error(
+            "bed",
+            "with [[regions]], each region has its own bed keys (residence_time or length, gap, "
+            "max_straight_length, footprint): move them from [bed] into the regions",
+        )
+    if tree.data.get("rule") == "table":
+        raise tree.error(
+            "rule",
+            'rule = "table" gives the widths of one tree; with [[regions]] use equal-shear, '
+            "shear-target or area-growth",
+        )
+    if tree.data.get("shape") == "round":
+        raise tree.error("shape", "round tubes cannot be drawn; [[regions]] need a chip")
+    if "lengths" in tree:
+        raise tree.error(
+            "lengths", "with [[regions]] give one nominal length (each region has its own tree)"
+        )
