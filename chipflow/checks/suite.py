@@ -131,7 +131,9 @@ def culture_checks(
     out: list[CheckResult] = []
     beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
     everything = list(range(len(rows)))
-    seeded = beds if culture.seeded == "bed" and beds else everything
+    # cells in chambers (graded by their own floor check): "bed" then seeds no channel level
+    chambered = bool(np.any(net.role == "chamber"))
+    seeded = beds if culture.seeded == "bed" and (beds or chambered) else everything
     if window is not None:
         steady = [i for i in seeded if i not in oscillating]
         if steady or not rows:
