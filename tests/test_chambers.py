@@ -268,3 +268,15 @@ def test_paired_chip_field_agrees_with_the_network():
 
     field = build_design(resolve_design("paired_culture_chambers"), field=True).results["field"]
     assert field["resistance"] == pytest.approx(field["network_resistance"], rel=0.01)
+
+
+def test_the_console_and_the_report_show_the_chambers(paired):
+    from chipflow.report.console import console_summary
+    from chipflow.report.html import report_html
+
+    text = console_summary(paired.results)
+    line = next(x for x in text.splitlines() if x.startswith("pillar chamber") and "hex" in x)
+    s = paired.results["chambers"][1]["floor_shear"]
+    assert f"{s['p50']:.4g}" in line and line.endswith("ok")
+    html = report_html(paired.results)
+    assert "<h2>Chambers</h2>" in html and "150 hex, 150 um on 400 um" in html
