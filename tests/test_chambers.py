@@ -280,3 +280,27 @@ def test_the_console_and_the_report_show_the_chambers(paired):
     assert f"{s['p50']:.4g}" in line and line.endswith("ok")
     html = report_html(paired.results)
     assert "<h2>Chambers</h2>" in html and "150 hex, 150 um on 400 um" in html
+
+
+def test_vary_refuses_chambers_and_sweep_takes_their_keys(tmp_path):
+    """vary does not repeat the chambers' 2D solves: one line, exit 2; a sweep builds every
+    point, so it takes a chamber's keys, and its margin spans each chamber's p05 to p95."""
+    from click.testing import CliRunner
+
+    from chipflow.cli import main
+
+    runner = CliRunner()
+    out = runner.invoke(main, ["vary", str(PAIRED), "-o", str(tmp_path / "v")])
+    assert out.exit_code == 2 and "does not yet vary chambers" in out.output
+    assert "Traceback" not in out.output and not (tmp_path / "v").exists()
+    out = runner.invoke(
+        main,
+        ["sweep", str(PAIRED), "--vary", "chambers.pillar chamber.depth=80um,100um",
+         "--workers", "1", "-o", str(tmp_path / "s")],
+    )  # fmt: skip
+    assert out.exit_code == 0, out.output
+    rows = (tmp_path / "s" / "sweep.csv").read_text().splitlines()
+    assert len(rows) == 3
+    shallow, deep = (r.split(",") for r in rows[1:])
+    # a shallower chamber: more shear on its floor (the lowest floor shear of the chip rises)
+    assert float(shallow[4]) > float(deep[4])

@@ -172,8 +172,18 @@ def vary_build(
     Raises
     ------
     SpecError
-        For tolerances out of range for this design.
+        For tolerances out of range for this design, or a design with chambers (their floor
+        shear comes from their 2D solve, which the Monte Carlo does not repeat).
     """
+    if build.results.get("chambers"):
+        from chipflow.errors import SpecError
+
+        names = ", ".join(repr(c["name"]) for c in build.results["chambers"])
+        raise SpecError(
+            f"{build.source.path}: chipflow vary does not yet vary chambers ({names}): their "
+            "floor shear comes from their 2D solve, which the Monte Carlo does not repeat; "
+            'sweep their keys instead (chipflow sweep --vary "chambers.NAME.depth=...")'
+        )
     problem = variation_problem(build, tolerances)
     tol = problem.tolerance_vector(tolerances)
     draws = standard_draws(
