@@ -304,3 +304,65 @@ def test_vary_refuses_chambers_and_sweep_takes_their_keys(tmp_path):
     shallow, deep = (r.split(",") for r in rows[1:])
     # a shallower chamber: more shear on its floor (the lowest floor shear of the chip rises)
     assert float(shallow[4]) > float(deep[4])
+
+
+def _upright(down: bool, odd: bool = False) -> dict:
+    """A chamber along y between two punched ports (upwards, or downwards)."""
+    ys = [5.0, 8.0, 14.0, 17.0][:: -1 if down else 1]
+    width = "301 um" if odd else "300 um"
+    nodes = [{"name": n, "at": ["10 mm", f"{y} mm"]}
+             for n, y in zip(("in", "a", "b", "out"), ys, strict=True)]  # fmt: skip
+    return {
+        "name": "upright",
+        "fluid": {"kind": "medium"},
+        "nodes": nodes,
+        "channels": [
+            {"name": "feed", "from": "in", "to": "a", "width": width, "depth": "100 um"},
+            {"name": "drain", "from": "b", "to": "out", "width": width, "depth": "100 um"},
+        ],
+        "chambers": [{**CHAMBER_KEYS, "pillars": {"diameter": "150 um", "pitch": "400 um"}}],
+        "ports": [{"node": "in", "flow": "1 uL/min"}, {"node": "out", "pressure": "0 Pa"}],
+        "culture": {"cell_type": "hepatocyte"},
+        "chip": {"width": "20 mm", "height": "22 mm", "margin": "2 mm", "punch": "1 mm"},
+    }
+
+
+CHAMBER_KEYS = {"name": "c", "from": "a", "to": "b", "width": "1.6 mm", "length": "6 mm",
+                "depth": "100 um", "taper": "1 mm"}  # fmt: skip
+
+
+@pytest.mark.parametrize(("down", "odd"), [(False, False), (True, False), (False, True)])
+def test_a_chamber_along_y_is_the_same_solve_turned(down, odd):
+    """Drawn upwards or downwards (a quarter turn either way), a chamber is its key turned:
+    the same 2D solve as along x, its mask as wide as given; an odd-width feed (its centreline
+    half a grid step off) meets it all the same."""
+    build = build_design(DesignSource.from_dict(_upright(down, odd), "u.toml"), field=False)
+    (c,) = build.layout.chambers
+    assert c.turns == (3 if down else 1)
+    assert abs(c.mask_width - 1.6e-3) < 1e-9
+    row = build.results["chambers"][0]
+    assert row["resistance"] == pytest.approx(
+        solve_chamber(c.key).resistance * build.fluid.viscosity, rel=1e-9
+    )
+    assert row["flow"] == pytest.approx(1e-9 / 60, rel=1e-6)
+    assert row["flow_residual"] < 1e-5 and build.results["fabrication"]["findings"] == []
+    # the pillars drawn in the chip frame are the key's, turned and moved
+    deep = build.layout.layers[0].geometry
+    holes = sum(len(p.interiors) for p in getattr(deep, "geoms", [deep]))
+    assert holes == len(pillar_centres(c.key)) > 0
+    # one connected mask: no sliver of wall between the chamber and its channels
+    assert len(getattr(deep, "geoms", [deep])) == 1
+
+
+def test_a_chamber_off_axis_or_fed_from_the_side_is_refused():
+    from chipflow.errors import LayoutError
+
+    data = _upright(False)
+    data["nodes"][2]["at"] = ["11 mm", "14 mm"]
+    data["nodes"][3]["at"] = ["11 mm", "17 mm"]
+    with pytest.raises((LayoutError, SpecError), match="lies along x or along y"):
+        build_design(DesignSource.from_dict(data, "u.toml"), field=False)
+    data = _upright(False)
+    data["nodes"][0]["at"] = ["5 mm", "8 mm"]  # the feed arrives along x
+    with pytest.raises((LayoutError, SpecError), match="from the side"):
+        build_design(DesignSource.from_dict(data, "u.toml"), field=False)

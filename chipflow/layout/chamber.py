@@ -58,6 +58,7 @@ __all__ = [
     "chamber_polygon",
     "pillar_centres",
     "chamber_regions",
+    "port_bridges",
     "solve_chamber",
     "chamber_links",
     "chamber_field",
@@ -298,6 +299,18 @@ def _port_strip(key: ChamberKey, port: ChamberPort, start: float, end: float) ->
     return shapely.box(min(a, b), port.offset - half, max(a, b), port.offset + half)
 
 
+def port_bridges(key: ChamberKey) -> list[tuple[shapely.Polygon, float]]:
+    """The strips (key frame, with their depth [m]) that join the chamber's wall to a channel
+    ending short of it: a channel an odd number of grid steps wide is moved half a step along
+    its axis (:mod:`chipflow.layout.routes`), so one of a chamber's two channels ends half a
+    step outside its wall (a negative ``mouth``)."""
+    return [
+        (_port_strip(key, port, 0.0, -port.mouth), port.depth)
+        for port in key.ports
+        if port.mouth < 0
+    ]
+
+
 def chamber_regions(key: ChamberKey):
     """The chamber with a straight stub of each port's channel: field regions, ports
     (``"port<i>"`` at each stub's end), the stubs' lengths from their mouths [m] and the
@@ -309,7 +322,9 @@ def chamber_regions(key: ChamberKey):
     ports, stubs = [], []
     for i, port in enumerate(key.ports):
         s = _stub_length(port)
-        strip = _port_strip(key, port, -port.mouth, s)
+        # from the channel's end, or from the wall where the channel ends outside it (its
+        # bridge, :func:`port_bridges`, is drawn with the chamber)
+        strip = _port_strip(key, port, min(-port.mouth, 0.0), s)
         regions.append(FieldRegion(strip, port.depth))
         x = -s if port.side == 0 else key.length + s
         half = port.width / 2

@@ -498,13 +498,19 @@ def _sides(arm_ch: np.ndarray, members: np.ndarray, cat: dict) -> np.ndarray:
 
 
 def _chamber_outlines(cp, rules):
-    """A chamber's outline in the chip frame, the covers of its depth steps (outline,
-    depth) and its middle [m]."""
-    from chipflow.layout.chamber import chamber_polygon, chamber_regions, place, placed_polygon
+    """A chamber's outline in the chip frame, the covers of its depth steps and the bridges
+    to channels ending short of it ((outline, depth) each) and its middle [m]."""
+    from chipflow.layout.chamber import (
+        chamber_polygon,
+        chamber_regions,
+        place,
+        placed_polygon,
+        port_bridges,
+    )
 
     key = cp.key
     outline = placed_polygon(chamber_polygon(key), cp.origin, cp.turns)
-    covers = []
+    covers = [(placed_polygon(strip, cp.origin, cp.turns), d) for strip, d in port_bridges(key)]
     if key.overlap > 0:
         regions = chamber_regions(key)[0]
         for region in regions[1 + len(key.ports) :]:  # the covers after chamber and stubs
