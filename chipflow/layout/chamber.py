@@ -65,7 +65,6 @@ __all__ = [
     "floor_stats",
     "unsupported_span",
     "place",
-    "to_key_frame",
     "link_width",
 ]
 
@@ -609,12 +608,6 @@ def place(xy: np.ndarray, origin: tuple[float, float], turns: int) -> np.ndarray
     t = turns % 4
     turned = {0: (x, y), 1: (-y, x), 2: (-x, -y), 3: (y, -x)}[t]
     return np.stack((turned[0] + origin[0], turned[1] + origin[1]), axis=-1)
-
-
-def to_key_frame(xy: np.ndarray, origin: tuple[float, float], turns: int) -> np.ndarray:
-    """Chip-frame points in the key frame (the inverse of :func:`place`)."""
-    xy = np.asarray(xy, float) - np.asarray(origin, float)
-    return place(xy, (0.0, 0.0), -turns)
 
 
 def placed_polygon(poly: shapely.Polygon, origin, turns: int) -> shapely.Polygon:

@@ -161,14 +161,14 @@ def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
         When the chamber cannot be meshed or solved in 2D (it has no network without).
     """
     from chipflow.errors import FieldError
-    from chipflow.layout.chamber import link_width, solve_chamber
+    from chipflow.layout.chamber import chamber_links, link_width, solve_chamber
     from chipflow.physics.duct import resistance
 
     try:
-        sol = solve_chamber(key)
+        pairs, g, _ = chamber_links(key)
     except FieldError as exc:
         raise LayoutError(f"chamber {name!r} could not be solved in 2D: {exc}") from None
-    pairs, g = sol.links, sol.link_conductance
+    sol = solve_chamber(key)
     width = link_width(g, key.depth, sol.floor_area)
     length = 1.0 / (g * float(resistance(width, key.depth, 1.0, 1.0)))
     sides = [p.side for p in key.ports]
