@@ -645,13 +645,17 @@ def _build_network(
         network = drawn_network(design, layout)
         findings = check_rules(layout, rules)
         warnings = [*layout.warnings, *unsolved_junctions(layout)]
+        chambers = [
+            (c.name, c.key, [layout.node_names[n] for n in c.port_nodes]) for c in layout.chambers
+        ]
     else:
         if run_field:
             raise SpecError(
                 f"{source.path}: --field solves the flow on the drawing, and this network is "
                 f"{design.undrawn}"
             )
-        from chipflow.layout.check import size_findings
+        from chipflow.layout.check import chamber_findings, size_findings
+        from chipflow.layout.extract import with_chambers
 
         rect = ~network.round
         names = np.asarray(network.channel_names(), dtype=str)
@@ -660,6 +664,11 @@ def _build_network(
             network.width[rect], network.depth[rect], labels[rect], names[rect], rules
         )
         warnings = [design.undrawn] if design.undrawn else []
+        chambers = _undrawn_chambers(design, rules)
+        for name, key, _ in chambers:  # a handful of chambers: their shape's rules
+            findings += chamber_findings(name, key, rules)
+        progress("chambers")
+        network = with_chambers(network, chambers)
     progress("solve")
     soft = solve_operating_point(
         design.operation.walls, network, design.fluid, design.pressures, design.flows
@@ -669,6 +678,7 @@ def _build_network(
     transport = run_transport(solution, culture, transport_spec)
     progress("check")
     generations = level_rows(solution)
+    runs = _chamber_runs(chambers, soft.rigid, culture.window, progress)
     operation = operate(
         design.operation,
         solution,
@@ -687,6 +697,7 @@ def _build_network(
             culture.residence_time,
             oscillating=operation.oscillating,
         ),
+        *_chamber_checks(runs, culture),
         *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
@@ -717,6 +728,7 @@ def _build_network(
         for i, row in enumerate(results["channels"]):  # a network written by hand
             row["mask_width"] = float(mask[i]) if i < mask.size else None
     results["fabrication"] = None if layout is None else _fabrication_dict(layout, export, findings)
+    results["chambers"] = _chamber_dicts(runs, culture.window)
     results["warnings"] = warnings
     field_run = (
         None
@@ -754,6 +766,64 @@ def _build_network(
         operation=operation,
         transport=transport,
     )
+
+
+def _undrawn_chambers(design, rules) -> list:
+    """The chambers of an explicit network that is not drawn: each key with its two channels
+    meeting it on its axis (name, key, nodes)."""
+    from chipflow.layout.chamber import undrawn_key
+
+    net = design.network
+    out = []
+    for c in design.chambers:  # a handful of chambers
+        ends = []
+        for node in (c.a, c.b):
+            i = net.node_index(node)
+            k = int(np.flatnonzero(((net.node_a == i) | (net.node_b == i)) & ~net.round)[0])
+            ends.append((float(net.width[k]), float(net.depth[k])))
+        key = undrawn_key(c.shape, ends[0], ends[1], rules.grid, rules.alignment_margin)
+        out.append((c.name, key, [c.a, c.b]))
+    return out
+
+
+def _chamber_runs(chambers, solution, window, progress: Progress) -> list:
+    """Each chamber at the operating point (its floor shear from its 2D solve)."""
+    if not chambers:
+        return []
+    from chipflow.field.chambers import chamber_runs
+
+    progress("chambers")
+    return chamber_runs(chambers, solution, window)
+
+
+def _chamber_dicts(runs, window) -> list[dict[str, Any]]:
+    if not runs:
+        return []
+    from chipflow.field.chambers import chamber_dict
+
+    return [chamber_dict(r, window is not None) for r in runs]
+
+
+def _chamber_checks(runs, culture) -> list[CheckResult]:
+    """The share of each chamber's floor inside the cells' window (none without one)."""
+    window = culture.window
+    if window is None:
+        return []
+    from chipflow.checks.culture import check_chamber_floor
+
+    return [
+        check_chamber_floor(
+            r.name,
+            1.0 - r.stats.outside,
+            r.stats.p05,
+            r.stats.p50,
+            r.stats.p95,
+            window,
+            culture.outside_window_limit,
+            source=culture.outside_window_source,
+        )
+        for r in runs
+    ]
 
 
 def drawn_network(design, layout: Layout):

@@ -416,6 +416,16 @@ RESULT_UNITS: dict[str, str] = {
     "field_cv": "1",
     "network_cv": "1",
     "area": "m^2",
+    # chambers (results["chambers"])
+    "corner_radius": "m",
+    "taper": "m",
+    "diameter": "m",
+    "pitch": "m",
+    "floor_area": "m^2",
+    "inside_window": "1",
+    "unsupported_span": "m",
+    "flow_residual": "1",
+    "link_fit_error": "1",
     # time-varying operation (results["operation"] and the per-level rows)
     "pulsation": "1",
     "min": "Pa",

@@ -61,6 +61,41 @@ def _region(**changes) -> dict:
     return {"regions": items}
 
 
+# the keys of chambers are changed on a small network of one chamber without positions (its
+# chamber is solved in 2D all the same; the drawn paired design is built in test_chambers.py)
+CHAMBER = {
+    "name": "cell chamber", "from": "b", "to": "c", "width": "1.2 mm", "length": "3 mm",
+    "depth": "100 um",
+}  # fmt: skip
+ONE_CHAMBER = {
+    "name": "one-chamber",
+    "fluid": {"kind": "medium"},
+    "channels": [
+        {"name": "feed", "from": "a", "to": "b", "width": "300 um", "depth": "100 um",
+         "length": "5 mm"},
+        {"name": "drain", "from": "c", "to": "d", "width": "300 um", "depth": "100 um",
+         "length": "5 mm"},
+    ],
+    "chambers": [CHAMBER],
+    "ports": [{"node": "a", "flow": "2 uL/min"}, {"node": "d", "pressure": "0 Pa"}],
+    "culture": {"cell_type": "hepatocyte"},
+}  # fmt: skip
+ON_CHAMBER = {"__design__": ONE_CHAMBER}
+PILLARED = {"__design__": {**ONE_CHAMBER, "chambers": [
+    {**CHAMBER, "pillars": {"diameter": "150 um", "pitch": "400 um"}}]}}  # fmt: skip
+
+
+def _chamber(context: dict, **change) -> dict:
+    """A change of the one chamber's keys (None: left out)."""
+    item = {**context["__design__"]["chambers"][0], **change}
+    return {"chambers": [{k: v for k, v in item.items() if v is not None}]}
+
+
+def _pillars(**change) -> dict:
+    pillars = {**PILLARED["__design__"]["chambers"][0]["pillars"], **change}
+    return _chamber(PILLARED, pillars=pillars)
+
+
 TWO_LEVEL = {"fabrication": {"depths": ["30 um", "100 um"], "max_width_to_depth": 12}}
 
 VARIED = {
@@ -131,6 +166,29 @@ CASES = {
         ),  # fmt: skip
         "build",
     ),
+    ("chambers", "name"): (ON_CHAMBER, _chamber(ON_CHAMBER, name="culture"), "build"),
+    ("chambers", "from"): (ON_CHAMBER, _chamber(ON_CHAMBER, **{"from": "c", "to": "b"}), "build"),
+    ("chambers", "to"): (
+        ON_CHAMBER,
+        {
+            "chambers": [{**CHAMBER, "to": "e"}],
+            "channels": [ONE_CHAMBER["channels"][0], {**ONE_CHAMBER["channels"][1], "from": "e"}],
+        },
+        "build",
+    ),
+    ("chambers", "width"): (ON_CHAMBER, _chamber(ON_CHAMBER, width="1.5 mm"), "build"),
+    ("chambers", "depth"): (ON_CHAMBER, _chamber(ON_CHAMBER, depth="80 um"), "build"),
+    ("chambers", "length"): (ON_CHAMBER, _chamber(ON_CHAMBER, length="4 mm"), "build"),
+    ("chambers", "corner_radius"): (
+        ON_CHAMBER,
+        _chamber(ON_CHAMBER, corner_radius="300 um"),
+        "build",
+    ),  # fmt: skip
+    ("chambers", "taper"): (ON_CHAMBER, _chamber(ON_CHAMBER, taper="500 um"), "build"),
+    ("chambers", "pillars"): (PILLARED, _chamber(PILLARED, pillars=None), "build"),
+    ("chambers", "diameter"): (PILLARED, _pillars(diameter="100 um"), "build"),
+    ("chambers", "pitch"): (PILLARED, _pillars(pitch="350 um"), "build"),
+    ("chambers", "pattern"): (PILLARED, _pillars(pattern="square"), "build"),
     ("tree", "rule"): (
         {},
         {"tree": {"rule": "shear-target"}, "targets": {"shear": "0.9 Pa"}},
@@ -407,8 +465,9 @@ VALUES = {
     "rectangular", "round", "floor", "mean", "max", "all", "bed", "syringe", "pressure",
     "reservoir", "open", "um", "mm", "R2000", "R12", "split", "keyhole", "channels", "inverse",
     "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
-    "pulsatile-pressure", "rocker", "PDMS", "1 day", '"15 deg"', "time [s],flow [uL/min]", '"auto"',
-    '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)", "0.25", '"25 %"', "_", "-",
+    "pulsatile-pressure", "rocker", "PDMS", '"hex"', '"square"', "1 day", '"15 deg"',
+    "time [s],flow [uL/min]", '"auto"', '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)",
+    "0.25", '"25 %"', "_", "-",
 }  # fmt: skip
 
 
@@ -470,7 +529,8 @@ def fingerprint(data: dict, what: str, tmp_path: Path) -> bytes:
     if what == "build":
         results = dict(build.results)
         results["design"] = {k: v for k, v in results["design"].items() if k != "sha256"}
-        layers = b"".join(shapely.to_wkb(layer.geometry) for layer in build.layout.layers)
+        drawn = build.layout.layers if build.layout is not None else ()
+        layers = b"".join(shapely.to_wkb(layer.geometry) for layer in drawn)
         return json.dumps(results, sort_keys=True, default=str).encode() + layers
     if what == "dxf":
         from chipflow.export.dxf import write_dxf

@@ -28,6 +28,7 @@ from chipflow.errors import ArgumentError
 __all__ = [
     "check_floor_shear",
     "check_floor_outside",
+    "check_chamber_floor",
     "SHEAR_TOLERANCE",
     "shear_status",
     "OUTSIDE_WINDOW_LIMIT",
@@ -205,3 +206,75 @@ _ZONE_WORDS = {
     "bed end": "the ends of the bed",
     "port": "the ports",
 }
+
+
+def check_chamber_floor(
+    name: str,
+    inside: float,
+    p05: float,
+    p50: float,
+    p95: float,
+    window: ShearWindow,
+    limit: float = OUTSIDE_WINDOW_LIMIT,
+    *,
+    source: str = OUTSIDE_WINDOW_SOURCE,
+) -> CheckResult:
+    """A chamber's floor shear: the share of its floor inside the cells' window, from the 2D
+    solve of its shape at the network's operating point.
+
+    A chamber has no one floor shear (it falls to zero at its walls and pillars and peaks in the
+    gaps between pillars), so it is graded by its share of the floor inside the window: it
+    passes when at most ``limit`` of the floor lies outside (the majority rule of
+    :func:`check_floor_outside`); beyond that it fails when even the median floor shear (p50)
+    is outside the window's warning band (:data:`SHEAR_TOLERANCE`), and warns otherwise.
+
+    Parameters
+    ----------
+    name : str
+        The chamber.
+    inside : float
+        Area share of its floor inside the window [1].
+    p05, p50, p95 : float
+        Area-weighted percentiles of its floor shear [Pa].
+    window : ShearWindow
+    limit : float
+        Largest share of the floor outside the window that passes [1].
+    source : str
+        Where ``limit`` comes from.
+
+    Examples
+    --------
+    >>> window = ShearWindow("endothelial", 0.5, 1.0, "Dewey et al. 1981")
+    >>> check_chamber_floor("A", 0.8, 0.3, 0.7, 0.95, window).status
+    'pass'
+    >>> check_chamber_floor("A", 0.3, 0.1, 0.45, 0.7, window).status
+    'warn'
+    >>> check_chamber_floor("A", 0.1, 0.05, 0.2, 0.6, window).status
+    'fail'
+    """
+    outside = 1.0 - inside
+    if outside <= limit:
+        status = "pass"
+    else:
+        status = "fail" if str(shear_status([p50], window.min, window.max)[0]) == "fail" else "warn"
+    message = (
+        f"{fraction(inside)} of chamber {name!r}'s floor lies inside the {window.text} window "
+        f"(floor shear p05 {p05:.3g}, p50 {p50:.3g}, p95 {p95:.3g} Pa; at most "
+        f"{fraction(limit)} may lie outside)"
+    )
+    if status != "pass":
+        low = p50 < window.min
+        message += (
+            "; " + ("raise the flow or make the chamber shallower" if low else
+                    "lower the flow or make the chamber deeper or wider")
+        )  # fmt: skip
+    return CheckResult(
+        f"chamber floor shear: {name}",
+        status,
+        inside,
+        1.0 - limit,
+        "1",
+        f"{window.source}; {source}",
+        message,
+        level=f"chamber {name}",
+    )

@@ -140,7 +140,9 @@ def culture_checks(
     out: list[CheckResult] = []
     beds = [i for i, r in enumerate(rows) if r["role"] == "bed"]
     everything = list(range(len(rows)))
-    seeded = beds if culture.seeded == "bed" and beds else everything
+    # cells in chambers (graded by their own floor check): "bed" then seeds no channel level
+    chambered = bool(np.any(net.role == "chamber"))
+    seeded = beds if culture.seeded == "bed" and (beds or chambered) else everything
     own = region_windows or {}
     where = [str(r.get("region", "") or "") for r in rows]
     steady = [i for i in seeded if i not in oscillating]

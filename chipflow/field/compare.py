@@ -37,6 +37,17 @@ ZONES = ("channel", "junction", "bend", "bed end", "port")
 _TURN = np.radians(0.5)  # a centreline vertex turning more than this lies on an arc
 
 
+def chamber_triangles(mesh, layout) -> np.ndarray:
+    """Which triangles of ``mesh`` lie in one of the layout's chambers (bool per triangle)."""
+    inside = np.zeros(len(mesh.triangles), bool)
+    if not getattr(layout, "chambers", ()):
+        return inside
+    centroids = mesh.points[mesh.triangles].mean(axis=1)
+    for c in layout.chambers:  # a handful of chambers
+        inside |= shapely.contains_xy(c.outline, centroids[:, 0], centroids[:, 1])
+    return inside
+
+
 def _nearest_channel(centroids: np.ndarray, lines: np.ndarray) -> np.ndarray:
     """The line nearest to each point: the owner of its nearest straight segment (the same
     answer as the lines themselves, twice as fast: short segments prune better)."""
@@ -234,6 +245,8 @@ def compare_with_network(
     area = mesh.area
     role = ch.role.astype(str)
     seeded_tri = np.ones(len(area), bool) if seeded == "all" else role[channel] == "bed"
+    if seeded != "all":  # cells in chambers are seeded with the bed's
+        seeded_tri |= chamber_triangles(mesh, layout)
     floor = shear_stats(solution.floor_shear[seeded_tri], area[seeded_tri], window)
     zones = {}
     for k, name in enumerate(ZONES):

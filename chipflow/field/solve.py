@@ -172,6 +172,18 @@ class FieldSystem:
         a, bx, by = self.a, self.bx, self.by
         return sparse.bmat([[a, None, bx.T], [None, a, by.T], [bx, by, None]], format="csc")
 
+    def unpack(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The full fields of the reduced solution ``x``: the quadratic velocity coefficients
+        (x then y, ``2 n_nodes``) [m/s] and the linear pressure [Pa]."""
+        nn = self.space.n_nodes
+        nv = self.velocity_free.size
+        u = np.zeros(2 * nn)
+        u[self.velocity_free] = x[:nv]
+        u[nn + self.velocity_free] = x[nv : 2 * nv]
+        p = self.pressure.copy()
+        p[self.pressure_free] = x[2 * nv :]
+        return u, p
+
     def flows(self, x: np.ndarray) -> dict[str, float]:
         """Flow into the domain through each port [m^3/s] for the reduced solution ``x``."""
         n = self.velocity_free.size
@@ -310,12 +322,7 @@ def solve_on_mesh(
     t2 = time.perf_counter()
 
     flows = system.flows(x)
-    nv = system.velocity_free.size
-    u = np.zeros(2 * nn)
-    u[system.velocity_free] = x[:nv]
-    u[nn + system.velocity_free] = x[nv : 2 * nv]
-    p = system.pressure.copy()
-    p[system.pressure_free] = x[2 * nv :]
+    u, p = system.unpack(x)
     check_field_flows(flows, port_pressures)
     ux, uy = u[:nn], u[nn:]
     # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values

@@ -17,7 +17,19 @@ the chip frame and the channels involved:
 ``roof_sag``
     width/depth above the roof-sag limit (error: the roof touches the floor);
 ``tall_wall``
-    depth/width above the tall-wall limit (error: the PDMS walls fold or tear).
+    depth/width above the tall-wall limit (error: the PDMS walls fold or tear); for a
+    chamber's pillars, depth over pillar diameter (the posts fold);
+``pillar_diameter``
+    a chamber's pillars narrower than the mask's smallest feature (error);
+``pillar_gap``
+    a gap between a chamber's pillars, or between a pillar and the chamber's wall, narrower
+    than the mask's smallest feature (error).
+
+A chamber's roof is judged by its *unsupported span*, not its width: the diameter of the
+largest circle of roof that touches no wall or pillar
+(:func:`chipflow.layout.chamber.unsupported_span`) against the roof-sag limit on width/depth,
+at that circle's centre. Pillars exist to shorten the span (common practice: posts are added
+where a roof would sag); without pillars the span is the chamber's width.
 
 All checks are vectorised: an R-tree query over the channel outlines for pairs, numpy for the
 per-channel ratios. Per-channel ratio findings are grouped per level (role and generation).
@@ -33,9 +45,19 @@ import shapely
 from chipflow.layout.model import Layout
 from chipflow.layout.rules import LayoutRules
 
-__all__ = ["Finding", "check_rules", "size_findings", "RULES"]
+__all__ = ["Finding", "check_rules", "size_findings", "chamber_findings", "RULES"]
 
-RULES = ("min_width", "min_gap", "overlap", "outline", "port_keepout", "roof_sag", "tall_wall")
+RULES = (
+    "min_width",
+    "min_gap",
+    "overlap",
+    "outline",
+    "port_keepout",
+    "roof_sag",
+    "tall_wall",
+    "pillar_diameter",
+    "pillar_gap",
+)
 
 
 @dataclass(frozen=True)
@@ -77,6 +99,8 @@ def _outlines(layout: Layout) -> np.ndarray:
 
 def _label(layout: Layout, i: int) -> str:
     ch = layout.channels
+    if i >= ch.width.size:
+        return f"chamber {layout.chambers[i - ch.width.size].name!r}"
     if ch.names is not None:
         return f"channel {str(ch.names[i])!r}"
     return f"{ch.role[i]} channel gen {ch.generation[i]} #{ch.index[i]}"
@@ -159,6 +183,120 @@ def size_findings(
     return findings
 
 
+def chamber_findings(
+    name: str, key, rules: LayoutRules, origin=None, turns: int = 0
+) -> list[Finding]:
+    """The rules of a chamber's shape: its roof's unsupported span (``roof_sag``), its pillars'
+    diameter (``pillar_diameter``, and ``tall_wall`` for depth over diameter) and the gaps
+    between pillars and between pillars and walls (``pillar_gap``), placed in the chip frame
+    by ``origin`` and ``turns`` (NaN positions when not drawn).
+
+    >>> from chipflow.layout.chamber import ChamberKey, ChamberPort
+    >>> port = (ChamberPort(0, 1e-3, 2e-4, 1e-4), ChamberPort(1, 1e-3, 2e-4, 1e-4))
+    >>> wide = ChamberKey(2e-3, 8e-3, 1e-4, 0.0, 0.0, None, port, 1e-6)
+    >>> f = chamber_findings("A", wide, LayoutRules())
+    >>> f[0].rule, round(f[0].value, 6)
+    ('roof_sag', 20.0)
+    """
+    import math
+
+    from chipflow.layout.chamber import (
+        chamber_polygon,
+        pillar_centres,
+        place,
+        unsupported_span,
+    )
+
+    def where(x: float, y: float) -> tuple[float, float, str]:
+        if origin is None:
+            return math.nan, math.nan, ""
+        px, py = place(np.array([x, y]), origin, turns)
+        return float(px), float(py), f" at {_mm(px, py)}"
+
+    label = f"chamber {name!r}"
+    out = []
+    poly = chamber_polygon(key)
+    span, cx, cy = unsupported_span(poly, key.grid)
+    ratio = span / key.depth
+    if ratio > rules.max_width_to_depth * (1 + 1e-9):
+        x, y, at = where(cx, cy)
+        what = "between its pillars" if key.pillars is not None else "(no pillars hold it up)"
+        out.append(
+            Finding(
+                "roof_sag",
+                "error",
+                ratio,
+                rules.max_width_to_depth,
+                x,
+                y,
+                (),
+                f"{label}{at}: its roof spans {_um(span)} unsupported {what} over a depth of "
+                f"{_um(key.depth)}: roof sag ratio {ratio:.2f} > limit "
+                f"{rules.max_width_to_depth:g}; add pillars or a denser lattice",
+            )
+        )
+    if key.pillars is None:
+        return out
+    d = key.pillars[0]
+    centres = pillar_centres(key)
+    if len(centres) == 0:
+        return out
+    x, y, at = where(*centres[0])
+    if d < rules.min_feature * (1 - 1e-9):
+        out.append(
+            Finding(
+                "pillar_diameter",
+                "error",
+                d,
+                rules.min_feature,
+                x,
+                y,
+                (),
+                f"{label}{at}: pillars of {_um(d)} < mask minimum feature {_um(rules.min_feature)}",
+            )  # fmt: skip
+        )
+    if key.depth / d > rules.max_depth_to_width * (1 + 1e-9):
+        out.append(
+            Finding(
+                "tall_wall",
+                "error",
+                key.depth / d,
+                rules.max_depth_to_width,
+                x,
+                y,
+                (),
+                f"{label}{at}: pillars {_um(key.depth)} tall and {_um(d)} wide: tall wall "
+                f"ratio {key.depth / d:.2f} > limit {rules.max_depth_to_width:g}",
+            )  # fmt: skip
+        )
+    # the narrowest gap: between neighbouring pillars, and between a pillar and the outline
+    from scipy.spatial import cKDTree
+
+    between = np.inf
+    if len(centres) > 1:
+        dist, _ = cKDTree(centres).query(centres, k=2)
+        between = float(dist[:, 1].min()) - d
+    wall_d = shapely.distance(poly.exterior, shapely.points(centres)) - d / 2
+    k = int(np.argmin(wall_d))
+    gap = min(between, float(wall_d[k]))
+    if gap < rules.min_feature * (1 - 1e-9):
+        gx, gy, at = where(*centres[k])
+        out.append(
+            Finding(
+                "pillar_gap",
+                "error",
+                gap,
+                rules.min_feature,
+                gx,
+                gy,
+                (),
+                f"{label}{at}: gaps of {_um(gap)} around its pillars < mask minimum "
+                f"feature {_um(rules.min_feature)}",
+            )  # fmt: skip
+        )
+    return out
+
+
 def _um(value: float) -> str:
     return f"{value * 1e6:.1f} um"
 
@@ -189,13 +327,29 @@ def check_rules(layout: Layout, rules: LayoutRules) -> tuple[Finding, ...]:
     findings: list[Finding] = []
 
     findings += size_findings(ch.width, ch.depth, _labels(layout), _groups(layout), rules, mx, my)
+    for c in layout.chambers:  # a handful of chambers
+        findings += chamber_findings(c.name, c.key, rules, c.origin, c.turns)
+    # chambers join the pair and outline checks; a chamber and the channels meeting it share
+    # one node (each of its ports' nodes stands for the chamber)
+    na, nb = ch.node_a.copy(), ch.node_b.copy()
+    n_nodes = len(layout.node_xy)
+    extra = []
+    for k, c in enumerate(layout.chambers):
+        virtual = n_nodes + k
+        ports = np.asarray(c.port_nodes)
+        na[np.isin(na, ports)] = virtual
+        nb[np.isin(nb, ports)] = virtual
+        extra.append(virtual)
+    if layout.chambers:
+        out = np.concatenate([out, np.array([c.outline for c in layout.chambers], dtype=object)])
+        na = np.r_[na, extra]
+        nb = np.r_[nb, extra]
 
     # pairs of channels closer than the minimum gap that do not share a node
     tree = shapely.STRtree(out)
     a, b = tree.query(out, predicate="dwithin", distance=rules.min_gap * (1 - 1e-9))
     keep = a < b
     a, b = a[keep], b[keep]
-    na, nb = ch.node_a, ch.node_b
     linked = (na[a] == na[b]) | (na[a] == nb[b]) | (nb[a] == na[b]) | (nb[a] == nb[b])
     a, b = a[~linked], b[~linked]
     if a.size:

@@ -221,7 +221,8 @@ def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
     cat = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
     n_ch = cat["width"].size
 
-    depths = np.unique(np.round(cat["depth"], 12))
+    chamber_depths = [float(cp.key.depth) for cp in sketch.chambers]
+    depths = np.unique(np.round(np.r_[cat["depth"], chamber_depths], 12))
     layer = np.searchsorted(depths, np.round(cat["depth"], 12))
 
     # -- 2. junctions: per class of alike nodes --------------------------------------------
@@ -333,12 +334,45 @@ def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
                 )
             )
 
+    # -- 3b. chambers: their outlines, the overlaps at depth steps, one piece each ----------
+    drawn_chambers, chamber_centres = [], []
+    link_a, link_b = [], []
+    for cp in sketch.chambers:  # a handful of chambers
+        outline, covers, centre = _chamber_outlines(cp, rules)
+        frags.append((np.array([outline]), float(cp.key.depth), np.array([cp.port_nodes[0]])))
+        for cover, depth in covers:
+            frags.append((np.array([cover]), depth, np.array([cp.port_nodes[0]])))
+        arm_ch = []
+        for node in cp.port_nodes:  # the channel of each port
+            here = end_ch[by_node[node_start[node] : node_start[node + 1]]]
+            if here.size != 1:
+                raise LayoutError(
+                    f"chamber {cp.name!r}: its port at node {sketch.node_names[node]!r} joins "
+                    f"{here.size} channels; a chamber's port joins exactly one"
+                )
+            arm_ch.append(int(here[0]))
+        arm_ch = np.array([arm_ch])
+        kid = keys.setdefault(cp.key, len(keys))
+        rotation = math.remainder(cp.turns * math.pi / 2, 2 * math.pi)
+        arm_side = np.where(cat["node_a"][arm_ch] == np.array(cp.port_nodes)[None, :], 0, 1)
+        piece_rows.append(
+            ("chamber", kid, np.array([cp.port_nodes[0]]), rotation, False, arm_ch, arm_side)
+        )
+        chamber_centres.append(centre)
+        link_a += [cp.port_nodes[0]] * (len(cp.port_nodes) - 1)
+        link_b += list(cp.port_nodes[1:])
+        drawn_chambers.append((cp, outline, tuple(int(c) for c in arm_ch[0]), centre))
+
     # -- 4. mask layers -------------------------------------------------------------------
-    if not masks:
+    if not masks and not sketch.chambers:  # a chamber's piece is measured on its mask
         return _unmasked(sketch, cat, depths, layer, piece_rows, keys, node_xy)
     uncut = np.concatenate([np.full(g.size, g.cut is None) for g in groups])
-    hood = _hoods(n_nodes, cat["node_a"][uncut], cat["node_b"][uncut])
-    any_cut = any(g.cut is not None for g in groups)
+    hood = _hoods(
+        n_nodes,
+        np.r_[cat["node_a"][uncut], np.asarray(link_a, dtype=int)],
+        np.r_[cat["node_b"][uncut], np.asarray(link_b, dtype=int)],
+    )
+    any_cut = any(g.cut is not None for g in groups) or bool(sketch.chambers)
     geoms = np.concatenate([f[0] for f in frags])
     f_layer = np.concatenate(
         [np.full(f[0].size, np.searchsorted(depths, np.round(f[1], 12))) for f in frags]
@@ -395,8 +429,14 @@ def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
             mask = np.where(none, fill, mask)
     channels = dataclasses.replace(channels, mask_width=mask, hydraulic_length=hydraulic)
 
+    chambers = tuple(
+        _drawn_chamber(cp, outline, arms, centre, layers[int(np.searchsorted(depths, round(
+            float(cp.key.depth), 12)))].geometry, grid)
+        for cp, outline, arms, centre in drawn_chambers
+    )  # fmt: skip
+
     # -- 6. pieces ---------------------------------------------------------------------------
-    pieces = _pieces_table(piece_rows, tuple(keys), node_xy, sketch)
+    pieces = _pieces_table(piece_rows, tuple(keys), node_xy, sketch, chamber_centres)
     return Layout(
         name=sketch.name,
         outline=shapely.box(0.0, 0.0, sketch.chip.width, sketch.chip.height),
@@ -411,6 +451,7 @@ def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
         pieces=pieces,
         notes=tuple(sketch.notes),
         culture_regions=tuple(sketch.culture_regions),
+        chambers=chambers,
     )
 
 
@@ -487,7 +528,60 @@ def _sides(arm_ch: np.ndarray, members: np.ndarray, cat: dict) -> np.ndarray:
     return np.where(cat["node_a"][arm_ch] == members[:, None], 0, 1)
 
 
-def _pieces_table(rows: list[tuple], keys: tuple, node_xy: np.ndarray, sketch: Sketch) -> Pieces:
+def _chamber_outlines(cp, rules):
+    """A chamber's outline in the chip frame, the covers of its depth steps and the bridges
+    to channels ending short of it ((outline, depth) each) and its middle [m]."""
+    from chipflow.layout.chamber import (
+        chamber_polygon,
+        chamber_regions,
+        place,
+        placed_polygon,
+        port_bridges,
+    )
+
+    key = cp.key
+    outline = placed_polygon(chamber_polygon(key), cp.origin, cp.turns)
+    covers = [(placed_polygon(strip, cp.origin, cp.turns), d) for strip, d in port_bridges(key)]
+    if key.overlap > 0:
+        regions = chamber_regions(key)[0]
+        for region in regions[1 + len(key.ports) :]:  # the covers after chamber and stubs
+            covers.append((placed_polygon(region.polygon, cp.origin, cp.turns), region.depth))
+    centre = place(np.array([[key.length / 2, key.width / 2]]), cp.origin, cp.turns)[0]
+    return outline, covers, (float(centre[0]), float(centre[1]))
+
+
+def _drawn_chamber(cp, outline, arms, centre, layer, grid):
+    """The drawn chamber with its width measured on the merged mask across its middle."""
+    from chipflow.layout.chamber import place
+    from chipflow.layout.model import DrawnChamber
+
+    key = cp.key
+    x = key.length / 2
+    ends = place(np.array([[x, -2 * grid], [x, key.width + 2 * grid]]), cp.origin, cp.turns)
+    cut = shapely.intersection(shapely.LineString(ends), layer)
+    pts = shapely.get_coordinates(cut)
+    width = float("nan")
+    if len(pts):
+        direction = (ends[1] - ends[0]) / np.hypot(*(ends[1] - ends[0]))
+        along = (pts - ends[0]) @ direction
+        width = float(along.max() - along.min())
+    if not abs(width - key.width) <= min(1e-9, grid * 1e-3):
+        raise LayoutError(
+            f"chamber {cp.name!r}: it is {width * 1e6:.4f} um wide on the mask across its middle "
+            f"at ({centre[0] * 1e3:.3f}, {centre[1] * 1e3:.3f}) mm instead of "
+            f"{key.width * 1e6:.4f} um (a drawing fault)"
+        )
+    return DrawnChamber(cp.name, key, cp.origin, cp.turns, outline, tuple(cp.port_nodes), arms,
+                        centre, cp.role, cp.region, width)  # fmt: skip
+
+
+def _pieces_table(
+    rows: list[tuple],
+    keys: tuple,
+    node_xy: np.ndarray,
+    sketch: Sketch,
+    centres: list | None = None,
+) -> Pieces:
     if not rows:
         empty = np.zeros(0)
         return Pieces(
@@ -523,6 +617,8 @@ def _pieces_table(rows: list[tuple], keys: tuple, node_xy: np.ndarray, sketch: S
     kinds = np.concatenate(kind).astype(str)
     for i in np.flatnonzero(kinds == "port"):  # a handful of ports
         xy[i] = port_at[int(node[i])]
+    for i, centre in zip(np.flatnonzero(kinds == "chamber"), centres or [], strict=True):
+        xy[i] = centre
     return Pieces(
         keys,
         kinds,

@@ -35,6 +35,8 @@ __all__ = [
     "unsolved_pieces",
     "unsolved_junctions",
     "channel_names",
+    "chamber_channels",
+    "with_chambers",
 ]
 
 
@@ -143,6 +145,91 @@ def unsolved_pieces(layout: Layout) -> list[str]:
 unsolved_junctions = unsolved_pieces
 
 
+def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
+    """The network channels of one chamber: its links (:func:`~chipflow.layout.chamber.
+    chamber_links`), each an equivalent duct of the chamber's depth; their common width makes
+    their floors add up to the chamber's (:func:`~chipflow.layout.chamber.link_width`).
+
+    Parameters
+    ----------
+    name : str
+        The chamber's name: its one link's name, or the prefix of ``NAME.in1-out2``, ...
+    key : ChamberKey
+    nodes : sequence of int
+        The network node of each port of the key.
+
+    Raises
+    ------
+    LayoutError
+        When the chamber cannot be meshed or solved in 2D (it has no network without).
+    """
+    from chipflow.errors import FieldError
+    from chipflow.layout.chamber import chamber_links, link_width, solve_chamber
+    from chipflow.physics.duct import resistance
+
+    try:
+        pairs, g, _ = chamber_links(key)
+    except FieldError as exc:
+        raise LayoutError(f"chamber {name!r} could not be solved in 2D: {exc}") from None
+    sol = solve_chamber(key)
+    width = link_width(g, key.depth, sol.floor_area)
+    length = 1.0 / (g * float(resistance(width, key.depth, 1.0, 1.0)))
+    sides = [p.side for p in key.ports]
+    labels, counter = [], [0, 0]
+    for side in sides:  # a handful of ports
+        counter[side] += 1
+        labels.append(f"{'in' if side == 0 else 'out'}{counter[side]}")
+    names = (
+        [name]
+        if len(pairs) == 1
+        else [f"{name}.{labels[i]}-{labels[j]}" for i, j in pairs.tolist()]
+    )
+    nodes = np.asarray(nodes, dtype=int)
+    return {
+        "node_a": nodes[pairs[:, 0]],
+        "node_b": nodes[pairs[:, 1]],
+        "width": np.full(len(pairs), width),
+        "depth": np.full(len(pairs), float(key.depth)),
+        "length": length,
+        "names": names,
+    }
+
+
+def with_chambers(network: Network, chambers) -> Network:
+    """``network`` with each chamber's links appended after its channels (role "chamber",
+    no generation).
+
+    Parameters
+    ----------
+    network : Network
+    chambers : sequence of (name, key, nodes)
+        Each chamber's name, :class:`~chipflow.layout.chamber.ChamberKey` and the network
+        node (index or name) of each of its ports.
+    """
+    if not chambers:
+        return network
+    parts = []
+    for name, key, nodes in chambers:  # a handful of chambers
+        index = [network.node_index(n) for n in nodes]
+        parts.append(chamber_channels(name, key, index))
+    cat = {k: np.concatenate([p[k] for p in parts]) for k in ("node_a", "node_b", "width",
+                                                               "depth", "length")}  # fmt: skip
+    names = [n for p in parts for n in p["names"]]
+    k = cat["width"].size
+    return Network.from_arrays(
+        np.r_[network.node_a, cat["node_a"]],
+        np.r_[network.node_b, cat["node_b"]],
+        np.r_[network.width, cat["width"]],
+        np.r_[network.depth, cat["depth"]],
+        np.r_[network.length, cat["length"]],
+        round=np.r_[network.round, np.zeros(k, bool)],
+        names=[*network.channel_names(), *names],
+        generation=np.r_[network.generation, np.full(k, -1)],
+        role=np.r_[network.role, np.full(k, "chamber")],
+        node_names=network.node_names,
+    )
+
+
 def extract_network(layout: Layout, junctions: bool = True) -> Network:
     """The channel network of a drawn layout, for :func:`chipflow.network.solve`.
 
@@ -158,13 +245,14 @@ def extract_network(layout: Layout, junctions: bool = True) -> Network:
     -------
     Network
         One channel per drawn channel, in the same order, named as given by the design or
-        ``<role><generation>.<index>``; nodes named as in ``layout.node_names`` (a tree's
-        "inlet", "outlet", "split<k>.<i>", "merge<k>.<i>").
+        ``<role><generation>.<index>``; then each chamber's links (:func:`with_chambers`);
+        nodes named as in ``layout.node_names`` (a tree's "inlet", "outlet", "split<k>.<i>",
+        "merge<k>.<i>").
     """
     ch = layout.channels
     base = ch.length if ch.hydraulic_length is None else ch.hydraulic_length
     length = base + (piece_lengths(layout) if junctions else 0.0)
-    return Network.from_arrays(
+    network = Network.from_arrays(
         ch.node_a,
         ch.node_b,
         ch.width,
@@ -176,3 +264,4 @@ def extract_network(layout: Layout, junctions: bool = True) -> Network:
         node_names=layout.node_names,
         region=ch.region,
     )
+    return with_chambers(network, [(c.name, c.key, c.port_nodes) for c in layout.chambers])

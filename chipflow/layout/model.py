@@ -12,7 +12,15 @@ from dataclasses import dataclass
 import numpy as np
 import shapely
 
-__all__ = ["MaskLayer", "PortMark", "DrawnChannels", "Pieces", "Layout", "CultureRegion"]
+__all__ = [
+    "MaskLayer",
+    "PortMark",
+    "DrawnChannels",
+    "DrawnChamber",
+    "Pieces",
+    "Layout",
+    "CultureRegion",
+]
 
 
 @dataclass(frozen=True)
@@ -122,6 +130,48 @@ class DrawnChannels:
 
 
 @dataclass(frozen=True)
+class DrawnChamber:
+    """A drawn chamber (see :mod:`chipflow.layout.chamber`).
+
+    Attributes
+    ----------
+    name : str
+    key : ChamberKey
+        Its geometry in its own frame, with the channels meeting it: the key of its 2D solve.
+    origin : tuple of float
+        The key frame's origin in the chip frame [m].
+    turns : int
+        Quarter turns counter-clockwise from the key frame to the chip frame.
+    outline : shapely.Polygon
+        The chamber as drawn, pillars as holes [m].
+    port_nodes : tuple of int
+        The node where each port's channel ends (the key's port order).
+    port_channels : tuple of int
+        The channel of each port (into ``Layout.channels``).
+    centre : tuple of float
+        The middle of the chamber [m].
+    role : str
+        Role of its network links ("chamber").
+    region : str
+        Culture region ("" for none).
+    mask_width : float
+        Its width measured on the merged mask across the middle of its body [m].
+    """
+
+    name: str
+    key: object
+    origin: tuple[float, float]
+    turns: int
+    outline: shapely.Geometry
+    port_nodes: tuple[int, ...]
+    port_channels: tuple[int, ...]
+    centre: tuple[float, float]
+    role: str = "chamber"
+    region: str = ""
+    mask_width: float = float("nan")
+
+
+@dataclass(frozen=True)
 class Pieces:
     """The pieces of a drawing whose flow is not that of straight channels, as arrays.
 
@@ -136,14 +186,16 @@ class Pieces:
         The distinct geometry keys.
     kind : numpy.ndarray of str
         (P,) "fan" (a symmetric tree split: one solve with the children at one pressure, the
-        correction on the parent), "junction" (an N-port solve, one correction per arm) or
-        "port" (a punched hole into its channel).
+        correction on the parent), "junction" (an N-port solve, one correction per arm),
+        "port" (a punched hole into its channel) or "chamber" (a chamber with the channels
+        meeting it: its network is its links, :func:`chipflow.layout.chamber.chamber_links`).
     key : numpy.ndarray of int
         (P,) index into ``keys``.
     node : numpy.ndarray of int
         (P,) layout node the piece sits at.
     x, y : numpy.ndarray
-        (P,) its position [m] (the node; for a port, the hole's centre).
+        (P,) its position [m] (the node; for a port, the hole's centre; for a chamber, its
+        middle).
     rotation : numpy.ndarray
         (P,) angle that turns the key's frame into the chip frame [rad] (after ``mirror``).
     mirror : numpy.ndarray of bool
@@ -233,6 +285,8 @@ class Layout:
     culture_regions : tuple of CultureRegion
         The outlines of the culture regions (a design's footprint, or each of its
         ``[[regions]]``); not mask levels, written on a layer of their own.
+    chambers : tuple of DrawnChamber
+        The chambers, each a piece of its own (its network is appended after the channels).
     """
 
     name: str
@@ -248,3 +302,4 @@ class Layout:
     pieces: Pieces | None = None
     notes: tuple[str, ...] = ()
     culture_regions: tuple[CultureRegion, ...] = ()
+    chambers: tuple[DrawnChamber, ...] = ()

@@ -312,13 +312,15 @@ def solve_piece(key) -> PieceSolution:
 
     Parameters
     ----------
-    key : Junction, JunctionKey or PortKey
+    key : Junction, JunctionKey, PortKey or ChamberKey
 
     Returns
     -------
     PieceSolution
         Per arm of the key (a :class:`~chipflow.layout.junctions.Junction`: the parent, then
-        its two children, which take none; a :class:`PortKey`: its one channel).
+        its two children, which take none; a :class:`PortKey`: its one channel; a
+        :class:`~chipflow.layout.chamber.ChamberKey`: none for each port's channel, the
+        chamber's network being its links, :func:`chipflow.layout.chamber.chamber_links`).
     """
     return _solve(key)
 
@@ -332,6 +334,10 @@ def _solve(key) -> PieceSolution:
     settings = {"across": ACROSS, "stub_widths": STUB_WIDTHS}
     if isinstance(key, PortKey):
         kind, compute = "port", lambda: {"lengths": [_port_excess(key)], "fit_error": 0.0}
+    elif _is_chamber(key):  # its own solve and cache entry (chipflow.layout.chamber)
+        from chipflow.layout.chamber import solve_chamber
+
+        return PieceSolution((0.0,) * key.n_ports, solve_chamber(key).fit_error)
     elif isinstance(key, JunctionKey):
 
         def compute():
@@ -347,6 +353,12 @@ def _solve(key) -> PieceSolution:
 
 
 solve_piece.cache_clear = _solve.cache_clear  # type: ignore[attr-defined]
+
+
+def _is_chamber(key) -> bool:
+    from chipflow.layout.chamber import ChamberKey
+
+    return isinstance(key, ChamberKey)
 
 
 def _stub(key: JunctionKey) -> float:

@@ -25,7 +25,7 @@ from chipflow.layout.model import PortMark
 from chipflow.layout.pieces import junction_disc
 from chipflow.layout.plan import ceil_grid, drawn_width, half_offset
 from chipflow.layout.rules import Chip, LayoutRules
-from chipflow.layout.sketch import ChannelGroup, Sketch
+from chipflow.layout.sketch import ChamberPlace, ChannelGroup, Sketch
 from chipflow.layout.trace import trace
 
 __all__ = ["network_sketch"]
@@ -150,6 +150,10 @@ def network_sketch(drawing, name: str, chip: Chip, rules: LayoutRules) -> Sketch
                 names=(route.name,),
             )
         )
+    chambers = tuple(
+        _chamber_place(c, paths, node_xy, index, rules, warnings)
+        for c in getattr(drawing, "chambers", ())
+    )
     return Sketch(
         name=name,
         chip=chip,
@@ -159,6 +163,93 @@ def network_sketch(drawing, name: str, chip: Chip, rules: LayoutRules) -> Sketch
         groups=tuple(groups),
         ports=ports,
         warnings=tuple(warnings),
+        chambers=chambers,
+    )
+
+
+#: Directions of a chamber's axis: (unit vector, quarter turns from +x).
+_AXES = (((1.0, 0.0), 0), ((0.0, 1.0), 1), ((-1.0, 0.0), 2), ((0.0, -1.0), 3))
+
+
+def _chamber_place(chamber, paths, node_xy, index, rules: LayoutRules, warnings):
+    """Where a chamber of an explicit network lies: along x or y from its ``from`` node to its
+    ``to`` node, its walls on the grid, each of its channels meeting it along its axis."""
+    from chipflow.errors import SpecError
+    from chipflow.layout.chamber import ChamberPort, chamber_key
+    from chipflow.spec.network import LENGTH_TOLERANCE
+
+    grid = rules.grid
+    a, b = node_xy[index[chamber.a]], node_xy[index[chamber.b]]
+    d = b - a
+    length = float(np.hypot(*d))
+    found = [(v, t) for v, t in _AXES if np.allclose(d / max(length, 1e-300), v, atol=1e-12)]
+    if not found:
+        raise LayoutError(
+            f"{chamber.where}: chamber {chamber.name!r} runs from {_mm(a)} to {_mm(b)}: a chamber "
+            "lies along x or along y; give its two nodes the same x or the same y"
+        )
+    axis, turns = np.array(found[0][0]), found[0][1]
+    normal = np.array([-axis[1], axis[0]])
+    shape = chamber.shape
+    if abs(shape.length - length) > LENGTH_TOLERANCE * length:
+        raise SpecError(
+            f"{chamber.where}.length: chamber {chamber.name!r} is given {shape.length * 1e3:.4g} "
+            f"mm long but its nodes are {length * 1e3:.4g} mm apart (more than "
+            f"{LENGTH_TOLERANCE:.0%}); move a node or change the length"
+        )
+    width = drawn_width(shape.width, grid)
+    if not math.isclose(width, shape.width, rel_tol=0, abs_tol=1e-12):
+        warnings.append(
+            f"chamber {chamber.name!r}: width {shape.width * 1e6:.4g} um is not a whole number "
+            f"of {grid * 1e6:g} um grid steps; drawn and solved {width * 1e6:.4g} um wide"
+        )
+    ends = []
+    for node, side in ((chamber.a, 0), (chamber.b, 1)):
+        mine = [
+            (route, w, pts) for route, w, pts in paths if node in (route.a, route.b)
+        ]  # fmt: skip
+        route, w, pts = mine[0]
+        at_start = route.a == node
+        end = pts[0] if at_start else pts[-1]
+        away = (pts[1] - pts[0]) if at_start else (pts[-2] - pts[-1])
+        away = away / np.hypot(*away)
+        want = -axis if side == 0 else axis
+        if not np.allclose(away, want, atol=1e-9):
+            raise LayoutError(
+                f"{chamber.where}: channel {route.name!r} meets chamber {chamber.name!r} at "
+                f"{_mm(node_xy[index[node]])} from the side; its run there must lie along the "
+                "chamber's axis (add a corner with 'via')"
+            )
+        ends.append((end, w, route.depth))
+    (end_a, w_a, _), _ = ends
+    # the side wall y = 0 of the key frame on the grid, the axis near the feeding channel's
+    s = round((float((end_a - a) @ normal) - width / 2) / grid) * grid
+    origin = a + s * normal
+    ports = []
+    for side, (end, w, depth) in enumerate(ends):
+        local = end - origin
+        along, across = float(local @ axis), float(local @ normal)
+        mouth = along if side == 0 else length - along
+        if across - w / 2 < -1e-12 or across + w / 2 > width + 1e-12:
+            raise LayoutError(
+                f"{chamber.where}: the channel at the {('from', 'to')[side]} end of chamber "
+                f"{chamber.name!r} is wider than the chamber"
+            )
+        ports.append(ChamberPort(side, across, w, depth, mouth))
+    import dataclasses
+
+    key = chamber_key(
+        dataclasses.replace(shape, width=width, length=length),
+        ports,
+        grid,
+        rules.alignment_margin,
+    )
+    return ChamberPlace(
+        chamber.name,
+        key,
+        (float(origin[0]), float(origin[1])),
+        turns,
+        (index[chamber.a], index[chamber.b]),
     )
 
 

@@ -32,7 +32,7 @@ from chipflow.layout.model import PortMark
 from chipflow.layout.rules import Chip, LayoutRules
 from chipflow.layout.trace import Trace
 
-__all__ = ["ChannelGroup", "PieceSpec", "Sketch", "IDENTITY"]
+__all__ = ["ChannelGroup", "ChamberPlace", "PieceSpec", "Sketch", "IDENTITY"]
 
 #: The identity map of a group's templates into the chip frame.
 IDENTITY = ((1.0, 0.0), (0.0, 1.0))
@@ -141,6 +141,36 @@ class PieceSpec:
 
 
 @dataclass(frozen=True)
+class ChamberPlace:
+    """A chamber where the generator puts it (see :mod:`chipflow.layout.chamber`).
+
+    Attributes
+    ----------
+    name : str
+    key : ChamberKey
+        Its geometry with the channels meeting it, in its own frame.
+    origin : tuple of float
+        Where the key frame's origin (the chamber's corner) lies in the chip frame [m].
+    turns : int
+        Quarter turns counter-clockwise from the key frame to the chip frame.
+    port_nodes : tuple of int
+        The node of each port of the key (where its channel ends), in the key's order.
+    role : str
+        What its network links are called by ("chamber").
+    region : str
+        The culture region it belongs to ("" for none).
+    """
+
+    name: str
+    key: object
+    origin: tuple[float, float]
+    turns: int
+    port_nodes: tuple[int, ...]
+    role: str = "chamber"
+    region: str = ""
+
+
+@dataclass(frozen=True)
 class Sketch:
     """A network with coordinates, ready to draw.
 
@@ -168,6 +198,8 @@ class Sketch:
         How the generator decided (e.g. the order of a tree's splits).
     culture_regions : tuple of CultureRegion
         Outlines of culture regions (not mask levels), carried into the layout.
+    chambers : tuple of ChamberPlace
+        Chambers between some of the nodes; each of their port nodes ends one channel.
     """
 
     name: str
@@ -182,3 +214,4 @@ class Sketch:
     warnings: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     culture_regions: tuple = ()
+    chambers: tuple[ChamberPlace, ...] = ()

@@ -16,7 +16,9 @@ __all__ = [
     "verdict_line",
     "format_table",
     "channel_table",
+    "chamber_table",
     "CHANNEL_COLUMNS",
+    "CHAMBER_COLUMNS",
     "LEVEL_COLUMNS",
 ]
 
@@ -54,6 +56,21 @@ CHANNEL_COLUMNS = (
     ("t_res", "residence_time", "time"),
     ("p_in", "pressure_in", "pressure"),
     ("p_out", "pressure_out", "pressure"),
+)
+
+#: Columns of the chamber table: header, key (``floor_shear`` percentiles flattened), kind.
+CHAMBER_COLUMNS = (
+    ("chamber", "name", None),
+    ("width", "width", "length"),
+    ("length", "length", "length"),
+    ("depth", "depth", "width"),
+    ("pillars", "pillar_text", None),
+    ("flow", "flow", "flow"),
+    ("resistance", "resistance", "resistance"),
+    ("t_res", "residence_time", "time"),
+    ("p05", "p05", "shear"),
+    ("p50", "p50", "shear"),
+    ("p95", "p95", "shear"),
 )
 
 
@@ -119,6 +136,41 @@ def channel_table(channels: Sequence[Mapping[str, Any]]) -> str:
     header = [h for h, *_ in CHANNEL_COLUMNS]
     units, body = _columns(channels, CHANNEL_COLUMNS)
     return format_table([units, *body], header, "lll" + "r" * (len(CHANNEL_COLUMNS) - 3))
+
+
+def chamber_table(chambers: Sequence[Mapping[str, Any]], checks=()) -> str:
+    """The chambers of an explicit network in lab units: shape, flow, resistance, floor shear
+    percentiles over the floor, the share of the floor inside the window and the verdict of
+    each chamber's floor check (``checks``: the build's checks).
+
+    >>> text = chamber_table([{"name": "A", "width": 2e-3, "length": 8e-3, "depth": 1e-4,
+    ...     "pillars": {"diameter": 1.5e-4, "pitch": 4e-4, "pattern": "hex", "count": 60},
+    ...     "flow": 1.667e-11, "resistance": 1.1e11, "residence_time": 96.0,
+    ...     "floor_shear": {"p05": 0.0015, "p50": 0.005, "p95": 0.0083},
+    ...     "inside_window": 0.977}])
+    >>> text.splitlines()[2].split()[:11]
+    ['A', '2', '8', '100', '60', 'hex', '150/400', '1', '110', '96', '0.0015']
+    >>> text.splitlines()[2].split()[11:]
+    ['0.005', '0.0083', '97.7', '%', '-']
+    """
+    from chipflow.checks.result import level_statuses
+
+    rows = []
+    for c in chambers:  # a handful of chambers
+        p = c.get("pillars")
+        text = "-" if not p else (
+            f"{p['count']} {p['pattern']} {p['diameter'] * 1e6:.4g}/{p['pitch'] * 1e6:.4g}"
+        )  # fmt: skip
+        rows.append({**c, **(c.get("floor_shear") or {}), "pillar_text": text})
+    units, body = _columns(rows, CHAMBER_COLUMNS)
+    units[4] = "[um]"
+    verdicts = level_statuses(list(checks))
+    for row, cells in zip(rows, body, strict=True):  # a handful of chambers
+        cells.append(display.fraction(row.get("inside_window")))
+        cells.append(_MARK.get(verdicts.get(f"chamber {row['name']}"), "-"))
+    header = [h for h, *_ in CHAMBER_COLUMNS] + ["in window", "verdict"]
+    align = "lrrrl" + "r" * (len(CHAMBER_COLUMNS) - 5) + "rl"
+    return format_table([[*units, "", ""], *body], header, align)
 
 
 def _window_text(check: Mapping[str, Any]) -> str:
@@ -201,6 +253,10 @@ def console_summary(results: Mapping[str, Any]) -> str:
     channels = list(results.get("channels") or [])
     if channels:
         lines += ["channels (flow is negative against from -> to)", channel_table(channels), ""]
+    chambers = list(results.get("chambers") or [])
+    if chambers:
+        table = chamber_table(chambers, results.get("checks") or [])
+        lines += ["chambers (floor shear over each chamber's floor, pillars left out)", table, ""]
     lines += totals_and_checks(results).splitlines()
     return "\n".join(lines)
 

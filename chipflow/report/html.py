@@ -355,6 +355,46 @@ def _channels(results: Mapping[str, Any]) -> str:
     )
 
 
+#: Columns of the chamber table (after chamber and pillars); floor shear over its floor.
+_CHAMBER_COLUMNS = (
+    ("width", "width", "length"),
+    ("length", "length", "length"),
+    ("depth", "depth", "width"),
+    ("flow", "flow", "flow"),
+    ("resistance", "resistance", "resistance"),
+    ("residence time", "residence_time", "time"),
+    ("floor shear p05", "p05", "shear"),
+    ("p50", "p50", "shear"),
+    ("p95", "p95", "shear"),
+)
+
+
+def _chambers(results: Mapping[str, Any]) -> str:
+    """The chambers of an explicit network: shape, flow, resistance and the floor shear
+    percentiles and share inside the window from each chamber's 2D solve."""
+    chambers = list(results.get("chambers") or [])
+    if not chambers:
+        return ""
+    from chipflow import display
+
+    flat = [{**c, **(c.get("floor_shear") or {})} for c in chambers]
+    headers, body = _columns(flat, _CHAMBER_COLUMNS)
+    rows = []
+    for c, cells in zip(chambers, body, strict=True):  # a handful of chambers
+        p = c.get("pillars")
+        pillars = "none"
+        if p:
+            d, pitch = p["diameter"] * 1e6, p["pitch"] * 1e6
+            pillars = f"{p['count']} {p['pattern']}, {d:.4g} um on {pitch:.4g} um"
+        inside = display.fraction(c.get("inside_window"))
+        rows.append([_e(c.get("name", "")), _e(pillars), *cells, _e(inside)])
+    return (
+        "<h2>Chambers</h2>\n<p>Each chamber's floor shear from the 2D solve of its drawn shape "
+        "at the operating point, area-weighted over its floor (pillars left out).</p>\n"
+        + _table(["chamber", "pillars", *headers, "inside window"], rows, text_columns=2)
+    )
+
+
 def _extremes(results: Mapping[str, Any]) -> str:
     """Per level, the lowest and highest channel values: the spread the means hide."""
     generations = [g for g in results.get("generations", []) if g.get("flow_min") is not None]
@@ -584,6 +624,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         _regions(results),
         _extremes(results),
         _channels(results),
+        _chambers(results),
         _notes(results),
         operation_html(results),
         transport_html(results),

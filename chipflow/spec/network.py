@@ -31,14 +31,25 @@
     role = "distribution"               # optional, default "channel"
     # via = [["14 mm", "5 mm"], ["14 mm", "9 mm"]]   # corners of a drawn channel
 
+    [[chambers]]                        # a culture chamber between two nodes (see
+    name = "culture"                    # chipflow.spec.chamber for its keys)
+    from = "a"
+    to = "b"
+    width = "2 mm"
+    length = "8 mm"
+    depth = "100 um"
+
     [[ports]]                           # one supply per port node
     node = "pump"
     flow = "5 uL/min"                   # syringe pump (negative withdraws), or
     # pressure = "2 kPa"                # pressure controller ("0 Pa": open to the air), or
     # head = "5 cm"                     # gravity reservoir: liquid height above the port
 
-Positive flow in a channel runs from ``from`` to ``to``. Tubes and channels share one set of
-names. Nodes are created on first mention unless ``[[nodes]]`` lists them.
+Positive flow in a channel runs from ``from`` to ``to``. Tubes, channels and chambers share
+one set of names. A chamber's two nodes each join exactly one channel (its feed and its
+drain), which meets it along its axis; its resistance and floor shear come from the 2D solve
+of its shape (:mod:`chipflow.layout.chamber`). Nodes are created on first mention unless
+``[[nodes]]`` lists them.
 
 Drawn networks: when every node that a channel touches (the chip's nodes; a node only tubes
 reach, such as a pump, is off the chip) has ``at``, the network is drawn
@@ -61,11 +72,13 @@ from chipflow.network.model import Network, NetworkBuilder, unknown_name_message
 from chipflow.network.supply import Supply, boundary_conditions
 from chipflow.operation.model import OperationSpec
 from chipflow.physics.fluid import Fluid
+from chipflow.spec.chamber import CHAMBER_KEYS, ChamberShape, read_chamber
 from chipflow.spec.fluid import read_fluid
 from chipflow.spec.reader import MAX_NAME_LENGTH, Table, read_design_file
 
 __all__ = [
     "ChannelRoute",
+    "ChamberRoute",
     "NetworkDrawing",
     "NetworkDesign",
     "load_network_design",
@@ -83,6 +96,7 @@ TOP_KEYS = (
     "nodes",
     "channels",
     "tubes",
+    "chambers",
     "ports",
     "culture",
     "limits",
@@ -148,6 +162,26 @@ class ChannelRoute:
 
 
 @dataclass(frozen=True)
+class ChamberRoute:
+    """A chamber of an explicit network, as the design file gives it.
+
+    Attributes
+    ----------
+    name, a, b : str
+        The chamber and its ``from`` and ``to`` nodes.
+    shape : ChamberShape
+    where : str
+        Its place in the file, for messages.
+    """
+
+    name: str
+    a: str
+    b: str
+    shape: ChamberShape
+    where: str
+
+
+@dataclass(frozen=True)
 class NetworkDrawing:
     """What a network with coordinates needs to be drawn.
 
@@ -159,11 +193,14 @@ class NetworkDrawing:
         The channels, in file order.
     ports : tuple of str
         The chip's nodes that are punched holes: those with a port or a tube.
+    chambers : tuple of ChamberRoute
+        The chambers, in file order.
     """
 
     positions: Mapping[str, tuple[float, float]]
     routes: tuple[ChannelRoute, ...]
     ports: tuple[str, ...]
+    chambers: tuple[ChamberRoute, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -194,6 +231,9 @@ class NetworkDesign:
         the corners, until the build replaces them by the drawing's.
     undrawn : str
         Why the network is not drawn, in one line ("" when it is).
+    chambers : tuple of ChamberRoute
+        The chambers; ``network`` holds the channels and tubes only (the build adds each
+        chamber's links from its 2D solve, :func:`chipflow.layout.extract.with_chambers`).
     """
 
     name: str
@@ -206,6 +246,7 @@ class NetworkDesign:
     operation: OperationSpec = field(default_factory=OperationSpec)
     drawing: NetworkDrawing | None = None
     undrawn: str = ""
+    chambers: tuple[ChamberRoute, ...] = ()
 
 
 def is_network_design(top: Table) -> bool:
@@ -362,6 +403,7 @@ def load_network_design(top: Table) -> NetworkDesign:
         builder.channel(
             label, a, b, width=width, depth=depth, length=length, generation=generation, role=role
         )
+    chambers = _read_chambers(top, known, claim, channels, tubes)
     try:
         network = builder.build()
     except NetworkError as exc:
@@ -397,16 +439,74 @@ def load_network_design(top: Table) -> NetworkDesign:
     if drawn:
         tube_ends = {n for item in tubes for n in (item.string("from"), item.string("to"))}
         holes = tuple(n for n in on_chip if n in supplies or n in tube_ends)
-        drawing = NetworkDrawing({n: positions[n] for n in on_chip}, tuple(routes), holes)
+        drawing = NetworkDrawing(
+            {n: positions[n] for n in on_chip}, tuple(routes), holes, tuple(chambers)
+        )
     elif channels:
         undrawn = "not drawn, solved only: " + (
             _why(missing)
             if positions
             else "no node has a position ('at' in [[nodes]]), so there is no mask to write"
         )
+    for chamber in chambers:  # a chamber's node is fed by a channel, not a supply
+        for end, node in (("from", chamber.a), ("to", chamber.b)):
+            if node in supplies:
+                raise SpecError(
+                    f"{chamber.where}.{end}: node {node!r} has a port; a chamber is fed and "
+                    "drained by channels: put a channel between the port and the chamber"
+                )
     return NetworkDesign(
-        name, description, fluid, network, pressures, flows, supplies, operation, drawing, undrawn
+        name,
+        description,
+        fluid,
+        network,
+        pressures,
+        flows,
+        supplies,
+        operation,
+        drawing,
+        undrawn,
+        tuple(chambers),
     )
+
+
+def _read_chambers(top: Table, known, claim, channels: list[Table], tubes: list[Table]) -> list:
+    """The ``[[chambers]]`` entries: each between two nodes that join exactly one channel."""
+    tables = top.tables("chambers", [])
+    if not tables:
+        return []
+    from chipflow.spec.tree import read_fabrication
+
+    min_feature = read_fabrication(top).min_feature
+    count: dict[str, int] = {}
+    for item in channels:
+        for key in ("from", "to"):
+            node = item._get(key, None)
+            if isinstance(node, str):
+                count[node] = count.get(node, 0) + 1
+    tube_ends = {
+        item._get(key, None) for item in tubes for key in ("from", "to")
+    }  # fmt: skip
+    out, taken = [], {}
+    for item in tables:
+        item.only(("name", "from", "to", *CHAMBER_KEYS))
+        label = claim(item)
+        a, b = _endpoints(item, known)
+        for end, node in (("from", a), ("to", b)):
+            if count.get(node, 0) != 1 or node in tube_ends:
+                got = count.get(node, 0)
+                raise item.error(
+                    end,
+                    f"node {node!r} joins {got} channel{'s' * (got != 1)}"
+                    f"{' and a tube' if node in tube_ends else ''}; a chamber's node joins "
+                    "exactly one channel (its feed or drain), so give it its own node",
+                )
+            if node in taken:
+                raise item.error(end, f"node {node!r} is already an end of chamber {taken[node]!r}")
+            taken[node] = label
+        shape = read_chamber(item, min_feature)
+        out.append(ChamberRoute(label, a, b, shape, item.where()))
+    return out
 
 
 #: Marks a channel length that is required because the network is not drawn.

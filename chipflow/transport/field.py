@@ -99,15 +99,16 @@ class FieldTransport:
 
 
 def seeded_triangles(solution, layout, seeded: str) -> np.ndarray:
-    """Triangles of the floor that carry cells: all of them, or those nearest a bed channel."""
+    """Triangles of the floor that carry cells: all of them, or those nearest a bed channel
+    and those in a chamber."""
     n = len(solution.mesh.triangles)
     if layout is None or seeded != "bed":
         return np.ones(n, bool)
-    from chipflow.field.compare import classify
+    from chipflow.field.compare import chamber_triangles, classify
 
     _, channel = classify(solution, layout)
     role = layout.channels.role.astype(str)
-    bed = role[channel] == "bed"
+    bed = (role[channel] == "bed") | chamber_triangles(solution.mesh, layout)
     return bed if bed.any() else np.ones(n, bool)
 
 

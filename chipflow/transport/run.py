@@ -119,7 +119,7 @@ def oxygen_species(culture: Culture, temperature: float | None) -> Species:
 
 def _seeded(network, seeded: str) -> np.ndarray:
     chip = ~network.round
-    bed = network.role == "bed"
+    bed = np.isin(network.role, ("bed", "chamber"))  # a chamber's links carry its floor
     if seeded == "bed" and bed.any():
         return bed
     return chip

@@ -60,8 +60,8 @@ SECTIONS = tuple(
     )
 )
 #: Lists of tables of an explicit network, and the key that names their entries.
-NAMED = {"channels": "name", "tubes": "name", "nodes": "name", "ports": "node",
-         "compliances": "node"}  # fmt: skip
+NAMED = {"channels": "name", "tubes": "name", "chambers": "name", "nodes": "name",
+         "ports": "node", "compliances": "node"}  # fmt: skip
 
 #: Keys of [tree] that each say how the tree branches: a swept one replaces the others.
 BRANCHING = ("generations", "bed_channels", "splits")

@@ -39,16 +39,19 @@ from chipflow.spec.tolerances import Tolerances
 __all__ = ["Problem", "variation_problem", "seeded_levels", "factor_names"]
 
 
-def seeded_levels(roles: list[str], seeded: str) -> np.ndarray:
+def seeded_levels(roles: list[str], seeded: str, chambers: bool = False) -> np.ndarray:
     """Which levels carry cells: the bed levels for ``seeded = "bed"`` (all levels when there is
-    no bed), every level for ``"all"``; as for the build's floor-shear checks.
+    no bed and no chamber: with ``chambers`` the cells are in them, not in a channel level),
+    every level for ``"all"``; as for the build's floor-shear checks.
 
     >>> seeded_levels(["distribution", "bed", "collection"], "bed").tolist()
     [False, True, False]
+    >>> seeded_levels(["distribution", "collection"], "bed", chambers=True).tolist()
+    [False, False]
     """
     roles_arr = np.asarray(roles, dtype=str)
     beds = roles_arr == "bed"
-    if seeded == "bed" and beds.any():
+    if seeded == "bed" and (beds.any() or chambers):
         return beds
     return np.ones(roles_arr.size, dtype=bool)
 

@@ -8,7 +8,8 @@ kept as an ``error`` row with the reason; bad input (an unknown key, a value of 
 unit) stops the sweep.
 
 The *worst margin* of a point is ``min(tau / low - 1, 1 - tau / high)`` over the seeded levels'
-floor shear (as checked by the build): positive inside the window, negative outside.
+floor shear (as checked by the build) and each chamber's floor from its p05 to its p95:
+positive inside the window, negative outside.
 """
 
 from __future__ import annotations
@@ -74,13 +75,18 @@ def point_row(build: Build) -> dict[str, Any]:
     net = sol.network
     row: dict[str, Any] = dict.fromkeys(ROW_KEYS)
     window = build.results.get("shear_window")
-    if rows:
-        seeded = seeded_levels([r["role"] for r in rows], read_culture(build.source.top).seeded)
+    chambers = build.results.get("chambers") or []
+    if rows or chambers:
+        mode = read_culture(build.source.top).seeded
+        seeded = seeded_levels([r["role"] for r in rows], mode, bool(chambers))
         tau = np.array([r["wall_shear_floor"] for r in rows])[seeded]
-        row["floor_shear_min"], row["floor_shear_max"] = float(tau.min()), float(tau.max())
+        # a chamber's floor spans its p05 to its p95
+        low_tau = np.r_[tau, [c["floor_shear"]["p05"] for c in chambers]]
+        high_tau = np.r_[tau, [c["floor_shear"]["p95"] for c in chambers]]
+        row["floor_shear_min"], row["floor_shear_max"] = float(low_tau.min()), float(high_tau.max())
         if window:
             low, high = window_bounds(window)
-            row["worst_shear_margin"] = float(window_margin(tau, tau, low, high).min())
+            row["worst_shear_margin"] = float(window_margin(low_tau, high_tau, low, high).min())
         bed = [r for r in rows if r["role"] == "bed"]
         if bed:
             row["bed_floor_shear"] = bed[0]["wall_shear_floor"]

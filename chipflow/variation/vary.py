@@ -232,10 +232,20 @@ def vary_build(
     Raises
     ------
     SpecError
-        For tolerances out of range for this design.
+        For tolerances out of range for this design, or a design with chambers (their floor
+        shear comes from their 2D solve, which the Monte Carlo does not repeat).
     TooLargeError
         A run that needs more memory than this process may use (with its estimate).
     """
+    if build.results.get("chambers"):
+        from chipflow.errors import SpecError
+
+        names = ", ".join(repr(c["name"]) for c in build.results["chambers"])
+        raise SpecError(
+            f"{build.source.path}: chipflow vary does not yet vary chambers ({names}): their "
+            "floor shear comes from their 2D solve, which the Monte Carlo does not repeat; "
+            'sweep their keys instead (chipflow sweep --vary "chambers.NAME.depth=...")'
+        )
     problem = variation_problem(build, tolerances)
     estimate = variation_estimate(problem, tolerances, None if scheduler else workers)
     check_memory(

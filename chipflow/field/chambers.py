@@ -1,0 +1,176 @@
+"""Chambers at the network's operating point: floor shear, resistance, residence, residual.
+
+Each chamber's 2D basis fields (:func:`chipflow.layout.chamber.solve_chamber`) are weighted by
+the pressures the solved network gives at its ports: the network's pressures at the mouths
+plus, for each port, the pressure drop of its stub at the network's flow into the chamber
+there (:func:`chipflow.layout.chamber.stub_pressures`). The flows of that 2D field through the
+ports must equal the network's (its links are the chamber's conductances): their relative
+difference is kept as the chamber's ``flow_residual``, a check of the solve and of the links.
+
+The floor shear statistics are over the chamber's own floor (its outline less the pillars,
+the channels' stubs left out): area-weighted p05, p50 and p95, and the shares of the floor
+below, inside and above the cells' window.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from chipflow.field.shear import ShearStats
+
+__all__ = ["ChamberRun", "chamber_runs", "chamber_dict"]
+
+
+@dataclass(frozen=True)
+class ChamberRun:
+    """One chamber at the operating point.
+
+    Attributes
+    ----------
+    name : str
+    key : ChamberKey
+    stats : ShearStats
+        Floor shear over the chamber's floor [Pa].
+    flow : float
+        Flow into the chamber through its inlet ports [m^3/s].
+    pressure_in, pressure_out : float
+        Mean pressure at its inlet and outlet mouths [Pa].
+    resistance : float
+        ``(pressure_in - pressure_out) / flow`` [Pa s/m^3] (a chamber between two channels:
+        its resistance between the mouths).
+    floor_area : float
+        [m^2].
+    residence_time : float
+        Floor area times depth over the flow [s] (inf without flow).
+    unsupported_span : float
+        Diameter of the largest circle of roof touching no wall or pillar [m].
+    pillar_count : int
+    flow_residual : float
+        Largest difference of a port's flow between the 2D field and the network, over the
+        flow [1].
+    link_fit_error : float
+        Share of the chamber's conductances left out of its links [1].
+    triangles : int
+        Triangles of its 2D mesh.
+    """
+
+    name: str
+    key: Any
+    stats: ShearStats
+    flow: float
+    pressure_in: float
+    pressure_out: float
+    resistance: float
+    floor_area: float
+    residence_time: float
+    unsupported_span: float
+    pillar_count: int
+    flow_residual: float
+    link_fit_error: float
+    triangles: int
+
+
+def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
+    """Every chamber at the solved network's operating point.
+
+    Parameters
+    ----------
+    chambers : sequence of (name, key, nodes)
+        Each chamber's name, :class:`~chipflow.layout.chamber.ChamberKey` and the network
+        node (index or name) of each port, as given to
+        :func:`chipflow.layout.extract.with_chambers`.
+    solution : chipflow.network.Solution
+        The network with the chambers' links.
+    window : ShearWindow or (float, float) or None
+        The cells' floor shear window [Pa].
+    """
+    from chipflow.layout.chamber import (
+        chamber_polygon,
+        floor_stats,
+        pillar_centres,
+        solve_chamber,
+        stub_pressures,
+        unsupported_span,
+    )
+
+    if window is not None and not isinstance(window, tuple):
+        window = (float(window.min), float(window.max))
+    net = solution.network
+    mu = solution.fluid.viscosity
+    out = []
+    for name, key, nodes in chambers:  # a handful of chambers
+        index = np.array([net.node_index(n) for n in nodes])
+        links = np.flatnonzero(
+            (net.role == "chamber") & np.isin(net.node_a, index) & np.isin(net.node_b, index)
+        )
+        inflow = np.zeros(index.size)
+        for k, node in enumerate(index):  # the ports of one chamber
+            inflow[k] = solution.flow[links][net.node_a[links] == node].sum()
+            inflow[k] -= solution.flow[links][net.node_b[links] == node].sum()
+        p = solution.pressure[index]
+        q = stub_pressures(key, p, inflow, mu)
+        stats, flows = floor_stats(key, q, mu, window)
+        inlet = np.array([port.side == 0 for port in key.ports])
+        total = float(inflow[inlet].sum())
+        scale = max(float(np.abs(inflow).max()), 1e-300)
+        residual = float(np.abs(flows - inflow).max() / scale)
+        p_in, p_out = float(p[inlet].mean()), float(p[~inlet].mean())
+        sol = solve_chamber(key)
+        volume = sol.floor_area * key.depth
+        span = unsupported_span(chamber_polygon(key), key.grid)[0]
+        out.append(
+            ChamberRun(
+                name=name,
+                key=key,
+                stats=stats,
+                flow=total,
+                pressure_in=p_in,
+                pressure_out=p_out,
+                resistance=(p_in - p_out) / total if total else float("inf"),
+                floor_area=sol.floor_area,
+                residence_time=volume / abs(total) if total else float("inf"),
+                unsupported_span=span,
+                pillar_count=int(len(pillar_centres(key))),
+                flow_residual=residual,
+                link_fit_error=sol.fit_error,
+                triangles=int(len(sol.mesh["triangles"])),
+            )
+        )
+    return out
+
+
+def chamber_dict(run: ChamberRun, windowed: bool = True) -> dict[str, Any]:
+    """A chamber's results, JSON-able SI values (an entry of ``results["chambers"]``);
+    ``windowed`` False: no shear window applied (the window shares are then null)."""
+    key, s = run.key, run.stats
+    pillars = None
+    if key.pillars is not None:
+        d, p, pattern = key.pillars
+        pillars = {"diameter": d, "pitch": p, "pattern": pattern, "count": run.pillar_count}
+    return {
+        "name": run.name,
+        "width": key.width,
+        "length": key.length,
+        "depth": key.depth,
+        "corner_radius": key.corner_radius,
+        "taper": key.taper,
+        "pillars": pillars,
+        "ports": len(key.ports),
+        "flow": run.flow,
+        "pressure_in": run.pressure_in,
+        "pressure_out": run.pressure_out,
+        "resistance": run.resistance,
+        "floor_area": run.floor_area,
+        "residence_time": run.residence_time,
+        "floor_shear": {"p05": s.p05, "p50": s.p50, "p95": s.p95},
+        "inside_window": 1.0 - s.outside if windowed and s.area > 0 else None,
+        "below_window": s.below if windowed else None,
+        "above_window": s.above if windowed else None,
+        "unsupported_span": run.unsupported_span,
+        "flow_residual": run.flow_residual,
+        "link_fit_error": run.link_fit_error,
+        "mesh_triangles": run.triangles,
+    }
