@@ -179,6 +179,15 @@ def test_each_sweep_point_equals_a_separate_build_of_that_design(tmp_path: Path)
         assert row["status"] == build.status
         assert row["supply_pressure"] == build.results["totals"]["inlet_pressure"]
     assert {r["status"] for r in sweep.rows} >= {"pass", "error"}
+    # the heat map names the reason of the point not built, not just its status
+    from chipflow.report.figures import svg_text
+    from chipflow.report.sweep import heat_map
+
+    svg = svg_text(heat_map(sweep))
+    error = next(r for r in sweep.rows if r["status"] == "error")
+    assert "not built [1]" in svg and "n/a" not in svg
+    assert "[1] not built: generation" in svg and "tall-wall" in svg
+    assert error["message"].split(": ", 1)[1][:40] in svg
 
 
 def test_sweep_csv_and_heat_map(tmp_path: Path) -> None:
