@@ -40,14 +40,16 @@ SI_UNITS = units_of(
 
 
 class _Point(click.ParamType):
-    """``X,Y`` in the drawing's units."""
+    """``X,Y`` in the drawing's units, or the name of a port mark of chipflow's own mask."""
 
-    name = "X,Y"
+    name = "X,Y|PORT"
 
     def convert(self, value, param, ctx):
         if isinstance(value, tuple):
             return value
         parts = str(value).replace(" ", "").split(",")
+        if len(parts) == 1 and parts[0] and parts[0][0] not in "+-.0123456789":
+            return parts[0]  # a port's name
         try:
             if len(parts) != 2:
                 raise ValueError
@@ -56,16 +58,47 @@ class _Point(click.ParamType):
             self.fail(f"expected two numbers X,Y in the drawing's units, got {value!r}", param, ctx)
 
 
+class _Depth(click.ParamType):
+    """``50um`` (the mask's one level) or ``LAYER=50um`` (one level per named layer)."""
+
+    name = "[LAYER=]DEPTH"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, tuple):
+            return value
+        layer, sep, text = str(value).rpartition("=")
+        if sep and not layer.strip():
+            self.fail(f"expected LAYER=DEPTH with a layer name, got {value!r}", param, ctx)
+        return (layer.strip() or None), QUANTITY("length").convert(text.strip(), param, ctx)
+
+
 @click.command("analyse")
 @click.argument("mask", type=click.Path(exists=True, dir_okay=False, path_type=str))
-@click.option("--depth", type=QUANTITY("length"), required=True, help="Channel depth, e.g. 50um.")
-@click.option("--inlet", type=_Point(), required=True, help="Inlet port centre X,Y.")
-@click.option("--outlet", type=_Point(), required=True, help="Outlet port centre X,Y.")
+@click.option(
+    "--depth",
+    "depths",
+    type=_Depth(),
+    multiple=True,
+    help="Channel depth, e.g. 50um; or LAYER=DEPTH, repeated, one mask level per layer "
+    "(default: the depths chipflow's own DXF states in its layer names).",
+)
+@click.option(
+    "--inlet",
+    type=_Point(),
+    help="Inlet port centre X,Y, or a port's name in chipflow's own mask (default: inlet).",
+)
+@click.option(
+    "--outlet",
+    type=_Point(),
+    help="Outlet port centre X,Y, or a port's name in chipflow's own mask (default: outlet).",
+)
 @click.option("--flow", type=QUANTITY("flow"), help="Flow through the chip, e.g. 10uL/min.")
 @click.option(
     "--pressure", type=QUANTITY("pressure"), help="Inlet pressure above the outlet, e.g. 2kPa."
 )
-@click.option("--layer", help="Read only this DXF layer (default: all).")
+@click.option(
+    "--layer", help="Read only this layer: DXF layer name, GDSII layer number (default: all)."
+)
 @click.option(
     "--punch", type=QUANTITY("length"), default="1mm", show_default=True, help="Port punch."
 )
@@ -90,7 +123,7 @@ class _Point(click.ParamType):
 @fluid_options
 def command(
     mask,
-    depth,
+    depths,
     inlet,
     outlet,
     flow,
@@ -104,10 +137,11 @@ def command(
     as_json,
     fluid,
 ) -> None:
-    """Solve the flow field of MASK, a DXF drawn in any CAD program.
+    """Solve the flow field of MASK, a DXF or GDSII mask drawn in any CAD program.
 
-    Closed polylines are channels, circles port pads; the ports are holes of the punch's
-    diameter at --inlet and --outlet (coordinates in the file's units). With --cell-type the
+    Closed polylines (GDSII polygons) are channels, circles port pads; the ports are holes of
+    the punch's diameter at --inlet and --outlet (coordinates in the file's units). chipflow's
+    own DXF and GDSII are read level by level, with their port marks. With --cell-type the
     oxygen the cells leave on the floor is solved on the same field.
 
     \b
@@ -116,7 +150,7 @@ def command(
     """
     from chipflow.checks.cell_types import cell_type as lookup
     from chipflow.field.analyse import analyse_mask
-    from chipflow.spec.mask_dxf import read_mask_dxf
+    from chipflow.spec.mask_read import mask_levels
 
     if (flow is None) == (pressure is None):
         raise SpecError("give either --flow or --pressure")
@@ -126,19 +160,32 @@ def command(
     if cell_type is not None:
         cells = lookup(cell_type, where="--cell-type")
         window = (cells.shear_min, cells.shear_max)
-    m = read_mask_dxf(mask, layer, units)
+    named = {name: d for name, d in depths if name is not None}
+    plain = [d for name, d in depths if name is None]
+    if len(plain) > 1 or (plain and named):
+        raise SpecError(
+            "give one --depth for the whole mask, or one LAYER=DEPTH per mask level, not both"
+        )
+    if named and layer is not None:
+        raise SpecError("--layer reads one layer; with LAYER=DEPTH depths name the layers there")
+    m, levels = mask_levels(mask, named, plain[0] if plain else None, layer, units)
     analysis = analyse_mask(
         m.geometry,
-        depth,
-        (inlet[0] * m.scale, inlet[1] * m.scale),
-        (outlet[0] * m.scale, outlet[1] * m.scale),
+        levels[0][1],
+        _port_xy(inlet, "inlet", m),
+        _port_xy(outlet, "outlet", m),
         punch,
         fluid.viscosity,
         flow=flow,
         pressure=pressure,
         window=window,
+        levels=levels,
     )
     results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
+    results["levels"] = [
+        {"name": level.name, "depth": d, "area": g.area}
+        for level, (g, d) in zip(m.levels, levels, strict=True)
+    ]
     oxygen = None
     if cell_type is not None:
         from chipflow.transport.field import mask_oxygen
@@ -179,6 +226,20 @@ def command(
     if outdir is not None:
         extra = " and oxygen.svg" if oxygen is not None else ""
         click.echo(f"wrote results.json, field.svg{extra} to {outdir}/")
+
+
+def _port_xy(value, role: str, mask) -> tuple[float, float]:
+    """A port centre [m]: X,Y in the drawing's units, or a port mark of chipflow's own mask."""
+    if isinstance(value, tuple):
+        return value[0] * mask.scale, value[1] * mask.scale
+    name = role if value is None else value
+    for port in mask.ports:  # a handful
+        if port.name == name:
+            return port.x, port.y
+    if not mask.ports:
+        raise SpecError(f"give --{role} X,Y: the mask has no port marks to take it from")
+    names = ", ".join(p.name for p in mask.ports)
+    raise SpecError(f"--{role}: the mask has no port named {name!r} (its ports: {names})")
 
 
 def _echo_channels(table) -> None:

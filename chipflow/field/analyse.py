@@ -6,6 +6,7 @@ and scales every field to the given flow.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -96,6 +97,7 @@ def analyse_mask(
     pressure: float | None = None,
     window: tuple[float, float] | None = None,
     across: float = 4.0,
+    levels: Sequence[tuple[shapely.Geometry, float]] | None = None,
 ) -> MaskAnalysis:
     """Solve the field of a mask's channel area with punched inlet and outlet holes.
 
@@ -117,6 +119,9 @@ def analyse_mask(
         Cells' floor shear window [Pa].
     across : float
         Mesh triangles across a channel.
+    levels : sequence of (geometry, float), optional
+        Mask levels of different depth: each level's channel area [m] and depth [m] (where
+        they overlap the deeper holds); ``geometry`` is then their union and ``depth`` unused.
     """
     if (flow is None) == (pressure is None):
         raise FieldError("give either a flow or an inlet pressure, not both or neither")
@@ -131,7 +136,8 @@ def analyse_mask(
         raise FieldError("the inlet and outlet holes overlap: move the ports apart")
     drive = 1.0 if pressure is None else float(pressure)
     ports = [FieldPort("inlet", holes[0], drive), FieldPort("outlet", holes[1], 0.0)]
-    solution = solve_field([FieldRegion(geometry, depth)], ports, viscosity, across=across)
+    regions = [FieldRegion(g, d) for g, d in levels] if levels else [FieldRegion(geometry, depth)]
+    solution = solve_field(regions, ports, viscosity, across=across)
     q = solution.port_flows["inlet"]
     if not q > 0:
         raise FieldError("no flow reaches the outlet from the inlet: are they connected?")
