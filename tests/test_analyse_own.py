@@ -133,3 +133,19 @@ def test_bad_depths_and_ports_exit_2_with_one_line(twin, args, message) -> None:
     result = CliRunner().invoke(main, ["analyse", str(gds), "--flow", "2uL/min", *args])
     assert result.exit_code == 2, result.output
     assert message in result.output and "Traceback" not in result.output
+
+
+def test_the_installed_mask_is_found_by_name_from_any_folder(tmp_path, monkeypatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    args = ["--depth", "50um", "--inlet", "0,0", "--outlet", "20,0", "--flow", "10uL/min"]
+    result, data = analyse("straight_channel.dxf", *args)
+    assert result.exit_code == 0, result.output
+    # a 200 um x 50 um channel, 20 mm between the port centres: the drop is that of the
+    # straight channel between the holes' rims within a few percent (the skeleton's 1D
+    # series for the same branch; the ends inside the pads add little)
+    (row,) = data["channels"]
+    assert row["width"] == pytest.approx(200e-6, rel=0.02)
+    assert data["resistance"] == pytest.approx(row["network_resistance"], rel=0.05)
+    missing = CliRunner().invoke(main, ["analyse", "no_such_mask.dxf", *args])
+    assert missing.exit_code == 2
+    assert "no such file" in missing.output and "straight_channel.dxf" in missing.output

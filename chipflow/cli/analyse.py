@@ -73,7 +73,7 @@ class _Depth(click.ParamType):
 
 
 @click.command("analyse")
-@click.argument("mask", type=click.Path(exists=True, dir_okay=False, path_type=str))
+@click.argument("mask", type=click.Path(path_type=str))
 @click.option(
     "--depth",
     "depths",
@@ -144,13 +144,17 @@ def command(
     own DXF and GDSII are read level by level, with their port marks. With --cell-type the
     oxygen the cells leave on the floor is solved on the same field.
 
+    MASK may name a mask installed with chipflow (straight_channel.dxf, a 200 um wide
+    channel between pads at 0,0 and 20,0 mm) when no such file exists.
+
     \b
     Example:
-      chipflow analyse chip.dxf --depth 50um --inlet 0,0 --outlet 20,0 --flow 10uL/min
+      chipflow analyse straight_channel.dxf --depth 50um --inlet 0,0 --outlet 20,0 \\
+        --flow 10uL/min
     """
     from chipflow.checks.cell_types import cell_type as lookup
     from chipflow.field.analyse import analyse_mask
-    from chipflow.spec.mask_read import mask_levels
+    from chipflow.spec.mask_read import mask_levels, resolve_mask
 
     if (flow is None) == (pressure is None):
         raise SpecError("give either --flow or --pressure")
@@ -168,7 +172,7 @@ def command(
         )
     if named and layer is not None:
         raise SpecError("--layer reads one layer; with LAYER=DEPTH depths name the layers there")
-    m, levels = mask_levels(mask, named, plain[0] if plain else None, layer, units)
+    m, levels = mask_levels(resolve_mask(mask), named, plain[0] if plain else None, layer, units)
     analysis = analyse_mask(
         m.geometry,
         levels[0][1],

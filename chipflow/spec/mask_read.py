@@ -21,7 +21,15 @@ import shapely
 
 from chipflow.errors import SpecError
 
-__all__ = ["MaskLevel", "MaskFile", "MaskPort", "read_mask", "mask_levels", "GDS_SUFFIXES"]
+__all__ = [
+    "MaskLevel",
+    "MaskFile",
+    "MaskPort",
+    "read_mask",
+    "mask_levels",
+    "resolve_mask",
+    "GDS_SUFFIXES",
+]
 
 #: File name endings read as GDSII.
 GDS_SUFFIXES = (".gds", ".gds2", ".gdsii")
@@ -90,6 +98,36 @@ class MaskFile:
     def geometry(self) -> shapely.Geometry:
         """Channel area of every level together [m]."""
         return shapely.union_all([level.geometry for level in self.levels])
+
+
+def resolve_mask(path: str | Path) -> Path:
+    """The file ``path``, or else the mask of that name installed with chipflow.
+
+    chipflow installs a small mask (``straight_channel.dxf``: a 200 um wide, 20 mm long
+    channel between port pads at (0, 0) and (20, 0) mm) so that the ``analyse`` example runs
+    after a plain install; it is used when no file of that name exists.
+
+    >>> resolve_mask("straight_channel.dxf").name
+    'straight_channel.dxf'
+
+    Raises
+    ------
+    SpecError
+        Neither a file nor an installed mask of that name.
+    """
+    from importlib import resources
+
+    given = Path(path)
+    if given.is_file():
+        return given
+    folder = Path(str(resources.files("chipflow") / "data" / "masks"))
+    installed = sorted(folder.glob("*.dxf")) + sorted(folder.glob("*.gds"))
+    for candidate in installed:  # a few files
+        if given.name in (candidate.name, candidate.stem) and given.name == str(path):
+            return candidate
+    names = ", ".join(c.name for c in installed)
+    what = "a folder, not a mask file" if given.is_dir() else "no such file"
+    raise SpecError(f"{path}: {what} (masks installed with chipflow: {names})")
 
 
 def read_mask(path: str | Path, layer: str | None = None, units: str | None = None) -> MaskFile:
