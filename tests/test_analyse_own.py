@@ -10,6 +10,7 @@ a wrong depth, a lost level or an inverted fill moves the resistance by tens of 
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -149,3 +150,39 @@ def test_the_installed_mask_is_found_by_name_from_any_folder(tmp_path, monkeypat
     missing = CliRunner().invoke(main, ["analyse", "no_such_mask.dxf", *args])
     assert missing.exit_code == 2
     assert "no such file" in missing.output and "straight_channel.dxf" in missing.output
+
+
+def test_network_out_round_trip_checks_within_one_percent_of_analyse(demo, tmp_path) -> None:
+    """The skeleton written as a network: `chipflow check` of that file gives the inlet
+    pressure analyse found, within 1 % (the branches carry the field's resistance)."""
+    _, _, dxf, _ = demo
+    out = tmp_path / "skeleton.toml"
+    result, data = analyse(str(dxf), "--flow", "12uL/min", "--network-out", str(out))
+    assert result.exit_code == 0, result.output
+    assert out.read_text().startswith("# chipflow analyse --network-out")
+    checked = CliRunner().invoke(main, ["check", str(out), "--json"])
+    assert checked.exit_code in (0, 1), checked.output  # 1: a fabrication check fails
+    solved = json.loads(checked.output)
+    inlet = next(n["pressure"] for n in solved["nodes"] if n["name"] == "inlet")
+    assert inlet == pytest.approx(data["inlet_pressure"], rel=0.01)
+    # every skeleton branch is a channel of the written network
+    assert out.read_text().count("[[channels]]") == len(data["channels"]) > 60
+    # and the file's lengths are what makes it agree: the centreline lengths alone do not
+    text = out.read_text()
+    plain = re.sub(r'length = "[^"]+"  # centreline ([0-9.e+-]+) mm', r'length = "\1 mm"', text)
+    (tmp_path / "plain.toml").write_text(plain)
+    solved = json.loads(
+        CliRunner().invoke(main, ["check", str(tmp_path / "plain.toml"), "--json"]).output
+    )
+    plain_inlet = next(n["pressure"] for n in solved["nodes"] if n["name"] == "inlet")
+    assert abs(plain_inlet / data["inlet_pressure"] - 1) > 0.02
+
+
+def test_network_out_refuses_a_mask_without_a_skeleton(twin, tmp_path) -> None:
+    _, _, dxf, _ = twin
+    out = tmp_path / "skeleton.toml"
+    result = CliRunner().invoke(
+        main, ["analyse", str(dxf), "--flow", "2uL/min", "--network-out", str(out)]
+    )
+    assert result.exit_code == 2 and "more than one depth" in result.output
+    assert not out.exists()

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import math
+from pathlib import Path
 
 import click
 
@@ -118,6 +120,11 @@ class _Depth(click.ParamType):
     help="Oxygen in the medium at the inlet, e.g. 0.2mol/m^3 (default: in equilibrium with "
     "incubator air; needs --cell-type).",
 )
+@click.option(
+    "--network-out",
+    type=click.Path(dir_okay=False),
+    help="Write the skeleton as an explicit network design file (.toml) for chipflow check.",
+)
 @click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), help="Write files.")
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as JSON.")
 @fluid_options
@@ -133,6 +140,7 @@ def command(
     units,
     cell_type,
     o2_inlet,
+    network_out,
     outdir,
     as_json,
     fluid,
@@ -198,6 +206,21 @@ def command(
             analysis.solution, cells, fluid.temperature, o2_inlet
         )
     results["units"] = SI_UNITS
+    if network_out is not None:
+        from chipflow.export.network_out import network_toml, write_network
+        from chipflow.field.analyse import port_holes
+
+        ends = (_port_xy(inlet, "inlet", m), _port_xy(outlet, "outlet", m))
+        radius = math.sqrt(port_holes(m.geometry, ends, punch)[0].area / math.pi)
+        text = network_toml(
+            analysis.channels,
+            [("inlet", ends[0], radius), ("outlet", ends[1], radius)],
+            {"inlet": ("flow", analysis.flow)},
+            fluid,
+            Path(network_out).stem,
+            Path(mask).name,
+        )
+        write_network(text, network_out)
     if outdir is not None:
         from chipflow.export.analysis import write_analysis
 
