@@ -186,3 +186,57 @@ def test_network_out_refuses_a_mask_without_a_skeleton(twin, tmp_path) -> None:
     )
     assert result.exit_code == 2 and "more than one depth" in result.output
     assert not out.exists()
+
+
+def _with_region(dxf: Path, out: Path, box) -> Path:
+    """The demo's DXF with a rectangle (x0, y0, x1, y1) [um] on a layer BED_FLOOR."""
+    import ezdxf
+
+    doc = ezdxf.readfile(dxf)
+    x0, y0, x1, y1 = box
+    doc.modelspace().add_lwpolyline(
+        [(x0, y0), (x1, y0), (x1, y1), (x0, y1)], close=True, dxfattribs={"layer": "BED_FLOOR"}
+    )
+    doc.saveas(out)
+    return out
+
+
+def test_region_statistics_cover_the_floor_inside_the_layers_polygons(demo, tmp_path) -> None:
+    import shapely
+
+    results, _, dxf, _ = demo
+    mask = read_mask(dxf)
+    floor = mask.geometry
+    for p in mask.ports:  # the punched holes are not floor
+        floor = floor.difference(shapely.Point(p.x, p.y).buffer(p.diameter / 2))
+    x0, y0, x1, y1 = floor.bounds
+    box = (x0 + 0.35 * (x1 - x0), y0, x0 + 0.65 * (x1 - x0), y1)  # the middle of the bed [m]
+    marked = _with_region(dxf, tmp_path / "marked.dxf", [v * 1e6 for v in box])
+    whole = (x0 - 1e-3, y0 - 1e-3, x1 + 1e-3, y1 + 1e-3)
+    covered = _with_region(dxf, tmp_path / "whole.dxf", [v * 1e6 for v in whole])
+    args = ["--flow", "12uL/min", "--cell-type", "endothelial"]
+    result, part = analyse(str(marked), "--region", "BED_FLOOR", *args)
+    assert result.exit_code == 0, result.output
+    result, every = analyse(str(covered), "--region", "BED_FLOOR", *args)
+    assert result.exit_code == 0, result.output
+    # the region's floor is the channel floor inside the rectangle (shapely, independently)
+    inside = floor.intersection(shapely.box(*box)).area
+    assert part["region"]["area"] == pytest.approx(inside, rel=0.02)
+    # the region layer is not read as channels: the floor and the resistance are unchanged
+    assert part["area"] == pytest.approx(every["area"], rel=1e-9)
+    plain = analyse(str(dxf), *args)[1]
+    assert part["resistance"] == pytest.approx(plain["resistance"], rel=1e-9)
+    # a region over the whole chip has the whole floor's statistics
+    r = every["region"]
+    assert r["area"] == pytest.approx(every["area"], rel=1e-9)
+    assert (r["p05"], r["p50"], r["p95"]) == pytest.approx(
+        (every["floor_shear"]["p05"], every["floor_shear"]["p50"], every["floor_shear"]["p95"])
+    )
+    assert r["outside"] == pytest.approx(every["area_outside_window"])
+    # the bed's middle: straight bed channels, whose floor shear peaks mid-channel at the
+    # network's floor shear and falls to zero at the side walls
+    bed = next(g for g in results["generations"] if g["role"] == "bed")
+    assert part["region"]["p05"] < part["region"]["p50"] < part["region"]["p95"]
+    assert part["region"]["p95"] == pytest.approx(bed["wall_shear_floor"], rel=0.1)
+    missing = CliRunner().invoke(main, ["analyse", str(marked), "--region", "NONE", *args])
+    assert missing.exit_code == 2 and "NONE" in missing.output

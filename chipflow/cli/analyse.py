@@ -121,6 +121,11 @@ class _Depth(click.ParamType):
     "incubator air; needs --cell-type).",
 )
 @click.option(
+    "--region",
+    help="Floor-shear statistics over the polygons of this layer (e.g. a chamber floor); the "
+    "layer is not read as channels.",
+)
+@click.option(
     "--network-out",
     type=click.Path(dir_okay=False),
     help="Write the skeleton as an explicit network design file (.toml) for chipflow check.",
@@ -140,6 +145,7 @@ def command(
     units,
     cell_type,
     o2_inlet,
+    region,
     network_out,
     outdir,
     as_json,
@@ -180,7 +186,8 @@ def command(
         )
     if named and layer is not None:
         raise SpecError("--layer reads one layer; with LAYER=DEPTH depths name the layers there")
-    m, levels = mask_levels(resolve_mask(mask), named, plain[0] if plain else None, layer, units)
+    path = str(resolve_mask(mask))
+    m, levels = mask_levels(path, named, plain[0] if plain else None, layer, units, region)
     analysis = analyse_mask(
         m.geometry,
         levels[0][1],
@@ -205,6 +212,12 @@ def command(
         oxygen, results["transport"] = mask_oxygen(
             analysis.solution, cells, fluid.temperature, o2_inlet
         )
+    if region is not None:
+        from chipflow.field.region import region_shear
+        from chipflow.spec.mask_read import read_mask
+
+        where = read_mask(path, region, units).geometry
+        results["region"] = {"layer": region, **region_shear(analysis.solution, where, window)}
     results["units"] = SI_UNITS
     if network_out is not None:
         from chipflow.export.network_out import network_toml, write_network
@@ -248,6 +261,13 @@ def command(
             f"oxygen: {t['o2_inlet']:.3g} mol/m^3 in, lowest floor {t['o2_floor_min']:.3g} "
             f"mol/m^3, {t['hypoxic_fraction']:.1%} of the floor below the {cell_type} critical "
             f"{t['o2_critical']:.3g} mol/m^3, {t['o2_out']:.3g} mol/m^3 out"
+        )
+    if region is not None:
+        r = results["region"]
+        click.echo(
+            f"region {region} ({r['area'] * 1e6:.4g} mm^2 of floor): p05 {r['p05']:.3g} Pa, "
+            f"median {r['p50']:.3g} Pa, p95 {r['p95']:.3g} Pa"
+            + ("" if window is None else f", {r['outside']:.1%} outside the window")
         )
     _echo_channels(analysis.channels)
     if outdir is not None:

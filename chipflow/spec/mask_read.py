@@ -130,7 +130,12 @@ def resolve_mask(path: str | Path) -> Path:
     raise SpecError(f"{path}: {what} (masks installed with chipflow: {names})")
 
 
-def read_mask(path: str | Path, layer: str | None = None, units: str | None = None) -> MaskFile:
+def read_mask(
+    path: str | Path,
+    layer: str | None = None,
+    units: str | None = None,
+    exclude: str | None = None,
+) -> MaskFile:
     """Read a DXF or GDSII mask (by its suffix; see the module docstring).
 
     Parameters
@@ -141,6 +146,8 @@ def read_mask(path: str | Path, layer: str | None = None, units: str | None = No
         its datatype).
     units : str, optional
         DXF drawing unit when the file states none.
+    exclude : str, optional
+        A layer not to read as channels when every layer is read (``--region``'s layer).
 
     Raises
     ------
@@ -149,8 +156,8 @@ def read_mask(path: str | Path, layer: str | None = None, units: str | None = No
     """
     path = str(path)
     if path.lower().endswith(GDS_SUFFIXES):
-        return _read_gds(path, layer)
-    return _read_dxf(path, layer, units)
+        return _read_gds(path, layer, exclude)
+    return _read_dxf(path, layer, units, exclude)
 
 
 def mask_levels(
@@ -159,13 +166,15 @@ def mask_levels(
     depth: float | None = None,
     layer: str | None = None,
     units: str | None = None,
+    exclude: str | None = None,
 ) -> tuple[MaskFile, list[tuple[shapely.Geometry, float]]]:
     """The mask of ``path`` and each of its levels' channel area [m] with its depth [m].
 
     ``depths`` maps layer names (DXF layer names, GDSII layer numbers) to depths [m]: each
     named layer is one level (of chipflow's own files, a level it holds; otherwise the layer
     read alone). Without names every level takes the depth its file states (chipflow's own
-    DXF) or else ``depth``.
+    DXF) or else ``depth`` (one level only). ``exclude`` names a layer that is not channels
+    (``--region``'s).
 
     Raises
     ------
@@ -174,7 +183,7 @@ def mask_levels(
     """
     path = str(path)
     if depths:
-        whole = read_mask(path, None, units)
+        whole = read_mask(path, None, units, exclude)
         own = {level.name: level for level in whole.levels} if whole.own else {}
         levels, ports = [], whole.ports
         for name, d in depths.items():  # a few named layers
@@ -184,7 +193,7 @@ def mask_levels(
                 levels.append(MaskLevel(name, read_mask(path, name, units).geometry, d))
         mask = MaskFile(tuple(levels), whole.units, whole.scale, ports, whole.own)
         return mask, [(level.geometry, level.depth) for level in levels]
-    mask = read_mask(path, layer, units)
+    mask = read_mask(path, layer, units, exclude)
     names = ", ".join(level.name for level in mask.levels)
     if depth is not None:  # one depth given: the mask must have one level
         if len(mask.levels) > 1:
@@ -206,7 +215,7 @@ def mask_levels(
 
 
 # -- DXF -----------------------------------------------------------------------------------
-def _read_dxf(path: str, layer: str | None, units: str | None) -> MaskFile:
+def _read_dxf(path: str, layer: str | None, units: str | None, exclude: str | None) -> MaskFile:
     from chipflow.spec.mask_dxf import read_mask_dxf
 
     names = _dxf_layer_names(path)
@@ -216,6 +225,18 @@ def _read_dxf(path: str, layer: str | None, units: str | None) -> MaskFile:
         if (m := _LEVEL_NAME.match(name))
     )
     own = layer is None and _DXF_OUTLINE in names and bool(levels)
+    if not own and layer is None and exclude in names:  # every layer but the excluded one
+        read = []
+        for name in sorted(names - {exclude}):  # a few layers
+            try:
+                read.append(read_mask_dxf(path, name, units))
+            except SpecError as exc:
+                if "no closed polyline" not in str(exc):
+                    raise
+        if not read:
+            raise SpecError(f"{path}: no closed polyline outside layer {exclude!r}")
+        geometry = shapely.union_all([m.geometry for m in read])
+        return MaskFile((MaskLevel("all", geometry, None),), read[0].units, read[0].scale)
     if not own:
         m = read_mask_dxf(path, layer, units)
         return MaskFile((MaskLevel(layer or "all", m.geometry, None),), m.units, m.scale)
@@ -276,7 +297,7 @@ def _port(ring: np.ndarray, texts: list[tuple[str, float, float]], scale: float)
 
 
 # -- GDSII ---------------------------------------------------------------------------------
-def _read_gds(path: str, layer: str | None) -> MaskFile:
+def _read_gds(path: str, layer: str | None, exclude: str | None = None) -> MaskFile:
     import gdstk
 
     try:
@@ -294,10 +315,13 @@ def _read_gds(path: str, layer: str | None) -> MaskFile:
     notes = [str(label.text) for label in cell.labels if label.layer == _GDS_NOTES]
     own = layer is None and any(n.startswith("design ") for n in notes)
     wanted = None if layer is None else _gds_layer(path, layer)
+    skip = None if exclude is None or layer is not None else _gds_layer(path, exclude)
     by_layer: dict[tuple[int, int], list] = {}
     for poly in polygons:  # grouped by layer and datatype (a few)
         key = (poly.layer, poly.datatype)
         if own and poly.layer >= _GDS_OUTLINE:
+            continue
+        if skip is not None and poly.layer == skip[0] and skip[1] in (None, poly.datatype):
             continue
         if wanted is not None and (
             poly.layer != wanted[0] or (wanted[1] is not None and poly.datatype != wanted[1])
