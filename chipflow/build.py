@@ -350,6 +350,7 @@ def _build_tree(
     attach(results, operation)
     results["regions"] = region_results(spec, layout, solution)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
+    results["ports"] = mask_ports(layout, export.dxf.mirror)
     results["warnings"] = [
         *design.warnings,
         *layout.notes,
@@ -729,6 +730,7 @@ def _build_network(
             row["mask_width"] = float(mask[i]) if i < mask.size else None
     results["fabrication"] = None if layout is None else _fabrication_dict(layout, export, findings)
     results["chambers"] = _chamber_dicts(runs, culture.window)
+    results["ports"] = [] if layout is None else mask_ports(layout, export.dxf.mirror)
     results["warnings"] = warnings
     field_run = (
         None
@@ -967,6 +969,30 @@ def _residual_dict(solution: Solution) -> dict[str, float]:
     if solution.check is None:
         return {"mass_residual": float(solution.residual)}
     return {k: float(v) for k, v in solution.check.to_dict().items()}
+
+
+def mask_ports(layout: Layout, mirror: bool) -> list[dict[str, Any]]:
+    """Each punched port's name, centre and diameter [m] in the mask files' coordinates.
+
+    The centres are snapped to the mask grid and mirrored with the mask (about the middle of
+    the chip outline), as the DXF and GDSII files place them, so they can be given to
+    ``chipflow analyse`` as ``--inlet`` and ``--outlet`` (in mm: multiply by 1000).
+    """
+    grid = layout.grid
+    x0, _, x1, _ = layout.outline.bounds
+    axis = (round(x0 / grid) + round(x1 / grid)) * grid
+    rows = []
+    for port in layout.ports:  # a handful of ports
+        x, y = round(port.x / grid) * grid, round(port.y / grid) * grid
+        rows.append(
+            {
+                "name": port.name,
+                "x": float(axis - x if mirror else x),
+                "y": float(y),
+                "diameter": float(port.diameter),
+            }
+        )
+    return rows
 
 
 def _fabrication_dict(layout: Layout, export: ExportSettings, findings) -> dict[str, Any]:

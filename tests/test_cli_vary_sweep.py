@@ -46,10 +46,13 @@ def test_vary_writes_report_results_and_a_figure_per_level(tmp_path: Path) -> No
         )
         p = level["floor_shear"]
         assert p["p05"] <= p["p50"] <= p["p95"]
-        assert (out / f"shear-{level['label']}.svg").is_file()
+        assert (out / f"shear-{level['label']}.svg").is_file()  # the demo seeds every level
     assert data["units"]["floor_shear"] == "Pa"
     page = (out / "report.html").read_text()
     assert "Yield" in page
+    figure = (out / "shear-bed.svg").read_text()
+    for entry in ("median (p50)", "p05 and p95", "nominal design"):  # the legend names the lines
+        assert entry in figure
     for table in re.findall(r"<table>(.*?)</table>", page, flags=re.DOTALL):
         header, *rows = re.findall(r"<tr[^>]*>(.*?)</tr>", table, flags=re.DOTALL)
         width = header.count("<th")
@@ -59,6 +62,19 @@ def test_vary_writes_report_results_and_a_figure_per_level(tmp_path: Path) -> No
     assert run("vary", *args, "-o", str(again)).exit_code == 0
     for name in ("results.json", "report.html", "shear-bed.svg"):
         assert (out / name).read_bytes() == (again / name).read_bytes()
+
+
+def test_vary_draws_only_the_seeded_levels(tmp_path: Path) -> None:
+    out = tmp_path / "tol"
+    args = [str(DEMO), "--set", "culture.seeded=bed", "--samples", "50", "-o", str(out)]
+    result = run("vary", *args)
+    assert result.exit_code == 0, result.output
+    levels = json.loads((out / "results.json").read_text())["levels"]
+    assert [lv["label"] for lv in levels if lv["seeded"]] == ["bed"] and len(levels) > 5
+    assert sorted(p.name for p in out.glob("shear-*.svg")) == ["shear-bed.svg"]
+    page = (out / "report.html").read_text()
+    assert page.count("<figure>") == 1
+    assert page.count("<tr>") > len(levels)  # the tables still list every level
 
 
 def test_vary_json_prints_the_results_and_nothing_on_stderr(tmp_path: Path) -> None:
@@ -163,6 +179,15 @@ def test_each_sweep_point_equals_a_separate_build_of_that_design(tmp_path: Path)
         assert row["status"] == build.status
         assert row["supply_pressure"] == build.results["totals"]["inlet_pressure"]
     assert {r["status"] for r in sweep.rows} >= {"pass", "error"}
+    # the heat map names the reason of the point not built, not just its status
+    from chipflow.report.figures import svg_text
+    from chipflow.report.sweep import heat_map
+
+    svg = svg_text(heat_map(sweep))
+    error = next(r for r in sweep.rows if r["status"] == "error")
+    assert "not built [1]" in svg and "n/a" not in svg
+    assert "[1] not built: generation" in svg and "tall-wall" in svg
+    assert error["message"].split(": ", 1)[1][:40] in svg
 
 
 def test_sweep_csv_and_heat_map(tmp_path: Path) -> None:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import math
+from pathlib import Path
 
 import click
 
@@ -41,14 +42,16 @@ SI_UNITS = units_of(
 
 
 class _Point(click.ParamType):
-    """``X,Y`` in the drawing's units."""
+    """``X,Y`` in the drawing's units, or the name of a port mark of chipflow's own mask."""
 
-    name = "X,Y"
+    name = "X,Y|PORT"
 
     def convert(self, value, param, ctx):
         if isinstance(value, tuple):
             return value
         parts = str(value).replace(" ", "").split(",")
+        if len(parts) == 1 and parts[0] and parts[0][0] not in "+-.0123456789":
+            return parts[0]  # a port's name
         try:
             if len(parts) != 2:
                 raise ValueError
@@ -64,16 +67,47 @@ class _Point(click.ParamType):
             )
 
 
+class _Depth(click.ParamType):
+    """``50um`` (the mask's one level) or ``LAYER=50um`` (one level per named layer)."""
+
+    name = "[LAYER=]DEPTH"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, tuple):
+            return value
+        layer, sep, text = str(value).rpartition("=")
+        if sep and not layer.strip():
+            self.fail(f"expected LAYER=DEPTH with a layer name, got {value!r}", param, ctx)
+        return (layer.strip() or None), QUANTITY("length").convert(text.strip(), param, ctx)
+
+
 @click.command("analyse")
-@click.argument("mask", type=click.Path(exists=True, dir_okay=False, path_type=str))
-@click.option("--depth", type=QUANTITY("length"), required=True, help="Channel depth, e.g. 50um.")
-@click.option("--inlet", type=_Point(), required=True, help="Inlet port centre X,Y.")
-@click.option("--outlet", type=_Point(), required=True, help="Outlet port centre X,Y.")
+@click.argument("mask", type=click.Path(path_type=str))
+@click.option(
+    "--depth",
+    "depths",
+    type=_Depth(),
+    multiple=True,
+    help="Channel depth, e.g. 50um; or LAYER=DEPTH, repeated, one mask level per layer "
+    "(default: the depths chipflow's own DXF states in its layer names).",
+)
+@click.option(
+    "--inlet",
+    type=_Point(),
+    help="Inlet port centre X,Y, or a port's name in chipflow's own mask (default: inlet).",
+)
+@click.option(
+    "--outlet",
+    type=_Point(),
+    help="Outlet port centre X,Y, or a port's name in chipflow's own mask (default: outlet).",
+)
 @click.option("--flow", type=QUANTITY("flow"), help="Flow through the chip, e.g. 10uL/min.")
 @click.option(
     "--pressure", type=QUANTITY("pressure"), help="Inlet pressure above the outlet, e.g. 2kPa."
 )
-@click.option("--layer", help="Read only this DXF layer (default: all).")
+@click.option(
+    "--layer", help="Read only this layer: DXF layer name, GDSII layer number (default: all)."
+)
 @click.option(
     "--punch", type=QUANTITY("length"), default="1mm", show_default=True, help="Port punch."
 )
@@ -99,12 +133,22 @@ class _Point(click.ParamType):
     help="Oxygen in the medium at the inlet, e.g. 0.2mol/m^3 (default: in equilibrium with "
     "incubator air; needs --cell-type).",
 )
+@click.option(
+    "--region",
+    help="Floor-shear statistics over the polygons of this layer (e.g. a chamber floor); the "
+    "layer is not read as channels.",
+)
+@click.option(
+    "--network-out",
+    type=click.Path(dir_okay=False),
+    help="Write the skeleton as an explicit network design file (.toml) for chipflow check.",
+)
 @click.option("-o", "--output", "outdir", type=click.Path(file_okay=False), help="Write files.")
 @click.option("--json", "as_json", is_flag=True, help="Print SI values as JSON.")
 @fluid_options
 def command(
     mask,
-    depth,
+    depths,
     inlet,
     outlet,
     flow,
@@ -114,27 +158,34 @@ def command(
     units,
     cell_type,
     o2_inlet,
+    region,
+    network_out,
     outdir,
     as_json,
     fluid,
     allow_large,
 ) -> None:
-    """Solve the flow field of MASK, a DXF drawn in any CAD program.
+    """Solve the flow field of MASK, a DXF or GDSII mask drawn in any CAD program.
 
-    Closed outlines are channels (polylines, splines, ellipses, hatches, solids; block
-    references expanded), circles port pads; the ports are holes of the punch's diameter at
-    --inlet and --outlet (coordinates in the file's units). What is not read is named in a
-    note. With --cell-type the oxygen the cells leave on the floor is solved on the
-    same field. A mesh too large for this process's memory is refused with its estimate.
+    Closed outlines are channels (polylines, splines, ellipses, hatches, solids, GDSII
+    polygons; block references expanded), circles port pads; the ports are holes of the punch's
+    diameter at --inlet and --outlet (coordinates in the file's units). chipflow's own DXF and
+    GDSII are read level by level, with their port marks. What is not read is named in a note.
+    With --cell-type the oxygen the cells leave on the floor is solved on the same field. A
+    mesh too large for this process's memory is refused with its estimate.
+
+    MASK may name a mask installed with chipflow (straight_channel.dxf, a 200 um wide
+    channel between pads at 0,0 and 20,0 mm) when no such file exists.
 
     \b
     Example:
-      chipflow analyse chip.dxf --depth 50um --inlet 0,0 --outlet 20,0 --flow 10uL/min
+      chipflow analyse straight_channel.dxf --depth 50um --inlet 0,0 --outlet 20,0 \\
+        --flow 10uL/min
     """
     from chipflow.checks.cell_types import cell_type as lookup
     from chipflow.cli.progress import progress_bar
     from chipflow.field.analyse import analyse_mask
-    from chipflow.spec.mask_dxf import read_mask_dxf
+    from chipflow.spec.mask_read import mask_levels, resolve_mask
 
     if (flow is None) == (pressure is None):
         raise SpecError("give either --flow or --pressure")
@@ -144,24 +195,38 @@ def command(
     if cell_type is not None:
         cells = lookup(cell_type, where="--cell-type")
         window = (cells.shear_min, cells.shear_max)
-    m = read_mask_dxf(mask, layer, units)
+    named = {name: d for name, d in depths if name is not None}
+    plain = [d for name, d in depths if name is None]
+    if len(plain) > 1 or (plain and named):
+        raise SpecError(
+            "give one --depth for the whole mask, or one LAYER=DEPTH per mask level, not both"
+        )
+    if named and layer is not None:
+        raise SpecError("--layer reads one layer; with LAYER=DEPTH depths name the layers there")
+    path = str(resolve_mask(mask))
+    m, levels = mask_levels(path, named, plain[0] if plain else None, layer, units, region)
     with progress_bar("analyse", quiet=as_json, unit="step") as progress:
         analysis = analyse_mask(
             m.geometry,
-            depth,
-            (inlet[0] * m.scale, inlet[1] * m.scale),
-            (outlet[0] * m.scale, outlet[1] * m.scale),
+            levels[0][1],
+            _port_xy(inlet, "inlet", m),
+            _port_xy(outlet, "outlet", m),
             punch,
             fluid.viscosity,
             flow=flow,
             pressure=pressure,
             window=window,
+            levels=levels,
             allow_large=allow_large,
             progress=progress,
             where=mask,
         )
     results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
     results["notes"] = list(m.notes)
+    results["levels"] = [
+        {"name": level.name, "depth": d, "area": g.area}
+        for level, (g, d) in zip(m.levels, levels, strict=True)
+    ]
     oxygen = None
     if cell_type is not None:
         from chipflow.transport.field import mask_oxygen
@@ -169,7 +234,28 @@ def command(
         oxygen, results["transport"] = mask_oxygen(
             analysis.solution, cells, fluid.temperature, o2_inlet
         )
+    if region is not None:
+        from chipflow.field.region import region_shear
+        from chipflow.spec.mask_read import read_mask
+
+        where = read_mask(path, region, units).geometry
+        results["region"] = {"layer": region, **region_shear(analysis.solution, where, window)}
     results["units"] = SI_UNITS
+    if network_out is not None:
+        from chipflow.export.network_out import network_toml, write_network
+        from chipflow.field.analyse import port_holes
+
+        ends = (_port_xy(inlet, "inlet", m), _port_xy(outlet, "outlet", m))
+        radius = math.sqrt(port_holes(m.geometry, ends, punch)[0].area / math.pi)
+        text = network_toml(
+            analysis.channels,
+            [("inlet", ends[0], radius), ("outlet", ends[1], radius)],
+            {"inlet": ("flow", analysis.flow)},
+            fluid,
+            Path(network_out).stem,
+            Path(mask).name,
+        )
+        write_network(text, network_out)
     if outdir is not None:
         from chipflow.export.analysis import write_analysis
 
@@ -200,10 +286,31 @@ def command(
             f"mol/m^3, {t['hypoxic_fraction']:.1%} of the floor below the {cell_type} critical "
             f"{t['o2_critical']:.3g} mol/m^3, {t['o2_out']:.3g} mol/m^3 out"
         )
+    if region is not None:
+        r = results["region"]
+        click.echo(
+            f"region {region} ({r['area'] * 1e6:.4g} mm^2 of floor): p05 {r['p05']:.3g} Pa, "
+            f"median {r['p50']:.3g} Pa, p95 {r['p95']:.3g} Pa"
+            + ("" if window is None else f", {r['outside']:.1%} outside the window")
+        )
     _echo_channels(analysis.channels)
     if outdir is not None:
         extra = " and oxygen.svg" if oxygen is not None else ""
         click.echo(f"wrote results.json, field.svg{extra} to {outdir}/")
+
+
+def _port_xy(value, role: str, mask) -> tuple[float, float]:
+    """A port centre [m]: X,Y in the drawing's units, or a port mark of chipflow's own mask."""
+    if isinstance(value, tuple):
+        return value[0] * mask.scale, value[1] * mask.scale
+    name = role if value is None else value
+    for port in mask.ports:  # a handful
+        if port.name == name:
+            return port.x, port.y
+    if not mask.ports:
+        raise SpecError(f"give --{role} X,Y: the mask has no port marks to take it from")
+    names = ", ".join(p.name for p in mask.ports)
+    raise SpecError(f"--{role}: the mask has no port named {name!r} (its ports: {names})")
 
 
 def _echo_channels(table) -> None:

@@ -29,6 +29,8 @@ __all__ = [
     "write_previews",
     "LAYER_COLOURS",
     "RASTER_VERTICES",
+    "bed_close_up",
+    "mark_window",
 ]
 
 #: Fill colours of the mask levels, shallowest first (our own palette), then cycling.
@@ -58,6 +60,8 @@ class LayoutPlot:
         The channels coloured by value, when values were given.
     scale_bar_length : float
         Length of the scale bar [m].
+    close_up : matplotlib.axes.Axes or None
+        The bed close-up panel, when the bed is too fine to read at chip scale.
     """
 
     ax: Any
@@ -65,6 +69,7 @@ class LayoutPlot:
     layer_patches: tuple
     channel_collection: Any
     scale_bar_length: float
+    close_up: Any = None
 
 
 def _nice_length(span: float) -> float:
@@ -133,6 +138,68 @@ def _view_bounds(layout: Layout) -> tuple[float, float, float, float]:
     )
 
 
+#: A bed whose narrowest channel is below this share of the view's span gets a close-up.
+CLOSE_UP_BELOW = 0.01
+
+
+def bed_close_up(layout: Layout, view: tuple[float, float, float, float] | None = None):
+    """The square [m] (x0, y0, x1, y1) a close-up of the bed shows, or None.
+
+    Centred where the first bed channel starts (its junction with the distribution side),
+    large enough for four widths of the widest channel meeting there and for the next three
+    bed channels; None when the drawing has no bed or its channels are wide enough (at least
+    :data:`CLOSE_UP_BELOW` of the view's span) to read at chip scale.
+    """
+    ch = layout.channels
+    bed = np.flatnonzero(ch.role == "bed")
+    if bed.size == 0:
+        return None
+    x0, y0, x1, y1 = view or _view_bounds(layout)
+    span = max(x1 - x0, y1 - y0)
+    if float(ch.width[bed].min()) >= CLOSE_UP_BELOW * span:
+        return None
+    node = int(ch.node_a[bed[0]])
+    meeting = (ch.node_a == node) | (ch.node_b == node)
+    cx, cy = (float(v) for v in layout.node_xy[node])
+    starts = layout.node_xy[ch.node_a[bed]]
+    gaps = np.sort(np.hypot(starts[:, 0] - cx, starts[:, 1] - cy))
+    half = max(4.0 * float(ch.width[meeting].max()), 1.1 * float(gaps[min(3, gaps.size - 1)]))
+    half = min(half, 0.1 * span)
+    return cx - half, cy - half, cx + half, cy + half
+
+
+def _close_up(ax: Any, layout: Layout, box, fills: tuple | None, mm: float) -> None:
+    """Draw the mask levels and the valued channels inside ``box`` [m] on ``ax``.
+
+    ``fills`` is (polygons [mm], owning channel of each, the main panel's collection) or None.
+    """
+    from matplotlib.collections import PolyCollection
+    from matplotlib.patches import PathPatch
+
+    for i, mask in enumerate(layout.layers):  # a few mask levels
+        path = _path_of(shapely.clip_by_rect(mask.geometry, *box), mm)
+        if path is not None:
+            colour = LAYER_COLOURS[i % len(LAYER_COLOURS)]
+            alpha = 0.25 if fills is not None else 0.85
+            ax.add_artist(PathPatch(path, facecolor=colour, edgecolor="none", alpha=alpha))
+    if fills is not None:
+        polys, owner, main = fills
+        inside = shapely.intersects(_channel_outlines(layout.channels), shapely.box(*box))
+        keep = inside[owner]
+        drawn = PolyCollection(
+            [p for p, k in zip(polys, keep.tolist(), strict=True) if k],
+            cmap=main.get_cmap(), norm=main.norm, edgecolors="face", linewidths=0.6,
+        )  # fmt: skip
+        drawn.set_array(np.asarray(main.get_array())[keep])
+        ax.add_collection(drawn, autolim=False)
+    ax.set_xlim(box[0] * mm, box[2] * mm)
+    ax.set_ylim(box[1] * mm, box[3] * mm)
+    ax.set_aspect("equal")
+    ax.tick_params(labelsize=7)
+    ax.set_xlabel("x [mm]", fontsize=8)
+    ax.set_title("bed close-up\n(the box on the chip)", fontsize=8)
+
+
 def _chip_inset(ax: Any, layout: Layout, view: tuple[float, ...], mm: float) -> None:
     """A small map of the whole chip with the shown region marked."""
     from matplotlib.lines import Line2D
@@ -152,6 +219,37 @@ def _chip_inset(ax: Any, layout: Layout, view: tuple[float, ...], mm: float) -> 
     inset.set_xticks([])
     inset.set_yticks([])
     inset.set_title("whole chip", fontsize=7)
+
+
+def mark_window(colorbar: Any, marks: Sequence[float]) -> None:
+    """Show the cells' window on a vertical colour bar: a band between two marks, a line at one.
+
+    The band is hatched in white with white edges over the colours and labelled "window"
+    beside the bar, so the colours inside the window stay visible.
+    """
+    marks = sorted(float(m) for m in marks)
+    if not marks:
+        return
+    bar = colorbar.ax
+    if len(marks) == 1:
+        bar.axhline(marks[0], color="white", lw=1.4)
+        bar.axhline(marks[0], color="black", lw=0.6, ls="--")
+        return
+    low, high = marks[0], marks[-1]
+    bar.axhspan(low, high, facecolor="none", edgecolor="white", hatch="////", lw=1.4)
+    for edge in (low, high):
+        bar.axhline(edge, color="black", lw=0.7)
+    bar.annotate(
+        "window",
+        xy=(0.0, (low + high) / 2),
+        xycoords=("axes fraction", "data"),
+        xytext=(-3, 0),
+        textcoords="offset points",
+        rotation=90,
+        ha="right",
+        va="center",
+        fontsize=7,
+    )
 
 
 def plot_layout(
@@ -200,11 +298,21 @@ def plot_layout(
     from matplotlib.patches import Circle, PathPatch, Rectangle
 
     mm = 1e3
+    view = _view_bounds(layout)
+    box = close = None
     if ax is None:
         minx, miny, maxx, maxy = layout.outline.bounds
         aspect = (maxy - miny) / max(maxx - minx, 1e-12)
-        fig = Figure(figsize=(8.0, max(2.5, 8.0 * aspect + 1.2)), dpi=100)
-        ax = fig.add_subplot()
+        box = bed_close_up(layout, view)
+        if box is None:
+            fig = Figure(figsize=(8.0, max(2.5, 8.0 * aspect + 1.2)), dpi=100)
+            ax = fig.add_subplot()
+        else:  # the chip and, beside it, the bed close-up; laid out by matplotlib
+            size = (10.5, max(3.2, 8.0 * aspect + 1.2))
+            fig = Figure(figsize=size, dpi=100, layout="constrained")
+            fig.get_layout_engine().set(h_pad=0.12, w_pad=0.08)
+            grid = fig.add_gridspec(1, 2, width_ratios=(3.0, 1.0))
+            ax, close = fig.add_subplot(grid[0]), fig.add_subplot(grid[1])
     ax.set_aspect("equal")
     ox, oy = layout.outline.exterior.xy
     ax.add_line(Line2D(np.asarray(ox) * mm, np.asarray(oy) * mm, color=_OUTLINE_COLOUR, lw=1.0))
@@ -245,9 +353,8 @@ def plot_layout(
         xy, idx = shapely.get_coordinates(rings, return_index=True)
         cuts = np.flatnonzero(np.diff(idx)) + 1
         # an outline in the fill colour keeps channels narrower than a pixel visible
-        collection = PolyCollection(
-            np.split(xy * mm, cuts), cmap="viridis", edgecolors="face", linewidths=0.6
-        )
+        polys = np.split(xy * mm, cuts)
+        collection = PolyCollection(polys, cmap="viridis", edgecolors="face", linewidths=0.6)
         collection.set_array(vals[owner])
         if value_range is not None:
             collection.set_clim(*value_range)
@@ -255,11 +362,13 @@ def plot_layout(
         drawn.append(len(xy))
         above = value_range is not None and bool(np.nanmax(vals) > value_range[1])
         colorbar = ax.figure.colorbar(
-            collection, ax=ax, shrink=0.8, extend="max" if above else "neither"
+            collection,
+            ax=ax if close is None else [ax, close],
+            shrink=0.8,
+            extend="max" if above else "neither",
         )
         colorbar.set_label(value_label)
-        for mark in value_marks:
-            colorbar.ax.axhline(mark, color="white", lw=1.2)
+        mark_window(colorbar, value_marks)
 
     if sum(drawn) > (RASTER_VERTICES if raster_above is None else raster_above):
         for artist in (*patches, collection):
@@ -294,7 +403,19 @@ def plot_layout(
         if cr.name:
             ax.text(x0 * mm, y1 * mm, f" {cr.name}", ha="left", va="bottom", fontsize=8)
 
-    view = _view_bounds(layout)
+    if close is not None:
+        fills = None if collection is None else (polys, owner, collection)
+        _close_up(close, layout, box, fills, mm)
+        ax.add_patch(
+            Rectangle(
+                (box[0] * mm, box[1] * mm),
+                (box[2] - box[0]) * mm,
+                (box[3] - box[1]) * mm,
+                fill=False,
+                edgecolor="black",
+                lw=0.8,
+            )
+        )
     if view != layout.outline.bounds:
         _chip_inset(ax, layout, view, mm)
     minx, miny, maxx, maxy = view
@@ -311,7 +432,22 @@ def plot_layout(
     ax.set_title(layout.name, y=1.0)  # placed, not searched for (no axis above it)
     if patches:
         ax.legend(handles=patches, loc="upper right", fontsize=7, framealpha=0.8)
-    return LayoutPlot(ax, colorbar, tuple(patches), collection, bar)
+    if close is not None:
+        _freeze_layout(ax.figure)
+    return LayoutPlot(ax, colorbar, tuple(patches), collection, bar, close)
+
+
+def _freeze_layout(fig: Any) -> None:
+    """Lay the figure out once and keep the positions, so that every file saved from it (SVG,
+    PNG) has the layout a file saved alone has. The shapes are hidden meanwhile: the layout
+    depends on the axes' text only, and drawing thousands of channels once more is slow."""
+    shapes = [a for ax in fig.axes for a in (*ax.patches, *ax.collections) if a.get_visible()]
+    for artist in shapes:
+        artist.set_visible(False)
+    fig.draw_without_rendering()
+    fig.set_layout_engine("none")
+    for artist in shapes:
+        artist.set_visible(True)
 
 
 def write_preview(

@@ -3,7 +3,7 @@
 ==========================  =====================================================================
 ``report.html``             yield, per-level percentiles, worst corner, ranking, figures, cautions
 ``results.json``            the same in SI units with a "units" map
-``shear-<level>.svg``       one figure per level: the floor-shear spread against the window band
+``shear-<level>.svg``       one figure per seeded level: the floor-shear spread against the window
 ==========================  =====================================================================
 
 The folder is staged (:mod:`chipflow.export.outdir`): files replace those of OUTDIR only when
@@ -36,6 +36,7 @@ def write_variation(variation: Variation, outdir: str | Path) -> list[Path]:
     captions = {
         f"Floor shear of {lv['label']} over the samples": figures[f"shear-{lv['label']}.svg"]
         for lv in variation.results["levels"]
+        if f"shear-{lv['label']}.svg" in figures
     }
     names = ["report.html", "results.json", *figures]
     with staged_folder(outdir) as stage:

@@ -18,6 +18,7 @@ that cannot happen.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -239,6 +240,7 @@ def analyse_mask(
     allow_large: bool = False,
     progress=None,
     where: str = "",
+    levels: Sequence[tuple[shapely.Geometry, float]] | None = None,
 ) -> MaskAnalysis:
     """Solve the field of a mask's channel area with punched inlet and outlet holes.
 
@@ -267,6 +269,10 @@ def analyse_mask(
     where : str
         The mask file, for messages.
 
+    levels : sequence of (geometry, float), optional
+        Mask levels of different depth: each level's channel area [m] and depth [m] (where
+        they overlap the deeper holds); ``geometry`` is then their union and ``depth`` unused.
+
     Raises
     ------
     FieldError, SpecError, TooLargeError
@@ -280,7 +286,7 @@ def analyse_mask(
             raise FieldError(f"the {what} must be a positive number, got {value!r}")
     holes = check_mask(
         geometry,
-        depth,
+        min(d for _, d in levels) if levels else depth,  # the shallowest meshes finest
         {"inlet": inlet, "outlet": outlet},
         punch,
         across=across,
@@ -290,7 +296,8 @@ def analyse_mask(
     report(1, 3)
     drive = 1.0 if pressure is None else float(pressure)
     ports = [FieldPort("inlet", holes[0], drive), FieldPort("outlet", holes[1], 0.0)]
-    solution = solve_field([FieldRegion(geometry, depth)], ports, viscosity, across=across)
+    regions = [FieldRegion(g, d) for g, d in levels] if levels else [FieldRegion(geometry, depth)]
+    solution = solve_field(regions, ports, viscosity, across=across)
     check_port_flows(solution.port_flows)
     report(2, 3)
     q = solution.port_flows["inlet"]

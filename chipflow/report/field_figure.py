@@ -22,13 +22,16 @@ def _bands(window: tuple[float, float] | None, shear: np.ndarray) -> np.ndarray:
 def map_panels(mesh, values, cmap, norm, zoom=None, width: float = 7.5):
     """A figure of one value per triangle of ``mesh`` on the chip [mm], and a close-up.
 
-    ``zoom`` is the centre x, y and half-size [m] of the close-up (none without). Returns the
-    figure, its axes and the drawn collection of the first (for the colour bar).
+    ``zoom`` is the centre x, y and half-size [m] of the close-up (none without); the main
+    panel marks where it lies. The figure lays itself out (matplotlib's constrained layout),
+    so titles, axis labels and a colour bar added to all axes do not overlap or get cut.
+    Returns the figure, its axes and the drawn collection of the first (for the colour bar).
     """
     from matplotlib.figure import Figure
+    from matplotlib.patches import Rectangle
 
     panels = 2 if zoom is not None else 1
-    fig = Figure(figsize=(width, 2.6 * panels))
+    fig = Figure(figsize=(width, 2.9 * panels), layout="constrained")
     axes = fig.subplots(panels, 1, squeeze=False)[:, 0]
     mm = 1e3
     x, y = mesh.points[:, 0] * mm, mesh.points[:, 1] * mm
@@ -44,13 +47,24 @@ def map_panels(mesh, values, cmap, norm, zoom=None, width: float = 7.5):
         drawn = ax.tripcolor(x, y, tris, facecolors=colours, cmap=cmap, norm=norm, rasterized=True)
         art = drawn if art is None else art
         ax.set_aspect("equal")
-        ax.set_xlabel("x [mm]")
-        ax.set_ylabel("y [mm]")
+        ax.set_xlabel("x [mm]", fontsize=8)
+        ax.set_ylabel("y [mm]", fontsize=8)
+        ax.tick_params(labelsize=7)
         if k == 1:
             cx, cy, half = zoom
             ax.set_xlim((cx - half) * mm, (cx + half) * mm)
             ax.set_ylim((cy - half) * mm, (cy + half) * mm)
-            ax.set_title("close-up", fontsize=9)
+            ax.set_title("close-up (the box in the panel above)", fontsize=8)
+            axes[0].add_patch(
+                Rectangle(
+                    ((cx - half) * mm, (cy - half) * mm),
+                    2 * half * mm,
+                    2 * half * mm,
+                    fill=False,
+                    edgecolor="black",
+                    lw=0.8,
+                )
+            )
     return fig, axes, art
 
 
@@ -86,8 +100,9 @@ def field_shear_figure(solution, window: tuple[float, float] | None, zoom=None, 
     bar = fig.colorbar(art, ax=list(axes), shrink=0.9, spacing="uniform")
     bar.set_ticks(edges)
     bar.set_ticklabels([f"{e:.3g}" for e in edges])
+    bar.ax.tick_params(labelsize=7)
     label = "floor wall shear [Pa]"
     if window is not None:
-        label += f"; window {window[0]:.3g}-{window[1]:.3g} Pa in green"
+        label += f"\nwindow {window[0]:.3g}-{window[1]:.3g} Pa: green"
     bar.set_label(label, fontsize=8)
     return fig

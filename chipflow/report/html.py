@@ -60,7 +60,8 @@ _CSS = """
   --warn: #8a5a00; --fail: #a3262a; --pass-bg: #e3f2e8; --warn-bg: #fbefd5;
   --fail-bg: #f8dede; --band: #f5f7f9; }
 body { font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
-  color: var(--ink); max-width: 76rem; margin: 2rem auto; padding: 0 1.2rem; }
+  color: var(--ink); max-width: 100rem; margin: 2rem auto; padding: 0 1.2rem; }
+p, ul, figcaption { max-width: 60rem; }
 h1 { font-size: 1.6rem; margin-bottom: 0.2rem; }
 h2 { font-size: 1.15rem; border-bottom: 2px solid var(--rule); padding-bottom: 0.2rem;
   margin-top: 2.2rem; }
@@ -68,10 +69,10 @@ h2 { font-size: 1.15rem; border-bottom: 2px solid var(--rule); padding-bottom: 0
 .verdict { display: inline-block; padding: 0.3rem 0.8rem; border-radius: 0.3rem;
   font-weight: 600; margin: 0.6rem 0; }
 table { border-collapse: collapse; font-size: 0.85rem; margin: 0.6rem 0; }
-th, td { padding: 0.25rem 0.55rem; border-bottom: 1px solid var(--rule); text-align: right;
+th, td { padding: 0.25rem 0.4rem; border-bottom: 1px solid var(--rule); text-align: right;
   vertical-align: top; }
-th { background: var(--band); font-weight: 600; }
-td.text, th.text { text-align: left; }
+th { background: var(--band); font-weight: 600; vertical-align: bottom; }
+td.text, th.text { text-align: left; overflow-wrap: break-word; }
 tr.bed td { background: #fbf5e8; }
 .status { white-space: nowrap; font-weight: 600; border-radius: 0.2rem; padding: 0 0.3rem; }
 .pass { color: var(--pass); background: var(--pass-bg); }

@@ -211,10 +211,11 @@ def network_schematic(results: Mapping[str, Any], *, width: float = 10.0):
     colorbar = fig.colorbar(lines, ax=ax, shrink=0.85, extend="max" if window else "neither")
     colorbar.set_label("floor wall shear [Pa]", fontsize=8)
     colorbar.ax.tick_params(labelsize=7)
-    if window and window.get("min") is not None and window.get("max") is not None:
-        for edge in (float(window["min"]), float(window["max"])):
-            colorbar.ax.axhline(edge, color="white", lw=1.2)
-        colorbar.ax.set_title("window\nmarked", fontsize=6)
+    if window:
+        from chipflow.export.preview import mark_window
+
+        bounds = [float(window[k]) for k in ("min", "max") if window.get(k) is not None]
+        mark_window(colorbar, bounds)
     ax.set_xlim(-0.4, column.max() + 0.4)
     ax.set_ylim(row.min() - 0.8, row.max() + 0.6)
     ax.set_xticks([])

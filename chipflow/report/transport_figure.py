@@ -50,6 +50,6 @@ def oxygen_map_figure(transport, zoom=None, *, width: float = 7.5):
     bar.set_ticklabels([f"{e:.3g}" for e in edges])
     label = "floor oxygen [mol/m^3]"
     if transport.critical is not None:
-        label += f"; critical {transport.critical:.3g}: below it dark red"
+        label += f"\ncritical {transport.critical:.3g}: below it dark red"
     bar.set_label(label, fontsize=8)
     return fig

@@ -75,13 +75,14 @@ def level_figure(
     counts, _ = np.histogram(values, bins=bins)
     ax.stairs(counts, bins, fill=True, color=_TEAL, alpha=0.85, zorder=2)
     p = level["floor_shear"]
-    for key, style in (("p05", ":"), ("p50", "-"), ("p95", ":")):
-        ax.axvline(p[key], color=_INK, ls=style, lw=1.1, zorder=3)
-    ax.axvline(p["nominal"], color=_INK, ls="--", lw=0.8, zorder=3, label="nominal")
+    ax.axvline(p["p50"], color=_INK, ls="-", lw=1.1, zorder=3, label="median (p50)")
+    ax.axvline(p["p05"], color=_INK, ls=":", lw=1.1, zorder=3, label="p05 and p95")
+    ax.axvline(p["p95"], color=_INK, ls=":", lw=1.1, zorder=3)
+    ax.axvline(p["nominal"], color=_INK, ls="--", lw=0.8, zorder=3, label="nominal design")
     label = level.get("label", "")
     seeded = " (seeded)" if level.get("seeded") else ""
     ax.set_title(
-        f"{name + ': ' if name else ''}floor shear of {label}{seeded}, p05 / p50 / p95",
+        f"{name + ': ' if name else ''}floor shear of {label}{seeded} over the samples",
         loc="left",
         fontsize=8.5,
         color=_INK,
@@ -261,12 +262,18 @@ def variation_html(results: Mapping[str, Any], figures: Mapping[str, str]) -> st
 
 
 def level_figures(results: Mapping[str, Any], shear: np.ndarray) -> dict[str, str]:
-    """SVG text of every level's figure, keyed by file name ``shear-<label>.svg``."""
+    """SVG text of the seeded levels' figures, keyed by file name ``shear-<label>.svg``.
+
+    Only the levels that carry cells get a figure (the tables list every level); a design
+    without a seeded level gets one for every level.
+    """
     name = results["design"]["name"]
     window = results.get("shear_window")
+    levels = list(enumerate(results["levels"]))
+    shown = [(g, lv) for g, lv in levels if lv.get("seeded")] or levels
     return {
         f"shear-{lv['label']}.svg": svg_text(level_figure(shear[:, g], lv, window, name))
-        for g, lv in enumerate(results["levels"])  # loop over levels
+        for g, lv in shown  # loop over levels
     }
 
 
