@@ -231,10 +231,10 @@ def _read_dxf(path: str, layer: str | None, units: str | None, exclude: str | No
             try:
                 read.append(read_mask_dxf(path, name, units))
             except SpecError as exc:
-                if "no closed polyline" not in str(exc):
+                if "no closed" not in str(exc):  # a layer without outlines
                     raise
         if not read:
-            raise SpecError(f"{path}: no closed polyline outside layer {exclude!r}")
+            raise SpecError(f"{path}: no closed outline outside layer {exclude!r}")
         geometry = shapely.union_all([m.geometry for m in read])
         return MaskFile((MaskLevel("all", geometry, None),), read[0].units, read[0].scale)
     if not own:
