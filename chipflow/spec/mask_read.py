@@ -237,10 +237,10 @@ def _read_dxf(path: str, layer: str | None, units: str | None, exclude: str | No
             try:
                 read.append(read_mask_dxf(path, name, units))
             except SpecError as exc:
-                if "no closed polyline" not in str(exc):
+                if "no closed" not in str(exc):  # a layer without outlines
                     raise
         if not read:
-            raise SpecError(f"{path}: no closed polyline outside layer {exclude!r}")
+            raise SpecError(f"{path}: no closed outline outside layer {exclude!r}")
         geometry = shapely.union_all([m.geometry for m in read])
         notes = tuple(dict.fromkeys(n for m in read for n in m.notes))
         return MaskFile(
