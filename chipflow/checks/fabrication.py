@@ -7,6 +7,7 @@ A finding is any object with the attributes ``rule``, ``severity`` ("error" or "
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable
 from typing import Any
 
@@ -19,10 +20,12 @@ SEVERITY_STATUS = {"error": "fail", "warning": "warn", "info": "pass"}
 
 
 def _number(value: Any) -> float | None:
+    """A finite number, or None (no position: a channel that is not drawn has NaN)."""
     try:
-        return None if value is None else float(value)
+        number = None if value is None else float(value)
     except (TypeError, ValueError):
         return None
+    return number if number is not None and math.isfinite(number) else None
 
 
 def fabrication_results(findings: Iterable[Any]) -> list[CheckResult]:
@@ -38,6 +41,8 @@ def fabrication_results(findings: Iterable[Any]) -> list[CheckResult]:
     ('fail', 'fabrication: minimum feature')
     >>> r.message
     'channel narrower than the mask allows (at x = 1.5 mm, y = 2 mm; channels 3, 4)'
+    >>> fabrication_results([F(**{**vars(f), "x": float("nan")})])[0].message  # not drawn
+    'channel narrower than the mask allows (channels 3, 4)'
     >>> fabrication_results([])[0].status
     'pass'
     """
