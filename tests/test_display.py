@@ -1,4 +1,8 @@
-"""Numbers for people (chipflow.display): the cases the issue met, and the laws behind them."""
+"""Numbers for people (chipflow.display): the cases the issue met, and the laws behind them.
+
+The expected strings are chipflow's own display conventions (significant figures, a unit per
+magnitude, float noise as 0), not values from an outside source.
+"""
 
 from __future__ import annotations
 

@@ -1,7 +1,8 @@
 """The figures' layout: nothing overlaps or is cut, the bed gets a close-up, the window a band.
 
 Extents are measured on the drawn figure (matplotlib's own text and axes boxes, in display
-pixels), so a title that runs into an axis label or a label that leaves the figure fails.
+pixels), so a title that runs into an axis label or a label that leaves the figure fails. The
+fractions compared are the figures' own geometry (no outside source).
 """
 
 from __future__ import annotations

@@ -1,5 +1,9 @@
 """Oxygen on the 2D field: against the 1D march on a straight channel, its mass balance, and in
-a build (results, figure, report)."""
+a build (results, figure, report).
+
+The reference is the independent 1D march of chipflow.transport on the same channel (itself
+checked against analytic limits and a 2D finite-difference solve in test_transport*.py).
+"""
 
 from __future__ import annotations
 

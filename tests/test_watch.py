@@ -4,7 +4,8 @@ The end-to-end test runs the command in a process of its own and opens the serve
 headless Chromium (Debian's ``chromium``; the test skips without it). It reads what the page
 shows from Chromium's own list of open pages (the DevTools HTTP endpoint ``/json/list``,
 standard library only): the page's title is the design's name, so after the design file is
-edited the open page must show the new name without being told to reload.
+edited the open page must show the new name without being told to reload. Its numbers are
+polling intervals and time limits, not reference values from a source.
 """
 
 from __future__ import annotations
