@@ -1,7 +1,8 @@
 """Plausible ranges of every input (chipflow.limits): the one table, applied where design files
 and options are converted, and documented on the user guide's limits page. The bounds are
-chipflow's own choice (stated with a reason in each row), not reference values from a source; the tests
-check that they are applied, one line each, and that the page shows the same table."""
+chipflow's own choice (stated with a reason in each row), not reference values from a
+source; the tests check that they are applied, one line each, and that the page shows the same
+table."""
 
 from __future__ import annotations
 

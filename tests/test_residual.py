@@ -2,9 +2,10 @@
 
 Random channel networks with widths, depths and lengths spread over 12 decades either solve
 with mass conserved at every node to the stated tolerance, and flows within it of an exact
-rational solve written here (an independent solve: Fractions, Gaussian elimination), or are refused with one
-NetworkError naming a channel. The reference is the exact solution of the same linear
-system, so the tolerance is checked against arithmetic, not against the code under test.
+rational solve written here (an independent solve: Fractions, Gaussian elimination), or are
+refused with one NetworkError naming a channel. The reference is the exact solution of the
+same linear system, so the tolerance is checked against arithmetic, not against the code under
+test.
 """
 
 from __future__ import annotations
