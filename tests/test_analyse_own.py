@@ -72,7 +72,9 @@ def test_mirrored_masks_carry_mirrored_ports(tmp_path_factory, demo) -> None:
     assert marks["inlet"].x == pytest.approx(results["ports"][0]["x"], abs=1e-9)
 
 
-@pytest.mark.parametrize("kind", ["dxf", "gds"])
+# each analyse of the demo mask solves its field and skeleton (about 30 s): the default suite
+# runs the DXF reading, the two-depth mask and the round trip; the rest under -m slow
+@pytest.mark.parametrize("kind", ["dxf", pytest.param("gds", marks=pytest.mark.slow)])
 def test_analyse_reads_chipflows_own_mask_and_matches_the_build(demo, kind) -> None:
     results, chip, dxf, gds = demo
     flow = "12uL/min"
@@ -88,6 +90,7 @@ def test_analyse_reads_chipflows_own_mask_and_matches_the_build(demo, kind) -> N
     assert data["levels"][0]["area"] < 0.1 * results["fabrication"]["chip"]["width"] ** 2
 
 
+@pytest.mark.slow
 def test_ports_given_as_coordinates_from_results_json(demo) -> None:
     results, chip, dxf, _ = demo
     inlet, outlet = (p["x"] * 1e6 for p in results["ports"])  # the files are in um
@@ -201,6 +204,7 @@ def _with_region(dxf: Path, out: Path, box) -> Path:
     return out
 
 
+@pytest.mark.slow
 def test_region_statistics_cover_the_floor_inside_the_layers_polygons(demo, tmp_path) -> None:
     import shapely
 
