@@ -186,6 +186,9 @@ def watch(
         raise SystemExit(128 + signum)
 
     previous = signal.signal(signal.SIGTERM, terminate)
+    # Ctrl-C stops the watch even when it was started with SIGINT ignored (a background job
+    # of a shell without job control inherits that)
+    previous_int = signal.signal(signal.SIGINT, signal.default_int_handler)
     status = 0
     try:
         count = 0
@@ -217,6 +220,7 @@ def watch(
         status = 0 if exc.code == 128 + signal.SIGINT else int(exc.code or 0)
     finally:
         signal.signal(signal.SIGTERM, previous)
+        signal.signal(signal.SIGINT, previous_int)
         server.shutdown()
         server.server_close()
         click.echo("stopped watching")
