@@ -73,7 +73,7 @@ def test_mirrored_masks_carry_mirrored_ports(tmp_path_factory, demo) -> None:
 
 
 # each analyse of the demo mask solves its field and skeleton (about 30 s): the default suite
-# runs the DXF reading, the two-depth mask and the round trip; the rest under -m slow
+# runs the DXF reading and the two-depth mask; the rest under -m slow
 @pytest.mark.parametrize("kind", ["dxf", pytest.param("gds", marks=pytest.mark.slow)])
 def test_analyse_reads_chipflows_own_mask_and_matches_the_build(demo, kind) -> None:
     results, chip, dxf, gds = demo
@@ -155,6 +155,7 @@ def test_the_installed_mask_is_found_by_name_from_any_folder(tmp_path, monkeypat
     assert "no such file" in missing.output and "straight_channel.dxf" in missing.output
 
 
+@pytest.mark.slow
 def test_network_out_round_trip_checks_within_one_percent_of_analyse(demo, tmp_path) -> None:
     """The skeleton written as a network: `chipflow check` of that file gives the inlet
     pressure analyse found, within 1 % (the branches carry the field's resistance)."""
