@@ -1,4 +1,8 @@
-"""The on-disk cache of field results: keys, atomic entries, corruption, concurrency, CLI."""
+"""The on-disk cache of field results: keys, atomic entries, corruption, concurrency, CLI.
+
+The numbers compared are the values the tests store themselves or an uncached solve of the same
+geometry (the reference is the solve without the cache), not values from an outside source.
+"""
 
 from __future__ import annotations
 

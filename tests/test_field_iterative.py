@@ -1,4 +1,8 @@
-"""The iterative field solve (MINRES with multigrid) against dense and direct solves."""
+"""The iterative field solve (MINRES with multigrid) against dense and direct solves.
+
+The references are independent solves of the same system: numpy's dense solve (LAPACK) and the
+field's direct sparse solve.
+"""
 
 from __future__ import annotations
 
