@@ -7,7 +7,6 @@ footprints are read back from the DXF file's CULTURE_REGION layer with ezdxf.
 
 from __future__ import annotations
 
-import csv
 import json
 from pathlib import Path
 
@@ -16,6 +15,7 @@ import numpy as np
 import pytest
 import shapely
 from click.testing import CliRunner
+from csv_resolve import resolve_csv
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -29,42 +29,6 @@ from chipflow.spec.tree import load_tree_spec
 ROOT = Path(__file__).resolve().parents[1]
 DUAL = ROOT / "designs" / "dual_region_beds.toml"
 FOLDED = ROOT / "designs" / "folded_bed_24.toml"
-
-
-def duct_resistance(w, h, length, mu, tube):
-    """Hydraulic resistance written here [Pa s/m^3]: the exact Fourier series of a
-    rectangular duct (Bruus, Theoretical Microfluidics, 2008, ch. 4; REFERENCES.md
-    section 1), Hagen-Poiseuille for round tubes."""
-    a, b = np.minimum(w, h), np.maximum(w, h)
-    n = np.arange(1, 400, 2)[:, None]
-    series = np.sum(np.tanh(n * np.pi * b / (2 * a)) / n**5, axis=0)
-    rect = 12 * mu * length / (b * a**3) / (1 - 192 * a / (np.pi**5 * b) * series)
-    return np.where(tube, 128 * mu * length / (np.pi * w**4), rect)
-
-
-def resolve_csv(path: Path, viscosity: float, total_flow: float, feed: str, drain: str):
-    """Channel flows [m^3/s] re-solved from channels.csv: the rows, and the flows."""
-    rows = list(csv.DictReader(path.open()))
-    names = sorted({r["from"] for r in rows} | {r["to"] for r in rows})
-    index = {n: i for i, n in enumerate(names)}
-    a = np.array([index[r["from"]] for r in rows])
-    b = np.array([index[r["to"]] for r in rows])
-    w = np.array([float(r["width [m]"]) for r in rows])
-    h = np.array([float(r["depth [m]"]) for r in rows])
-    length = np.array([float(r["length [m]"]) for r in rows])
-    tube = np.array([r["round"] == "yes" for r in rows])
-    g = 1.0 / duct_resistance(w, h, length, viscosity, tube)
-    k = np.zeros((len(names), len(names)))
-    np.add.at(k, (a, a), g)
-    np.add.at(k, (b, b), g)
-    np.add.at(k, (a, b), -g)
-    np.add.at(k, (b, a), -g)
-    free = [i for i in range(len(names)) if i != index[drain]]
-    q = np.zeros(len(names))
-    q[index[feed]] = total_flow
-    p = np.zeros(len(names))
-    p[free] = np.linalg.solve(k[np.ix_(free, free)], q[free])
-    return rows, g * (p[a] - p[b])
 
 
 def region_outlines(path: Path) -> list[shapely.Polygon]:

@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import shapely
+from csv_resolve import resolve_csv
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -171,22 +172,9 @@ def test_sizing_counts_every_generation_by_its_splits():
     assert any("splits 3, 2, 2, 2, 2" in w for w in design.warnings)
 
 
-def duct_resistance(w, h, length, mu, tube):
-    """Hydraulic resistance written here [Pa s/m^3]: the exact Fourier series of a
-    rectangular duct (Bruus, Theoretical Microfluidics, 2008, ch. 4; REFERENCES.md section 1),
-    Hagen-Poiseuille for round tubes."""
-    a, b = np.minimum(w, h), np.maximum(w, h)
-    n = np.arange(1, 400, 2)[:, None]
-    series = np.sum(np.tanh(n * np.pi * b / (2 * a)) / n**5, axis=0)
-    rect = 12 * mu * length / (b * a**3) / (1 - 192 * a / (np.pi**5 * b) * series)
-    return np.where(tube, 128 * mu * length / (np.pi * w**4), rect)
-
-
 def test_the_bundled_48_channel_bed_is_evenly_perfused_as_solved_and_from_its_table(tmp_path):
     # the bed spread as solved, and re-solved here from channels.csv (from/to, widths,
     # depths, lengths) by a nodal analysis with the test's own duct series
-    import csv
-
     from chipflow.build import build_design
     from chipflow.export.bundle import write_build
 
@@ -197,28 +185,10 @@ def test_the_bundled_48_channel_bed_is_evenly_perfused_as_solved_and_from_its_ta
     assert bed.size == 48 and np.std(bed) / np.mean(bed) < 1e-9
     assert not [c for c in build.results["checks"] if c["name"].startswith("fabrication: ")]
     write_build(build, tmp_path / "out")
-    rows = list(csv.DictReader((tmp_path / "out" / "channels.csv").open()))
-    names = sorted({r["from"] for r in rows} | {r["to"] for r in rows})
-    index = {n: i for i, n in enumerate(names)}
-    a = np.array([index[r["from"]] for r in rows])
-    b = np.array([index[r["to"]] for r in rows])
-    w = np.array([float(r["width [m]"]) for r in rows])
-    h = np.array([float(r["depth [m]"]) for r in rows])
-    length = np.array([float(r["length [m]"]) for r in rows])
-    tube = np.array([r["round"] == "yes" for r in rows])
-    g = 1.0 / duct_resistance(w, h, length, build.fluid.viscosity, tube)
-    k = np.zeros((len(names), len(names)))
-    np.add.at(k, (a, a), g)
-    np.add.at(k, (b, b), g)
-    np.add.at(k, (a, b), -g)
-    np.add.at(k, (b, a), -g)
-    feed, drain = index["pump"], index["outlet"]  # syringe pump; outlet open to the air
-    free = [i for i in range(len(names)) if i != drain]
-    q = np.zeros(len(names))
-    q[feed] = build.design.total_flow
-    p = np.zeros(len(names))
-    p[free] = np.linalg.solve(k[np.ix_(free, free)], q[free])
-    flow = g * (p[a] - p[b])
+    rows, flow = resolve_csv(  # syringe pump; outlet open to the air
+        tmp_path / "out" / "channels.csv", build.fluid.viscosity, build.design.total_flow,
+        "pump", "outlet",
+    )  # fmt: skip
     again = np.abs(flow[np.array([r["role"] == "bed" for r in rows])])
     assert np.std(again) / np.mean(again) < 0.005
     np.testing.assert_allclose(again, bed, rtol=1e-6)
