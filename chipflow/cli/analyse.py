@@ -67,6 +67,39 @@ class _Point(click.ParamType):
             )
 
 
+class _Port(_Point):
+    """A port, ``X,Y`` or ``PORT``, optionally with what drives it: ``X,Y=10uL/min`` (a
+    flow, into the chip at an inlet, out of it at an outlet) or ``X,Y=2kPa`` (a pressure)."""
+
+    name = "X,Y|PORT[=DRIVE]"
+
+    def convert(self, value, param, ctx):
+        if isinstance(value, tuple) and len(value) == 2 and not isinstance(value[0], float):
+            return value
+        where, sep, drive = str(value).partition("=")
+        point = super().convert(where, param, ctx)
+        if not sep:
+            return point, None
+        from chipflow.errors import UnitError
+        from chipflow.limits import check_value
+        from chipflow.units import to_si
+
+        for kind in ("flow", "pressure"):
+            try:
+                si = to_si(drive.strip(), kind, where=f"--{param.name if param else 'port'}")
+                check_value(si, kind, key=kind, where=f"--{param.name if param else 'port'}")
+            except UnitError as exc:
+                if "wrong kind of unit" in str(exc):
+                    continue  # a pressure, or neither
+                self.fail(str(exc), param, ctx)
+            return point, (kind, si)
+        self.fail(
+            f"expected a flow (10uL/min) or a pressure (2kPa) after '=', got {drive!r}",
+            param,
+            ctx,
+        )
+
+
 class _Depth(click.ParamType):
     """``50um`` (the mask's one level) or ``LAYER=50um`` (one level per named layer)."""
 
@@ -93,17 +126,27 @@ class _Depth(click.ParamType):
 )
 @click.option(
     "--inlet",
-    type=_Point(),
-    help="Inlet port centre X,Y, or a port's name in chipflow's own mask (default: inlet).",
+    "inlets",
+    type=_Port(),
+    multiple=True,
+    help="Inlet port centre X,Y, or a port's name in chipflow's own mask (default: inlet); "
+    "repeat for several, each with its own drive: X,Y=5uL/min or X,Y=2kPa.",
 )
 @click.option(
     "--outlet",
-    type=_Point(),
-    help="Outlet port centre X,Y, or a port's name in chipflow's own mask (default: outlet).",
+    "outlets",
+    type=_Port(),
+    multiple=True,
+    help="Outlet port centre X,Y, or a port's name (default: outlet); repeatable; at 0 Pa "
+    "unless given =FLOW (withdrawn) or =PRESSURE.",
 )
-@click.option("--flow", type=QUANTITY("flow"), help="Flow through the chip, e.g. 10uL/min.")
 @click.option(
-    "--pressure", type=QUANTITY("pressure"), help="Inlet pressure above the outlet, e.g. 2kPa."
+    "--flow", type=QUANTITY("flow"), help="Flow into the chip at its inlet, e.g. 10uL/min."
+)
+@click.option(
+    "--pressure",
+    type=QUANTITY("pressure"),
+    help="Inlet pressure above the outlets, e.g. 2kPa (of every inlet without its own).",
 )
 @click.option(
     "--layer", help="Read only this layer: DXF layer name, GDSII layer number (default: all)."
@@ -149,8 +192,8 @@ class _Depth(click.ParamType):
 def command(
     mask,
     depths,
-    inlet,
-    outlet,
+    inlets,
+    outlets,
     flow,
     pressure,
     layer,
@@ -170,7 +213,9 @@ def command(
     Closed outlines are channels (polylines, splines, ellipses, hatches, solids, GDSII
     polygons; block references expanded), circles port pads; the ports are holes of the punch's
     diameter at --inlet and --outlet (coordinates in the file's units). chipflow's own DXF and
-    GDSII are read level by level, with their port marks. What is not read is named in a note.
+    GDSII are read level by level, with their port marks. Several inlets and outlets are
+    repeated options, each driven by its own flow or pressure (outlets not driven are open at
+    0 Pa). What is not read is named in a note.
     With --cell-type the oxygen the cells leave on the floor is solved on the same field. A
     mesh too large for this process's memory is refused with its estimate.
 
@@ -178,16 +223,18 @@ def command(
     channel between pads at 0,0 and 20,0 mm) when no such file exists.
 
     \b
-    Example:
+    Examples:
       chipflow analyse straight_channel.dxf --depth 50um --inlet 0,0 --outlet 20,0 \\
         --flow 10uL/min
+      chipflow analyse chip.dxf --depth 50um --inlet 0,0=8uL/min --inlet 0,6=2uL/min \\
+        --outlet 20,0 --outlet 20,6=1kPa
     """
     from chipflow.checks.cell_types import cell_type as lookup
     from chipflow.cli.progress import progress_bar
-    from chipflow.field.analyse import analyse_mask
+    from chipflow.field.analyse import analyse_ports
     from chipflow.spec.mask_read import mask_levels, resolve_mask
 
-    if (flow is None) == (pressure is None):
+    if flow is not None and pressure is not None:
         raise SpecError("give either --flow or --pressure")
     if o2_inlet is not None and cell_type is None:
         raise SpecError("--o2-inlet needs --cell-type (whose cells take up the oxygen)")
@@ -205,16 +252,14 @@ def command(
         raise SpecError("--layer reads one layer; with LAYER=DEPTH depths name the layers there")
     path = str(resolve_mask(mask))
     m, levels = mask_levels(path, named, plain[0] if plain else None, layer, units, region)
+    ports = mask_ports(inlets, outlets, flow, pressure, m)
     with progress_bar("analyse", quiet=as_json, unit="step") as progress:
-        analysis = analyse_mask(
+        analysis = analyse_ports(
             m.geometry,
             levels[0][1],
-            _port_xy(inlet, "inlet", m),
-            _port_xy(outlet, "outlet", m),
+            ports,
             punch,
             fluid.viscosity,
-            flow=flow,
-            pressure=pressure,
             window=window,
             levels=levels,
             allow_large=allow_large,
@@ -222,7 +267,7 @@ def command(
             where=mask,
         )
     results = {**analysis.to_dict(), "viscosity": fluid.viscosity, "mask_units": m.units}
-    results["notes"] = list(m.notes)
+    results["notes"] = [*m.notes, *analysis.notes]
     results["levels"] = [
         {"name": level.name, "depth": d, "area": g.area}
         for level, (g, d) in zip(m.levels, levels, strict=True)
@@ -245,12 +290,19 @@ def command(
         from chipflow.export.network_out import network_toml, write_network
         from chipflow.field.analyse import port_holes
 
-        ends = (_port_xy(inlet, "inlet", m), _port_xy(outlet, "outlet", m))
-        radius = math.sqrt(port_holes(m.geometry, ends, punch)[0].area / math.pi)
+        radius = math.sqrt(port_holes(m.geometry, [ports[0].xy], punch)[0].area / math.pi)
+        given = {p.name: p.given for p in analysis.ports}
+        solved = analysis.solution
         text = network_toml(
             analysis.channels,
-            [("inlet", ends[0], radius), ("outlet", ends[1], radius)],
-            {"inlet": ("flow", analysis.flow)},
+            [(p.name, p.xy, radius) for p in analysis.ports],
+            {  # each port as driven: a flow into the chip, or its pressure
+                name: (
+                    kind,
+                    solved.port_flows[name] if kind == "flow" else solved.port_pressures[name],
+                )
+                for name, kind in given.items()
+            },  # fmt: skip
             fluid,
             Path(network_out).stem,
             Path(mask).name,
@@ -264,13 +316,17 @@ def command(
         click.echo(json.dumps(results, indent=2, sort_keys=True))
         return
     s = results["floor_shear"]
-    for note in m.notes:
+    for note in results["notes"]:
         click.echo(f"note: {note}")
     click.echo(f"mask {mask}: {m.units} drawing, channel floor {analysis.area * 1e6:.4g} mm^2")
-    click.echo(
-        f"inlet pressure {analysis.inlet_pressure:.4g} Pa, flow {analysis.flow * 6e10:.4g} uL/min, "
-        f"resistance {analysis.resistance * 1e-9:.4g} Pa s/uL"
-    )
+    if analysis.resistance is not None:
+        click.echo(
+            f"inlet pressure {analysis.inlet_pressure:.4g} Pa, flow "
+            f"{analysis.flow * 6e10:.4g} uL/min, resistance {analysis.resistance * 1e-9:.4g} "
+            "Pa s/uL"
+        )
+    else:
+        _echo_ports(results["ports"], analysis.flow)
     click.echo(
         f"floor shear: p05 {s['p05']:.3g} Pa, median {s['p50']:.3g} Pa, p95 {s['p95']:.3g} Pa"
     )
@@ -299,6 +355,46 @@ def command(
         click.echo(f"wrote results.json, field.svg{extra} to {outdir}/")
 
 
+def mask_ports(inlets, outlets, flow, pressure, mask) -> list:
+    """The ports of the command line as :class:`~chipflow.field.analyse.MaskPort` [SI].
+
+    ``inlets`` and ``outlets`` hold ``(point or port name, drive or None)``; ``--flow``
+    drives the one inlet without its own drive, ``--pressure`` every such inlet. One SpecError
+    line where a drive is missing or would go unused.
+    """
+    from chipflow.field.analyse import MaskPort
+
+    inlets = inlets or ((None, None),)
+    outlets = outlets or ((None, None),)
+    bare = [k for k, (_, drive) in enumerate(inlets) if drive is None]
+    if flow is not None and len(bare) > 1:
+        raise SpecError(
+            f"--flow drives one inlet, not {len(bare)}: give each its own, e.g. --inlet X,Y=5uL/min"
+        )
+    if (flow is not None or pressure is not None) and not bare:
+        option = "--flow" if flow is not None else "--pressure"
+        raise SpecError(f"{option} drives no inlet: every inlet has its own drive")
+    if bare and flow is None and pressure is None:
+        raise SpecError(
+            "give either --flow or --pressure, or each inlet its own drive (--inlet X,Y=10uL/min)"
+        )
+    ports, taken = [], set()
+    for role, given in (("inlet", inlets), ("outlet", outlets)):
+        for k, (point, drive) in enumerate(given, 1):
+            xy = _port_xy(point, role, mask)
+            name = point if isinstance(point, str) else role
+            if point is None or isinstance(point, tuple):
+                name = role if len(given) == 1 else f"{role} {k}"
+            if name in taken:
+                raise SpecError(f"--{role}: the port {name!r} is given twice")
+            taken.add(name)
+            if drive is None and role == "inlet":
+                drive = ("flow", flow) if flow is not None else ("pressure", pressure)
+            kind, value = drive or ("pressure", 0.0)
+            ports.append(MaskPort(name, xy, role, **{kind: value}))
+    return ports
+
+
 def _port_xy(value, role: str, mask) -> tuple[float, float]:
     """A port centre [m]: X,Y in the drawing's units, or a port mark of chipflow's own mask."""
     if isinstance(value, tuple):
@@ -311,6 +407,23 @@ def _port_xy(value, role: str, mask) -> tuple[float, float]:
         raise SpecError(f"give --{role} X,Y: the mask has no port marks to take it from")
     names = ", ".join(p.name for p in mask.ports)
     raise SpecError(f"--{role}: the mask has no port named {name!r} (its ports: {names})")
+
+
+def _echo_ports(rows: list[dict], flow: float) -> None:
+    """Each port's pressure and flow into the chip, the given one marked."""
+    from chipflow.display import column, quantity
+
+    p_unit, pressures = column([r["pressure"] for r in rows], "pressure")
+    q_unit, flows = column([r["flow"] for r in rows], "flow")
+    click.echo(f"flow through the chip {quantity(flow, 'flow', 4)}, {len(rows)} ports (* given):")
+    width = max(len(r["name"]) for r in rows)
+    click.echo(
+        f"  {'port':<{width}}  {'role':<6}  {'pressure ' + p_unit:>14}  {'inflow ' + q_unit:>14}"
+    )
+    for r, p, q in zip(rows, pressures, flows, strict=True):
+        p += "*" if r["given"] == "pressure" else " "
+        q += "*" if r["given"] == "flow" else " "
+        click.echo(f"  {r['name']:<{width}}  {r['role']:<6}  {p:>14}  {q:>14}".rstrip())
 
 
 def _echo_channels(table) -> None:

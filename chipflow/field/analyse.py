@@ -1,7 +1,9 @@
 """Analysis of a mask drawn elsewhere: punch the ports, solve the field, judge the shear.
 
-The field is linear in the driving pressure, so a flow-driven analysis solves once at 1 Pa
-and scales every field to the given flow.
+A mask has one or more inlets and one or more outlets (:class:`MaskPort`), each driven by
+its own flow or pressure; outlets given neither are open at 0 Pa. The field is linear in the
+port pressures, so the pressures of flow-driven ports come from one solution per such port
+(:func:`chipflow.field.solve.solve_on_mesh`).
 
 Before anything is meshed, :func:`check_mask` validates the drawing against its ports (in
 the validation layer, so that other readers of masks and other port sets reuse it): the depth,
@@ -33,12 +35,48 @@ from chipflow.field.solve import scaled, solve_field
 
 __all__ = [
     "MaskAnalysis",
+    "MaskPort",
     "analyse_mask",
+    "analyse_ports",
     "check_mask",
     "check_port_flows",
     "port_holes",
     "scaled",
 ]
+
+
+ROLES = ("inlet", "outlet")
+
+
+@dataclass(frozen=True)
+class MaskPort:
+    """A punched port of a mask and what drives it.
+
+    Attributes
+    ----------
+    name : str
+        Its name in the results.
+    xy : (float, float)
+        Hole centre [m].
+    role : {"inlet", "outlet"}
+        Where the medium is meant to enter or leave.
+    pressure : float or None
+        Prescribed pressure [Pa] above the reference (an outlet open to its reservoir: 0).
+    flow : float or None
+        Prescribed flow [m^3/s], positive: into the chip at an inlet, out of it at an outlet.
+        At most one of ``pressure`` and ``flow``; an outlet given neither is at 0 Pa.
+    """
+
+    name: str
+    xy: tuple[float, float]
+    role: str = "inlet"
+    pressure: float | None = None
+    flow: float | None = None
+
+    @property
+    def given(self) -> str:
+        """``"flow"`` or ``"pressure"``: what drives the port."""
+        return "flow" if self.flow is not None else "pressure"
 
 
 @dataclass(frozen=True)
@@ -49,11 +87,13 @@ class MaskAnalysis:
     ----------
     solution : FieldSolution
     inlet_pressure : float
-        Inlet pressure above the outlet [Pa].
+        Inlet pressure above the outlet [Pa]; with several ports, the highest inlet pressure
+        above the lowest outlet pressure.
     flow : float
-        Flow through the chip [m^3/s].
-    resistance : float
-        [Pa s/m^3].
+        Flow through the chip [m^3/s]: the sum of the flows into it through its inlets.
+    resistance : float or None
+        ``inlet_pressure / flow`` [Pa s/m^3] between one inlet and one outlet (None with
+        more ports: no single resistance describes them).
     area : float
         Channel floor area, port holes excluded [m^2].
     floor : ShearStats
@@ -62,16 +102,39 @@ class MaskAnalysis:
         [Pa].
     channels : ChannelTable
         The mask's skeleton branches (empty, with a reason, where none could be extracted).
+    ports : tuple of MaskPort
+        The ports as given.
+    notes : tuple of str
+        What a user should know about the answer (an inlet the medium leaves through).
     """
 
     solution: FieldSolution
     inlet_pressure: float
     flow: float
-    resistance: float
+    resistance: float | None
     area: float
     floor: ShearStats
     window: tuple[float, float] | None
     channels: ChannelTable
+    ports: tuple[MaskPort, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def port_rows(self) -> list[dict[str, Any]]:
+        """Each port's name, role, centre ``x``, ``y`` [m], what drives it (``given``), its
+        ``pressure`` [Pa] and its ``flow`` into the chip [m^3/s] (negative where it leaves)."""
+        sol = self.solution
+        return [
+            {
+                "name": p.name,
+                "role": p.role,
+                "x": p.xy[0],
+                "y": p.xy[1],
+                "given": p.given,
+                "pressure": sol.port_pressures[p.name],
+                "flow": sol.port_flows[p.name],
+            }
+            for p in self.ports
+        ]
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-able SI values."""
@@ -83,6 +146,7 @@ class MaskAnalysis:
             "area": self.area,
             "mesh_triangles": len(self.solution.mesh.triangles),
             "channels": self.channels.to_list(),
+            "ports": self.port_rows(),
         }
         if self.channels.reason is not None:
             out["channels_note"] = self.channels.reason
@@ -216,11 +280,11 @@ def check_mask(
     return holes
 
 
-def check_port_flows(flows: dict[str, float], inlet: str = "inlet") -> None:
-    """The inlet's flow runs into the chip (a FieldError if not: no flow that cannot
+def check_port_flows(flows: dict[str, float], inlets=("inlet",)) -> None:
+    """Medium runs into the chip through its inlets (a FieldError if not: no flow that cannot
     happen); the balance of the flows is every field solve's own check
     (:func:`chipflow.field.solve.check_field_flows`)."""
-    q = flows[inlet]
+    q = sum(flows[name] for name in inlets)
     if not (np.isfinite(q) and q > 0):
         raise FieldError("no flow reaches the outlet from the inlet: are they connected?")
 
@@ -235,6 +299,70 @@ def analyse_mask(
     *,
     flow: float | None = None,
     pressure: float | None = None,
+    **options,
+) -> MaskAnalysis:
+    """Solve the field of a mask between one inlet and one outlet (at 0 Pa).
+
+    ``flow`` [m^3/s] or ``pressure`` [Pa], exactly one, drives the inlet; the other
+    parameters and ``options`` are those of :func:`analyse_ports`.
+    """
+    if (flow is None) == (pressure is None):
+        raise FieldError("give either a flow or an inlet pressure, not both or neither")
+    ports = [
+        MaskPort("inlet", inlet, "inlet", pressure=pressure, flow=flow),
+        MaskPort("outlet", outlet, "outlet", pressure=0.0),
+    ]
+    return analyse_ports(geometry, depth, ports, punch, viscosity, **options)
+
+
+def _checked_ports(ports: Sequence[MaskPort]) -> list[MaskPort]:
+    """The ports with outlets given nothing at 0 Pa; one FieldError line for bad drives."""
+    from chipflow.limits import check_value
+
+    names = [p.name for p in ports]
+    if len(set(names)) != len(names):
+        raise FieldError(f"each port needs its own name, got {', '.join(names)}")
+    roles = {p.role for p in ports}
+    if roles != set(ROLES) or any(p.role not in ROLES for p in ports):
+        raise FieldError("the mask needs at least one inlet and one outlet")
+    out = []
+    for p in ports:
+        if p.pressure is not None and p.flow is not None:
+            raise FieldError(f"the {p.name}: give its flow or its pressure, not both")
+        if p.flow is not None:
+            check_value(p.flow, "flow", key="flow", where=p.name)
+            if not (np.isfinite(p.flow) and p.flow > 0):
+                raise FieldError(
+                    f"the {p.name}'s flow must be a positive number (its direction is its "
+                    f"role, {p.role}), got {p.flow!r} m^3/s"
+                )
+        elif p.pressure is not None:
+            check_value(p.pressure, "pressure", key="pressure", where=p.name)
+            if not np.isfinite(p.pressure):
+                raise FieldError(f"the {p.name}'s pressure must be finite, got {p.pressure!r}")
+        elif p.role == "outlet":
+            p = MaskPort(p.name, p.xy, p.role, pressure=0.0)
+        else:
+            raise FieldError(f"the {p.name} needs its flow or its pressure")
+        out.append(p)
+    if all(p.flow is not None for p in out):
+        raise FieldError(
+            "every port has a flow: at least one needs a pressure (an outlet open to its "
+            "reservoir is at 0 Pa)"
+        )
+    pressures = [p.pressure for p in out if p.flow is None]
+    if not any(p.flow is not None for p in out) and np.ptp(pressures) == 0:
+        raise FieldError("every port is at the same pressure: no flow runs")
+    return out
+
+
+def analyse_ports(
+    geometry: shapely.Geometry,
+    depth: float,
+    ports: Sequence[MaskPort],
+    punch: float,
+    viscosity: float,
+    *,
     window: tuple[float, float] | None = None,
     across: float = 4.0,
     allow_large: bool = False,
@@ -242,7 +370,8 @@ def analyse_mask(
     where: str = "",
     levels: Sequence[tuple[shapely.Geometry, float]] | None = None,
 ) -> MaskAnalysis:
-    """Solve the field of a mask's channel area with punched inlet and outlet holes.
+    """Solve the field of a mask's channel area with punched ports, each driven by its flow
+    or its pressure.
 
     Parameters
     ----------
@@ -250,14 +379,13 @@ def analyse_mask(
         Channel area [m].
     depth : float
         Channel depth [m] (one depth for the whole mask).
-    inlet, outlet : (float, float)
-        Port centres [m]; each must lie inside the channel area.
+    ports : sequence of MaskPort
+        At least one inlet and one outlet, each inside the channel area; the first inlet is
+        the one the others must be joined to.
     punch : float
         Punch diameter [m].
     viscosity : float
         [Pa s].
-    flow, pressure : float
-        Exactly one: the flow [m^3/s] or the inlet pressure above the outlet [Pa].
     window : (float, float), optional
         Cells' floor shear window [Pa].
     across : float
@@ -268,7 +396,6 @@ def analyse_mask(
         Called with ``(done, total)`` steps (validation, mesh and solve, channel table).
     where : str
         The mask file, for messages.
-
     levels : sequence of (geometry, float), optional
         Mask levels of different depth: each level's channel area [m] and depth [m] (where
         they overlap the deeper holds); ``geometry`` is then their union and ``depth`` unused.
@@ -276,35 +403,44 @@ def analyse_mask(
     Raises
     ------
     FieldError, SpecError, TooLargeError
-        See :func:`check_mask` and :func:`check_port_flows`.
+        See :func:`check_mask` and :func:`check_port_flows`; a port with a flow that is not
+        positive, with both a flow and a pressure, or an inlet with neither; every port given
+        a flow (none fixes the pressure).
     """
     report = progress or (lambda done, total: None)
-    if (flow is None) == (pressure is None):
-        raise FieldError("give either a flow or an inlet pressure, not both or neither")
-    for value, what in ((flow, "flow"), (pressure, "pressure")):
-        if value is not None and not (np.isfinite(value) and value > 0):
-            raise FieldError(f"the {what} must be a positive number, got {value!r}")
+    ports = _checked_ports(ports)
+    ports.sort(key=lambda p: p.role != "inlet")  # stable: inlets first, in their order
     holes = check_mask(
         geometry,
         min(d for _, d in levels) if levels else depth,  # the shallowest meshes finest
-        {"inlet": inlet, "outlet": outlet},
+        {p.name: p.xy for p in ports},
         punch,
         across=across,
         allow_large=allow_large,
         where=where,
     )
     report(1, 3)
-    drive = 1.0 if pressure is None else float(pressure)
-    ports = [FieldPort("inlet", holes[0], drive), FieldPort("outlet", holes[1], 0.0)]
+    sign = {"inlet": 1.0, "outlet": -1.0}
+    field_ports = [
+        FieldPort(p.name, hole, p.pressure, None if p.flow is None else sign[p.role] * p.flow)
+        for p, hole in zip(ports, holes, strict=True)
+    ]
     regions = [FieldRegion(g, d) for g, d in levels] if levels else [FieldRegion(geometry, depth)]
-    solution = solve_field(regions, ports, viscosity, across=across)
-    check_port_flows(solution.port_flows)
+    solution = solve_field(regions, field_ports, viscosity, across=across)
+    inlets = [p.name for p in ports if p.role == "inlet"]
+    outlets = [p.name for p in ports if p.role == "outlet"]
+    check_port_flows(solution.port_flows, inlets)
     report(2, 3)
-    q = solution.port_flows["inlet"]
-    if flow is not None:
-        solution = scaled(solution, flow / q)
-    q = solution.port_flows["inlet"]
-    p_in = solution.port_pressures["inlet"]
+    flows, pressures = solution.port_flows, solution.port_pressures
+    q = sum(flows[name] for name in inlets)
+    p_in = max(pressures[name] for name in inlets) - min(pressures[name] for name in outlets)
+    notes = tuple(
+        f"medium {'leaves' if p.role == 'inlet' else 'enters'} the chip through the {p.role} "
+        f"{p.name!r} ({abs(flows[p.name]) * 6e10:.3g} uL/min): its pressure is "
+        f"{'below' if p.role == 'inlet' else 'above'} the chip's there"
+        for p in ports
+        if sign[p.role] * flows[p.name] < -1e-9 * abs(q)
+    )
     area = solution.mesh.area
     table = channel_table(geometry, solution, holes)
     report(3, 3)
@@ -312,9 +448,11 @@ def analyse_mask(
         solution=solution,
         inlet_pressure=p_in,
         flow=q,
-        resistance=p_in / q,
+        resistance=p_in / q if len(ports) == 2 else None,
         area=float(area.sum()),
         floor=shear_stats(solution.floor_shear, area, window),
         window=window,
         channels=table,
+        ports=tuple(ports),
+        notes=notes,
     )

@@ -32,7 +32,7 @@ class FieldRegion:
 
 @dataclass(frozen=True)
 class FieldPort:
-    """A boundary where the (depth-averaged) pressure is prescribed.
+    """A boundary where the (depth-averaged) pressure, or the flow through it, is prescribed.
 
     Attributes
     ----------
@@ -41,13 +41,18 @@ class FieldPort:
     boundary : shapely.LineString or shapely.Polygon
         A line on the domain's outer boundary (a cut channel end), or a polygon (a punched
         hole) removed from the domain, whose rim inside the channels becomes the port [m].
-    pressure : float
-        Prescribed pressure [Pa].
+    pressure : float or None
+        Prescribed pressure [Pa] (None where ``flow`` is given).
+    flow : float or None
+        Prescribed flow into the domain through the port [m^3/s]; its uniform pressure is
+        then solved for (:func:`chipflow.field.solve.solve_on_mesh`). At least one port of
+        a field keeps a pressure.
     """
 
     name: str
     boundary: shapely.Geometry
-    pressure: float
+    pressure: float | None
+    flow: float | None = None
 
 
 @dataclass(frozen=True)

@@ -66,7 +66,8 @@ def solve_field(
     regions : sequence of FieldRegion
         Drawn channel areas with their depths [m].
     ports : sequence of FieldPort
-        At least one port; with no pressure difference the flow is zero.
+        At least one port with a pressure; the others have a pressure or a flow (see
+        :func:`solve_on_mesh`). With no pressure difference and no flow the flow is zero.
     viscosity : float
         Dynamic viscosity [Pa s].
     mesh_size : float, optional
@@ -89,8 +90,11 @@ def solve_field(
     -------
     FieldSolution
     """
-    if not ports:
+    if not any(p.flow is None for p in ports):
         raise FieldError("the field needs at least one port with a prescribed pressure")
+    for p in ports:
+        if (p.pressure is None) == (p.flow is None):
+            raise FieldError(f"port {p.name!r}: give its pressure or its flow, exactly one")
     names = [p.name for p in ports]
     if len(set(names)) != len(names):
         raise FieldError(f"port names must differ, got {names}")
@@ -103,8 +107,11 @@ def solve_field(
             f"the mesh has {len(mesh.triangles)} triangles, more than the {max_triangles} allowed"
         )
     t1 = time.perf_counter()
-    pressures = {p.name: float(p.pressure) for p in ports}
-    sol = solve_on_mesh(mesh, pressures, viscosity, solver=solver, rtol=rtol)
+    pressures = {p.name: float(p.pressure) for p in ports if p.flow is None}
+    flows = {p.name: float(p.flow) for p in ports if p.flow is not None}
+    sol = solve_on_mesh(
+        mesh, pressures, viscosity, port_flows=flows or None, solver=solver, rtol=rtol
+    )
     sol.stats["mesh_seconds"] = t1 - t0
     return sol
 
@@ -140,6 +147,11 @@ class FieldSystem:
     port_flux : dict of str to (numpy.ndarray, numpy.ndarray)
         Per port the x and y rows whose product with the free velocities is the flux out of
         the domain through the port [m^3/s per (m/s)].
+    port_nodes : dict of str to numpy.ndarray
+        Per port its pressure vertices.
+    lift : (scipy.sparse matrix, scipy.sparse matrix)
+        Divergence rows of the fixed pressure vertices (x, y), which carry the port pressures
+        into the right-hand side.
     """
 
     a: object
@@ -151,6 +163,23 @@ class FieldSystem:
     pressure: np.ndarray
     space: object
     port_flux: dict
+    port_nodes: dict = dataclasses.field(default_factory=dict, repr=False)
+    lift: tuple = dataclasses.field(default=(), repr=False)
+
+    def with_pressures(self, port_pressures: dict[str, float]) -> FieldSystem:
+        """The same system with other port pressures [Pa] (the matrix is unchanged, so one
+        factorisation serves every set of port pressures)."""
+        pressure = np.zeros_like(self.pressure)
+        fixed = np.zeros(pressure.size, bool)
+        for name, nodes in self.port_nodes.items():
+            pressure[nodes] = port_pressures[name]
+            fixed[nodes] = True
+        p_fixed = pressure[fixed]
+        lx, ly = self.lift
+        rhs = np.concatenate(
+            [-(lx.T @ p_fixed), -(ly.T @ p_fixed), np.zeros(self.pressure_free.size)]
+        )
+        return dataclasses.replace(self, rhs=rhs, pressure=pressure)
 
     @property
     def size(self) -> int:
@@ -220,12 +249,15 @@ def field_system(
         fixed[nodes] = True
     pfree = np.nonzero(~fixed)[0]
     p_fixed = pressure[fixed]
-    rhs = np.concatenate([-(bx[fixed].T @ p_fixed), -(by[fixed].T @ p_fixed), np.zeros(pfree.size)])
+    lift = (bx[fixed], by[fixed])
+    rhs = np.concatenate([-(lift[0].T @ p_fixed), -(lift[1].T @ p_fixed), np.zeros(pfree.size)])
     flux = {
         name: (np.asarray(bx[nodes].sum(axis=0)).ravel(), np.asarray(by[nodes].sum(axis=0)).ravel())
         for name, nodes in port_nodes.items()
     }
-    return FieldSystem(a, bx[pfree], by[pfree], rhs, vfree, pfree, pressure, space, flux)
+    return FieldSystem(
+        a, bx[pfree], by[pfree], rhs, vfree, pfree, pressure, space, flux, port_nodes, lift
+    )
 
 
 def _schur_parts(mesh: FieldMesh, system: FieldSystem, viscosity: float):
@@ -252,6 +284,7 @@ def solve_reduced(
     viscosity: float | None = None,
     rtol: float = RTOL,
     stats: dict | None = None,
+    rhs: np.ndarray | None = None,
 ) -> np.ndarray:
     """Solve the reduced system; returns the free unknowns.
 
@@ -266,22 +299,28 @@ def solve_reduced(
     rtol : float
         Relative residual of the iterative solve [-].
     stats : dict, optional
-        Receives ``solver``, and for the iterative solve ``iterations`` and ``residual``.
+        Receives ``solver``, and for the iterative solve ``iterations`` and ``residual`` (of
+        the last right-hand side).
+    rhs : numpy.ndarray, optional
+        Right-hand sides to solve for instead of ``system.rhs``: one per column (one
+        factorisation, or one preconditioner, serves them all).
     """
     from scipy.sparse.linalg import splu, spsolve
 
     if solver == "auto":
         solver = choose_solver(system.size)
     stats = {} if stats is None else stats
+    b = system.rhs if rhs is None else rhs
     if solver in ("direct", "splu"):
         stats["solver"] = "direct"
         # COLAMD with partial pivoting: the minimum-degree ordering of A + A^T without
         # pivoting fills some chips ten times more (a 57k-triangle tree: 106 s against 1.5 s)
         lu = splu(system.matrix(), permc_spec="COLAMD")
-        return lu.solve(system.rhs)
+        return lu.solve(b)
     if solver == "spsolve":
         stats["solver"] = "spsolve"
-        return spsolve(system.matrix(), system.rhs)
+        x = spsolve(system.matrix(), b)
+        return x.reshape(b.shape) if b.ndim == 2 else x
     if solver == "iterative":
         if mesh is None or viscosity is None:
             raise FieldError("the iterative field solve needs the mesh and the viscosity")
@@ -289,10 +328,14 @@ def solve_reduced(
         laplacian, mass = _schur_parts(mesh, system, viscosity)
         precondition = block_preconditioner(system.a, laplacian, mass)
         del laplacian
-        result = minres(system.matvec, system.rhs, precondition, rtol=rtol)
-        stats["iterations"] = result.iterations
-        stats["residual"] = result.residual
-        return result.x
+        columns = b.reshape(b.shape[0], -1).T
+        xs = []
+        for column in columns:  # one per driven port: a handful
+            result = minres(system.matvec, column, precondition, rtol=rtol)
+            xs.append(result.x)
+            stats["iterations"] = result.iterations
+            stats["residual"] = result.residual
+        return xs[0] if b.ndim == 1 else np.column_stack(xs)
     raise FieldError(
         f"unknown field solver {solver!r} (valid: auto, direct, splu, spsolve, iterative)"
     )
@@ -303,27 +346,65 @@ def solve_on_mesh(
     port_pressures: dict[str, float],
     viscosity: float,
     *,
+    port_flows: dict[str, float] | None = None,
     solver: str = "auto",
     rtol: float = RTOL,
 ) -> FieldSolution:
     """Solve the flow on a given mesh with the given port pressures [Pa].
 
+    Ports named in ``port_flows`` have their flow into the domain prescribed [m^3/s]
+    instead. The flow is linear in the port pressures, so they are found by superposition:
+    one solution with the prescribed pressures and those ports at 0 Pa, and one per
+    flow-driven port at 1 Pa with every other port at 0 Pa (one factorisation serves all),
+    give the flows through the flow-driven ports as ``q0 + Y p``; the pressures
+    ``p = Y^-1 (q - q0)`` weight the solutions, and the floor shear is taken from their sum.
+    Every port of the mesh needs a pressure or a flow, and at least one a pressure.
     ``solver`` and ``rtol`` as in :func:`solve_reduced`.
+
+    Raises
+    ------
+    FieldError
+        A singular system, or port flows that do not balance or miss their prescribed values
+        by more than :data:`BALANCE_TOLERANCE` of the largest.
     """
     t0 = time.perf_counter()
-    system = field_system(mesh, port_pressures, viscosity)
+    driven = dict(port_flows or {})
+    fixed = {**port_pressures, **{name: 0.0 for name in driven}}
+    system = field_system(mesh, fixed, viscosity)
     space = system.space
     nn = space.n_nodes
     t1 = time.perf_counter()
     stats: dict = {}
-    x = solve_reduced(system, solver, mesh=mesh, viscosity=viscosity, rtol=rtol, stats=stats)
-    if not np.all(np.isfinite(x)):
+    names = list(driven)
+    units = [system.with_pressures({k: float(k == j) for k in fixed}).rhs for j in names]
+    b = np.column_stack([system.rhs, *units]) if units else system.rhs
+    xs = solve_reduced(
+        system, solver, mesh=mesh, viscosity=viscosity, rtol=rtol, stats=stats, rhs=b
+    )
+    if not np.all(np.isfinite(xs)):
         raise FieldError("the field solve failed (singular system): check the ports and walls")
+    pressures = dict(fixed)
+    if names:
+        x0, basis = xs[:, 0], xs[:, 1:]
+        q0 = system.flows(x0)
+        y = np.array([[system.flows(basis[:, j])[i] for j in range(len(names))] for i in names])
+        target = np.array([driven[i] - q0[i] for i in names])
+        try:
+            p = np.linalg.solve(y, target)
+        except np.linalg.LinAlgError:
+            raise FieldError(
+                "the flow-driven ports are not joined to a port with a pressure"
+            ) from None
+        x = x0 + basis @ p
+        pressures.update({name: float(v) for name, v in zip(names, p, strict=True)})
+        system = system.with_pressures(pressures)
+    else:
+        x = xs
     t2 = time.perf_counter()
 
     flows = system.flows(x)
-    u, p = system.unpack(x)
-    check_field_flows(flows, port_pressures)
+    u, pressure = system.unpack(x)
+    check_field_flows(flows, pressures, driven)
     ux, uy = u[:nn], u[nn:]
     # the mean of a quadratic over a triangle is the mean of its three edge-midpoint values
     vel = np.column_stack(
@@ -342,12 +423,12 @@ def solve_on_mesh(
     return FieldSolution(
         mesh=mesh,
         viscosity=viscosity,
-        pressure=p,
+        pressure=pressure,
         velocity=vel,
         velocity_vertices=vel_vertices,
         floor_shear=shear,
         port_flows=flows,
-        port_pressures=dict(port_pressures),
+        port_pressures=pressures,
         dofs=u,
         stats=stats,
     )
@@ -357,14 +438,25 @@ def solve_on_mesh(
 BALANCE_TOLERANCE = 1e-6
 
 
-def check_field_flows(flows: dict[str, float], port_pressures: dict[str, float]) -> None:
-    """Every field solve's own conservation check: the port flows [m^3/s] are finite and, where
-    the ports' pressures [Pa] differ, balance to :data:`BALANCE_TOLERANCE` of the largest
-    (a FieldError if not)."""
+def check_field_flows(
+    flows: dict[str, float],
+    port_pressures: dict[str, float],
+    prescribed: dict[str, float] | None = None,
+) -> None:
+    """Every field solve's own conservation check: the port flows [m^3/s] are finite, the
+    flow-driven ports carry their ``prescribed`` flows [m^3/s] and, where the ports'
+    pressures [Pa] differ, the flows balance; both to :data:`BALANCE_TOLERANCE` of the
+    largest (a FieldError if not)."""
     values = np.array(list(flows.values()), dtype=float)
     if not np.all(np.isfinite(values)):
         raise FieldError("the field solve gave no finite flow: check the ports and outlines")
     largest = float(np.abs(values).max(initial=0.0))
+    for name, q in (prescribed or {}).items():
+        if abs(flows[name] - q) > BALANCE_TOLERANCE * max(largest, abs(q)):
+            raise FieldError(
+                f"the field solve does not carry the flow given at port {name!r} "
+                f"({flows[name]:.6g} against {q:.6g} m^3/s); the mesh of this mask is not usable"
+            )
     if np.ptp(list(port_pressures.values()) or [0.0]) == 0 or largest == 0:
         return
     imbalance = abs(float(values.sum()))
