@@ -174,6 +174,7 @@ def test_command_line_ports_each_with_its_drive(tmp_path) -> None:
     assert set(rows) == {"inlet 1", "inlet 2", "outlet"}
     assert rows["inlet 2"]["flow"] == pytest.approx(2 * UL_MIN, rel=1e-9)
     assert (rows["inlet 2"]["x"], rows["inlet 2"]["y"]) == pytest.approx(B)
+    assert data["units"]["pressure"] == "Pa" and data["units"]["x"] == "m"
     p, _ = _network({2: 0.0}, {0: 6 * UL_MIN, 1: 2 * UL_MIN})
     assert rows["inlet 1"]["pressure"] == pytest.approx(p[0], rel=0.005)
     assert data["resistance"] is None and data["flow"] == pytest.approx(8 * UL_MIN)

@@ -38,6 +38,9 @@ SI_UNITS = units_of(
     "o2_out",
     "o2_uptake",
     "hypoxic_fraction",
+    "pressure",
+    "x",
+    "y",
 )
 
 
