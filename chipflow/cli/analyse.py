@@ -229,8 +229,8 @@ def command(
     Examples:
       chipflow analyse straight_channel.dxf --depth 50um --inlet 0,0 --outlet 20,0 \\
         --flow 10uL/min
-      chipflow analyse chip.dxf --depth 50um --inlet 0,0=8uL/min --inlet 0,6=2uL/min \\
-        --outlet 20,0 --outlet 20,6=1kPa
+      chipflow analyse straight_channel.dxf --depth 50um --inlet 0,0=5uL/min \\
+        --inlet 20,0=1kPa --outlet 10,0
     """
     from chipflow.checks.cell_types import cell_type as lookup
     from chipflow.cli.progress import progress_bar
