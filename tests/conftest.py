@@ -2,7 +2,24 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pytest
+
+#: The bundled design files.
+BUNDLED = sorted((Path(__file__).resolve().parents[1] / "designs").glob("*.toml"))
+
+
+@pytest.fixture(scope="session")
+def bundled_builds(tmp_path_factory) -> dict:
+    """Each bundled design built once with its own settings, shared by the session's tests:
+    design file name -> ``(Build, written files)``."""
+    from chipflow.export.bundle import build_to_folder
+
+    out = {}
+    for path in BUNDLED:  # a dozen designs
+        out[path.name] = build_to_folder(path, tmp_path_factory.mktemp(path.stem) / "out")
+    return out
 
 
 @pytest.fixture(scope="session")

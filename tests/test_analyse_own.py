@@ -23,10 +23,10 @@ from chipflow.spec.mask_read import read_mask
 ROOT = Path(__file__).resolve().parents[1]
 
 
-def _build(tmp_path_factory, design: str, settings=()):
-    out = tmp_path_factory.mktemp(design) / "out"
-    build, files = build_to_folder(ROOT / "designs" / f"{design}.toml", out, settings=settings)
-    results = json.loads((out / "results.json").read_text())
+def _build(builds: dict, design: str):
+    """A bundled design's results, chip resistance [Pa s/m^3], DXF and GDSII files."""
+    _, files = builds[f"{design}.toml"]
+    results = json.loads(next(f for f in files if f.name == "results.json").read_text())
     totals = results["totals"]
     chip = (totals["chip_inlet_pressure"] - totals["outlet_pressure"]) / totals["total_flow"]
     dxf = next(f for f in files if f.suffix == ".dxf")
@@ -34,14 +34,14 @@ def _build(tmp_path_factory, design: str, settings=()):
 
 
 @pytest.fixture(scope="module")
-def demo(tmp_path_factory):
-    return _build(tmp_path_factory, "demo_endothelial_bed")
+def demo(bundled_builds):
+    return _build(bundled_builds, "demo_endothelial_bed")
 
 
 @pytest.fixture(scope="module")
-def twin(tmp_path_factory):
+def twin(bundled_builds):
     """A two-level chip: 50 um manifold, 100 um culture channels."""
-    return _build(tmp_path_factory, "twin_culture_manifold")
+    return _build(bundled_builds, "twin_culture_manifold")
 
 
 def analyse(*args: str):
@@ -62,7 +62,11 @@ def test_results_json_ports_are_where_the_mask_files_put_them(demo) -> None:
 
 
 def test_mirrored_masks_carry_mirrored_ports(tmp_path_factory, demo) -> None:
-    results, _, dxf, _ = _build(tmp_path_factory, "demo_endothelial_bed", ["export.mirror=true"])
+    out = tmp_path_factory.mktemp("mirrored") / "out"
+    design = ROOT / "designs" / "demo_endothelial_bed.toml"
+    build_to_folder(design, out, settings=["export.mirror=true"])
+    results = json.loads((out / "results.json").read_text())
+    dxf = next(out.glob("*.dxf"))
     plain = {p["name"]: p for p in demo[0]["ports"]}
     x0 = results["fabrication"]["chip"]["width"]  # the chip starts at x = 0
     for port in results["ports"]:
@@ -73,10 +77,23 @@ def test_mirrored_masks_carry_mirrored_ports(tmp_path_factory, demo) -> None:
 
 
 # each analyse of the demo mask solves its field and skeleton (about 30 s): the default suite
-# runs the DXF reading and the two-depth mask; the rest under -m slow
-@pytest.mark.parametrize("kind", ["dxf", pytest.param("gds", marks=pytest.mark.slow)])
-def test_analyse_reads_chipflows_own_mask_and_matches_the_build(demo, kind) -> None:
-    results, chip, dxf, gds = demo
+# reads the DXF of a smaller tree (28k triangles, 4 s) and the two-depth mask; the demo's DXF
+# and GDSII run under -m slow
+@pytest.fixture(scope="module")
+def small_tree(bundled_builds):
+    return _build(bundled_builds, "tree_endothelial")
+
+
+@pytest.mark.parametrize(
+    ("design", "kind"),
+    [
+        ("small_tree", "dxf"),
+        pytest.param("demo", "dxf", marks=pytest.mark.slow),
+        pytest.param("demo", "gds", marks=pytest.mark.slow),
+    ],
+)
+def test_analyse_reads_chipflows_own_mask_and_matches_the_build(request, design, kind) -> None:
+    results, chip, dxf, gds = request.getfixturevalue(design)
     flow = "12uL/min"
     if kind == "dxf":  # no --layer, --depth, --inlet or --outlet: the file says them
         result, data = analyse(str(dxf), "--flow", flow)
@@ -85,8 +102,8 @@ def test_analyse_reads_chipflows_own_mask_and_matches_the_build(demo, kind) -> N
     assert result.exit_code == 0, result.output
     assert data["resistance"] == pytest.approx(chip, rel=0.005)
     # the chip outline did not invert the fill: the floor is the mask level's area
-    level = results["fabrication"]["layers"][0]
-    assert [lv["depth"] for lv in data["levels"]] == pytest.approx([level["depth"]])
+    layers = results["fabrication"]["layers"]  # the small tree's trunk is on a second level
+    assert [lv["depth"] for lv in data["levels"]] == pytest.approx([lv["depth"] for lv in layers])
     assert data["levels"][0]["area"] < 0.1 * results["fabrication"]["chip"]["width"] ** 2
 
 

@@ -29,13 +29,9 @@ GENERATION_KEYS = {
 
 
 @pytest.fixture(scope="module")
-def built(tmp_path_factory) -> dict[str, tuple]:
-    """Each bundled design built once into its own folder (shared by the tests below)."""
-    out = {}
-    for path in DESIGNS:
-        folder = tmp_path_factory.mktemp(path.stem)
-        out[path.name] = build_to_folder(path, folder / "out")
-    return out
+def built(bundled_builds) -> dict[str, tuple]:
+    """Each bundled design built once into its own folder (shared with other test files)."""
+    return bundled_builds
 
 
 def run(*args: str):
