@@ -189,3 +189,38 @@ def test_a_bad_setting_exits_2_and_writes_nothing(tmp_path: Path) -> None:
         assert len(result.stderr.strip().splitlines()) == 1 and "Traceback" not in result.output
         assert not out.exists()
     assert "did you mean 'flow'" in run("check", str(DEMO), "--set", "tree.flw=8uL/min").stderr
+
+
+# -- entries of arrays of tables, by name -------------------------------------------------------
+REGIONS = ROOT / "designs" / "dual_region_beds.toml"
+
+
+def test_an_array_entry_is_reached_by_its_name() -> None:
+    text = REGIONS.read_text()
+    edited = _set(text, "regions.venous.gap=150um", "regions.arteriolar.cell_type=hepatocyte")
+    data = tomllib.loads(edited)
+    venous, arteriolar = data["regions"]
+    assert venous["gap"] == "150um" and arteriolar["gap"] == "120 um"  # only the named one
+    assert (
+        arteriolar["cell_type"] == "hepatocyte"
+        and "cell_type" not in tomllib.loads(text)["regions"][1]
+    )
+    with pytest.raises(SpecError, match=r"no \[\[regions\]\] entry with name 'liver' \(known: "):
+        _set(text, "regions.liver.gap=150um")
+
+
+def test_check_with_a_region_set_matches_the_edited_file(tmp_path: Path) -> None:
+    a, b = _pair(tmp_path, REGIONS.read_text(), "flow_fraction = 0.25", "flow_fraction = 0.3")
+    c = b.read_text().replace("flow_fraction = 0.75", "flow_fraction = 0.7", 1)
+    b.write_text(c)
+    setting = ("--set", "regions.venous.flow_fraction=0.3")
+    setting += ("--set", "regions.arteriolar.flow_fraction=0.7")
+    checked = [run("check", str(a), "--json", *setting), run("check", str(b), "--json")]
+    assert checked[0].exit_code in (0, 1), checked[0].stderr
+    assert checked[0].output == checked[1].output
+    plain = run("check", str(REGIONS), "--json").output
+    assert checked[0].output != plain  # the setting took effect
+    swept = run("sweep", str(a), "--vary", "regions.venous.gap=110um,130um", "--workers", "1",
+                "-o", str(tmp_path / "s"))  # fmt: skip
+    assert swept.exit_code == 0, swept.stderr
+    assert (tmp_path / "s" / "sweep.csv").read_text().count("\n") >= 3  # header and two points

@@ -6,7 +6,9 @@ reads the edited text, so ``chipflow build design.toml --set tree.flow=8uL/min``
 bytes as building the file with that value edited by hand: the same results, masks and
 report, and the same design hash (the SHA-256 of the edited text). Keys are dotted as in
 ``chipflow sweep --vary`` (``tree.flow``, ``fabrication.depths``, ``culture.cell_type``; a
-top-level key such as ``name`` has no dot).
+top-level key such as ``name`` has no dot). An entry of an array of tables is reached by its
+name (:data:`NAMED`): ``regions.liver.flow_fraction``, ``channels.feed.width``,
+``ports.inlet.flow`` (a port by its node).
 
 A value is read as TOML when it is TOML (``16``, ``0.5``, ``true``, ``"8 uL/min"``,
 ``["50 um", "100 um"]``); otherwise as text (``8uL/min``, ``area-growth``), and a list in
@@ -26,6 +28,14 @@ bed_channels = 32
 <BLANKLINE>
 [bed]
 gap = "150um"
+>>> text = '[[regions]]\\nname = "a"\\ngap = "100 um"\\n[[regions]]\\nname = "b"\\n'
+>>> print(apply_settings(text, [parse_setting("regions.b.gap=150um")]), end="")
+[[regions]]
+name = "a"
+gap = "100 um"
+[[regions]]
+name = "b"
+gap = "150um"
 """
 
 from __future__ import annotations
@@ -39,11 +49,16 @@ from typing import Any
 
 from chipflow.errors import SpecError
 
-__all__ = ["Setting", "parse_setting", "toml_value", "apply_settings"]
+__all__ = ["Setting", "parse_setting", "toml_value", "apply_settings", "NAMED", "named_entry"]
+
+#: Arrays of tables whose entries a dotted key reaches by name: the array, and the key that
+#: names an entry (``regions.NAME.KEY``, ``channels.NAME.KEY``, ``ports.NODE.KEY``).
+NAMED = {"regions": "name", "channels": "name", "tubes": "name", "chambers": "name",
+         "nodes": "name", "ports": "node", "compliances": "node"}  # fmt: skip
 
 _BARE = re.compile(r"^[A-Za-z0-9_-]+$")
 _HEADER = re.compile(r"^\s*\[(?!\[)\s*([A-Za-z0-9_.\s-]+?)\s*\]\s*(#.*)?$")
-_ARRAY_HEADER = re.compile(r"^\s*\[\[")
+_ARRAY_HEADER = re.compile(r"^\s*\[\[\s*([A-Za-z0-9_.\s-]*?)\s*\]\]\s*(#.*)?$|^\s*\[\[")
 
 
 @dataclass(frozen=True)
@@ -162,29 +177,65 @@ def _value_end(text: str, start: int) -> int:
     return end
 
 
-def _tables(lines: list[str]) -> list[tuple[tuple[str, ...] | None, int, int]]:
+def _tables(lines: list[str]) -> list[tuple[tuple[Any, ...] | None, int, int]]:
     """(table path, first line, end line) of every table: the top level first (path ``()``);
-    an array of tables has the path None (a setting cannot reach into it)."""
-    out: list[tuple[tuple[str, ...] | None, int, int]] = []
-    path: tuple[str, ...] | None = ()
+    the k-th entry of an array of tables ``[[name]]`` has the path ``(name, k)`` (None for an
+    array header not understood)."""
+    out: list[tuple[tuple[Any, ...] | None, int, int]] = []
+    path: tuple[Any, ...] | None = ()
     start = 0
+    seen: dict[str, int] = {}
     for i, line in enumerate(lines):  # one pass over the design's lines
         header = _HEADER.match(line)
-        if header or _ARRAY_HEADER.match(line):
+        array = None if header else _ARRAY_HEADER.match(line)
+        if header or array:
             out.append((path, start, i))
-            path = tuple(p.strip() for p in header.group(1).split(".")) if header else None
+            if header:
+                path = tuple(p.strip() for p in header.group(1).split("."))
+            elif array.group(1):
+                name = array.group(1)
+                path = (name, seen.get(name, 0))
+                seen[name] = path[1] + 1
+            else:
+                path = None
             start = i
     out.append((path, start, len(lines)))
     return out
 
 
-def _set_one(text: str, setting: Setting) -> str:
+def named_entry(entries: Any, section: str, name: str, where: str) -> int:
+    """The index of the entry of ``[[section]]`` named ``name`` (by :data:`NAMED`); a
+    SpecError naming the known entries if there is none."""
+    field = NAMED[section]
+    if isinstance(entries, list):
+        for k, entry in enumerate(entries):  # a design's entries: a few dozen
+            if isinstance(entry, dict) and entry.get(field) == name:
+                return k
+    known = ", ".join(
+        str(e.get(field)) for e in (entries if isinstance(entries, list) else [])
+        if isinstance(e, dict)
+    )  # fmt: skip
+    raise SpecError(
+        f"{where}: no [[{section}]] entry with {field} {name!r} (known: {known or 'none'})"
+    )
+
+
+def _table_of(data: dict[str, Any], setting: Setting) -> tuple[tuple[Any, ...], str]:
+    """The path of the table a setting writes to (an array entry as ``(section, index)``)
+    and its key."""
+    *table, leaf = setting.key
+    if len(table) == 2 and table[0] in NAMED and isinstance(data.get(table[0]), list):
+        where = f"--set {setting.text!r}"
+        return (table[0], named_entry(data[table[0]], table[0], table[1], where)), leaf
+    return tuple(table), leaf
+
+
+def _set_one(text: str, setting: Setting, data: dict[str, Any]) -> str:
     newline = "\r\n" if "\r\n" in text else "\n"
     lines = text.splitlines(keepends=True)
     if lines and not lines[-1].endswith(("\n", "\r")):
         lines[-1] += newline
-    *table, leaf = setting.key
-    table = tuple(table)
+    table, leaf = _table_of(data, setting)
     assignment = re.compile(rf"^(\s*){re.escape(leaf)}\s*=\s*")
     entry = f"{leaf} = {toml_value(setting.value)}{newline}"
     for path, first, end in _tables(lines):
@@ -222,6 +273,10 @@ def _expected(data: dict[str, Any], setting: Setting) -> dict[str, Any]:
     import copy
 
     out = copy.deepcopy(data)
+    path, leaf = _table_of(out, setting)
+    if path and isinstance(path[-1], int):
+        out[path[0]][path[1]][leaf] = setting.value
+        return out
     table = out
     for part in setting.key[:-1]:
         child = table.setdefault(part, {})
@@ -236,15 +291,16 @@ def apply_settings(text: str, settings: Sequence[Setting], source: str = "<desig
     """The design text with each setting applied in turn (the last of two on one key wins).
 
     The edited text is parsed back and must hold exactly the original data with the set
-    values; a layout the edit cannot handle (a dotted key or an inline table in the file,
-    a key inside an array of tables) is a SpecError that says to edit the file instead.
+    values; a layout the edit cannot handle (a dotted key or an inline table in the file, an
+    array of tables reached other than by an entry's name) is a SpecError that says to edit the
+    file instead.
     """
     for setting in settings:
         try:
             before = tomllib.loads(text)
         except tomllib.TOMLDecodeError as exc:
             raise SpecError(f"{source}: not valid TOML: {exc}") from None
-        edited = _set_one(text, setting)
+        edited = _set_one(text, setting, before)
         try:
             after = tomllib.loads(edited)
         except tomllib.TOMLDecodeError:

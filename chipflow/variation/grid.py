@@ -39,6 +39,7 @@ import numpy as np
 from chipflow import display
 from chipflow.errors import SpecError
 from chipflow.spec.network import TOP_KEYS as NETWORK_KEYS
+from chipflow.spec.overrides import NAMED, named_entry
 from chipflow.spec.tree import TOP_KEYS
 
 __all__ = [
@@ -59,10 +60,6 @@ SECTIONS = tuple(
         k for k in (*TOP_KEYS, *NETWORK_KEYS) if k not in ("name", "description", "tolerances")
     )
 )
-#: Lists of tables of an explicit network, and the key that names their entries.
-NAMED = {"channels": "name", "tubes": "name", "chambers": "name", "nodes": "name",
-         "ports": "node", "compliances": "node"}  # fmt: skip
-
 #: Keys of [tree] that each say how the tree branches: a swept one replaces the others.
 BRANCHING = ("generations", "bed_channels", "splits")
 
@@ -235,7 +232,7 @@ def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[A
         *path, last = key.split(".")
         table = out
         if path and path[0] in NAMED and isinstance(out.get(path[0]), list):
-            table = _named_entry(out[path[0]], path[0], path[1], key)
+            table = out[path[0]][named_entry(out[path[0]], path[0], path[1], f"--vary {key}")]
             path = []
         for part in path:
             child = table.setdefault(part, {})
@@ -247,16 +244,6 @@ def with_values(data: Mapping[str, Any], keys: Sequence[str], values: Sequence[A
                 table.pop(other, None)
         table[last] = list(value) if isinstance(value, tuple) else value
     return out
-
-
-def _named_entry(entries: list, section: str, name: str, key: str) -> dict:
-    """The entry of a list of tables whose name (or node) is ``name``."""
-    field = NAMED[section]
-    for entry in entries:
-        if isinstance(entry, dict) and entry.get(field) == name:
-            return entry
-    known = ", ".join(str(e.get(field)) for e in entries if isinstance(e, dict))
-    raise SpecError(f"--vary {key}: no [[{section}]] entry with {field} {name!r} (known: {known})")
 
 
 def design_text(value: Any) -> str:
