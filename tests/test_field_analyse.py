@@ -265,3 +265,22 @@ def test_own_dxf_agrees_with_the_build(tmp_path):
 def test_demo_dxf_agrees_with_the_build(tmp_path):
     build, out = _own_dxf_check(tmp_path, "chipflow/data/demo.toml")
     assert out["mesh_triangles"] > 50_000
+
+
+@pytest.mark.parametrize(("unit", "size", "words"), [(1e-3, 30_000.0, "30 m across"),
+                                                     (1e-9, 5.0, "5 nm across")])  # fmt: skip
+def test_a_gdsii_drawing_of_no_plausible_size_exits_2(tmp_path, unit, size, words):
+    """The GDSII user unit makes the drawing kilometres or nanometres across: refused in one
+    line before anything is meshed (a chip is 10 um to 1 m across, chipflow.spec.mask_dxf)."""
+    import gdstk
+
+    library = gdstk.Library(unit=unit, precision=unit / 1000)
+    cell = library.new_cell("TOP")
+    cell.add(gdstk.rectangle((0, 0), (size, size / 100)))
+    path = tmp_path / "odd.gds"
+    library.write_gds(str(path))
+    r = CliRunner().invoke(main, ["analyse", str(path), "--depth", "50um", "--inlet", "0,0",
+                                  "--outlet", f"{size},0", "--flow", "1uL/min"])  # fmt: skip
+    assert r.exit_code == 2, r.output
+    assert words in r.output and "than any chip" in r.output
+    assert "Traceback" not in r.output

@@ -233,10 +233,26 @@ def _check_extent(path: str, extent: float, unit: str, given: str) -> None:
         fits = [u for u in UNIT_SCALE if low <= extent * UNIT_SCALE[u] <= high and u != unit]
         better = fits[0] if fits else None
     hint = f"; did you mean --units {better}?" if better else ""
+    check_drawing_size(path, size, f"read in {unit} ({given})", hint)
+
+
+def check_drawing_size(path: str, size: float, reading: str, hint: str = "") -> None:
+    """Refuse a drawing ``size`` [m] across (its bounding box's diagonal) outside
+    :data:`DRAWING_SIZES`: one SpecError line saying how it was read (``reading``).
+
+    >>> check_drawing_size("chip.gds", 0.03, "in the file's unit")
+    >>> check_drawing_size("chip.gds", 30.0, "in the file's unit of 1 mm")
+    Traceback (most recent call last):
+    ...
+    chipflow.errors.SpecError: chip.gds: the drawing is 30 m across in the file's unit of 1 mm, \
+larger than any chip (10 um to 1 m)
+    """
+    low, high = DRAWING_SIZES
+    if low <= size <= high:
+        return
     what = "larger than any chip" if size > high else "smaller than any chip"
     raise SpecError(
-        f"{path}: the drawing is {_size_text(size)} across read in {unit} ({given}), "
-        f"{what} (10 um to 1 m){hint}"
+        f"{path}: the drawing is {_size_text(size)} across {reading}, {what} (10 um to 1 m){hint}"
     )
 
 

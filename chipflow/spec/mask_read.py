@@ -312,6 +312,8 @@ def _port(ring: np.ndarray, texts: list[tuple[str, float, float]], scale: float)
 def _read_gds(path: str, layer: str | None, exclude: str | None = None) -> MaskFile:
     import gdstk
 
+    from chipflow.spec.mask_dxf import check_drawing_size
+
     try:
         library = gdstk.read_gds(path)
     except (OSError, RuntimeError) as exc:
@@ -346,6 +348,9 @@ def _read_gds(path: str, layer: str | None, exclude: str | None = None) -> MaskF
         raise SpecError(
             f"{path}: no polygon{on} (layers/datatypes with polygons: {', '.join(found) or 'none'})"
         )
+    drawn = np.vstack([p.exterior.coords for ps in by_layer.values() for p in ps])
+    size = float(np.hypot(*np.ptp(drawn, axis=0)))
+    check_drawing_size(path, size, f"in the file's user unit of {metre:.6g} m")
     units = "um" if abs(metre - 1e-6) < 1e-12 else "mm" if abs(metre - 1e-3) < 1e-9 else "m"
     scale = {"um": 1e-6, "mm": 1e-3, "m": 1.0}[units]
     if not own:
