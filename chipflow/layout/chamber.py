@@ -66,6 +66,8 @@ __all__ = [
     "unsupported_span",
     "place",
     "link_width",
+    "link_floors",
+    "link_widths",
 ]
 
 #: Length of each port's straight stub in the 2D solve, in widths of its channel [-].
@@ -527,6 +529,57 @@ def link_width(conductance: np.ndarray, depth: float, area: float) -> float:
         mid = math.sqrt(lo * hi)
         lo, hi = (mid, hi) if area_of(mid) < area else (lo, mid)
     return math.sqrt(lo * hi)
+
+
+#: Share of a chamber's floor left to the links between ports of one end wall, which carry
+#: no flow when the tree holds every inlet port at one pressure and every outlet at another
+#: (:func:`link_floors`) [-].
+SIDE_FLOOR = 1e-9
+
+
+def link_floors(key: ChamberKey, pairs: np.ndarray, conductance: np.ndarray, area: float):
+    """The floor area [m^2] each link of a chamber stands for: its share of the chamber's flow
+    when every inlet port is at one pressure and every outlet port at another (the drive a
+    tree gives it), so that every link's residence time is the chamber's under that drive;
+    links between ports of one end wall carry none of it and share :data:`SIDE_FLOOR` of the
+    floor. A chamber between two channels has one link and the whole floor.
+
+    >>> port = (ChamberPort(0, 1e-3, 2e-4, 1e-4), ChamberPort(1, 1e-3, 2e-4, 1e-4))
+    >>> key = ChamberKey(2e-3, 8e-3, 1e-4, 0.0, 0.0, None, port, 1e-6)
+    >>> link_floors(key, np.array([[0, 1]]), np.array([1e-12]), 16e-6).tolist()
+    [1.6e-05]
+    """
+    side = np.array([p.side for p in key.ports])[np.asarray(pairs, int)]
+    g = np.asarray(conductance, float)
+    through = side[:, 0] != side[:, 1]
+    if through.all():
+        return area * g / g.sum()
+    share = np.where(through, g / g[through].sum() * (1 - SIDE_FLOOR), 0.0)
+    share[~through] = SIDE_FLOOR / int((~through).sum())
+    return area * share
+
+
+def link_widths(conductance: np.ndarray, depth: float, floors: np.ndarray) -> np.ndarray:
+    """The width [m] of each equivalent duct of ``depth`` [m] with the given conductance
+    [m^3/(Pa s) at 1 Pa s] and floor area ``floors`` [m^2]: a duct of width ``w`` is
+    ``1 / (g R'(w))`` long, so its floor ``w / (g R'(w))`` grows with ``w`` (bisection in
+    log w, all links at once).
+
+    >>> from chipflow.physics.duct import resistance
+    >>> g = 1 / float(resistance(2e-3, 1e-4, 8e-3, 1.0))    # a 2 x 8 mm duct, 100 um deep
+    >>> round(float(link_widths(np.array([g]), 1e-4, np.array([16e-6]))[0]) * 1e3, 9)
+    2.0
+    """
+    from chipflow.physics.duct import resistance
+
+    g = np.asarray(conductance, float)
+    want = np.asarray(floors, float)
+    lo, hi = np.full(g.shape, 1e-12), np.full(g.shape, 10.0)
+    for _ in range(200):  # bisection in log w; the floor grows with w
+        mid = np.sqrt(lo * hi)
+        below = mid / (g * np.asarray(resistance(mid, depth, 1.0, 1.0), float)) < want
+        lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+    return np.sqrt(lo * hi)
 
 
 # -- the field at an operating point -------------------------------------------------------
