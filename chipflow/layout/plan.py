@@ -436,9 +436,12 @@ def plan_layout(
     span = (below[0] - 1) * pitch + lane + width[n] + slack
     if chamber is not None:
         # the last split's node lies at the bed channels' wall parity (``half[n]``): the
-        # chamber's inlet wall, where those channels end, on the grid past their forks; the
-        # chamber in place of the bed's straight run
-        bed_pre = ceil_grid(bed_pre, grid, (-half[n]) % grid)
+        # chamber's inlet wall, where those channels end, on the grid past their forks and a
+        # straight run as long as the chamber solve's stubs (so its ports meet it as solved);
+        # the chamber in place of the bed's straight run
+        from chipflow.layout.chamber import STUB_WIDTHS as CHAMBER_STUB
+
+        bed_pre = ceil_grid(bed_pre + CHAMBER_STUB * width[n], grid, (-half[n]) % grid)
         run_length = round(chamber.length / grid) * grid
         bed_extent = 2 * bed_pre + run_length
         span = max(span, drawn_width(chamber.width, grid))

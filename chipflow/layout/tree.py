@@ -374,14 +374,21 @@ def _chamber_place(design, ends, width, depth, port_in, port_out, rules, x_mid):
     y0 = _snap((y.min() + y.max()) / 2 - w_chamber / 2, grid)
     low = float(y.min() - width / 2 - y0)
     high = float(y0 + w_chamber - (y.max() + width / 2))
-    if min(low, high) < rules.min_gap - 1e-12:
-        need = float(y.max() - y.min()) + width + 2 * rules.min_gap
+    # beside the outermost ports a wall of min_gap, and a flat end wall (no taper) clear of
+    # the rounded corners
+    wall = max(rules.min_gap, shape.corner_radius if shape.taper == 0 else 0.0)
+    if min(low, high) < wall - 1e-12:
+        # the ports sit in the middles of as many equal strips (see the plan): each strip
+        # holds one port and its two walls
+        strip = math.ceil((width + 2 * wall) / (2 * grid) - 1e-9) * 2 * grid
+        need = max(y.size * strip, float(y.max() - y.min()) + width + 2 * wall)
         raise LayoutError(
             f"design '{design.name}': [bed] width: a chamber {w_chamber * 1e6:.6g} um wide "
             f"cannot hold the {y.size} channels of the last generation ({width * 1e6:.6g} um "
-            f"wide, {float(np.diff(np.sort(y)).min()) * 1e6:.6g} um apart) with walls of "
-            f"[fabrication] min_gap {rules.min_gap * 1e6:.6g} um beside them: give a width of "
-            f"at least {math.ceil(need / grid - 1e-9) * grid * 1e6:.6g} um"
+            f"wide, {float(np.diff(np.sort(y)).min()) * 1e6:.6g} um apart) with "
+            f"{wall * 1e6:.6g} um beside them ([fabrication] min_gap, or the corner_radius "
+            f"of a chamber without taper): give a width of at least "
+            f"{math.ceil(need / grid - 1e-9) * grid * 1e6:.6g} um"
         )
     ports = [ChamberPort(0, float(v - y0), width, depth, float(e - x0)) for v, e in
              zip(y, ends[:, 0], strict=True)]  # fmt: skip
