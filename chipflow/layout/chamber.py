@@ -408,19 +408,24 @@ def _compute(key: ChamberKey) -> dict:
     names = [p.name for p in ports]
     y = np.zeros((n, n))
     pressures, velocities, dofs = [], [], []
-    lu = None
-    for j in range(n - 1):  # one right-hand side per driven port (one factorisation)
-        system = field_system(mesh, {name: float(k == j) for k, name in enumerate(names)}, 1.0)
-        if lu is None:
-            lu = splu(system.matrix(), permc_spec="COLAMD")
-        x = lu.solve(system.rhs)
-        if not np.all(np.isfinite(x)):
-            raise FieldError("the chamber's field solve failed (singular system)")
-        flows = system.flows(x)
-        y[:, j] = [flows[name] for name in names]
-        u, p = system.unpack(x)
-        nn = system.space.n_nodes
-        mid = system.space.nodes[:, 3:]
+    # one assembly and one factorisation; port j at 1 Pa (the others at 0) is the right-hand
+    # side minus port j's flux rows (Stokes flow is linear in the port pressures)
+    system = field_system(mesh, dict.fromkeys(names, 0.0), 1.0)
+    lu = splu(system.matrix(), permc_spec="COLAMD")
+    fx = np.array([system.port_flux[name][0] for name in names])
+    fy = np.array([system.port_flux[name][1] for name in names])
+    zero = np.zeros(system.pressure_free.size)
+    rhs = np.column_stack([np.r_[-fx[j], -fy[j], zero] for j in range(n - 1)])
+    xs = lu.solve(rhs)
+    if not np.all(np.isfinite(xs)):
+        raise FieldError("the chamber's field solve failed (singular system)")
+    nv = system.velocity_free.size
+    y[:, : n - 1] = -(fx @ xs[:nv] + fy @ xs[nv : 2 * nv])
+    nn = system.space.n_nodes
+    mid = system.space.nodes[:, 3:]
+    for j in range(n - 1):  # the basis field of each driven port
+        u, p = system.unpack(xs[:, j])
+        p[np.unique(mesh.port_edges[names[j]])] = 1.0
         velocities.append(np.column_stack((u[:nn][mid].mean(axis=1), u[nn:][mid].mean(axis=1))))
         pressures.append(p)
         dofs.append(u)
