@@ -134,8 +134,8 @@ def culture_checks(
     -----
     Every channel of the network, tubing included and with or without a generation, is checked
     for laminar flow and entrance length (a chamber's links for laminar flow only: they stand
-    for its 2D flow, whose entrance the chamber's own field solve holds). The oxygen checks come from :func:`transport_checks`,
-    which needs the species solved along the network.
+    for its 2D flow, whose entrance the chamber's own field solve holds). The oxygen checks
+    come from :func:`transport_checks`, which needs the species solved along the network.
     """
     net = solution.network
     out: list[CheckResult] = []
@@ -181,7 +181,9 @@ def culture_checks(
         # a chamber's links are equivalents of its 2D flow (its field solve has its entrance)
         length = np.where(net.role == "chamber", np.inf, net.length)
         out.append(
-            check_entrance_length(labels, net.width, net.depth, length, solution.reynolds, net.round)
+            check_entrance_length(
+                labels, net.width, net.depth, length, solution.reynolds, net.round
+            )
         )
     temperature = check_temperature(solution.fluid.temperature)
     if temperature is not None:

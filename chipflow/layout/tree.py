@@ -387,8 +387,8 @@ def _chamber_place(design, ends, width, depth, port_in, port_out, rules, x_mid):
             f"cannot hold the {y.size} channels of the last generation ({width * 1e6:.6g} um "
             f"wide, {float(np.diff(np.sort(y)).min()) * 1e6:.6g} um apart) with "
             f"{wall * 1e6:.6g} um beside them ([fabrication] min_gap, or the corner_radius "
-            f"of a chamber without taper): give a width of at least "
-            f"{math.ceil(need / grid - 1e-9) * grid * 1e6:.6g} um"
+            f"of a chamber without taper): a width of "
+            f"{math.ceil(need / grid - 1e-9) * grid * 1e6:.6g} um holds them"
         )
     ports = [ChamberPort(0, float(v - y0), width, depth, float(e - x0)) for v, e in
              zip(y, ends[:, 0], strict=True)]  # fmt: skip

@@ -585,7 +585,7 @@ def _chamber_bed(table: Table, fab: Fabrication, label: str) -> BedSpec:
         if key in table:
             raise table.error(
                 key,
-                f'has no meaning for kind = "chamber" (the chamber\'s own keys width, length, '
+                'has no meaning for kind = "chamber" (the chamber\'s own keys width, length, '
                 "depth, corner_radius, taper and pillars describe it); leave it out",
             )
     shape = read_chamber(table, fab.min_feature, fab.depths)
