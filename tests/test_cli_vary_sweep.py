@@ -137,10 +137,13 @@ def test_vary_and_sweep_work_on_every_bundled_tree_design(path: Path, tmp_path: 
         "--flow-tolerance", "2%", "--viscosity-tolerance", "5%", "--samples", "100",
         "-o", str(tmp_path / "v"),
     )  # fmt: skip
-    assert result.exit_code == 0, result.output
-    data = json.loads((tmp_path / "v" / "results.json").read_text())
-    build = build_design(path)
-    assert len(data["levels"]) == len(build.results["generations"])
+    if 'kind = "chamber"' in path.read_text():  # vary does not yet repeat a chamber's solve
+        assert result.exit_code == 2 and "does not yet vary chambers" in result.output
+    else:
+        assert result.exit_code == 0, result.output
+        data = json.loads((tmp_path / "v" / "results.json").read_text())
+        build = build_design(path)
+        assert len(data["levels"]) == len(build.results["generations"])
     flow = parse_design_text(path.read_text(), str(path)).table("tree").data["flow"]
     number, unit = re.match(r"([\d.]+)\s*(.*)", flow).groups()
     axis = f"tree.flow={float(number) * 0.9:g}{unit}..{float(number) * 1.1:g}{unit}:2"
