@@ -32,8 +32,11 @@ between every two ports ``i, j`` of conductance ``-C_ij`` (:func:`chamber_links`
 chamber between two channels this is one link, the chamber's resistance; for a chamber a tree
 ends in, a link between every two of its ports, which reproduces the 2D chamber exactly
 (every port's flow at any port pressures). Each link is an *equivalent duct* of the chamber's
-depth; their common width is chosen so that together they have the chamber's floor area and
-volume (residence time, floor uptake and roof area stay the chamber's).
+depth; together they have the chamber's floor area and volume (residence time, floor uptake
+and roof area stay the chamber's). A link's floor is its share of the chamber's flow when every
+inlet port is at one pressure and every outlet port at another (:func:`link_floors`), so each
+link keeps the chamber's residence time under the drive a tree gives it; its width follows
+from its conductance and floor (:func:`link_widths`).
 
 References
 ----------
