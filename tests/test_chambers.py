@@ -215,17 +215,70 @@ def test_the_console_and_the_report_show_the_chambers(paired):
     assert "<h2>Chambers</h2>" in html and "150 hex, 150 um on 400 um" in html
 
 
-def test_vary_refuses_chambers_and_sweep_takes_their_keys(tmp_path):
-    """vary does not repeat the chambers' 2D solves: one line, exit 2; a sweep builds every
-    point, so it takes a chamber's keys, and its margin spans each chamber's p05 to p95."""
+@pytest.mark.slow
+def test_vary_takes_the_drawn_paired_chambers(tmp_path):
+    """vary perturbs drawn chambers (its model is checked in tests/test_chamber_bed.py): the
+    two chambers of the paired design, each with its percentiles (about 20 s: the two
+    chambers' re-solves)."""
+    import json
+
+    from click.testing import CliRunner
+
+    from chipflow.cli import main
+
+    args = ["vary", str(PAIRED), "--samples", "20", "-o", str(tmp_path / "v")]
+    out = CliRunner().invoke(main, args)
+    assert out.exit_code == 0, out.output
+    data = json.loads((tmp_path / "v" / "results.json").read_text())
+    assert [c["name"] for c in data["chambers"]] == ["open chamber", "pillar chamber"]
+
+
+UNDRAWN = """
+name = "one chamber"
+[[channels]]
+name = "feed"
+from = "a"
+to = "b"
+width = "300 um"
+depth = "100 um"
+length = "5 mm"
+[[chambers]]
+name = "cells"
+from = "b"
+to = "c"
+width = "1.2 mm"
+length = "3 mm"
+depth = "100 um"
+[[channels]]
+name = "drain"
+from = "c"
+to = "d"
+width = "300 um"
+depth = "100 um"
+length = "5 mm"
+[[ports]]
+node = "a"
+flow = "2 uL/min"
+[[ports]]
+node = "d"
+pressure = "0 Pa"
+"""
+
+
+def test_vary_refuses_undrawn_chambers_and_sweep_takes_their_keys(tmp_path):
+    """vary refuses the chambers of a network without positions in one line, exit 2 (it
+    perturbs drawn chambers); a sweep builds every point, so it takes a chamber's keys, and
+    its margin spans each chamber's p05 to p95."""
     from click.testing import CliRunner
 
     from chipflow.cli import main
 
     runner = CliRunner()
-    out = runner.invoke(main, ["vary", str(PAIRED), "-o", str(tmp_path / "v")])
-    assert out.exit_code == 2 and "does not yet vary chambers" in out.output
-    assert "Traceback" not in out.output and not (tmp_path / "v").exists()
+    undrawn = tmp_path / "undrawn.toml"
+    undrawn.write_text(UNDRAWN)
+    out = runner.invoke(main, ["vary", str(undrawn), "-o", str(tmp_path / "u")])
+    assert out.exit_code == 2 and "does not yet vary the chambers of a network" in out.output
+    assert "Traceback" not in out.output and not (tmp_path / "u").exists()
     out = runner.invoke(
         main,
         ["sweep", str(PAIRED), "--vary", "chambers.pillar chamber.depth=80um,100um",
