@@ -151,6 +151,8 @@ class Build:
     transport : TransportRun or None
         Oxygen and solutes along the channels, the dosing delay (and, with the field, the
         oxygen map): :func:`chipflow.transport.run_transport`.
+    chambers : tuple of ChamberRun
+        Each chamber at the operating point (:func:`chipflow.field.chambers.chamber_runs`).
     """
 
     source: DesignSource
@@ -166,6 +168,7 @@ class Build:
     field: Any = dataclasses.field(default=None, repr=False)
     operation: Operation | None = dataclasses.field(default=None, repr=False)
     transport: Any = dataclasses.field(default=None, repr=False)
+    chambers: tuple = dataclasses.field(default=(), repr=False)
 
     @property
     def status(self) -> str:
@@ -396,6 +399,7 @@ def _build_tree(
         field_run,
         operation,
         transport,
+        tuple(runs),
     )
 
 
@@ -775,6 +779,7 @@ def _build_network(
         field_run,
         operation=operation,
         transport=transport,
+        chambers=tuple(runs),
     )
 
 

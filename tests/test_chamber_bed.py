@@ -387,3 +387,23 @@ def test_vary_moves_a_chamber_as_its_2d_re_solve_does():
     assert ratio == pytest.approx((t1 / q1) / (t0 / q0), rel=0.01)
     assert sample_passes(problem, out).tolist() == [True, True, False]
     assert out.chamber_inside[2, 0] < 1.0 - problem.outside_limit
+
+
+def test_the_shear_map_colours_the_chamber_floor(bundled):
+    """The shear map fills the chamber's floor triangles by their floor shear at the
+    operating point, on the channels' colour scale."""
+    from chipflow.export.bundle import _chamber_floors
+    from chipflow.export.preview import plot_layout
+
+    build, _ = bundled
+    ((corners, tau),) = _chamber_floors(build)
+    (chamber,) = build.layout.chambers
+    inside = shapely.contains_xy(chamber.outline.buffer(1e-9), *corners.mean(axis=1).T)
+    assert inside.all() and corners.shape == (tau.size, 3, 2)
+    row = build.results["chambers"][0]["floor_shear"]
+    assert row["p05"] <= float(np.median(tau)) <= row["p95"]
+    shear = build.solution.wall_shear_floor[: build.layout.channels.length.size]
+    plot = plot_layout(build.layout, values=shear, floors=[(corners, tau)])
+    floor = plot.ax.collections[-1]
+    assert np.array_equal(floor.get_array(), tau)
+    assert floor.get_clim() == plot.channel_collection.get_clim()

@@ -63,6 +63,9 @@ class ChamberRun:
         Share of the chamber's conductances left out of its links [1].
     triangles : int
         Triangles of its 2D mesh.
+    floor_map : tuple of numpy.ndarray
+        ``(corners, shear)``: the (n, 3, 2) corners of its floor's triangles in its key frame
+        [m] and their floor shear at the operating point [Pa] (for the shear map).
     """
 
     name: str
@@ -79,6 +82,7 @@ class ChamberRun:
     flow_residual: float
     link_fit_error: float
     triangles: int
+    floor_map: tuple = ()
 
 
 def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
@@ -96,6 +100,7 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
         The cells' floor shear window [Pa].
     """
     from chipflow.layout.chamber import (
+        chamber_field,
         chamber_polygon,
         floor_stats,
         pillar_centres,
@@ -129,6 +134,9 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
         sol = solve_chamber(key)
         volume = sol.floor_area * key.depth
         span = unsupported_span(chamber_polygon(key), key.grid)[0]
+        floor = sol.mesh["floor"].astype(bool)
+        corners = sol.mesh["points"][sol.mesh["triangles"][floor]]
+        shear = chamber_field(key, q, mu).floor_shear[floor]
         out.append(
             ChamberRun(
                 name=name,
@@ -145,6 +153,7 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
                 flow_residual=residual,
                 link_fit_error=sol.fit_error,
                 triangles=int(len(sol.mesh["triangles"])),
+                floor_map=(corners, shear),
             )
         )
     return out
