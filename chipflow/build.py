@@ -151,6 +151,8 @@ class Build:
     transport : TransportRun or None
         Oxygen and solutes along the channels, the dosing delay (and, with the field, the
         oxygen map): :func:`chipflow.transport.run_transport`.
+    chambers : tuple of ChamberRun
+        Each chamber at the operating point (:func:`chipflow.field.chambers.chamber_runs`).
     """
 
     source: DesignSource
@@ -166,6 +168,7 @@ class Build:
     field: Any = dataclasses.field(default=None, repr=False)
     operation: Operation | None = dataclasses.field(default=None, repr=False)
     transport: Any = dataclasses.field(default=None, repr=False)
+    chambers: tuple = dataclasses.field(default=(), repr=False)
 
     @property
     def status(self) -> str:
@@ -267,15 +270,17 @@ def _build_tree(
                                         allow_large, progress)  # fmt: skip
         rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
     else:
-        grade = bed_grader(
-            culture,
-            spec.flow,
-            spec.bed_channels,
-            spec.bed.residence_time,
-            spec.bed.length,
-            transport=transport_spec,
-            temperature=spec.fluid.temperature,
-        )
+        grade = None  # a chamber's last generation is no seeded bed: nothing to grade
+        if spec.bed.kind == "channels":
+            grade = bed_grader(
+                culture,
+                spec.flow,
+                spec.bed_channels,
+                spec.bed.residence_time,
+                spec.bed.length,
+                transport=transport_spec,
+                temperature=spec.fluid.temperature,
+            )
         design = size_tree(spec, bed_grade=grade)
         check_size(sum(level.count for level in design.levels), allow_large=allow_large)
         progress("layout")
@@ -307,6 +312,10 @@ def _build_tree(
     targets = _targets_window(spec)
     window = culture.window or targets
     generations = level_rows(solution)
+    chambers = [
+        (c.name, c.key, [layout.node_names[n] for n in c.port_nodes]) for c in layout.chambers
+    ]
+    runs = _chamber_runs(chambers, soft.rigid, culture.window, progress)
     residence_target = culture.residence_time or spec.bed.residence_time
     region_windows = {r.name: _cell_window(r.cell_type) for r in spec.regions if r.cell_type}
     residence_targets = {
@@ -331,6 +340,7 @@ def _build_tree(
             region_windows=region_windows,
             residence_targets=residence_targets,
         ),
+        *_chamber_checks(runs, culture),
         *transport_checks(transport),
         *pressure_checks(solution, limits),
         *operation.checks,
@@ -350,6 +360,7 @@ def _build_tree(
     attach(results, operation)
     results["regions"] = region_results(spec, layout, solution)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
+    results["chambers"] = _chamber_dicts(runs, window)
     results["ports"] = mask_ports(layout, export.dxf.mirror)
     results["warnings"] = [
         *design.warnings,
@@ -388,6 +399,7 @@ def _build_tree(
         field_run,
         operation,
         transport,
+        tuple(runs),
     )
 
 
@@ -767,6 +779,7 @@ def _build_network(
         field_run,
         operation=operation,
         transport=transport,
+        chambers=tuple(runs),
     )
 
 

@@ -43,6 +43,8 @@ def _stand_in_piece(key):
         return pieces.PieceSolution((0.1 * key.width,))
     if isinstance(key, pieces.JunctionKey):
         return pieces.PieceSolution(tuple(-0.1 * arm.width for arm in key.arms))
+    if hasattr(key, "n_ports"):  # a chamber: its network is its links (solved all the same)
+        return pieces.PieceSolution((0.0,) * key.n_ports)
     return pieces.PieceSolution((-0.4 * key.parent_width, 0.0, 0.0))
 
 

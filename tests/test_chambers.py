@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import shapely
+from chamber_resolve import independent_conductance_matrix
 
 from chipflow.build import DesignSource, build_design
 from chipflow.errors import SpecError
@@ -17,7 +18,6 @@ from chipflow.layout.chamber import (
     ChamberKey,
     ChamberPort,
     chamber_polygon,
-    chamber_regions,
     pillar_centres,
     solve_chamber,
 )
@@ -61,77 +61,10 @@ def test_plain_chamber_is_the_exact_rectangular_duct():
 
 def _independent_conductance(key: ChamberKey, size: float) -> float:
     """The stub-end to stub-end conductance of the chamber's 2D domain [m^3/(Pa s) at 1 Pa s],
-    solved here independently of chipflow.field: the same depth-averaged Stokes-Brinkman
-    equations (friction 12/h^2, lateral factor of the wide limit), Taylor-Hood P2-P1 on a mesh
-    of its own (the triangle library) with triangles of about ``size`` [m], assembled by
-    scikit-fem; the flow is the integral of u . grad(phi) for phi linear from 0 at the inlet
-    stub's end to 1 at the outlet's (exact for a divergence-free field)."""
-    import triangle
-    from skfem import (
-        Basis,
-        BilinearForm,
-        ElementTriP1,
-        ElementTriP2,
-        ElementVector,
-        MeshTri,
-        asm,
-        bmat,
-        condense,
-        solve,
-    )
-    from skfem.helpers import ddot, dot, grad
-
-    from chipflow.field.calibration import BETA_WIDE
-
-    regions = chamber_regions(key)[0]
-    domain = shapely.union_all([r.polygon for r in regions]).normalize()
-    scale = 1e3  # mm
-    vertices, segments, holes = [], [], []
-    for ring in [domain.exterior, *domain.interiors]:
-        xy = np.asarray(ring.coords)[:-1] * scale
-        n0 = len(vertices)
-        vertices += xy.tolist()
-        k = np.arange(len(xy))
-        segments += np.column_stack((n0 + k, n0 + (k + 1) % len(xy))).tolist()
-    for hole in domain.interiors:
-        c = shapely.Polygon(hole).point_on_surface()
-        holes.append([c.x * scale, c.y * scale])
-    pslg = {"vertices": np.array(vertices), "segments": np.array(segments)}
-    if holes:
-        pslg["holes"] = np.array(holes)
-    area = (size * scale) ** 2 * math.sqrt(3) / 4
-    t = triangle.triangulate(pslg, f"pq30a{area:.10f}")
-    mesh = MeshTri(np.ascontiguousarray(t["vertices"].T), np.ascontiguousarray(t["triangles"].T))
-    h = key.depth * scale
-    k, beta = 12.0 / h**2, BETA_WIDE
-    bu = Basis(mesh, ElementVector(ElementTriP2()), intorder=4)
-    bp = bu.with_element(ElementTriP1())
-
-    @BilinearForm
-    def a(u, v, w):
-        return beta * ddot(grad(u), grad(v)) + k * dot(u, v)
-
-    @BilinearForm
-    def b(u, q, w):
-        return dot(u, grad(q))
-
-    A, B = asm(a, bu), asm(b, bu, bp)
-    K = bmat([[A, B.T], [B, None]], "csr")
-    x0, x1 = mesh.p[0].min(), mesh.p[0].max()
-    inlet = mesh.facets_satisfying(lambda x: np.isclose(x[0], x0), boundaries_only=True)
-    outlet = mesh.facets_satisfying(lambda x: np.isclose(x[0], x1), boundaries_only=True)
-    walls = np.setdiff1d(mesh.boundary_facets(), np.r_[inlet, outlet])
-    nu = bu.N
-    fixed_u = bu.get_dofs(walls).all()
-    p_in, p_out = bp.get_dofs(inlet).all(), bp.get_dofs(outlet).all()
-    x = np.zeros(K.shape[0])
-    x[nu + p_in] = 1.0
-    D = np.r_[fixed_u, nu + p_in, nu + p_out]
-    x = solve(*condense(K, np.zeros(K.shape[0]), x=x, D=D))
-    phi = (mesh.p[0] - x0) / (x1 - x0)
-    flow = float(phi @ (B @ x[:nu]))
-    # mm^3/s at 1 Pa and 1 Pa s, times the depth: m^3/(Pa s)
-    return flow * h * 1e-9
+    solved independently of chipflow.field (:mod:`chamber_resolve`: the same depth-averaged
+    Stokes-Brinkman equations, Taylor-Hood P2-P1 on a triangle-library mesh of its own with
+    triangles of about ``size`` [m], assembled by scikit-fem)."""
+    return -float(independent_conductance_matrix(key, size, driven=[0])[1, 0])
 
 
 @pytest.mark.parametrize("pattern", ["hex", pytest.param("square", marks=pytest.mark.slow)])
@@ -282,17 +215,70 @@ def test_the_console_and_the_report_show_the_chambers(paired):
     assert "<h2>Chambers</h2>" in html and "150 hex, 150 um on 400 um" in html
 
 
-def test_vary_refuses_chambers_and_sweep_takes_their_keys(tmp_path):
-    """vary does not repeat the chambers' 2D solves: one line, exit 2; a sweep builds every
-    point, so it takes a chamber's keys, and its margin spans each chamber's p05 to p95."""
+@pytest.mark.slow
+def test_vary_takes_the_drawn_paired_chambers(tmp_path):
+    """vary perturbs drawn chambers (its model is checked in tests/test_chamber_bed.py): the
+    two chambers of the paired design, each with its percentiles (about 20 s: the two
+    chambers' re-solves)."""
+    import json
+
+    from click.testing import CliRunner
+
+    from chipflow.cli import main
+
+    args = ["vary", str(PAIRED), "--samples", "20", "-o", str(tmp_path / "v")]
+    out = CliRunner().invoke(main, args)
+    assert out.exit_code == 0, out.output
+    data = json.loads((tmp_path / "v" / "results.json").read_text())
+    assert [c["name"] for c in data["chambers"]] == ["open chamber", "pillar chamber"]
+
+
+UNDRAWN = """
+name = "one chamber"
+[[channels]]
+name = "feed"
+from = "a"
+to = "b"
+width = "300 um"
+depth = "100 um"
+length = "5 mm"
+[[chambers]]
+name = "cells"
+from = "b"
+to = "c"
+width = "1.2 mm"
+length = "3 mm"
+depth = "100 um"
+[[channels]]
+name = "drain"
+from = "c"
+to = "d"
+width = "300 um"
+depth = "100 um"
+length = "5 mm"
+[[ports]]
+node = "a"
+flow = "2 uL/min"
+[[ports]]
+node = "d"
+pressure = "0 Pa"
+"""
+
+
+def test_vary_refuses_undrawn_chambers_and_sweep_takes_their_keys(tmp_path):
+    """vary refuses the chambers of a network without positions in one line, exit 2 (it
+    perturbs drawn chambers); a sweep builds every point, so it takes a chamber's keys, and
+    its margin spans each chamber's p05 to p95."""
     from click.testing import CliRunner
 
     from chipflow.cli import main
 
     runner = CliRunner()
-    out = runner.invoke(main, ["vary", str(PAIRED), "-o", str(tmp_path / "v")])
-    assert out.exit_code == 2 and "does not yet vary chambers" in out.output
-    assert "Traceback" not in out.output and not (tmp_path / "v").exists()
+    undrawn = tmp_path / "undrawn.toml"
+    undrawn.write_text(UNDRAWN)
+    out = runner.invoke(main, ["vary", str(undrawn), "-o", str(tmp_path / "u")])
+    assert out.exit_code == 2 and "does not yet vary the chambers of a network" in out.output
+    assert "Traceback" not in out.output and not (tmp_path / "u").exists()
     out = runner.invoke(
         main,
         ["sweep", str(PAIRED), "--vary", "chambers.pillar chamber.depth=80um,100um",

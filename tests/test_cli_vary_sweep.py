@@ -130,7 +130,13 @@ def test_tolerances_section_values_are_validated(line: str) -> None:
         read_tolerances(top)
 
 
-@pytest.mark.parametrize("path", TREE_DESIGNS, ids=lambda p: p.stem)
+@pytest.mark.parametrize(
+    "path",
+    # a tree into a chamber: vary re-solves its 16-port chamber twice (about 20 s; the
+    # model is checked on a small chamber in test_chamber_bed.py)
+    [pytest.param(p, marks=pytest.mark.slow) if "chamber" in p.stem else p for p in TREE_DESIGNS],
+    ids=lambda p: p.stem,
+)
 def test_vary_and_sweep_work_on_every_bundled_tree_design(path: Path, tmp_path: Path) -> None:
     result = run(
         "vary", str(path), "--depth-tolerance", "5%", "--width-tolerance", "1um",

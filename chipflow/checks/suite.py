@@ -133,8 +133,9 @@ def culture_checks(
     Notes
     -----
     Every channel of the network, tubing included and with or without a generation, is checked
-    for laminar flow and entrance length. The oxygen checks come from :func:`transport_checks`,
-    which needs the species solved along the network.
+    for laminar flow and entrance length (a chamber's links for laminar flow only: they stand
+    for its 2D flow, whose entrance the chamber's own field solve holds). The oxygen checks
+    come from :func:`transport_checks`, which needs the species solved along the network.
     """
     net = solution.network
     out: list[CheckResult] = []
@@ -177,9 +178,11 @@ def culture_checks(
     if net.n_channels:
         labels = _ChannelLabels(net)
         out.append(check_reynolds(labels, solution.reynolds))
+        # a chamber's links are equivalents of its 2D flow (its field solve has its entrance)
+        length = np.where(net.role == "chamber", np.inf, net.length)
         out.append(
             check_entrance_length(
-                labels, net.width, net.depth, net.length, solution.reynolds, net.round
+                labels, net.width, net.depth, length, solution.reynolds, net.round
             )
         )
     temperature = check_temperature(solution.fluid.temperature)

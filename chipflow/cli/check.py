@@ -240,9 +240,17 @@ def tree_check(top: Table, *, as_json: bool = False) -> tuple[str, bool]:
         table["checks"] = results["checks"]
         table["totals"] = results["totals"]
         table["status"] = results["status"]
+        table["chambers"] = results.get("chambers") or []
         return json.dumps(table, indent=2), ok
     table = level_table(results)
-    return f"generations, inlet to outlet\n{table}\n{note}\n\n{totals_and_checks(results)}", ok
+    chambers = ""
+    if results.get("chambers"):  # a tree that ends in a chamber
+        from chipflow.report.console import chamber_table
+
+        rows = chamber_table(results["chambers"], results["checks"])
+        chambers = f"\nchambers (floor shear over each chamber's floor, pillars left out)\n{rows}\n"
+    head = f"generations, inlet to outlet\n{table}\n{note}\n{chambers}"
+    return f"{head}\n{totals_and_checks(results)}", ok
 
 
 def check_tree(top: Table, as_json: bool) -> bool:

@@ -90,6 +90,11 @@ class TreeDesign:
     footprint : Footprint or None
         The rectangle the bed must lie in, folds included (``[bed] footprint`` or a region's);
         None: anywhere on the chip.
+    chamber : ChamberShape or None
+        A tree that ends in a culture chamber (``[bed] kind = "chamber"``,
+        :class:`chipflow.spec.chamber.ChamberShape`): the bed level is then the last
+        generation's channels, which meet the chamber's inlet wall (and leave its outlet
+        wall) side by side, and its length is the chamber's; None: a bed of parallel channels.
     """
 
     name: str
@@ -102,6 +107,7 @@ class TreeDesign:
     bed_gap: float | None = None
     fabrication: Fabrication | None = None
     footprint: Footprint | None = None
+    chamber: object = None
 
     @property
     def generations(self) -> int:

@@ -631,6 +631,7 @@ def size_tree(
         bed_gap=spec.bed.gap,
         fabrication=fab,
         footprint=spec.bed.footprint,
+        chamber=spec.bed.chamber,
     )
 
 

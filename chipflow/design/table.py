@@ -86,7 +86,11 @@ def _levels(design) -> dict:
     (:meth:`chipflow.design.regions.RegionsDesign.levels_by_region`)."""
     if hasattr(design, "levels_by_region"):
         return design.levels_by_region()
-    return {("", lv.role, lv.generation): lv for lv in design.levels}
+    out = {("", lv.role, lv.generation): lv for lv in design.levels}
+    if getattr(design, "chamber", None) is not None:  # the last generation meets the chamber
+        bed = design.bed
+        out[("", "distribution", bed.generation)] = out[("", "collection", bed.generation)] = bed
+    return out
 
 
 def generation_table_dict(design: TreeDesign, solution: Solution | None = None) -> dict:

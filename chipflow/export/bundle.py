@@ -190,6 +190,7 @@ def write_build(build: Build, outdir: str | Path, progress: Callable[[str], None
                 shear,
                 value_range=shear_scale(window, shear),
                 value_marks=marks,
+                floors=_chamber_floors(build),
             )
             figures["The chip as drawn"] = (stage / "layout.svg").read_text(encoding="utf-8")
             figures["Floor wall shear on the chip"] = (stage / "shear.svg").read_text(
@@ -269,3 +270,17 @@ def build_to_folder(
     build = build_design(design, progress, allow_large=allow_large, field=field)
     target = Path(outdir) if outdir is not None else Path(_slug(build.name))
     return build, write_build(build, target, progress)
+
+
+def _chamber_floors(build: Build) -> list:
+    """Each drawn chamber's floor triangles on the chip [m] with their floor shear [Pa]."""
+    from chipflow.layout.chamber import place
+
+    runs = {r.name: r for r in build.chambers}
+    out = []
+    for c in build.layout.chambers:  # a handful of chambers
+        run = runs.get(c.name)
+        if run is not None and run.floor_map:
+            corners, shear = run.floor_map
+            out.append((place(corners, c.origin, c.turns), shear))
+    return out

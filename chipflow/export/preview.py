@@ -260,6 +260,7 @@ def plot_layout(
     raster_above: int | None = None,
     value_range: tuple[float, float] | None = None,
     value_marks: Sequence[float] = (),
+    floors: Sequence[tuple[np.ndarray, np.ndarray]] = (),
 ) -> LayoutPlot:
     """Draw the chip: mask levels, outline, ports with names, a scale bar.
 
@@ -287,6 +288,9 @@ def plot_layout(
         difference shows as a few percent of colour); by default the values' own range.
     value_marks : sequence of float
         Values marked by a line on the colour bar (e.g. the window's ends).
+    floors : sequence of (numpy.ndarray, numpy.ndarray)
+        With ``values``: chambers' floors filled by value on the same colour scale, each the
+        (n, 3, 2) corners of its triangles [m] and one value per triangle.
 
     Returns
     -------
@@ -339,6 +343,7 @@ def plot_layout(
         patches.append(patch)
 
     collection = colorbar = None
+    extra: list = []
     if values is not None:
         ch = layout.channels
         vals = np.asarray(values, dtype=float)
@@ -360,6 +365,15 @@ def plot_layout(
             collection.set_clim(*value_range)
         ax.add_collection(collection, autolim=False)
         drawn.append(len(xy))
+        for corners, tau in floors:  # a handful of chambers: their floors by value
+            # edges in the fill colour, not antialiased: no seams between the triangles
+            floor = PolyCollection(np.asarray(corners) * mm, cmap="viridis", edgecolors="face",
+                                   linewidths=0.05, antialiased=False)  # fmt: skip
+            floor.set_array(np.asarray(tau, dtype=float))
+            floor.set_clim(*collection.get_clim())
+            ax.add_collection(floor, autolim=False)
+            drawn.append(3 * len(tau))
+            extra.append(floor)
         above = value_range is not None and bool(np.nanmax(vals) > value_range[1])
         colorbar = ax.figure.colorbar(
             collection,
@@ -371,7 +385,7 @@ def plot_layout(
         mark_window(colorbar, value_marks)
 
     if sum(drawn) > (RASTER_VERTICES if raster_above is None else raster_above):
-        for artist in (*patches, collection):
+        for artist in (*patches, collection, *extra):
             if artist is not None:
                 artist.set_rasterized(True)
 
@@ -492,6 +506,7 @@ def write_previews(
     raster_above: int | None = None,
     value_range: tuple[float, float] | None = None,
     value_marks: Sequence[float] = (),
+    floors: Sequence[tuple[np.ndarray, np.ndarray]] = (),
 ) -> list[Path]:
     """Draw the chip once and write it to several files, e.g. ``shear.svg`` and ``shear.png``.
 
@@ -507,7 +522,7 @@ def write_previews(
         One value per channel for colouring (see :func:`plot_layout`).
     value_label : str
         Colour-bar label, with its unit.
-    raster_above, value_range, value_marks : optional
+    raster_above, value_range, value_marks, floors : optional
         As :func:`plot_layout`.
 
     Returns
@@ -531,6 +546,7 @@ def write_previews(
             raster_above=raster_above,
             value_range=value_range,
             value_marks=value_marks,
+            floors=floors,
         )
         fig = plot.ax.figure
         for path in paths:

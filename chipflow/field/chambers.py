@@ -21,7 +21,15 @@ import numpy as np
 
 from chipflow.field.shear import ShearStats
 
-__all__ = ["ChamberRun", "chamber_runs", "chamber_dict"]
+__all__ = [
+    "ChamberRun",
+    "chamber_runs",
+    "chamber_dict",
+    "ChamberSensitivity",
+    "chamber_sensitivity",
+    "perturbed_key",
+    "floor_distribution",
+]
 
 
 @dataclass(frozen=True)
@@ -55,6 +63,9 @@ class ChamberRun:
         Share of the chamber's conductances left out of its links [1].
     triangles : int
         Triangles of its 2D mesh.
+    floor_map : tuple of numpy.ndarray
+        ``(corners, shear)``: the (n, 3, 2) corners of its floor's triangles in its key frame
+        [m] and their floor shear at the operating point [Pa] (for the shear map).
     """
 
     name: str
@@ -71,6 +82,7 @@ class ChamberRun:
     flow_residual: float
     link_fit_error: float
     triangles: int
+    floor_map: tuple = ()
 
 
 def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
@@ -88,6 +100,7 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
         The cells' floor shear window [Pa].
     """
     from chipflow.layout.chamber import (
+        chamber_field,
         chamber_polygon,
         floor_stats,
         pillar_centres,
@@ -121,6 +134,9 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
         sol = solve_chamber(key)
         volume = sol.floor_area * key.depth
         span = unsupported_span(chamber_polygon(key), key.grid)[0]
+        floor = sol.mesh["floor"].astype(bool)
+        corners = sol.mesh["points"][sol.mesh["triangles"][floor]]
+        shear = chamber_field(key, q, mu).floor_shear[floor]
         out.append(
             ChamberRun(
                 name=name,
@@ -137,6 +153,7 @@ def chamber_runs(chambers, solution, window=None) -> list[ChamberRun]:
                 flow_residual=residual,
                 link_fit_error=sol.fit_error,
                 triangles=int(len(sol.mesh["triangles"])),
+                floor_map=(corners, shear),
             )
         )
     return out
@@ -174,3 +191,120 @@ def chamber_dict(run: ChamberRun, windowed: bool = True) -> dict[str, Any]:
         "link_fit_error": run.link_fit_error,
         "mesh_triangles": run.triangles,
     }
+
+
+# -- sensitivities for the Monte Carlo of tolerances (chipflow vary) ---------------------------
+#: The steps of the 2D re-solves that give a chamber's sensitivities: a relative depth error
+#: [-] and a width bias in grid steps (an even number, so every wall stays on the grid).
+DEPTH_STEP = 0.05
+WIDTH_STEPS = 2
+
+
+@dataclass(frozen=True)
+class ChamberSensitivity:
+    """How a chamber's conductance and floor shear move with its mould level's depth error
+    ``e`` and the mask's width bias ``b`` [m], from 2D re-solves of the perturbed chamber
+    (:func:`chamber_sensitivity`): ``G = G0 (1 + e)^conductance_depth
+    exp(conductance_width b)``, and the floor shear per unit flow likewise with the
+    ``shear_*`` exponents (every percentile alike).
+
+    In the Hele-Shaw limit of a wide, shallow chamber (H. Bruus, *Theoretical
+    Microfluidics*, 2008, ch. 4) the conductance goes as ``h^3 W`` and the floor shear per unit
+    flow as ``1 / (W h^2)``: exponents 3 and -2; the pillars' side walls and the chamber's
+    own lower the depth exponent (about 2.7 for 150 um pillars 250 um apart in a 100 um deep
+    chamber), and a width bias that shrinks the pillars widens every gap between them, which
+    moves the conductance some ten times more than the chamber's width alone.
+
+    Attributes
+    ----------
+    conductance_depth : float
+        d ln G / d ln(1 + e) [-].
+    conductance_width : float
+        d ln G / d b [1/m].
+    shear_depth : float
+        d ln(tau / Q) / d ln(1 + e) [-].
+    shear_width : float
+        d ln(tau / Q) / d b [1/m].
+    """
+
+    conductance_depth: float
+    conductance_width: float
+    shear_depth: float
+    shear_width: float
+
+
+def perturbed_key(key, depth_factor: float = 1.0, bias: float = 0.0):
+    """``key`` (a :class:`~chipflow.layout.chamber.ChamberKey`) as a mould ``depth_factor``
+    times as deep and a mask whose every wall moves out by ``bias / 2`` [m] (``bias`` a whole
+    even number of grid steps): the chamber and its ports wider by ``bias``, the pillars
+    narrower by it, the ports at their offsets from the chamber's middle. The ports at the
+    chamber's depth share its mould level; the others keep theirs."""
+    import dataclasses
+
+    from chipflow.layout.chamber import ChamberPort, chamber_key
+    from chipflow.spec.chamber import ChamberShape, Pillars
+
+    ports = [
+        ChamberPort(
+            p.side,
+            p.offset + bias / 2,
+            p.width + bias,
+            p.depth * depth_factor if abs(p.depth - key.depth) <= 1e-12 else p.depth,
+            p.mouth,
+        )
+        for p in key.ports
+    ]
+    pillars = None
+    if key.pillars is not None:
+        pillars = Pillars(key.pillars[0] - bias, key.pillars[1], key.pillars[2])
+    shape = ChamberShape(key.width + bias, key.length, key.depth * depth_factor,
+                         key.corner_radius, key.taper, pillars)  # fmt: skip
+    out = chamber_key(shape, ports, key.grid, key.overlap)
+    return dataclasses.replace(out, overlap=key.overlap)
+
+
+def _through(key) -> tuple[float, float]:
+    """The chamber's flow [m^3/s at 1 Pa s] and floor-shear median [Pa at 1 Pa s] with every
+    inlet port at 1 Pa and every outlet at 0 (its mouths)."""
+    from chipflow.layout.chamber import floor_stats, solve_chamber, stub_pressures
+
+    sol = solve_chamber(key)
+    inlet = np.array([p.side == 0 for p in key.ports])
+    mouth = inlet.astype(float)
+    inflow = sol.chamber @ mouth
+    stats, _ = floor_stats(key, stub_pressures(key, mouth, inflow, 1.0), 1.0)
+    return float(inflow[inlet].sum()), float(stats.p50)
+
+
+def chamber_sensitivity(key) -> ChamberSensitivity:
+    """The sensitivities of a chamber (see :class:`ChamberSensitivity`) from two 2D re-solves
+    (kept in the field cache): its mould :data:`DEPTH_STEP` deeper, and its mask
+    :data:`WIDTH_STEPS` grid steps wider."""
+    q0, t0 = _through(key)
+    q1, t1 = _through(perturbed_key(key, 1.0 + DEPTH_STEP))
+    bias = WIDTH_STEPS * key.grid
+    q2, t2 = _through(perturbed_key(key, 1.0, bias))
+    step = np.log1p(DEPTH_STEP)
+    return ChamberSensitivity(
+        conductance_depth=float(np.log(q1 / q0) / step),
+        conductance_width=float(np.log(q2 / q0) / bias),
+        shear_depth=float(np.log((t1 / q1) / (t0 / q0)) / step),
+        shear_width=float(np.log((t2 / q2) / (t0 / q0)) / bias),
+    )
+
+
+def floor_distribution(key, mouth_pressure, inflow, viscosity: float):
+    """The area-weighted distribution of a chamber's floor shear at an operating point (the
+    pressures at its mouths [Pa], the flows into it through its ports [m^3/s], ``viscosity``
+    [Pa s]): ``(shear, share)``, the floor shear of its floor's triangles in rising order [Pa]
+    and the share of the floor at or below each [1] (for the share inside a window at a
+    scaled flow)."""
+    from chipflow.layout.chamber import chamber_field, solve_chamber, stub_pressures
+
+    q = stub_pressures(key, mouth_pressure, inflow, viscosity)
+    field = chamber_field(key, q, viscosity)
+    floor = solve_chamber(key).mesh["floor"].astype(bool)
+    tau = field.floor_shear[floor]
+    area = field.mesh.area[floor]
+    order = np.argsort(tau, kind="stable")
+    return tau[order], np.cumsum(area[order]) / area.sum()

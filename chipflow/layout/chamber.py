@@ -32,8 +32,11 @@ between every two ports ``i, j`` of conductance ``-C_ij`` (:func:`chamber_links`
 chamber between two channels this is one link, the chamber's resistance; for a chamber a tree
 ends in, a link between every two of its ports, which reproduces the 2D chamber exactly
 (every port's flow at any port pressures). Each link is an *equivalent duct* of the chamber's
-depth; their common width is chosen so that together they have the chamber's floor area and
-volume (residence time, floor uptake and roof area stay the chamber's).
+depth; together they have the chamber's floor area and volume (residence time, floor uptake
+and roof area stay the chamber's). A link's floor is its share of the chamber's flow when every
+inlet port is at one pressure and every outlet port at another (:func:`link_floors`), so each
+link keeps the chamber's residence time under the drive a tree gives it; its width follows
+from its conductance and floor (:func:`link_widths`).
 
 References
 ----------
@@ -66,6 +69,8 @@ __all__ = [
     "unsupported_span",
     "place",
     "link_width",
+    "link_floors",
+    "link_widths",
 ]
 
 #: Length of each port's straight stub in the 2D solve, in widths of its channel [-].
@@ -406,19 +411,24 @@ def _compute(key: ChamberKey) -> dict:
     names = [p.name for p in ports]
     y = np.zeros((n, n))
     pressures, velocities, dofs = [], [], []
-    lu = None
-    for j in range(n - 1):  # one right-hand side per driven port (one factorisation)
-        system = field_system(mesh, {name: float(k == j) for k, name in enumerate(names)}, 1.0)
-        if lu is None:
-            lu = splu(system.matrix(), permc_spec="COLAMD")
-        x = lu.solve(system.rhs)
-        if not np.all(np.isfinite(x)):
-            raise FieldError("the chamber's field solve failed (singular system)")
-        flows = system.flows(x)
-        y[:, j] = [flows[name] for name in names]
-        u, p = system.unpack(x)
-        nn = system.space.n_nodes
-        mid = system.space.nodes[:, 3:]
+    # one assembly and one factorisation; port j at 1 Pa (the others at 0) is the right-hand
+    # side minus port j's flux rows (Stokes flow is linear in the port pressures)
+    system = field_system(mesh, dict.fromkeys(names, 0.0), 1.0)
+    lu = splu(system.matrix(), permc_spec="COLAMD")
+    fx = np.array([system.port_flux[name][0] for name in names])
+    fy = np.array([system.port_flux[name][1] for name in names])
+    zero = np.zeros(system.pressure_free.size)
+    rhs = np.column_stack([np.r_[-fx[j], -fy[j], zero] for j in range(n - 1)])
+    xs = lu.solve(rhs)
+    if not np.all(np.isfinite(xs)):
+        raise FieldError("the chamber's field solve failed (singular system)")
+    nv = system.velocity_free.size
+    y[:, : n - 1] = -(fx @ xs[:nv] + fy @ xs[nv : 2 * nv])
+    nn = system.space.n_nodes
+    mid = system.space.nodes[:, 3:]
+    for j in range(n - 1):  # the basis field of each driven port
+        u, p = system.unpack(xs[:, j])
+        p[np.unique(mesh.port_edges[names[j]])] = 1.0
         velocities.append(np.column_stack((u[:nn][mid].mean(axis=1), u[nn:][mid].mean(axis=1))))
         pressures.append(p)
         dofs.append(u)
@@ -527,6 +537,57 @@ def link_width(conductance: np.ndarray, depth: float, area: float) -> float:
         mid = math.sqrt(lo * hi)
         lo, hi = (mid, hi) if area_of(mid) < area else (lo, mid)
     return math.sqrt(lo * hi)
+
+
+#: Share of a chamber's floor left to the links between ports of one end wall, which carry
+#: no flow when the tree holds every inlet port at one pressure and every outlet at another
+#: (:func:`link_floors`) [-].
+SIDE_FLOOR = 1e-9
+
+
+def link_floors(key: ChamberKey, pairs: np.ndarray, conductance: np.ndarray, area: float):
+    """The floor area [m^2] each link of a chamber stands for: its share of the chamber's flow
+    when every inlet port is at one pressure and every outlet port at another (the drive a
+    tree gives it), so that every link's residence time is the chamber's under that drive;
+    links between ports of one end wall carry none of it and share :data:`SIDE_FLOOR` of the
+    floor. A chamber between two channels has one link and the whole floor.
+
+    >>> port = (ChamberPort(0, 1e-3, 2e-4, 1e-4), ChamberPort(1, 1e-3, 2e-4, 1e-4))
+    >>> key = ChamberKey(2e-3, 8e-3, 1e-4, 0.0, 0.0, None, port, 1e-6)
+    >>> link_floors(key, np.array([[0, 1]]), np.array([1e-12]), 16e-6).tolist()
+    [1.6e-05]
+    """
+    side = np.array([p.side for p in key.ports])[np.asarray(pairs, int)]
+    g = np.asarray(conductance, float)
+    through = side[:, 0] != side[:, 1]
+    if through.all():
+        return area * g / g.sum()
+    share = np.where(through, g / g[through].sum() * (1 - SIDE_FLOOR), 0.0)
+    share[~through] = SIDE_FLOOR / int((~through).sum())
+    return area * share
+
+
+def link_widths(conductance: np.ndarray, depth: float, floors: np.ndarray) -> np.ndarray:
+    """The width [m] of each equivalent duct of ``depth`` [m] with the given conductance
+    [m^3/(Pa s) at 1 Pa s] and floor area ``floors`` [m^2]: a duct of width ``w`` is
+    ``1 / (g R'(w))`` long, so its floor ``w / (g R'(w))`` grows with ``w`` (bisection in
+    log w, all links at once).
+
+    >>> from chipflow.physics.duct import resistance
+    >>> g = 1 / float(resistance(2e-3, 1e-4, 8e-3, 1.0))    # a 2 x 8 mm duct, 100 um deep
+    >>> round(float(link_widths(np.array([g]), 1e-4, np.array([16e-6]))[0]) * 1e3, 9)
+    2.0
+    """
+    from chipflow.physics.duct import resistance
+
+    g = np.asarray(conductance, float)
+    want = np.asarray(floors, float)
+    lo, hi = np.full(g.shape, 1e-12), np.full(g.shape, 10.0)
+    for _ in range(200):  # bisection in log w; the floor grows with w
+        mid = np.sqrt(lo * hi)
+        below = mid / (g * np.asarray(resistance(mid, depth, 1.0, 1.0), float)) < want
+        lo, hi = np.where(below, mid, lo), np.where(below, hi, mid)
+    return np.sqrt(lo * hi)
 
 
 # -- the field at an operating point -------------------------------------------------------

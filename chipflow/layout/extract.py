@@ -147,8 +147,9 @@ unsolved_junctions = unsolved_pieces
 
 def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
     """The network channels of one chamber: its links (:func:`~chipflow.layout.chamber.
-    chamber_links`), each an equivalent duct of the chamber's depth; their common width makes
-    their floors add up to the chamber's (:func:`~chipflow.layout.chamber.link_width`).
+    chamber_links`), each an equivalent duct of the chamber's depth whose floor is its share
+    of the chamber's (:func:`~chipflow.layout.chamber.link_floors`; together they have the
+    chamber's floor and volume).
 
     Parameters
     ----------
@@ -164,7 +165,7 @@ def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
         When the chamber cannot be meshed or solved in 2D (it has no network without).
     """
     from chipflow.errors import FieldError
-    from chipflow.layout.chamber import chamber_links, link_width, solve_chamber
+    from chipflow.layout.chamber import chamber_links, link_floors, link_widths, solve_chamber
     from chipflow.physics.duct import resistance
 
     try:
@@ -172,8 +173,8 @@ def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
     except FieldError as exc:
         raise LayoutError(f"chamber {name!r} could not be solved in 2D: {exc}") from None
     sol = solve_chamber(key)
-    width = link_width(g, key.depth, sol.floor_area)
-    length = 1.0 / (g * float(resistance(width, key.depth, 1.0, 1.0)))
+    width = link_widths(g, key.depth, link_floors(key, pairs, g, sol.floor_area))
+    length = 1.0 / (g * np.asarray(resistance(width, key.depth, 1.0, 1.0), float))
     sides = [p.side for p in key.ports]
     labels, counter = [], [0, 0]
     for side in sides:  # a handful of ports
@@ -188,7 +189,7 @@ def chamber_channels(name: str, key, nodes) -> dict[str, np.ndarray | list]:
     return {
         "node_a": nodes[pairs[:, 0]],
         "node_b": nodes[pairs[:, 1]],
-        "width": np.full(len(pairs), width),
+        "width": width,
         "depth": np.full(len(pairs), float(key.depth)),
         "length": length,
         "names": names,

@@ -345,6 +345,10 @@ def plan_layout(
     slack = 2 * delta.sum()  # lanes move by at most this from a uniform pitch
     need = [(width[g] + gap) / below[g] for g in range(1, n)]
     need.append(lane + width[n] + bed_gap)
+    chamber = getattr(design, "chamber", None)
+    if chamber is not None:  # the ports in the middles of as many equal strips of the chamber
+        strip = drawn_width(chamber.width, grid) / below[0]
+        need.append(math.floor(strip / (2 * grid) + 1e-9) * 2 * grid - slack)
     for g in range(1, n + 1):  # inner children of a split into 4 or 5 pass the outer arcs
         if splits[g - 1] >= 4:
             need.append((radius[g] + width[g] + (gap if g < n else bed_gap)) / below[g])
@@ -430,6 +434,17 @@ def plan_layout(
     bed_extent = ceil_grid(2 * bed_pre + run_length + 2 * lead, grid)
     run_length = bed_extent - 2 * bed_pre - 2 * lead
     span = (below[0] - 1) * pitch + lane + width[n] + slack
+    if chamber is not None:
+        # the last split's node lies at the bed channels' wall parity (``half[n]``): the
+        # chamber's inlet wall, where those channels end, on the grid past their forks and a
+        # straight run as long as the chamber solve's stubs (so its ports meet it as solved);
+        # the chamber in place of the bed's straight run
+        from chipflow.layout.chamber import STUB_WIDTHS as CHAMBER_STUB
+
+        bed_pre = ceil_grid(bed_pre + CHAMBER_STUB * width[n], grid, (-half[n]) % grid)
+        run_length = round(chamber.length / grid) * grid
+        bed_extent = 2 * bed_pre + run_length
+        span = max(span, drawn_width(chamber.width, grid))
     height = max(span, lane + 2 * keep) + 2 * chip.margin
     notes = []
     for g in range(1, n + 1):
@@ -512,7 +527,9 @@ def choose_plan(design: TreeDesign, chip: Chip, rules: LayoutRules) -> tuple[Pla
     limit = design.max_straight_length
     plans = []
     too_short = False  # the folding stopped because the bed ran out of length (not height)
-    for runs in range(1, MAX_RUNS + 1, 2):  # sizes estimated without the detours
+    # a chamber in place of the bed is never folded
+    tries = 1 if getattr(design, "chamber", None) is not None else MAX_RUNS
+    for runs in range(1, tries + 1, 2):  # sizes estimated without the detours
         plan = plan_layout(design, chip, rules, runs, compensate=False)
         too_short = plan.run_length < 0
         if plan.height_needed > chip.height + 1e-12 or too_short:

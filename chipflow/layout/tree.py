@@ -228,17 +228,48 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         pieces = half + body + half[::-1]
         bed_templates.append(trace(float(route.theta[j]), pieces, tol))
     parent = dist_nodes[n - 1][i // s]
-    group_of[("bed", n)] = add(
-        "bed",
-        bed,
-        bed_templates,
-        i % s,
-        node_xy[parent],
-        parent,
-        coll_nodes[n - 1][i // s],
-        i,
-        None,
-    )
+    chambers = ()
+    bed_key = ("bed", n)
+    if design.chamber is None:
+        group_of[bed_key] = add(
+            "bed",
+            bed,
+            bed_templates,
+            i % s,
+            node_xy[parent],
+            parent,
+            coll_nodes[n - 1][i // s],
+            i,
+            None,
+        )
+    else:  # the last generation's channels end in the chamber's inlet wall and leave its outlet
+        halves = []
+        for j in range(route.count):  # loop over the children of the last split
+            half = fork(n, j)
+            if route.phi[j] > 0:
+                half.append(("L", plan.bed_pre - route.start - float(route.along[j])))
+            else:
+                half.append(("L", plan.bed_pre - float(route.reach[j])))
+            halves.append(trace(float(route.theta[j]), half, tol))
+        ends = node_xy[parent] + np.array([h.xy[-1] for h in halves])[i % s]
+        mirrored = np.column_stack((2 * x_mid - ends[:, 0], ends[:, 1] + rise))
+        first = len(node_xy)
+        node_xy = np.vstack((node_xy, ends, mirrored))
+        node_class = np.r_[node_class, np.full(2 * i.size, -1)]
+        names += [f"chamber in{k}" for k in range(i.size)]
+        names += [f"chamber out{k}" for k in range(i.size)]
+        port_in = first + i
+        port_out = first + i.size + i
+        group_of[("distribution", n)] = add(
+            "distribution", bed, halves, i % s, node_xy[parent], parent, port_in, i, None
+        )
+        group_of[("collection", n)] = add(
+            "collection", bed, halves, i % s, node_xy[parent], port_out,
+            coll_nodes[n - 1][i // s], i, None, back=True,
+        )  # fmt: skip
+        chambers = (_chamber_place(design, ends, float(groups[-1].width), bed.depth, port_in,
+                                   port_out, rules, x_mid),)  # fmt: skip
+        bed_key = ("distribution", n)
     # collection: mirror images of the distribution channels, flow towards the outlet
     for g in range(n - 1, 0, -1):
         i = np.arange(counts[g])
@@ -263,9 +294,10 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
     # the junction of each level: a binary split is symmetric (one 2D solve, the correction
     # to the parent); a split into 3 to 5 is an N-port with a correction on every arm
     pieces: list[PieceSpec] = []
+    last_c = ("bed", n) if design.chamber is None else ("collection", n)
     for k in range(n):
-        child = ("bed", n) if k == n - 1 else ("distribution", k + 1)
-        child_c = ("bed", n) if k == n - 1 else ("collection", k + 1)
+        child = bed_key if k == n - 1 else ("distribution", k + 1)
+        child_c = last_c if k == n - 1 else ("collection", k + 1)
         route = plan.routes[k + 1]
         for side, parent_key, child_key in (
             ("split", ("distribution", k), child),
@@ -298,7 +330,7 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         PortMark("outlet", 2 * x_mid - x_in, y_in + rise, chip.punch_diameter, keep),
     )
     warnings = list(fold_warnings)
-    if bed.length < plan.bed_min_length - 1e-12:
+    if design.chamber is None and bed.length < plan.bed_min_length - 1e-12:
         warnings.append(
             f"bed channels drawn {plan.bed_min_length * 1e6:.0f} um long instead of the "
             f"designed {bed.length * 1e6:.0f} um: their two bends alone need that length"
@@ -320,4 +352,55 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         pieces=tuple(pieces),
         warnings=tuple(warnings),
         notes=plan.notes,
+        chambers=chambers,
     )
+
+
+def _chamber_place(design, ends, width, depth, port_in, port_out, rules, x_mid):
+    """The chamber a tree ends in: its inlet wall where the last generation's channels end
+    (``ends``, chip frame [m], each ``width`` wide and ``depth`` deep), centred on them across
+    the flow, its walls on the grid; its outlet wall the mirror image about ``x_mid``."""
+    import dataclasses
+
+    from chipflow.layout.chamber import ChamberPort, chamber_key
+    from chipflow.layout.sketch import ChamberPlace
+
+    grid = rules.grid
+    shape = design.chamber
+    w_chamber = drawn_width(shape.width, grid)
+    length = round(shape.length / grid) * grid
+    x0 = _snap(x_mid - length / 2, grid)  # the inlet wall (on the grid: see the plan)
+    y = ends[:, 1]
+    y0 = _snap((y.min() + y.max()) / 2 - w_chamber / 2, grid)
+    low = float(y.min() - width / 2 - y0)
+    high = float(y0 + w_chamber - (y.max() + width / 2))
+    # beside the outermost ports a wall of min_gap, and a flat end wall (no taper) clear of
+    # the rounded corners
+    wall = max(rules.min_gap, shape.corner_radius if shape.taper == 0 else 0.0)
+    if min(low, high) < wall - 1e-12:
+        # the ports sit in the middles of as many equal strips (see the plan): each strip
+        # holds one port and its two walls
+        strip = math.ceil((width + 2 * wall) / (2 * grid) - 1e-9) * 2 * grid
+        need = max(y.size * strip, float(y.max() - y.min()) + width + 2 * wall)
+        raise LayoutError(
+            f"design '{design.name}': [bed] width: a chamber {w_chamber * 1e6:.6g} um wide "
+            f"cannot hold the {y.size} channels of the last generation ({width * 1e6:.6g} um "
+            f"wide, {float(np.diff(np.sort(y)).min()) * 1e6:.6g} um apart) with "
+            f"{wall * 1e6:.6g} um beside them ([fabrication] min_gap, or the corner_radius "
+            f"of a chamber without taper): a width of "
+            f"{math.ceil(need / grid - 1e-9) * grid * 1e6:.6g} um holds them"
+        )
+    ports = [ChamberPort(0, float(v - y0), width, depth, float(e - x0)) for v, e in
+             zip(y, ends[:, 0], strict=True)]  # fmt: skip
+    ports += [ChamberPort(1, float(v - y0), width, depth, float(e - x0)) for v, e in
+              zip(y, ends[:, 0], strict=True)]  # fmt: skip
+    key = chamber_key(
+        dataclasses.replace(shape, width=w_chamber, length=length),
+        ports,
+        grid,
+        rules.alignment_margin,
+    )
+    order = np.r_[np.asarray(port_in)[np.argsort(y, kind="stable")],
+                  np.asarray(port_out)[np.argsort(y, kind="stable")]]  # fmt: skip
+    return ChamberPlace("chamber", key, (float(x0), float(y0)), 0,
+                        tuple(int(k) for k in order))  # fmt: skip

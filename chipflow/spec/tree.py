@@ -33,6 +33,7 @@ channels as the product of the splits, and ``n`` collecting generations back to 
     lengths = ["4 mm", ...]      # or one per distribution generation 0..n-1
 
     [bed]
+    kind = "channels"            # "channels" (default), "mesh" or "chamber"
     residence_time = "1 s"       # bed length = residence_time * mean velocity ...
     length = "800 um"            # ... or the bed channel length directly (exactly one of them)
     max_straight_length = "5 mm" # longer bed channels are folded by the layout
@@ -89,6 +90,7 @@ from chipflow.spec.reader import Table
 __all__ = [
     "Fabrication",
     "BedSpec",
+    "BED_KINDS",
     "Footprint",
     "read_bed",
     "Targets",
@@ -143,8 +145,27 @@ TREE_KEYS = (
     "length",
     "lengths",
 )
-#: Keys of one bed: the ``[bed]`` table, and the same keys in each ``[[regions]]`` table.
-BED_KEYS = ("residence_time", "length", "max_straight_length", "gap", "footprint")
+#: What a tree's bed is: parallel channels, or one culture chamber ("mesh" is refused here).
+BED_KINDS = ("channels", "mesh", "chamber")
+#: Keys of one bed: the ``[bed]`` table, and the same keys in each ``[[regions]]`` table;
+#: with ``kind = "chamber"`` the chamber keys too (:mod:`chipflow.spec.chamber`).
+BED_KEYS = (
+    "kind",
+    "residence_time",
+    "length",
+    "max_straight_length",
+    "gap",
+    "footprint",
+    "width",
+    "depth",
+    "corner_radius",
+    "taper",
+    "pillars",
+)
+#: Bed keys of parallel channels that a chamber bed has no use for.
+CHANNEL_BED_KEYS = ("residence_time", "max_straight_length", "gap", "footprint")
+#: Keys of a chamber bed that parallel channels have no use for (``length`` serves both).
+CHAMBER_BED_KEYS = ("width", "depth", "corner_radius", "taper", "pillars")
 TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance")
 FABRICATION_KEYS = (
     "depths",
@@ -250,6 +271,10 @@ class BedSpec:
 
     Attributes
     ----------
+    kind : str
+        "channels" (a bed of parallel channels, the default) or "chamber" (the last
+        distributing generation's channels end in the inlet wall of one culture chamber and
+        the collecting tree starts from its outlet wall; ``chamber`` holds its shape).
     residence_time : float or None
         Target transit time through a bed channel [s].
     length : float or None
@@ -265,13 +290,18 @@ class BedSpec:
         walls on the grid may widen it.
     footprint : Footprint or None
         The rectangle the bed must lie in (None: anywhere on the chip).
+    chamber : ChamberShape or None
+        The chamber of a ``kind = "chamber"`` bed (:mod:`chipflow.spec.chamber`); ``length``
+        is then its length.
     """
 
+    kind: str = "channels"
     residence_time: float | None = None
     length: float | None = None
     max_straight_length: float | None = None
     gap: float | None = None
     footprint: Footprint | None = None
+    chamber: object = None
 
 
 @dataclass(frozen=True)
@@ -499,6 +529,18 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
     >>> read_bed(top.table("bed"), Fabrication()).footprint
     Footprint(along=0.01, across=0.008, key='[bed] footprint')
     """
+    kind = table.choice("kind", BED_KINDS, "channels")
+    if kind == "mesh":
+        raise table.error(
+            "kind", 'a mesh bed is not available in this version; give "channels" or "chamber"'
+        )
+    if kind == "chamber":
+        return _chamber_bed(table, fab, label)
+    for key in CHAMBER_BED_KEYS:
+        if key in table:
+            raise table.error(
+                key, f'is a key of a chamber bed; give kind = "chamber" or leave {key} out'
+            )
     residence = table.quantity("residence_time", "time", None)
     length = table.quantity("length", "length", None)
     if (residence is None) == (length is None):
@@ -528,6 +570,26 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
         gap=gap,
         footprint=footprint,
     )
+
+
+def _chamber_bed(table: Table, fab: Fabrication, label: str) -> BedSpec:
+    """A ``kind = "chamber"`` bed: the chamber keys (:func:`chipflow.spec.chamber.read_chamber`,
+    its depth one of the mould depths); the keys of parallel channels are refused."""
+    from chipflow.spec.chamber import read_chamber
+
+    if label != "[bed]":
+        raise table.error(
+            "kind", f'{label}: a chamber bed is available in [bed] only; give kind = "channels"'
+        )
+    for key in CHANNEL_BED_KEYS:
+        if key in table:
+            raise table.error(
+                key,
+                'has no meaning for kind = "chamber" (the chamber\'s own keys width, length, '
+                "depth, corner_radius, taper and pillars describe it); leave it out",
+            )
+    shape = read_chamber(table, fab.min_feature, fab.depths)
+    return BedSpec(kind="chamber", length=shape.length, chamber=shape)
 
 
 #: Branching factors a junction may have [-].
@@ -757,6 +819,10 @@ def load_tree_spec(top: Table) -> TreeSpec:
         splits=splits,
         split_note=split_note,
     )
+    if spec.bed.kind == "chamber" and shape == "round":
+        raise tree.error(
+            "shape", 'round tubes cannot be drawn, and a chamber bed is drawn; use "rectangular"'
+        )
     if not regional:
         return spec
     from chipflow.spec.regions import read_regions

@@ -52,6 +52,12 @@ class BatchResult:
         (S,) coefficient of variation of the bed-channel flows [-].
     bed_flow : numpy.ndarray
         (S,) mean flow per bed channel [m^3/s].
+    chamber_flow : numpy.ndarray
+        (S, H) flow through each chamber [m^3/s].
+    chamber_shear : numpy.ndarray
+        (S, H, 3) each chamber's floor-shear p05, p50, p95 [Pa].
+    chamber_inside : numpy.ndarray
+        (S, H) share of each chamber's floor inside the window [1] (1 without a window).
     """
 
     shear: np.ndarray
@@ -63,6 +69,9 @@ class BatchResult:
     chip_pressure: np.ndarray
     bed_spread: np.ndarray
     bed_flow: np.ndarray
+    chamber_flow: np.ndarray
+    chamber_shear: np.ndarray
+    chamber_inside: np.ndarray
 
 
 def concatenate(parts: list[BatchResult]) -> BatchResult:
@@ -75,10 +84,14 @@ def perturbed_sizes(problem: Problem, params: np.ndarray) -> tuple[np.ndarray, n
     """Width and depth of every cross-section class in every sample: two (S, K) arrays [m].
 
     Rectangular classes take the width bias (column ``n_levels``) and their level's relative
-    depth error; tubes keep their diameter.
+    depth error; tubes keep their diameter, and so do a chamber's equivalent links (their
+    resistance follows the chamber's sensitivities instead).
     """
     m = problem.n_levels
     rect = ~problem.class_round
+    if problem.n_chambers:  # a chamber's links: scaled as a whole (_chamber_links)
+        rect = rect.copy()
+        rect[problem.cls[problem.chamber_of >= 0]] = False
     level = problem.class_level.clip(0, None)
     width = np.where(rect, problem.class_width + params[:, m : m + 1], problem.class_width)
     depth = np.where(rect, problem.class_depth * (1.0 + params[:, level]), problem.class_depth)
@@ -117,6 +130,8 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
     area = np.asarray(cross_section_area(width, depth, tube))
     cls = problem.cls
     r = unit_r[:, cls] * (mu[:, None] * problem.hydraulic_length)
+    if problem.n_chambers:
+        r = _chamber_links(problem, params, r, mu)
     g = 1.0 / r
 
     # boundary values of each sample: the inlet supply scaled, the rest nominal
@@ -180,6 +195,7 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
         spread = bed.std(axis=1) / bed_mean
     else:
         bed_mean = spread = np.full(s, np.nan)
+    chamber_flow, chamber_shear, chamber_inside = _chamber_results(problem, params, q, mu)
     return BatchResult(
         shear=mean(tau),
         shear_min=np.minimum.reduceat(tau[:, order], starts, axis=1),
@@ -190,4 +206,50 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
         chip_pressure=pressure[:, problem.chip_nodes].max(axis=1),
         bed_spread=spread,
         bed_flow=bed_mean,
+        chamber_flow=chamber_flow,
+        chamber_shear=chamber_shear,
+        chamber_inside=chamber_inside,
     )
+
+
+def _chamber_scale(problem: Problem, params: np.ndarray, column: int) -> np.ndarray:
+    """(S, H) ``exp(a ln(1 + e) + b bias)`` with each chamber's sensitivities ``a, b`` from
+    ``chamber_sensitivity[:, column:column + 2]`` (0: conductance, 2: shear per flow)."""
+    m = problem.n_levels
+    sens = problem.chamber_sensitivity
+    e = params[:, problem.chamber_level]
+    bias = params[:, m : m + 1]
+    return np.exp(sens[:, column] * np.log1p(e) + sens[:, column + 1] * bias)
+
+
+def _chamber_links(problem: Problem, params: np.ndarray, r: np.ndarray, mu: np.ndarray):
+    """``r`` with each chamber's links at their nominal resistance over the chamber's
+    conductance factor (the duct law does not hold for a chamber's equivalent links)."""
+    links = np.flatnonzero(problem.chamber_of >= 0)
+    width = problem.class_width[problem.cls[links]]
+    depth = problem.class_depth[problem.cls[links]]
+    nominal = np.asarray(resistance(width, depth, 1.0, 1.0)) * problem.hydraulic_length[links]
+    factor = _chamber_scale(problem, params, 0)[:, problem.chamber_of[links]]
+    r = r.copy()
+    r[:, links] = nominal * mu[:, None] / factor
+    return r
+
+
+def _chamber_results(problem: Problem, params: np.ndarray, q: np.ndarray, mu: np.ndarray):
+    """Each chamber's flow, floor-shear percentiles and share inside the window per sample:
+    the nominal floor shear scaled by the viscosity, the flow and the shear per flow."""
+    s, h = q.shape[0], problem.n_chambers
+    if not h:
+        return np.zeros((s, 0)), np.zeros((s, 0, 3)), np.zeros((s, 0))
+    flow = q @ problem.chamber_inflow.T
+    factor = (mu / problem.viscosity)[:, None] * (flow / problem.chamber_flow)
+    factor = factor * _chamber_scale(problem, params, 2)
+    shear = factor[:, :, None] * problem.chamber_shear[None, :, :]
+    inside = np.ones((s, h))
+    if problem.window is not None:
+        low, high = problem.window
+        for k, (tau, share) in enumerate(problem.chamber_cdf):  # a handful of chambers
+            below = np.interp(low / factor[:, k], tau, share, left=0.0, right=1.0)
+            top = np.interp(high / factor[:, k], tau, share, left=0.0, right=1.0)
+            inside[:, k] = top - below
+    return flow, shear, inside

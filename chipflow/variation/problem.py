@@ -13,6 +13,12 @@ What a sample changes, following the tolerances model (:mod:`chipflow.spec.toler
 - the inlet supply's imposed value (flow of a syringe pump, pressure of a controller, pressure
   of a reservoir) and the viscosity by one error each.
 
+A drawn chamber (:mod:`chipflow.layout.chamber`) is perturbed as a whole: its links' conductances
+by the sensitivities of its 2D solve to its mould level's depth error and the width bias
+(:func:`chipflow.field.chambers.chamber_sensitivity`, two re-solves kept in the field cache),
+its floor shear by its flow and by the same re-solves' shear per unit flow, every percentile
+alike (the floor-shear distribution keeps its shape).
+
 Tubing keeps its size. Channel lengths stay as drawn. Each channel's resistance is taken
 from the nominal solution as a *hydraulic length*, ``1 / (g mu r1)`` with ``g`` the conductance
 the solver used (flow over pressure drop) and ``r1`` the duct resistance per unit length and
@@ -125,6 +131,25 @@ class Problem:
         On-chip nodes, port nodes, bed channels.
     names : tuple of str
         The perturbed factors (see :func:`factor_names`).
+    chamber_of : numpy.ndarray
+        (C,) the chamber each channel is a link of (-1: none).
+    chamber_inflow : numpy.ndarray
+        (H, C) the weights that give each of the H chambers' flow from the channel flows
+        (+1 or -1 on the links from its inlet ports to its outlet ports).
+    chamber_level : numpy.ndarray
+        (H,) the mould level of each chamber.
+    chamber_sensitivity : numpy.ndarray
+        (H, 4) each chamber's :class:`~chipflow.field.chambers.ChamberSensitivity`.
+    chamber_flow : numpy.ndarray
+        (H,) nominal flow through each chamber [m^3/s].
+    chamber_shear : numpy.ndarray
+        (H, 3) its nominal floor-shear p05, p50, p95 [Pa].
+    chamber_cdf : tuple of (numpy.ndarray, numpy.ndarray)
+        Per chamber its floor shear in rising order [Pa] and the share of the floor at or
+        below each [1].
+    chamber_names : tuple of str
+    outside_limit : float
+        Largest share of a chamber's floor outside the window of a passing sample [1].
     """
 
     node_a: np.ndarray
@@ -165,6 +190,20 @@ class Problem:
     port_nodes: np.ndarray
     bed: np.ndarray
     names: tuple[str, ...]
+    chamber_of: np.ndarray = None
+    chamber_inflow: np.ndarray = None
+    chamber_level: np.ndarray = None
+    chamber_sensitivity: np.ndarray = None
+    chamber_flow: np.ndarray = None
+    chamber_shear: np.ndarray = None
+    chamber_cdf: tuple = ()
+    chamber_names: tuple[str, ...] = ()
+    outside_limit: float = 0.5
+
+    @property
+    def n_chambers(self) -> int:
+        """Number of chambers."""
+        return len(self.chamber_names)
 
     @property
     def n_levels(self) -> int:
@@ -213,6 +252,10 @@ def _check_range(problem: Problem, tolerances: Tolerances) -> None:
     reach = tolerances.extreme
     what = "" if reach == 1 else f" ({reach:g} standard deviations, where normal draws are cut)"
     rect = ~problem.class_round
+    if problem.n_chambers:  # a chamber's links are no drawn channels (its own rules below)
+        links = np.zeros(rect.size, dtype=bool)
+        links[problem.cls[problem.chamber_of >= 0]] = True
+        rect &= ~links
     if rect.any():
         shallowest = float(problem.level_depths.min())
         narrowest = float(problem.class_width[rect].min())
@@ -377,7 +420,7 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
         roles=tuple(roles),
         generations=tuple(int(g[1]) for g in groups),
         level_widths=np.array([float(net.width[m].mean()) for m in members]),
-        seeded=seeded_levels(roles, culture.seeded),
+        seeded=seeded_levels(roles, culture.seeded, bool(build.results.get("chambers"))),
         window=None if not window else window_bounds(window),
         bond_allowed=float(limits.bond_pressure / limits.safety_factor),
         pump_allowed=(
@@ -387,9 +430,59 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
         port_nodes=port_nodes,
         bed=np.flatnonzero(net.role == "bed"),
         names=tuple(factor_names(level_depths)),
+        outside_limit=float(culture.outside_window_limit),
+        **_chambers(build, level_depths),
     )
     _check_range(problem, tolerances)
     return problem
+
+
+def _chambers(build: Build, level_depths: np.ndarray) -> dict:
+    """The :class:`Problem` fields of the build's drawn chambers (see the module notes)."""
+    from chipflow.field.chambers import chamber_sensitivity, floor_distribution
+
+    net = build.solution.network
+    c = net.n_channels
+    chambers = [] if build.layout is None else list(build.layout.chambers)
+    rows = {r["name"]: r for r in build.results.get("chambers") or []}
+    of = np.full(c, -1, dtype=np.int64)
+    inflow = np.zeros((len(chambers), c))
+    level, sens, flow, shear, cdf, names = [], [], [], [], [], []
+    sol = build.solution
+    for h, ch in enumerate(chambers):  # a handful of chambers
+        key = ch.key
+        nodes = np.array([net.node_index(build.layout.node_names[n]) for n in ch.port_nodes])
+        inlet = nodes[[p.side == 0 for p in key.ports]]
+        links = np.flatnonzero(
+            (net.role == "chamber") & np.isin(net.node_a, nodes) & np.isin(net.node_b, nodes)
+        )
+        of[links] = h
+        inflow[h, links] = np.isin(net.node_a[links], inlet).astype(float) - np.isin(
+            net.node_b[links], inlet
+        )
+        port_in = np.array(
+            [sol.flow[links][net.node_a[links] == k].sum()
+             - sol.flow[links][net.node_b[links] == k].sum() for k in nodes]
+        )  # fmt: skip
+        mu = sol.fluid.viscosity
+        cdf.append(floor_distribution(key, sol.pressure[nodes], port_in, mu))
+        s = chamber_sensitivity(key)
+        sens.append([s.conductance_depth, s.conductance_width, s.shear_depth, s.shear_width])
+        level.append(int(np.argmin(np.abs(level_depths - key.depth))))
+        flow.append(float(inflow[h] @ sol.flow))
+        row = rows[ch.name]["floor_shear"]
+        shear.append([row["p05"], row["p50"], row["p95"]])
+        names.append(ch.name)
+    return {
+        "chamber_of": of,
+        "chamber_inflow": inflow,
+        "chamber_level": np.array(level, dtype=np.int64),
+        "chamber_sensitivity": np.array(sens, dtype=float).reshape(-1, 4),
+        "chamber_flow": np.array(flow, dtype=float),
+        "chamber_shear": np.array(shear, dtype=float).reshape(-1, 3),
+        "chamber_cdf": tuple(cdf),
+        "chamber_names": tuple(names),
+    }
 
 
 def window_bounds(window: dict) -> tuple[float, float]:

@@ -6,9 +6,10 @@ factors only).
 Definitions (chipflow's own):
 
 - a sample *passes* when every channel of every seeded level has its floor shear inside the
-  window (bounds included) and both pressure checks pass: the highest on-chip pressure is at
-  most the bond limit over its safety factor, the supply pressure at most the pump's passing
-  share of its rating (:mod:`chipflow.checks.pressure`);
+  window (bounds included), every chamber at most ``[culture] outside_window_limit`` of its
+  floor outside it (as its build check), and both pressure checks pass: the highest on-chip
+  pressure is at most the bond limit over its safety factor, the supply pressure at most the
+  pump's passing share of its rating (:mod:`chipflow.checks.pressure`);
 - the *yield* is the fraction of samples that pass; its Monte Carlo standard error is
   ``sqrt(y (1 - y) / n)`` (binomial), which is zero when every sample passes, so the yield
   also carries a one-sided 95 % lower bound (:func:`yield_lower_bound`): ``1 - 3/n`` when
@@ -125,6 +126,8 @@ def sample_passes(problem: Problem, result: BatchResult) -> np.ndarray:
         seeded = problem.seeded
         inside = (result.shear_min[:, seeded] >= low) & (result.shear_max[:, seeded] <= high)
         ok &= inside.all(axis=1)
+        # a chamber: at most the culture's outside_window_limit of its floor outside
+        ok &= (result.chamber_inside >= 1.0 - problem.outside_limit - 1e-12).all(axis=1)
     return ok
 
 

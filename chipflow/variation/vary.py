@@ -85,6 +85,7 @@ VARY_UNITS = {
     "supply_pressure": "Pa",
     "chip_pressure": "Pa",
     "bed_flow": "m^3/s",
+    "flow": "m^3/s",
     "bed_flow_spread": "1",
     "yield": "1",
     "yield_standard_error": "1",
@@ -100,6 +101,14 @@ MODEL_NOTE = (
     "viscosity error per chip, independent; tubing keeps its size, channel lengths stay as "
     "drawn and any resistance the network adds to a channel (junction corrections) is held as "
     "its nominal equivalent length."
+)
+
+#: Added to the model note for a chip with chambers.
+CHAMBER_NOTE = (
+    " A chamber's conductance and its floor shear per unit flow follow its mould level's depth "
+    "error and the width bias with the sensitivities of two 2D re-solves of the chamber (5 % "
+    "deeper, two grid steps wider), as powers of (1 + depth error) and exponentials of the "
+    "bias; its floor-shear distribution keeps its shape (every percentile scales alike)."
 )
 
 #: Added to the model note for a chip with soft roofs.
@@ -232,19 +241,19 @@ def vary_build(
     Raises
     ------
     SpecError
-        For tolerances out of range for this design, or a design with chambers (their floor
-        shear comes from their 2D solve, which the Monte Carlo does not repeat).
+        For tolerances out of range for this design, or chambers of a network that is not
+        drawn.
     TooLargeError
         A run that needs more memory than this process may use (with its estimate).
     """
-    if build.results.get("chambers"):
+    if build.results.get("chambers") and (build.layout is None or not build.layout.chambers):
         from chipflow.errors import SpecError
 
         names = ", ".join(repr(c["name"]) for c in build.results["chambers"])
         raise SpecError(
-            f"{build.source.path}: chipflow vary does not yet vary chambers ({names}): their "
-            "floor shear comes from their 2D solve, which the Monte Carlo does not repeat; "
-            'sweep their keys instead (chipflow sweep --vary "chambers.NAME.depth=...")'
+            f"{build.source.path}: chipflow vary does not yet vary the chambers of a network "
+            f"that is not drawn ({names}): give every node a position (at), or sweep their "
+            'keys instead (chipflow sweep --vary "chambers.NAME.depth=...")'
         )
     problem = variation_problem(build, tolerances)
     estimate = variation_estimate(problem, tolerances, None if scheduler else workers)
@@ -360,8 +369,34 @@ def _summary(
             if not np.isfinite(problem.pump_allowed)
             else problem.pump_allowed,
         },
+        "chambers": _chamber_summary(problem, samples, nominal),
         "factors": list(problem.names),
         "mould_levels": [float(d) for d in problem.level_depths],
-        "model": MODEL_NOTE + (SOFT_ROOF_NOTE if _soft_roofs(build) else ""),
+        "model": MODEL_NOTE
+        + (CHAMBER_NOTE if problem.n_chambers else "")
+        + (SOFT_ROOF_NOTE if _soft_roofs(build) else ""),
         "units": VARY_UNITS,
     }
+
+
+def _chamber_summary(problem: Problem, samples: BatchResult, nominal: BatchResult) -> list:
+    """Per chamber the percentiles over the samples of its flow, its floor-shear p05, p50 and
+    p95, and the share of its floor inside the window."""
+    out = []
+    for k, name in enumerate(problem.chamber_names):  # a handful of chambers
+        shear = {
+            label: percentiles(samples.chamber_shear[:, k, i], nominal.chamber_shear[0, k, i])
+            for i, label in enumerate(("p05", "p50", "p95"))
+        }
+        row = {
+            "name": name,
+            "flow": percentiles(samples.chamber_flow[:, k], nominal.chamber_flow[0, k]),
+            "floor_shear": shear,
+            "inside_window": None,
+        }
+        if problem.window is not None:
+            row["inside_window"] = percentiles(
+                samples.chamber_inside[:, k], nominal.chamber_inside[0, k]
+            )
+        out.append(row)
+    return out
