@@ -90,6 +90,10 @@ class TreeDesign:
     footprint : Footprint or None
         The rectangle the bed must lie in, folds included (``[bed] footprint`` or a region's);
         None: anywhere on the chip.
+    mesh : tuple of float or None
+        A mesh bed's ``(cross_pitch, cross_width)`` [m] (``[bed] kind = "mesh"``): its bed
+        channels are joined by rows of cross-connections (:mod:`chipflow.layout.mesh`); None:
+        parallel bed channels.
     """
 
     name: str
@@ -102,6 +106,7 @@ class TreeDesign:
     bed_gap: float | None = None
     fabrication: Fabrication | None = None
     footprint: Footprint | None = None
+    mesh: tuple[float, float] | None = None
 
     @property
     def generations(self) -> int:

@@ -33,11 +33,15 @@ channels as the product of the splits, and ``n`` collecting generations back to 
     lengths = ["4 mm", ...]      # or one per distribution generation 0..n-1
 
     [bed]
+    kind = "channels"            # "channels" (default), "mesh" or "chamber"
     residence_time = "1 s"       # bed length = residence_time * mean velocity ...
     length = "800 um"            # ... or the bed channel length directly (exactly one of them)
     max_straight_length = "5 mm" # longer bed channels are folded by the layout
     gap = "100 um"               # wall between neighbouring bed channels (default min_gap)
     footprint = ["10 mm", "8 mm"] # the bed lies inside this rectangle (along, across the flow)
+    # kind = "mesh": the bed channels joined by rows of straight cross-connections
+    # cross_pitch = "1 mm"       # distance between rows along the bed channels
+    # cross_width = "40 um"      # width of a cross-connection (the bed's depth)
 
     # several culture regions instead of one [bed] (see chipflow.spec.regions):
     # [[regions]]
@@ -106,6 +110,12 @@ __all__ = [
 RULES = ("equal-shear", "shear-target", "area-growth", "table")
 SHAPES = ("rectangular", "round")
 SHEAR_KINDS = ("floor", "mean", "max")
+#: Kinds of bed: parallel channels, channels joined by cross-connections, one chamber.
+BED_KINDS = ("channels", "mesh", "chamber")
+#: The kinds of bed this version draws (the others are refused in one line).
+BED_KINDS_BUILT = ("channels", "mesh")
+#: Keys of a mesh bed, refused with another kind.
+MESH_KEYS = ("cross_pitch", "cross_width")
 
 #: Top-level keys of a tree design file; the last six belong to the build (layout, supply,
 #: checks, export) and to ``chipflow vary`` (tolerances) and are read by their own modules.
@@ -144,7 +154,16 @@ TREE_KEYS = (
     "lengths",
 )
 #: Keys of one bed: the ``[bed]`` table, and the same keys in each ``[[regions]]`` table.
-BED_KEYS = ("residence_time", "length", "max_straight_length", "gap", "footprint")
+BED_KEYS = (
+    "kind",
+    "residence_time",
+    "length",
+    "max_straight_length",
+    "gap",
+    "footprint",
+    "cross_pitch",
+    "cross_width",
+)
 TARGET_KEYS = ("shear_kind", "shear", "shear_min", "shear_max", "levels", "tolerance")
 FABRICATION_KEYS = (
     "depths",
@@ -250,6 +269,10 @@ class BedSpec:
 
     Attributes
     ----------
+    kind : str
+        What the bed is (:data:`BED_KINDS`): "channels" (parallel bed channels, the default)
+        or "mesh" (the bed channels joined by rows of cross-connections,
+        :mod:`chipflow.layout.mesh`); "chamber" is not built by this version.
     residence_time : float or None
         Target transit time through a bed channel [s].
     length : float or None
@@ -265,13 +288,21 @@ class BedSpec:
         walls on the grid may widen it.
     footprint : Footprint or None
         The rectangle the bed must lie in (None: anywhere on the chip).
+    cross_pitch : float or None
+        A mesh bed's distance along the bed channels between successive rows of
+        cross-connections [m] (None for other kinds).
+    cross_width : float or None
+        Width of a mesh bed's cross-connections [m]; their depth is the bed's.
     """
 
+    kind: str = "channels"
     residence_time: float | None = None
     length: float | None = None
     max_straight_length: float | None = None
     gap: float | None = None
     footprint: Footprint | None = None
+    cross_pitch: float | None = None
+    cross_width: float | None = None
 
 
 @dataclass(frozen=True)
@@ -499,6 +530,15 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
     >>> read_bed(top.table("bed"), Fabrication()).footprint
     Footprint(along=0.01, across=0.008, key='[bed] footprint')
     """
+    kind = table.choice("kind", BED_KINDS, "channels")
+    if kind not in BED_KINDS_BUILT:
+        raise table.error(
+            "kind",
+            f"{kind!r} is not built by this version of chipflow; available: "
+            + ", ".join(repr(k) for k in BED_KINDS_BUILT),
+        )
+    if kind != "channels" and label != "[bed]":
+        raise table.error("kind", f'{label}: a culture region\'s bed is "channels" only')
     residence = table.quantity("residence_time", "time", None)
     length = table.quantity("length", "length", None)
     if (residence is None) == (length is None):
@@ -521,13 +561,57 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
             )
         key = "[bed] footprint" if label == "[bed]" else f"footprint of {label}"
         footprint = Footprint(float(sides[0]), float(sides[1]), key)
+    pitch = cross = None
+    if kind == "mesh":
+        pitch, cross = _read_mesh(table, fab, length)
+    else:
+        for key in MESH_KEYS:
+            if key in table:
+                raise table.error(key, f'belongs to a mesh bed (kind = "mesh"), not {kind!r}')
     return BedSpec(
+        kind=kind,
         residence_time=residence,
         length=length,
         max_straight_length=table.quantity("max_straight_length", "length", None),
         gap=gap,
         footprint=footprint,
+        cross_pitch=pitch,
+        cross_width=cross,
     )
+
+
+def _read_mesh(table: Table, fab: Fabrication, length: float | None) -> tuple[float, float]:
+    """``cross_pitch`` and ``cross_width`` of a mesh bed [m], validated as far as the file
+    allows (the bed's depth and drawn length are checked again by the layout)."""
+    for key in MESH_KEYS:
+        if key not in table:
+            raise table.error(key, 'missing: a mesh bed (kind = "mesh") needs cross_pitch and '
+                              "cross_width")  # fmt: skip
+    pitch = table.quantity("cross_pitch", "length")
+    width = table.quantity("cross_width", "length")
+    lows = [fab.width_limits(d) for d in fab.depths]
+    low = min(lo[0] for lo in lows)
+    high = max(lo[2] for lo in lows)
+    if not low * (1 - 1e-9) <= width <= high * (1 + 1e-9):
+        raise table.error(
+            "cross_width",
+            f"{width * 1e6:.4g} um cannot be made at any of the fabrication depths: give "
+            f"{low * 1e6:.4g} to {high * 1e6:.4g} um",
+        )
+    least = width + fab.min_gap
+    if pitch < least * (1 - 1e-9):
+        raise table.error(
+            "cross_pitch",
+            f"{pitch * 1e6:.4g} um leaves less than [fabrication].min_gap between rows of "
+            f"{width * 1e6:.4g} um cross-connections; give at least {least * 1e6:.4g} um",
+        )
+    if length is not None and pitch >= length:
+        raise table.error(
+            "cross_pitch",
+            f"{pitch * 1e3:.4g} mm is not shorter than the bed length {length * 1e3:.4g} mm: "
+            "no row of cross-connections fits; give a shorter pitch",
+        )
+    return pitch, width
 
 
 #: Branching factors a junction may have [-].
