@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from chipflow.network.solver import Solution
-from chipflow.network.summary import level_groups
+from chipflow.network.summary import level_groups, series_chains
 from chipflow.spec.culture import Culture
 from chipflow.spec.transport import TransportSpec
 from chipflow.transport.dispersion import Dosing, dosing
@@ -276,10 +276,13 @@ def _context(solution, culture: Culture, species: Species, c0: float, groups) ->
     m = beds[0]
     h = float(net.depth[m].mean())
     area = float((net.width[m] * net.length[m]).sum())
-    q = float(np.abs(solution.flow[m]).sum())
+    chain = series_chains(net, m)  # a mesh bed's channels are chains of segments
+    per = np.bincount(chain)
+    q = float((np.bincount(chain, weights=np.abs(solution.flow[m])) / per).sum())
+    residence = np.bincount(chain, weights=solution.residence_time[m])
     return {
         "diffusion_time": h * h / (2.0 * species.diffusivity),
-        "residence_time": float(solution.residence_time[m].mean()),
+        "residence_time": float(residence.mean()),
         "oxygen_use_fraction": species.uptake * area / (q * c0) if q * c0 > 0 else None,
     }
 
