@@ -140,6 +140,9 @@ POROUS_TUBING = {
 #   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
 #   "vary": the results of chipflow vary;
 #   "sizing": the sized design (the key matters where nothing is drawn, e.g. chipflow check)
+# a mesh bed on the demo: straight bed channels joined by rows of cross-connections
+MESH = {"kind": "mesh", "max_straight_length": None, "cross_pitch": "1 mm", "cross_width": "40 um"}
+
 CASES = {
     ("", "name"): ({}, {"name": "another-bed"}, "build"),
     ("", "description"): ({}, {"description": "another text"}, "build"),
@@ -250,6 +253,9 @@ CASES = {
     ("bed", "max_straight_length"): ({}, {"bed": {"max_straight_length": "1.5 mm"}}, "build"),
     ("bed", "gap"): ({}, {"bed": {"gap": "150 um"}}, "build"),
     ("bed", "footprint"): ({}, {"bed": {"footprint": ["20 mm", "20 mm"]}}, "build"),
+    ("bed", "kind"): ({}, {"bed": MESH}, "build"),
+    ("bed", "cross_pitch"): ({"bed": MESH}, {"bed": {"cross_pitch": "0.8 mm"}}, "build"),
+    ("bed", "cross_width"): ({"bed": MESH}, {"bed": {"cross_width": "50 um"}}, "build"),
     ("regions", "name"): (ON_REGIONS, _region(name="c"), "build"),
     ("regions", "flow_fraction"): (
         ON_REGIONS,
@@ -467,7 +473,7 @@ VALUES = {
     "uniform", "normal", "chipflow vary", '"10 %"', '"5 um"', "peristaltic",
     "pulsatile-pressure", "rocker", "PDMS", '"hex"', '"square"', "1 day", '"15 deg"',
     "time [s],flow [uL/min]", '"auto"', '"35 %"', "rpm / 60 x rollers", "dh + s sin(theta)",
-    "0.25", '"25 %"', "_", "-",
+    "0.25", '"25 %"', "_", "-", "mesh", "chamber",
 }  # fmt: skip
 
 
