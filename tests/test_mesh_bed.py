@@ -82,9 +82,8 @@ def built(tmp_path: Path, text: str):
 def mesh16(tmp_path_factory):
     """The 16-channel mesh built with stand-in pieces and written (channels.csv, DXF)."""
     mp = pytest.MonkeyPatch()
-    from conftest import _stand_in_piece
-
     from chipflow.layout import pieces
+    from conftest import _stand_in_piece
 
     mp.setattr(pieces, "solve_piece", _stand_in_piece)
     try:
@@ -158,9 +157,7 @@ def test_two_bed_channels_joined_by_tees_carry_next_to_no_cross_flow(tmp_path) -
     assert build.results["mesh"]["cross_flow_max_share"] < 2e-5
 
 
-def test_one_narrowed_channel_redistributes_as_an_independent_nodal_solve(
-    mesh16, tmp_path
-) -> None:
+def test_one_narrowed_channel_redistributes_as_an_independent_nodal_solve(mesh16, tmp_path) -> None:
     """The middle bed channel at half its width: its flow, its neighbours' and the cross flows
     against a nodal solve written in the test (tests/csv_resolve.py: the exact duct series,
     Bruus, Theoretical Microfluidics 2008, ch. 4, and Kirchhoff's node law) of channels.csv
@@ -260,7 +257,9 @@ def test_mesh_keys_out_of_range_are_refused_in_one_line(tmp_path, bed, extra, wo
         lines = [ln for ln in text.splitlines() if not ln.startswith(f"{key} = ")]
         text = "\n".join(lines).replace("[bed]\n", f"[bed]\n{bed}\n")
     (tmp_path / "m.toml").write_text(text)
-    result = CliRunner().invoke(main, ["build", str(tmp_path / "m.toml"), "-o", str(tmp_path / "o")])
+    result = CliRunner().invoke(
+        main, ["build", str(tmp_path / "m.toml"), "-o", str(tmp_path / "o")]
+    )
     assert result.exit_code == 2, result.output
     assert len(result.stderr.strip().splitlines()) == 1 and words in result.stderr
     assert not (tmp_path / "o").exists()

@@ -631,9 +631,7 @@ def size_tree(
         bed_gap=spec.bed.gap,
         fabrication=fab,
         footprint=spec.bed.footprint,
-        mesh=(
-            (spec.bed.cross_pitch, spec.bed.cross_width) if spec.bed.kind == "mesh" else None
-        ),
+        mesh=((spec.bed.cross_pitch, spec.bed.cross_width) if spec.bed.kind == "mesh" else None),
     )
 
 

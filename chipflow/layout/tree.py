@@ -326,7 +326,7 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         return sketch
     if plan.runs > 1:
         raise LayoutError(
-            f'design \'{design.name}\': [bed] kind = "mesh" needs straight bed channels, but '
+            f"design '{design.name}': [bed] kind = \"mesh\" needs straight bed channels, but "
             f"they are folded into {plan.runs} runs (max_straight_length or the chip's width); "
             "raise max_straight_length or widen the chip"
         )

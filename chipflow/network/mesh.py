@@ -131,9 +131,7 @@ def narrowed_bed(
     net = solution.network
     names, members = bed_channels(net)
     if channel not in names:
-        raise ArgumentError(
-            f"{channel!r} is not a bed channel; they are {names[0]} to {names[-1]}"
-        )
+        raise ArgumentError(f"{channel!r} is not a bed channel; they are {names[0]} to {names[-1]}")
     k = names.index(channel)
     width = net.width.copy()
     width[members[k]] *= factor

@@ -206,9 +206,7 @@ def series_chains(network: Network, members: np.ndarray) -> np.ndarray:
     into = np.full(n, -1)
     into[b] = np.arange(members.size)
     nxt = np.flatnonzero(joint[a])  # member whose start is a joint: joined to the one ending there
-    link = coo_matrix(
-        (np.ones(nxt.size), (nxt, into[a[nxt]])), shape=(members.size, members.size)
-    )
+    link = coo_matrix((np.ones(nxt.size), (nxt, into[a[nxt]])), shape=(members.size, members.size))
     _, label = connected_components(link, directed=False)
     _, first = np.unique(label, return_index=True)
     rank = np.empty(first.size, dtype=int)
@@ -240,7 +238,7 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
         k = int(chain.max()) + 1
         per = np.bincount(chain, minlength=k)
 
-        def total(values):
+        def total(values, chain=chain, k=k):
             return np.bincount(chain, weights=values, minlength=k)
 
         p_a = solution.pressure[net.node_a[members]]

@@ -357,13 +357,11 @@ def _mesh(results: Mapping[str, Any]) -> str:
         )
     factor = _e(display.fraction(narrowed["width_factor"]))
     return (
-        text
-        + f"<p>One bed channel narrowed to {factor} of its width (a network what-if, the "
+        text + f"<p>One bed channel narrowed to {factor} of its width (a network what-if, the "
         "drawing unchanged): its flow and its neighbours' (the mean over their segments); the "
         "largest cross-connection flow becomes "
         f"{_e(display.fraction(narrowed['cross_flow_max_share']))} of a bed channel's "
-        "flow.</p>\n"
-        + _table(["bed channel", "flow", "narrowed", "change"], rows, text_columns=1)
+        "flow.</p>\n" + _table(["bed channel", "flow", "narrowed", "change"], rows, text_columns=1)
     )
 
 
