@@ -64,7 +64,7 @@ def cross_flows(solution: Solution) -> dict[str, Any] | None:
     -------
     dict
         ``cross_connections`` (count), ``bed_channel_flow`` (mean flow of one bed channel
-        [m^3/s]), ``cross_flow_max`` (largest |flow| of a cross-connection [m^3/s]),
+        [m^3/s]), ``cross_flow_max`` (the largest absolute flow of a cross-connection [m^3/s]),
         ``cross_flow_max_share`` (that over ``bed_channel_flow`` [-]) and
         ``cross_flow_max_channel`` (its name).
     """
@@ -118,7 +118,7 @@ def narrowed_bed(
         ``channel``, ``width_factor``, ``cross_flow_max_share`` (of the re-solved network,
         as in :func:`cross_flows`), ``solution`` (the re-solved :class:`Solution`) and
         ``channels``: the narrowed channel and its neighbours across the bed, each with
-        ``channel``, ``flow`` and ``flow_narrowed`` (the mean |flow| of its segments
+        ``channel``, ``flow`` and ``flow_narrowed`` (the mean absolute flow of its segments
         [m^3/s]).
 
     Raises
