@@ -277,7 +277,10 @@ def _build_tree(
             temperature=spec.fluid.temperature,
         )
         design = size_tree(spec, bed_grade=grade)
-        check_size(sum(level.count for level in design.levels), allow_large=allow_large)
+        count = sum(level.count for level in design.levels)
+        if design.mesh is not None:  # segments and cross-connections: two per row and channel
+            count += 2 * design.bed.count * math.ceil(design.bed.length / design.mesh[0])
+        check_size(count, allow_large=allow_large)
         progress("layout")
         rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
         layout = draw(design, chip, rules)
