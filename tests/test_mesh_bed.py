@@ -13,6 +13,8 @@ import pytest
 import shapely
 from click.testing import CliRunner
 from csv_resolve import resolve_csv
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from test_asdrawn import dxf_layers
 
 from chipflow.build import build_design
@@ -316,3 +318,23 @@ def test_the_bundled_mesh_field_agrees_with_its_network() -> None:
     build = build_design(resolve_design("meshed_capillary_bed"), field=True)
     field = build.results["field"]
     assert field["resistance"] / field["network_resistance"] == pytest.approx(1.0, abs=0.01)
+
+
+@settings(max_examples=15, deadline=None)
+@given(st.integers(0, 15), st.floats(0.05, 1.0))
+def test_a_narrowed_mesh_conserves_the_flow_across_every_cut(mesh16, channel, factor) -> None:
+    """Continuity (Kirchhoff's node law summed over a cut): between two rows only bed
+    segments cross the bed, so their flows add up to the chip's flow, whatever one channel's
+    width; at factor 1 the re-solve is the solution itself."""
+    build, _ = mesh16
+    total = build.results["totals"]["total_flow"]
+    found = narrowed_bed(build.solution, f"bed4.{channel}", factor, {"outlet": 0.0},
+                         {"pump": total})  # fmt: skip
+    after = found["solution"]
+    names, members = bed_channels(after.network)
+    cuts = np.array([after.flow[m] for m in members])  # (channels, segments)
+    np.testing.assert_allclose(cuts.sum(axis=0), total, rtol=1e-9)
+    mine = np.abs(cuts[channel]).mean()
+    assert mine <= np.abs(build.solution.flow[members[channel]]).mean() * (1 + 1e-9)
+    if factor == 1.0:
+        np.testing.assert_allclose(after.flow, build.solution.flow, rtol=0, atol=1e-12 * total)
