@@ -338,3 +338,15 @@ def test_a_narrowed_mesh_conserves_the_flow_across_every_cut(mesh16, channel, fa
     assert mine <= np.abs(build.solution.flow[members[channel]]).mean() * (1 + 1e-9)
     if factor == 1.0:
         np.testing.assert_allclose(after.flow, build.solution.flow, rtol=0, atol=1e-12 * total)
+
+
+def test_the_size_guard_counts_the_segments_and_cross_connections(tmp_path, monkeypatch):
+    """The guard before drawing is told at least as many channels as the mesh draws."""
+    from chipflow.layout import budget
+
+    asked = []
+    real = budget.check_size
+    monkeypatch.setattr(budget, "check_size", lambda n, **kw: asked.append(n) or real(n, **kw))
+    build = built(tmp_path, design(bed_channels=8))
+    drawn = build.layout.channels.length.size
+    assert asked and drawn <= asked[0] <= 2 * drawn
