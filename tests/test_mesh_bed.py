@@ -303,6 +303,14 @@ def test_the_bundled_mesh_shows_its_cross_flows_and_a_narrowed_channel(tmp_path)
     assert 1e-5 < mesh["cross_flow_max_share"] < 1e-2
     assert mesh["narrowed"]["channel"] == "bed4.8"
     assert build.status == "pass"
+    # oxygen along whole bed channels (chains of segments), not along one segment
+    t = build.results["transport"]
+    i = next(k for k, lv in enumerate(t["levels"]) if lv["role"] == "bed")
+    bed, bulk = t["levels"][i], t["profile"]["levels"][i]["bulk"]
+    assert bed["count"] == 16
+    assert bulk[0] == pytest.approx(bed["o2_in"], rel=1e-9)
+    assert bulk[-1] == pytest.approx(bed["o2_out"], rel=1e-9)
+    assert bed["o2_out"] < bed["o2_in"]
     write_build(build, tmp_path / "out")
     report = (tmp_path / "out" / "report.html").read_text()
     assert "Mesh bed" in report and "bed4.8 (narrowed)" in report
