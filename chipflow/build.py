@@ -282,7 +282,10 @@ def _build_tree(
                 temperature=spec.fluid.temperature,
             )
         design = size_tree(spec, bed_grade=grade)
-        check_size(sum(level.count for level in design.levels), allow_large=allow_large)
+        count = sum(level.count for level in design.levels)
+        if design.mesh is not None:  # segments and cross-connections: two per row and channel
+            count += 2 * design.bed.count * math.ceil(design.bed.length / design.mesh[0])
+        check_size(count, allow_large=allow_large)
         progress("layout")
         rules = LayoutRules.from_fabrication(design.fabrication, **_keepout(port_keepout))
         layout = draw(design, chip, rules)
@@ -359,6 +362,7 @@ def _build_tree(
     )
     attach(results, operation)
     results["regions"] = region_results(spec, layout, solution)
+    results["mesh"] = mesh_results(design, solution, soft.rigid, pressures, flows)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["chambers"] = _chamber_dicts(runs, window)
     results["ports"] = mask_ports(layout, export.dxf.mirror)
@@ -401,6 +405,31 @@ def _build_tree(
         transport,
         tuple(runs),
     )
+
+
+def mesh_results(design, solution: Solution, rigid: Solution, pressures, flows):
+    """The ``mesh`` block of results.json: a mesh bed's rows, its cross-connection flows
+    (:func:`chipflow.network.mesh.cross_flows`) and the middle bed channel narrowed to half
+    its width (:func:`chipflow.network.mesh.narrowed_bed`, on the rigid network); None for
+    a bed without cross-connections."""
+    if getattr(design, "mesh", None) is None:
+        return None
+    from chipflow.network.mesh import bed_channels, cross_flows, narrowed_bed
+
+    found = cross_flows(solution)
+    if found is None:
+        return None
+    names, _ = bed_channels(solution.network)
+    narrowed = narrowed_bed(rigid, names[len(names) // 2], 0.5, pressures, flows)
+    narrowed.pop("solution")
+    pitch, width = design.mesh
+    return {
+        "cross_pitch": pitch,
+        "cross_width": width,
+        "rows": found["cross_connections"] // max(len(names) - 1, 1),
+        **found,
+        "narrowed": narrowed,
+    }
 
 
 def _keepout(port_keepout: float | None) -> dict[str, float]:

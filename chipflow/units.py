@@ -378,6 +378,16 @@ RESULT_UNITS: dict[str, str] = {
     "bed_channels": "1",
     "footprint": "m",
     "bed_extent": "m",
+    # a mesh bed (results["mesh"])
+    "cross_pitch": "m",
+    "cross_width": "m",
+    "rows": "1",
+    "cross_connections": "1",
+    "bed_channel_flow": "m^3/s",
+    "cross_flow_max": "m^3/s",
+    "cross_flow_max_share": "1",
+    "width_factor": "1",
+    "flow_narrowed": "m^3/s",
     # flow
     "pressure": "Pa",
     "flow": "m^3/s",

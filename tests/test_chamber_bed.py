@@ -247,7 +247,7 @@ def test_multi_port_chamber_against_an_independent_2d_solve():
 
 # -- the keys and the rules ------------------------------------------------------------------
 REFUSED = {
-    ('kind = "chamber"', 'kind = "mesh"'): "a mesh bed is not available",
+    ('kind = "chamber"', 'kind = "mesh"'): "is a key of a chamber bed",
     ('kind = "chamber"', 'kind = "channels"'): "is a key of a chamber bed",
     ('kind = "chamber"', 'kind = "chamber"\nresidence_time = "1 s"'): "residence_time: has no",
     ('kind = "chamber"', 'kind = "chamber"\ngap = "150 um"'): "gap: has no meaning",

@@ -153,6 +153,9 @@ POROUS_TUBING = {
 #   "build": results or drawing of a build; "dxf"/"gds": the mask file bytes;
 #   "vary": the results of chipflow vary;
 #   "sizing": the sized design (the key matters where nothing is drawn, e.g. chipflow check)
+# a mesh bed on the demo: straight bed channels joined by rows of cross-connections
+MESH = {"kind": "mesh", "max_straight_length": None, "cross_pitch": "1 mm", "cross_width": "40 um"}
+
 CASES = {
     ("", "name"): ({}, {"name": "another-bed"}, "build"),
     ("", "description"): ({}, {"description": "another text"}, "build"),
@@ -281,6 +284,8 @@ CASES = {
         _chamber_bed(pillars={"diameter": "150 um", "pitch": "400 um"}),
         "build",
     ),
+    ("bed", "cross_pitch"): ({"bed": MESH}, {"bed": {"cross_pitch": "0.8 mm"}}, "build"),
+    ("bed", "cross_width"): ({"bed": MESH}, {"bed": {"cross_width": "50 um"}}, "build"),
     ("regions", "name"): (ON_REGIONS, _region(name="c"), "build"),
     ("regions", "flow_fraction"): (
         ON_REGIONS,

@@ -37,11 +37,13 @@ __all__ = ["culture_checks", "transport_checks", "pressure_checks", "bed_grader"
 class _ChannelLabels:
     """Labels of a network's channels, made only for the one a check names."""
 
-    def __init__(self, network) -> None:
+    def __init__(self, network, index: np.ndarray | None = None) -> None:
         self.network = network
+        self.index = index
 
     def __getitem__(self, index: int) -> str:
-        net, i = self.network, int(index)
+        net = self.network
+        i = int(index) if self.index is None else int(self.index[int(index)])
         generation = int(net.generation[i])
         where = f" ({net.role[i]}, generation {generation})" if generation >= 0 else ""
         return f"channel {net.channel_name(i)}{where}"
@@ -178,13 +180,22 @@ def culture_checks(
     if net.n_channels:
         labels = _ChannelLabels(net)
         out.append(check_reynolds(labels, solution.reynolds))
-        # a chamber's links are equivalents of its 2D flow (its field solve has its entrance)
+        # a chamber's links are equivalents of its 2D flow (its field solve has its entrance);
+        # a mesh bed's cross-connections carry next to nothing in a symmetric bed: no
+        # entrance flow to develop (their flows are shown in results.json "mesh")
         length = np.where(net.role == "chamber", np.inf, net.length)
-        out.append(
-            check_entrance_length(
-                labels, net.width, net.depth, length, solution.reynolds, net.round
+        on = np.flatnonzero(net.role != "cross")
+        if on.size:
+            out.append(
+                check_entrance_length(
+                    _ChannelLabels(net, on),
+                    net.width[on],
+                    net.depth[on],
+                    length[on],
+                    solution.reynolds[on],
+                    net.round[on],
+                )
             )
-        )
     temperature = check_temperature(solution.fluid.temperature)
     if temperature is not None:
         out.append(temperature)

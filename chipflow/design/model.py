@@ -95,6 +95,10 @@ class TreeDesign:
         :class:`chipflow.spec.chamber.ChamberShape`): the bed level is then the last
         generation's channels, which meet the chamber's inlet wall (and leave its outlet
         wall) side by side, and its length is the chamber's; None: a bed of parallel channels.
+    mesh : tuple of float or None
+        A mesh bed's ``(cross_pitch, cross_width)`` [m] (``[bed] kind = "mesh"``): its bed
+        channels are joined by rows of cross-connections (:mod:`chipflow.layout.mesh`); None:
+        parallel bed channels.
     """
 
     name: str
@@ -108,6 +112,7 @@ class TreeDesign:
     fabrication: Fabrication | None = None
     footprint: Footprint | None = None
     chamber: object = None
+    mesh: tuple[float, float] | None = None
 
     @property
     def generations(self) -> int:

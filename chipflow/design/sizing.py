@@ -632,6 +632,7 @@ def size_tree(
         fabrication=fab,
         footprint=spec.bed.footprint,
         chamber=spec.bed.chamber,
+        mesh=((spec.bed.cross_pitch, spec.bed.cross_width) if spec.bed.kind == "mesh" else None),
     )
 
 

@@ -457,6 +457,13 @@ def draw_sketch(sketch: Sketch, *, masks: bool = True) -> Layout:
 
 def _drawn_channels(cat: dict, layer: np.ndarray) -> DrawnChannels:
     names = cat["names"].astype(str)
+    blank = names == ""
+    if np.any(~blank) and np.any(blank):  # some groups named (a mesh bed): the others by level
+        default = np.char.add(
+            np.char.add(np.char.add(cat["role"].astype(str), cat["generation"].astype(str)), "."),
+            cat["index"].astype(str),
+        )
+        names = np.where(blank, default, names)
     return DrawnChannels(
         centreline=cat["centreline"],
         length=cat["length"].astype(float),

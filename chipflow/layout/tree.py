@@ -218,13 +218,14 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
             if j < plan.runs - 1:
                 body.append(("A", plan.turn / 2, math.pi if j % 2 == 0 else -math.pi))
         body.append(("L", plan.lead))
-    bed_templates = []
+    bed_templates, halves = [], []
     for j in range(route.count):  # loop over the children of the last split
         half = fork(n, j)
         if route.phi[j] > 0:
             half.append(("L", plan.bed_pre - route.start - float(route.along[j])))
         else:
             half.append(("L", plan.bed_pre - float(route.reach[j])))
+        halves.append(half)
         pieces = half + body + half[::-1]
         bed_templates.append(trace(float(route.theta[j]), pieces, tol))
     parent = dist_nodes[n - 1][i // s]
@@ -340,7 +341,7 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
             f"{role} generation {g}: width {designed * 1e6:.4g} um is not a whole number of "
             f"{grid * 1e6:g} um grid steps; drawn and solved {width * 1e6:.4g} um wide"
         )
-    return Sketch(
+    sketch = Sketch(
         name=design.name,
         chip=chip,
         rules=rules,
@@ -353,6 +354,27 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
         warnings=tuple(warnings),
         notes=plan.notes,
         chambers=chambers,
+    )
+    if design.mesh is None:
+        return sketch
+    if plan.runs > 1:
+        raise LayoutError(
+            f"design '{design.name}': [bed] kind = \"mesh\" needs straight bed channels, but "
+            f"they are folded into {plan.runs} runs (max_straight_length or the chip's width); "
+            "raise max_straight_length or widen the chip"
+        )
+    from chipflow.layout.mesh import mesh_sketch
+
+    bed_route = plan.routes[n]
+    return mesh_sketch(
+        sketch,
+        group_of[("bed", n)],
+        halves,
+        bed_route.theta,
+        bed_route.offset,
+        plan.bed_pre,
+        plan.run_length,
+        *design.mesh,
     )
 
 

@@ -46,6 +46,7 @@ __all__ = [
     "port_pressure_range",
     "ROLE_ORDER",
     "generation_labels",
+    "series_chains",
 ]
 
 #: Order of roles along the path from inlet to outlet.
@@ -171,46 +172,108 @@ def generation_rows(solution: Solution) -> tuple[GenerationRow, ...]:
     return tuple(rows)
 
 
+def series_chains(network: Network, members: np.ndarray) -> np.ndarray:
+    """Which chain of segments in series each of a level's channels belongs to.
+
+    A node where exactly one of the level's channels ends (``node_b``) and exactly one starts
+    (``node_a``) joins the two in series: the segments of one bed channel of a mesh bed,
+    split at its cross-connections (:mod:`chipflow.layout.mesh`). Without such nodes every
+    channel is a chain of its own.
+
+    Returns
+    -------
+    numpy.ndarray of int
+        (len(members),) chain number of each member, 0 .. chains - 1, in order of first member.
+
+    >>> from chipflow.network import NetworkBuilder
+    >>> b = NetworkBuilder()
+    >>> for name, a, z in (("p", "i", "m"), ("q", "m", "o"), ("r", "i", "o")):
+    ...     b.channel(name, a, z, width=1e-4, depth=5e-5, length=1e-3)
+    >>> series_chains(b.build(), np.arange(3)).tolist()
+    [0, 0, 1]
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+
+    members = np.asarray(members)
+    a, b = network.node_a[members], network.node_b[members]
+    n = network.n_nodes
+    ends = np.bincount(b, minlength=n)
+    starts = np.bincount(a, minlength=n)
+    joint = (ends == 1) & (starts == 1)
+    if not joint.any():
+        return np.arange(members.size)
+    into = np.full(n, -1)
+    into[b] = np.arange(members.size)
+    nxt = np.flatnonzero(joint[a])  # member whose start is a joint: joined to the one ending there
+    link = coo_matrix((np.ones(nxt.size), (nxt, into[a[nxt]])), shape=(members.size, members.size))
+    _, label = connected_components(link, directed=False)
+    _, first = np.unique(label, return_index=True)
+    rank = np.empty(first.size, dtype=int)
+    rank[np.argsort(first)] = np.arange(first.size)
+    return rank[label]
+
+
 def level_rows(solution: Solution) -> list[dict[str, Any]]:
     """One row per (role, generation) from inlet to outlet, means over the level's channels.
 
     With culture regions, one row per (region, role, generation) (see :func:`level_groups`);
     every row's ``region`` names its region ("" for shared channels).
 
-    Channels without a generation (tubing, plain channels) are left out. Pressures at the
-    level's upstream and downstream ends are the means of its end-node pressures [Pa].
+    Channels without a generation (tubing, plain channels, a mesh bed's cross-connections)
+    are left out. Pressures at the level's upstream and downstream ends are the means of its
+    end-node pressures [Pa]. Where a level's channels are chains of segments in series (a mesh
+    bed, :func:`series_chains`), a channel is a chain: ``count``, ``length``, ``total_area``,
+    ``flow_total``, ``residence_time``, ``pressure_drop`` and the pressures at the ends are
+    those of whole chains (a chain's flow: the mean over its segments); widths, velocities,
+    shear and the per-channel extremes of flow and shear are over the segments.
     """
     net = solution.network
     rows = []
     region = net.regions()
     for role, generation, members in level_groups(net):
-        q = np.abs(solution.flow[members])
+        flow = solution.flow[members]
+        q = np.abs(flow)
+        chain = series_chains(net, members)
+        k = int(chain.max()) + 1
+        per = np.bincount(chain, minlength=k)
+
+        def total(values, chain=chain, k=k):
+            return np.bincount(chain, weights=values, minlength=k)
+
         p_a = solution.pressure[net.node_a[members]]
         p_b = solution.pressure[net.node_b[members]]
-        forward = solution.flow[members] >= 0
+        forward = flow >= 0
         p_in = np.where(forward, p_a, p_b)
         p_out = np.where(forward, p_b, p_a)
+        if k < members.size:  # the ends of each chain: its first and last segment
+            order = np.argsort(chain, kind="stable")
+            head = order[np.r_[0, np.cumsum(per)[:-1]]]
+            tail = order[np.cumsum(per) - 1]
+            p_in = np.where(forward[head], p_a[head], p_b[tail])
+            p_out = np.where(forward[head], p_b[tail], p_a[head])
         w, h = net.width[members], net.depth[members]
         area = cross_section_area(w, h, net.round[members])
+        residence = total(solution.residence_time[members])
         rows.append(
             {
                 "generation": int(generation),
                 "role": str(role),
                 "region": str(region[members[0]]),
-                "count": int(members.size),
+                "count": k,
                 "width": float(w.mean()),
                 "depth": float(h.mean()),
-                "length": float(net.length[members].mean()),
-                "total_area": float(area.sum()),
+                "length": float(total(net.length[members]).mean()),
+                "total_area": float((total(area) / per).sum()),
                 "flow_per_channel": float(q.mean()),
-                "flow_total": float(q.sum()),
+                "flow_total": float((total(q) / per).sum()),
                 "mean_velocity": float(np.abs(solution.mean_velocity[members]).mean()),
                 "wall_shear_floor": float(solution.wall_shear_floor[members].mean()),
                 "wall_shear_mean": float(solution.wall_shear_mean[members].mean()),
                 "wall_shear_max": float(solution.wall_shear_max[members].mean()),
                 "reynolds": float(solution.reynolds[members].max()),
-                "residence_time": float(solution.residence_time[members].mean()),
-                "pressure_drop": float(np.abs(solution.pressure_drop[members]).mean()),
+                "residence_time": float(residence.mean()),
+                "pressure_drop": float(total(np.abs(solution.pressure_drop[members])).mean()),
                 "pressure_in": float(p_in.mean()),
                 "pressure_out": float(p_out.mean()),
                 # per-channel extremes of the level (equal to the mean in an even tree)
@@ -218,8 +281,8 @@ def level_rows(solution: Solution) -> list[dict[str, Any]]:
                 "flow_max": float(q.max()),
                 "wall_shear_floor_min": float(solution.wall_shear_floor[members].min()),
                 "wall_shear_floor_max": float(solution.wall_shear_floor[members].max()),
-                "residence_time_min": float(solution.residence_time[members].min()),
-                "residence_time_max": float(solution.residence_time[members].max()),
+                "residence_time_min": float(residence.min()),
+                "residence_time_max": float(residence.max()),
             }
         )
     return rows

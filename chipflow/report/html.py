@@ -321,6 +321,50 @@ def _regions(results: Mapping[str, Any]) -> str:
     return "<h3>Culture regions</h3>" + _table(headers, rows, text_columns=1)
 
 
+def _mesh(results: Mapping[str, Any]) -> str:
+    """A mesh bed: its cross-connections, the largest cross flow, and one bed channel
+    narrowed to half its width (nothing for other beds)."""
+    mesh = results.get("mesh")
+    if not mesh:
+        return ""
+    from chipflow import display
+
+    text = (
+        f"<h3>Mesh bed</h3>\n<p>{mesh['rows']} rows of cross-connections "
+        f"{_quantity(mesh['cross_pitch'], 'length')} apart join neighbouring bed channels "
+        f"({mesh['cross_connections']} cross-connections "
+        f"{_quantity(mesh['cross_width'], 'width')} wide). The largest cross-connection flow is "
+        f"{_e(display.fraction(mesh['cross_flow_max_share']))} of a bed channel's flow "
+        f"({_e(mesh['cross_flow_max_channel'])}); in a symmetric bed it comes from the "
+        "outermost bed channels, which meet a T at every row instead of a four-arm junction. "
+        "Cross-connections carrying next to nothing are nearly stagnant: their cells see next "
+        "to no shear.</p>\n"
+    )
+    narrowed = mesh.get("narrowed")
+    if not narrowed:
+        return text
+    rows = []
+    for r in narrowed["channels"]:  # the narrowed channel and its two neighbours
+        change = r["flow_narrowed"] / r["flow"] - 1.0 if r["flow"] > 0 else None
+        name = r["channel"] + (" (narrowed)" if r["channel"] == narrowed["channel"] else "")
+        rows.append(
+            [
+                _e(name),
+                _quantity(r["flow"], "flow"),
+                _quantity(r["flow_narrowed"], "flow"),
+                _e(display.fraction(change, signed=True)),
+            ]
+        )
+    factor = _e(display.fraction(narrowed["width_factor"]))
+    return (
+        text + f"<p>One bed channel narrowed to {factor} of its width (a network what-if, the "
+        "drawing unchanged): its flow and its neighbours' (the mean over their segments); the "
+        "largest cross-connection flow becomes "
+        f"{_e(display.fraction(narrowed['cross_flow_max_share']))} of a bed channel's "
+        "flow.</p>\n" + _table(["bed channel", "flow", "narrowed", "change"], rows, text_columns=1)
+    )
+
+
 #: Columns of the channel table of an explicit network (after channel, from and to).
 _CHANNEL_COLUMNS = (
     ("width", "width", "width"),
@@ -623,6 +667,7 @@ def report_html(results: Mapping[str, Any], figures: Mapping[str, str] | None = 
         "<h2>Generations, inlet to outlet</h2>",
         _generations(results),
         _regions(results),
+        _mesh(results),
         _extremes(results),
         _channels(results),
         _chambers(results),

@@ -39,6 +39,9 @@ channels as the product of the splits, and ``n`` collecting generations back to 
     max_straight_length = "5 mm" # longer bed channels are folded by the layout
     gap = "100 um"               # wall between neighbouring bed channels (default min_gap)
     footprint = ["10 mm", "8 mm"] # the bed lies inside this rectangle (along, across the flow)
+    # kind = "mesh": the bed channels joined by rows of straight cross-connections
+    # cross_pitch = "1 mm"       # distance between rows along the bed channels
+    # cross_width = "40 um"      # width of a cross-connection (the bed's depth)
 
     # several culture regions instead of one [bed] (see chipflow.spec.regions):
     # [[regions]]
@@ -108,6 +111,10 @@ __all__ = [
 RULES = ("equal-shear", "shear-target", "area-growth", "table")
 SHAPES = ("rectangular", "round")
 SHEAR_KINDS = ("floor", "mean", "max")
+#: Kinds of bed: parallel channels, channels joined by cross-connections, one chamber.
+BED_KINDS = ("channels", "mesh", "chamber")
+#: Keys of a mesh bed, refused with another kind.
+MESH_KEYS = ("cross_pitch", "cross_width")
 
 #: Top-level keys of a tree design file; the last six belong to the build (layout, supply,
 #: checks, export) and to ``chipflow vary`` (tolerances) and are read by their own modules.
@@ -145,10 +152,9 @@ TREE_KEYS = (
     "length",
     "lengths",
 )
-#: What a tree's bed is: parallel channels, or one culture chamber ("mesh" is refused here).
-BED_KINDS = ("channels", "mesh", "chamber")
 #: Keys of one bed: the ``[bed]`` table, and the same keys in each ``[[regions]]`` table;
-#: with ``kind = "chamber"`` the chamber keys too (:mod:`chipflow.spec.chamber`).
+#: with ``kind = "chamber"`` the chamber keys (:mod:`chipflow.spec.chamber`), with
+#: ``kind = "mesh"`` the mesh keys.
 BED_KEYS = (
     "kind",
     "residence_time",
@@ -161,6 +167,8 @@ BED_KEYS = (
     "corner_radius",
     "taper",
     "pillars",
+    "cross_pitch",
+    "cross_width",
 )
 #: Bed keys of parallel channels that a chamber bed has no use for.
 CHANNEL_BED_KEYS = ("residence_time", "max_straight_length", "gap", "footprint")
@@ -272,9 +280,11 @@ class BedSpec:
     Attributes
     ----------
     kind : str
-        "channels" (a bed of parallel channels, the default) or "chamber" (the last
-        distributing generation's channels end in the inlet wall of one culture chamber and
-        the collecting tree starts from its outlet wall; ``chamber`` holds its shape).
+        What the bed is (:data:`BED_KINDS`): "channels" (parallel bed channels, the
+        default), "mesh" (the bed channels joined by rows of cross-connections,
+        :mod:`chipflow.layout.mesh`) or "chamber" (the last distributing generation's
+        channels end in the inlet wall of one culture chamber and the collecting tree starts
+        from its outlet wall; ``chamber`` holds its shape).
     residence_time : float or None
         Target transit time through a bed channel [s].
     length : float or None
@@ -293,6 +303,11 @@ class BedSpec:
     chamber : ChamberShape or None
         The chamber of a ``kind = "chamber"`` bed (:mod:`chipflow.spec.chamber`); ``length``
         is then its length.
+    cross_pitch : float or None
+        A mesh bed's distance along the bed channels between successive rows of
+        cross-connections [m] (None for other kinds).
+    cross_width : float or None
+        Width of a mesh bed's cross-connections [m]; their depth is the bed's.
     """
 
     kind: str = "channels"
@@ -302,6 +317,8 @@ class BedSpec:
     gap: float | None = None
     footprint: Footprint | None = None
     chamber: object = None
+    cross_pitch: float | None = None
+    cross_width: float | None = None
 
 
 @dataclass(frozen=True)
@@ -530,12 +547,10 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
     Footprint(along=0.01, across=0.008, key='[bed] footprint')
     """
     kind = table.choice("kind", BED_KINDS, "channels")
-    if kind == "mesh":
-        raise table.error(
-            "kind", 'a mesh bed is not available in this version; give "channels" or "chamber"'
-        )
     if kind == "chamber":
         return _chamber_bed(table, fab, label)
+    if kind != "channels" and label != "[bed]":
+        raise table.error("kind", f'{label}: a culture region\'s bed is "channels" only')
     for key in CHAMBER_BED_KEYS:
         if key in table:
             raise table.error(
@@ -563,12 +578,22 @@ def read_bed(table: Table, fab: Fabrication, label: str = "[bed]") -> BedSpec:
             )
         key = "[bed] footprint" if label == "[bed]" else f"footprint of {label}"
         footprint = Footprint(float(sides[0]), float(sides[1]), key)
+    pitch = cross = None
+    if kind == "mesh":
+        pitch, cross = _read_mesh(table, fab, length)
+    else:
+        for key in MESH_KEYS:
+            if key in table:
+                raise table.error(key, f'belongs to a mesh bed (kind = "mesh"), not {kind!r}')
     return BedSpec(
+        kind=kind,
         residence_time=residence,
         length=length,
         max_straight_length=table.quantity("max_straight_length", "length", None),
         gap=gap,
         footprint=footprint,
+        cross_pitch=pitch,
+        cross_width=cross,
     )
 
 
@@ -581,7 +606,7 @@ def _chamber_bed(table: Table, fab: Fabrication, label: str) -> BedSpec:
         raise table.error(
             "kind", f'{label}: a chamber bed is available in [bed] only; give kind = "channels"'
         )
-    for key in CHANNEL_BED_KEYS:
+    for key in (*CHANNEL_BED_KEYS, *MESH_KEYS):
         if key in table:
             raise table.error(
                 key,
@@ -590,6 +615,40 @@ def _chamber_bed(table: Table, fab: Fabrication, label: str) -> BedSpec:
             )
     shape = read_chamber(table, fab.min_feature, fab.depths)
     return BedSpec(kind="chamber", length=shape.length, chamber=shape)
+
+
+def _read_mesh(table: Table, fab: Fabrication, length: float | None) -> tuple[float, float]:
+    """``cross_pitch`` and ``cross_width`` of a mesh bed [m], validated as far as the file
+    allows (the bed's depth and drawn length are checked again by the layout)."""
+    for key in MESH_KEYS:
+        if key not in table:
+            raise table.error(key, 'missing: a mesh bed (kind = "mesh") needs cross_pitch and '
+                              "cross_width")  # fmt: skip
+    pitch = table.quantity("cross_pitch", "length")
+    width = table.quantity("cross_width", "length")
+    lows = [fab.width_limits(d) for d in fab.depths]
+    low = min(lo[0] for lo in lows)
+    high = max(lo[2] for lo in lows)
+    if not low * (1 - 1e-9) <= width <= high * (1 + 1e-9):
+        raise table.error(
+            "cross_width",
+            f"{width * 1e6:.4g} um cannot be made at any of the fabrication depths: give "
+            f"{low * 1e6:.4g} to {high * 1e6:.4g} um",
+        )
+    least = width + fab.min_gap
+    if pitch < least * (1 - 1e-9):
+        raise table.error(
+            "cross_pitch",
+            f"{pitch * 1e6:.4g} um leaves less than [fabrication].min_gap between rows of "
+            f"{width * 1e6:.4g} um cross-connections; give at least {least * 1e6:.4g} um",
+        )
+    if length is not None and pitch >= length:
+        raise table.error(
+            "cross_pitch",
+            f"{pitch * 1e3:.4g} mm is not shorter than the bed length {length * 1e3:.4g} mm: "
+            "no row of cross-connections fits; give a shorter pitch",
+        )
+    return pitch, width
 
 
 #: Branching factors a junction may have [-].

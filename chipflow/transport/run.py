@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from chipflow.network.solver import Solution
-from chipflow.network.summary import level_groups
+from chipflow.network.summary import level_groups, series_chains
 from chipflow.spec.culture import Culture
 from chipflow.spec.transport import TransportSpec
 from chipflow.transport.dispersion import Dosing, dosing
@@ -194,6 +194,7 @@ def _level_entries(solution, ch, ox, species, c0, groups) -> list[dict[str, Any]
     area = ch.floor_area
     rows = []
     for role, generation, m in groups:  # a handful of levels
+        head, tail = _chain_ends(net, m)
         seeded = area[m].sum()
         below = (ox.below_critical[m] * area[m]).sum()
         share = None
@@ -205,9 +206,9 @@ def _level_entries(solution, ch, ox, species, c0, groups) -> list[dict[str, Any]
             {
                 "generation": int(generation),
                 "role": str(role),
-                "count": int(m.size),
-                "o2_in": float(np.mean(ox.inlet[m])),
-                "o2_out": float(np.mean(ox.outlet[m])),
+                "count": int(head.size),
+                "o2_in": float(np.mean(ox.inlet[head])),
+                "o2_out": float(np.mean(ox.outlet[tail])),
                 "o2_floor_min": float(np.min(ox.floor_min[m])),
                 "peclet": float(u[m].mean() * h / species.diffusivity),
                 "damkohler": float(uptake * h / (species.diffusivity * c0)) if c0 > 0 else None,
@@ -218,18 +219,54 @@ def _level_entries(solution, ch, ox, species, c0, groups) -> list[dict[str, Any]
     return rows
 
 
-def _profile(ox: SpeciesTransport, groups) -> dict[str, Any]:
-    return {
-        "stations": PROFILE_STATIONS.tolist(),
-        "levels": [
+def _chain_ends(net, m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The first and last channel of each chain of segments in series of a level (a mesh
+    bed's bed channel, :func:`chipflow.network.summary.series_chains`; the level's channels
+    themselves where they are not in series). A chain's segments are in the level's order."""
+    chain = series_chains(net, m)
+    order = np.argsort(chain, kind="stable")
+    per = np.bincount(chain)
+    return m[order[np.r_[0, np.cumsum(per)[:-1]]]], m[order[np.cumsum(per) - 1]]
+
+
+def _along_chains(net, m: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Per-channel profiles at :data:`PROFILE_STATIONS` (len(m), stations) of a level whose
+    channels are chains of equally many segments in series, as profiles along whole chains
+    (chains, stations), interpolated at the same fractions of each chain's length; the
+    profiles as given where the level's channels are not in series."""
+    chain = series_chains(net, m)
+    per = np.bincount(chain)
+    if per.size == m.size or np.any(per != per[0]):
+        return values
+    k, s = per.size, int(per[0])
+    order = np.argsort(chain, kind="stable")
+    length = net.length[m][order].reshape(k, s)
+    start = np.cumsum(length, axis=1) - length
+    x = (start[:, :, None] + length[:, :, None] * PROFILE_STATIONS).reshape(k, -1)
+    v = values[order].reshape(k, -1)
+    at = PROFILE_STATIONS[None, :] * length.sum(axis=1)[:, None]
+    out = np.empty((k, PROFILE_STATIONS.size))
+    for j in range(PROFILE_STATIONS.size):  # a handful of stations, vectorised over chains
+        i = np.clip((x < at[:, j : j + 1]).sum(axis=1), 1, x.shape[1] - 1)
+        x0, x1 = x[np.arange(k), i - 1], x[np.arange(k), i]
+        f = np.where(x1 > x0, (at[:, j] - x0) / np.where(x1 > x0, x1 - x0, 1.0), 0.0)
+        out[:, j] = v[np.arange(k), i - 1] * (1 - f) + v[np.arange(k), i] * f
+    return out
+
+
+def _profile(ox: SpeciesTransport, groups, net) -> dict[str, Any]:
+    levels = []
+    for _, _, m in groups:  # levels
+        bulk = _along_chains(net, m, ox.bulk[m])
+        floor = _along_chains(net, m, ox.floor[m])
+        levels.append(
             {
-                "bulk": ox.bulk[m].mean(axis=0).tolist(),
-                "floor": ox.floor[m].mean(axis=0).tolist(),
-                "floor_lowest": ox.floor[m].min(axis=0).tolist(),
+                "bulk": bulk.mean(axis=0).tolist(),
+                "floor": floor.mean(axis=0).tolist(),
+                "floor_lowest": floor.min(axis=0).tolist(),
             }
-            for _, _, m in groups  # levels
-        ],
-    }
+        )
+    return {"stations": PROFILE_STATIONS.tolist(), "levels": levels}
 
 
 def _dosing_entry(net, ch: ChannelSet, dose: Dosing, groups, name: str, source: str) -> dict:
@@ -276,10 +313,13 @@ def _context(solution, culture: Culture, species: Species, c0: float, groups) ->
     m = beds[0]
     h = float(net.depth[m].mean())
     area = float((net.width[m] * net.length[m]).sum())
-    q = float(np.abs(solution.flow[m]).sum())
+    chain = series_chains(net, m)  # a mesh bed's channels are chains of segments
+    per = np.bincount(chain)
+    q = float((np.bincount(chain, weights=np.abs(solution.flow[m])) / per).sum())
+    residence = np.bincount(chain, weights=solution.residence_time[m])
     return {
         "diffusion_time": h * h / (2.0 * species.diffusivity),
-        "residence_time": float(solution.residence_time[m].mean()),
+        "residence_time": float(residence.mean()),
         "oxygen_use_fraction": species.uptake * area / (q * c0) if q * c0 > 0 else None,
     }
 
@@ -380,7 +420,7 @@ def run_transport(
         "mass_residual": ox.residual,
         "waves": ox.waves,
         "stagnant": int(ox.stagnant.sum()),
-        "profile": _profile(ox, groups),
+        "profile": _profile(ox, groups, net),
         "context": _context(solution, culture, species, c0, groups),
         "dosing": _dosing_entry(net, ch, dose, groups, dose_name, dose_source),
         "solutes": solute_entries,

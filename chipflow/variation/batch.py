@@ -189,6 +189,12 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
     def mean(values: np.ndarray) -> np.ndarray:
         return np.add.reduceat(values[:, order], starts, axis=1) / counts
 
+    chains = counts if problem.chains is None else problem.chains
+
+    def along(values: np.ndarray) -> np.ndarray:
+        """Per level, the mean over its chains of segments of their sums."""
+        return np.add.reduceat(values[:, order], starts, axis=1) / chains
+
     bed = aq[:, problem.bed]
     if problem.bed.size:
         bed_mean = bed.mean(axis=1)
@@ -200,8 +206,8 @@ def solve_batch(problem: Problem, params: np.ndarray) -> BatchResult:
         shear=mean(tau),
         shear_min=np.minimum.reduceat(tau[:, order], starts, axis=1),
         shear_max=np.maximum.reduceat(tau[:, order], starts, axis=1),
-        residence=mean(residence),
-        pressure_drop=mean(drop),
+        residence=along(residence),
+        pressure_drop=along(drop),
         supply_pressure=pressure[:, problem.port_nodes].max(axis=1),
         chip_pressure=pressure[:, problem.chip_nodes].max(axis=1),
         bed_spread=spread,

@@ -37,7 +37,7 @@ import scipy.sparse as sp
 from chipflow.build import Build
 from chipflow.checks.pressure import PUMP_MARGIN
 from chipflow.errors import SpecError
-from chipflow.network.summary import generation_labels, level_groups
+from chipflow.network.summary import generation_labels, level_groups, series_chains
 from chipflow.physics.duct import resistance
 from chipflow.spec.culture import read_culture, read_limits
 from chipflow.spec.tolerances import Tolerances
@@ -150,6 +150,10 @@ class Problem:
     chamber_names : tuple of str
     outside_limit : float
         Largest share of a chamber's floor outside the window of a passing sample [1].
+    chains : numpy.ndarray or None
+        Per level, its number of channels counted as chains of segments in series (a mesh
+        bed's bed channels, :func:`chipflow.network.summary.series_chains`): residence times
+        and pressure drops add up along a chain. None: every channel its own.
     """
 
     node_a: np.ndarray
@@ -190,6 +194,7 @@ class Problem:
     port_nodes: np.ndarray
     bed: np.ndarray
     names: tuple[str, ...]
+    chains: np.ndarray | None = None
     chamber_of: np.ndarray = None
     chamber_inflow: np.ndarray = None
     chamber_level: np.ndarray = None
@@ -388,6 +393,7 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
     window = build.results.get("shear_window")
     members = [g[2] for g in groups]
     counts = np.array([m.size for m in members], dtype=np.int64)
+    chains = np.array([int(series_chains(net, m).max()) + 1 for m in members], dtype=np.int64)
     on_chip = net.role != "tubing"
     problem = Problem(
         node_a=a,
@@ -416,6 +422,7 @@ def variation_problem(build: Build, tolerances: Tolerances) -> Problem:
         order=np.concatenate(members) if members else np.zeros(0, np.int64),
         starts=np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64),
         counts=counts,
+        chains=chains,
         labels=tuple(generation_labels(rows)),
         roles=tuple(roles),
         generations=tuple(int(g[1]) for g in groups),
