@@ -244,14 +244,7 @@ def tree_sketch(design: TreeDesign, chip: Chip, rules: LayoutRules) -> Sketch:
             None,
         )
     else:  # the last generation's channels end in the chamber's inlet wall and leave its outlet
-        halves = []
-        for j in range(route.count):  # loop over the children of the last split
-            half = fork(n, j)
-            if route.phi[j] > 0:
-                half.append(("L", plan.bed_pre - route.start - float(route.along[j])))
-            else:
-                half.append(("L", plan.bed_pre - float(route.reach[j])))
-            halves.append(trace(float(route.theta[j]), half, tol))
+        halves = [trace(float(route.theta[j]), half, tol) for j, half in enumerate(halves)]
         ends = node_xy[parent] + np.array([h.xy[-1] for h in halves])[i % s]
         mirrored = np.column_stack((2 * x_mid - ends[:, 0], ends[:, 1] + rise))
         first = len(node_xy)
