@@ -365,6 +365,9 @@ def _build_tree(
     results["mesh"] = mesh_results(design, solution, soft.rigid, pressures, flows)
     results["fabrication"] = _fabrication_dict(layout, export, findings)
     results["chambers"] = _chamber_dicts(runs, window)
+    if results["chambers"] and results["totals"]["transit_time"] is not None:
+        # a tree's one chamber is the one it ends in: every path through the chip crosses it
+        results["totals"]["transit_time"] += sum(c["residence_time"] for c in results["chambers"])
     results["ports"] = mask_ports(layout, export.dxf.mirror)
     results["warnings"] = [
         *design.warnings,

@@ -176,6 +176,36 @@ def test_port_flows_are_the_chambers_conductance_matrix(bundled):
     assert row["flow"] == pytest.approx(total, rel=1e-9) and row["flow_residual"] < 1e-6
 
 
+def test_the_transit_through_the_chip_crosses_the_chamber(bundled):
+    """One path through the chip: every level's residence time plus the chamber's, its
+    volume over its flow (the floor measured on the written DXF times the depth: the
+    chamber's mask polygon, pillars as holes)."""
+    import ezdxf
+    import shapely
+
+    build, out = bundled
+    results = json.loads((out / "results.json").read_text())
+    (c,) = results["chambers"]
+    (chamber,) = build.layout.chambers
+    doc = ezdxf.readfile(next(out.glob("*.dxf")))
+    scale = 1e-6 if doc.header.get("$INSUNITS") == 13 else 1e-3
+    rings = [
+        shapely.Polygon(np.asarray(e.get_points("xy")) * scale)
+        for e in doc.modelspace().query("LWPOLYLINE")
+        if e.closed and e.dxf.layer.startswith("MASK")
+    ]
+    filled = shapely.Polygon()
+    for ring in rings:  # even-odd fill: outlines and the pillars' holes
+        filled = filled.symmetric_difference(ring)
+    # the chamber's floor between its end walls and side walls
+    floor = filled.intersection(shapely.box(*chamber.outline.bounds)).area
+    assert floor == pytest.approx(c["floor_area"], rel=0.01)
+    levels = sum(row["residence_time"] for row in results["generations"])
+    chamber_time = floor * c["depth"] / c["flow"]
+    assert results["totals"]["transit_time"] == pytest.approx(levels + chamber_time, rel=0.01)
+    assert chamber_time > 2 * levels  # the culture chamber holds the medium longest
+
+
 def test_a_symmetric_tree_gives_mirror_ports_equal_flows(bundled, monkeypatch):
     """The drawn tree is its own mirror image across its axis: with the chamber's matrix made
     exactly mirror-symmetric (its 2D mesh is not), the flows through ports mirrored across
