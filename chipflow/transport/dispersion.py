@@ -176,7 +176,8 @@ def step_times(mean, variance, fractions=(0.5, 0.9)) -> list[np.ndarray]:
     """
     mu = np.asarray(mean, float)
     var = np.asarray(variance, float)
-    spread = np.isfinite(mu) & np.isfinite(var) & (mu > 0) & (var > 1e-12 * mu * mu)
+    with np.errstate(over="ignore"):  # a transit beyond 1e154 s is no spread (the step)
+        spread = np.isfinite(mu) & np.isfinite(var) & (mu > 0) & (var > 1e-12 * mu * mu)
     safe_mu = np.where(spread, mu, 1.0)
     shape = safe_mu**2 / np.where(spread, var, 1.0)  # lambda / mu [-]
     return [np.where(spread, safe_mu * _unit_quantile(q, shape), mu) for q in fractions]
@@ -260,7 +261,8 @@ def _node_moments(ch: ChannelSet, active, tau, var):
     system = (identity(n, format="csr") - mix).tocsc()
     b1 = np.bincount(down, weights=weight * tau[active], minlength=n)
     mean = spsolve(system, b1)
-    spread = var[active] + (mean[up] + tau[active] - mean[down]) ** 2
+    with np.errstate(over="ignore"):  # a near-stagnant channel's transit: infinite spread
+        spread = var[active] + (mean[up] + tau[active] - mean[down]) ** 2
     b2 = np.bincount(down, weights=weight * spread, minlength=n)
     variance = spsolve(system, b2)
     scale = max(float(np.abs(b1).max(initial=0.0)), 1e-300)

@@ -475,8 +475,8 @@ def _stagnant(out, stagnant, node, ch: ChannelSet, uptake, wall, species: Specie
     and uptake (zero without a roof when cells take up)."""
     rows = np.flatnonzero(stagnant)
     ends = np.stack([node[ch.upstream[rows]], node[ch.downstream[rows]]])
-    with np.errstate(all="ignore"):
-        c = np.where(np.all(np.isnan(ends), axis=0), species.inlet, np.nanmax(ends, axis=0))
+    richer = np.fmax(ends[0], ends[1])  # NaN only where both ends are unknown
+    c = np.where(np.isnan(richer), species.inlet, richer)
     ambient = 0.0 if species.ambient is None else species.ambient
     v, k = uptake[rows], wall[rows]
     # k (ca - c) = V c / (Km + c)  ->  the floor quadratic with c_e = ca, R = 1/k
