@@ -385,9 +385,7 @@ def mask_ports(inlets, outlets, flow, pressure, mask) -> list:
     for role, given in (("inlet", inlets), ("outlet", outlets)):
         for k, (point, drive) in enumerate(given, 1):
             xy = _port_xy(point, role, mask)
-            name = point if isinstance(point, str) else role
-            if point is None or isinstance(point, tuple):
-                name = role if len(given) == 1 else f"{role} {k}"
+            name = point if isinstance(point, str) else role if len(given) == 1 else f"{role} {k}"
             if name in taken:
                 raise SpecError(f"--{role}: the port {name!r} is given twice")
             taken.add(name)

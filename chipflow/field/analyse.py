@@ -322,8 +322,7 @@ def _checked_ports(ports: Sequence[MaskPort]) -> list[MaskPort]:
     names = [p.name for p in ports]
     if len(set(names)) != len(names):
         raise FieldError(f"each port needs its own name, got {', '.join(names)}")
-    roles = {p.role for p in ports}
-    if roles != set(ROLES) or any(p.role not in ROLES for p in ports):
+    if {p.role for p in ports} != set(ROLES):
         raise FieldError("the mask needs at least one inlet and one outlet")
     out = []
     for p in ports:

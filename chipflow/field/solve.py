@@ -387,7 +387,8 @@ def solve_on_mesh(
     if names:
         x0, basis = xs[:, 0], xs[:, 1:]
         q0 = system.flows(x0)
-        y = np.array([[system.flows(basis[:, j])[i] for j in range(len(names))] for i in names])
+        unit = [system.flows(basis[:, j]) for j in range(len(names))]  # one per driven port
+        y = np.array([[flows[i] for flows in unit] for i in names])
         target = np.array([driven[i] - q0[i] for i in names])
         try:
             p = np.linalg.solve(y, target)

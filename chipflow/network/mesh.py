@@ -31,6 +31,15 @@ __all__ = ["CROSS_ROLE", "bed_channels", "cross_flows", "narrowed_bed"]
 CROSS_ROLE = "cross"
 
 
+def _bed_chains(network: Network) -> tuple[np.ndarray, np.ndarray]:
+    """The bed level's channels and the bed channel (chain of segments) of each."""
+    beds = [m for role, _, m in level_groups(network) if role == "bed"]
+    if not beds:
+        raise ArgumentError("the network has no bed channels (role 'bed')")
+    members = np.concatenate(beds)
+    return members, series_chains(network, members)
+
+
 def bed_channels(network: Network) -> tuple[list[str], list[np.ndarray]]:
     """The bed channels of a tree's network: each one's name and its segments' indices.
 
@@ -42,18 +51,16 @@ def bed_channels(network: Network) -> tuple[list[str], list[np.ndarray]]:
     ArgumentError
         When the network has no bed level.
     """
-    beds = [m for role, _, m in level_groups(network) if role == "bed"]
-    if not beds:
-        raise ArgumentError("the network has no bed channels (role 'bed')")
-    members = np.concatenate(beds)
-    chain = series_chains(network, members)
+    members, chain = _bed_chains(network)
+    order = np.argsort(chain, kind="stable")  # each chain's segments together, in order
+    cut = np.flatnonzero(np.diff(chain[order])) + 1
+    out_members = np.split(members[order], cut)
     names = network.channel_names()
-    out_names, out_members = [], []
-    for c in range(int(chain.max()) + 1):  # loop over bed channels (a few dozen)
-        seg = members[chain == c]
-        first = names[int(seg[0])]
-        out_names.append(first.rsplit(".", 1)[0] if seg.size > 1 else first)
-        out_members.append(seg)
+    first = members[order[np.r_[0, cut]]]
+    out_names = [  # one name per bed channel
+        str(names[int(f)]).rsplit(".", 1)[0] if m.size > 1 else str(names[int(f)])
+        for f, m in zip(first, out_members, strict=True)
+    ]
     return out_names, out_members
 
 
@@ -72,9 +79,10 @@ def cross_flows(solution: Solution) -> dict[str, Any] | None:
     cross = np.flatnonzero(net.role == CROSS_ROLE)
     if cross.size == 0:
         return None
-    _, members = bed_channels(net)
+    beds, chain = _bed_chains(net)
     q = np.abs(solution.flow)
-    per_channel = float(np.mean([q[m].mean() for m in members]))
+    # the mean over bed channels of each channel's mean over its segments
+    per_channel = float(np.mean(np.bincount(chain, q[beds]) / np.bincount(chain)))
     i = int(cross[np.argmax(q[cross])])
     return {
         "cross_connections": int(cross.size),
