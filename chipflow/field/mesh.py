@@ -43,9 +43,12 @@ def _scale(regions: list[FieldRegion]) -> float:
 
 
 def domain_of(
-    regions: list[FieldRegion], ports: list[FieldPort]
+    regions: list[FieldRegion], ports: list[FieldPort], scale: float | None = None
 ) -> tuple[shapely.Geometry, list[tuple[shapely.Geometry, float]]]:
     """The meshed domain and its pieces of one depth.
+
+    ``scale`` [m] sets the snapping grid and the slivers' size (by default the regions'
+    diagonal; a piece of a chip takes the chip's, so that it is snapped as the chip is).
 
     Returns
     -------
@@ -63,13 +66,14 @@ def domain_of(
         if r.polygon.is_empty or not r.polygon.is_valid:
             reason = shapely.is_valid_reason(r.polygon)
             raise FieldError(f"region {i}: the outline is not a valid polygon ({reason})")
-    grid = _SNAP * _scale(regions)
+    scale = _scale(regions) if scale is None else scale
+    grid = _SNAP * scale
     snap = lambda g: shapely.set_precision(g, grid)  # noqa: E731
     holes = [snap(p.boundary) for p in ports if _is_area(p.boundary)]
     cut = shapely.union_all(holes) if holes else shapely.Polygon()
     whole = shapely.union_all([snap(r.polygon) for r in regions]).difference(cut)
     # drop slivers (e.g. what is left between a drawn pad and a punched hole)
-    parts = [p for p in _polygons(whole) if p.area > 1e-6 * _scale(regions) * p.length]
+    parts = [p for p in _polygons(whole) if p.area > 1e-6 * scale * p.length]
     domain = shapely.union_all(parts) if parts else shapely.Polygon()
     if domain.is_empty:
         raise FieldError("the channels vanish once the port holes are cut out")
@@ -144,20 +148,25 @@ def _depth_at(pieces, pts: np.ndarray, tol: float) -> np.ndarray:
     return depth
 
 
-def local_width(domain: shapely.Geometry, across: float, cap: float, pieces=None):
+def local_width(domain: shapely.Geometry, across: float, cap: float, pieces=None, openings=None):
     """Wall samples ``(points, widths, sizes)`` of the domain's outline [m].
 
     Each sample's width is the distance to the nearest facing wall sample (``inf`` if none
-    among its neighbours). The target triangle size is ``width / across``, and at most
-    ``2 depth / across`` where ``pieces`` (geometry, depth) are given: the side-wall boundary
-    layer of the depth-averaged flow is about a third of the depth thick. The sampling is
-    refined three times to the target size.
+    among its neighbours). Outline on ``openings`` (lines, e.g. a channel cut across) is no
+    wall: it has no samples, so the channel's width there is that between its side walls.
+    The target triangle size is ``width / across``, and at most ``2 depth / across`` where
+    ``pieces`` (geometry, depth) are given: the side-wall boundary layer of the
+    depth-averaged flow is about a third of the depth thick. The sampling is refined three
+    times to the target size.
     """
     from scipy.spatial import cKDTree
 
     spacing = cap
     for _ in range(4):
         pts, nrm, a, b = _ring_samples(domain, spacing)
+        if openings is not None:
+            wall = ~shapely.dwithin(openings, shapely.points(pts), 1e-6 * cap)
+            pts, nrm = pts[wall], nrm[wall]
         tree = cKDTree(pts)
         k = min(_NEIGHBOURS, len(pts))
         dist, idx = tree.query(pts, k=k)
@@ -186,6 +195,8 @@ def build_mesh(
     *,
     mesh_size: float | None = None,
     across: float = 4.0,
+    open_lines: bool = False,
+    scale: float | None = None,
 ) -> FieldMesh:
     """Mesh the regions less the port holes.
 
@@ -199,6 +210,13 @@ def build_mesh(
     across : float
         Triangle edges across a channel's width [-] (4 by default; tests refine it); triangle
         edges are also at most ``2 depth / across`` long.
+    open_lines : bool
+        Take the ports that are lines (channels cut across) as no wall when the local channel
+        width is measured: a piece of a chip cut from its neighbours then has the widths the
+        whole chip has there (:mod:`chipflow.field.compose`).
+    scale : float, optional
+        Size [m] that sets the snapping grid, the tolerances and the first wall sampling
+        (by default the regions' diagonal; a piece of a chip is meshed at the chip's).
 
     Returns
     -------
@@ -207,10 +225,12 @@ def build_mesh(
     import triangle as tr
     from scipy.spatial import cKDTree
 
-    domain, pieces = domain_of(regions, ports)
-    scale = _scale(regions)
+    domain, pieces = domain_of(regions, ports, scale)
+    scale = _scale(regions) if scale is None else scale
     cap = mesh_size if mesh_size is not None else scale / 20.0
-    samples, width, size = local_width(domain, across, cap, pieces)
+    lines = [p.boundary for p in ports if not _is_area(p.boundary)]
+    openings = shapely.union_all(lines) if open_lines and lines else None
+    samples, width, size = local_width(domain, across, cap, pieces, openings)
     finite = np.isfinite(width)
     if mesh_size is None and finite.any():
         cap = min(cap, float(width[finite].max()) / across * 2.0)
