@@ -387,7 +387,7 @@ def _build_tree(
         results["warnings"],
         allow_large,
     )
-    results["field"] = None if field_run is None else field_run.results
+    field_run = _composed_apart(field_run, results)
     checks, transport = _field_outcome(
         field_run, checks, transport, results, layout, culture, window, progress
     )
@@ -580,7 +580,7 @@ def _field(
     may use (:func:`chipflow.resources.check_memory`; ``allow_large`` lifts the guard)."""
     from chipflow.field.budget import field_estimate
     from chipflow.field.chip import estimate_triangles
-    from chipflow.resources import check_memory, time_text
+    from chipflow.resources import check_memory, fits_memory, size_text, time_text
 
     limit = None
     if run is None:
@@ -593,11 +593,19 @@ def _field(
     from chipflow.errors import MeshBudgetError
     from chipflow.field.run import run_field as solve_chip_field
 
-    estimate = check_memory(
-        field_estimate(estimate_triangles(layout), "the field solve of the drawing"),
-        allow_large=allow_large,
-        advice="build without --field",
-    )
+    estimate = field_estimate(estimate_triangles(layout), "the field solve of the drawing")
+    if limit is None and not allow_large and not fits_memory(estimate):
+        # asked for, but the whole chip would not fit: composed from its pieces instead
+        from chipflow.field.run import run_composed_field
+
+        progress("field, composed from its pieces")
+        warnings.append(
+            f"field composed from its pieces: the whole chip's ({estimate.detail}) would need "
+            f"about {size_text(estimate.memory)}, more than this process may use; pass "
+            "--allow-large to solve it whole"
+        )
+        return run_composed_field(layout, solution, viscosity, window, flow_driven)
+    estimate = check_memory(estimate, allow_large=allow_large, advice="build without --field")
     progress(f"field ({estimate.detail}, about {time_text(estimate.seconds)})")
     try:
         return solve_chip_field(
@@ -607,6 +615,18 @@ def _field(
     except MeshBudgetError as exc:  # only when not asked for: then it is left out
         warnings.append(f"field not solved by default: {exc}; ask with --field")
         return None
+
+
+def _composed_apart(field_run, results: dict):
+    """Put a field in ``results``: a whole chip's as ``field``, a composed one as
+    ``composed_field`` (the other None); returns the whole chip's run, or None."""
+    from chipflow.field.run import ComposedRun
+
+    composed = isinstance(field_run, ComposedRun)
+    results["composed_field"] = field_run.results if composed else None
+    whole = None if composed else field_run
+    results["field"] = None if whole is None else whole.results
+    return whole
 
 
 def _field_outcome(field_run, checks, transport, results, layout, culture, window, progress):
@@ -792,7 +812,7 @@ def _build_network(
             allow_large,
         )
     )
-    results["field"] = None if field_run is None else field_run.results
+    field_run = _composed_apart(field_run, results)
     checks, transport = _field_outcome(
         field_run, checks, transport, results, layout, culture, culture.window, progress
     )

@@ -34,6 +34,7 @@ from chipflow.errors import TooLargeError
 
 __all__ = [
     "MEMORY_SHARE",
+    "fits_memory",
     "Estimate",
     "memory_limit",
     "machine_memory",
@@ -189,6 +190,13 @@ def memory_limit() -> tuple[int | None, str]:
     return int(value), source
 
 
+def fits_memory(estimate: Estimate, memory: tuple[int | None, str] | None = None) -> bool:
+    """Whether ``estimate`` fits :data:`MEMORY_SHARE` of the memory this process may use
+    (:func:`memory_limit`, or ``memory`` as ``(bytes, what sets it)``)."""
+    limit, _ = memory_limit() if memory is None else memory
+    return limit is None or estimate.memory <= MEMORY_SHARE * limit
+
+
 def check_memory(
     estimate: Estimate,
     *,
@@ -218,7 +226,7 @@ def check_memory(
         One line: the step and its size, its memory and time, the limit, what to do.
     """
     limit, source = memory_limit() if memory is None else memory
-    if allow_large or limit is None or estimate.memory <= MEMORY_SHARE * limit:
+    if allow_large or fits_memory(estimate, (limit, source)):
         return estimate
     place = f"{where}: " if where else ""
     size = f" ({estimate.detail})" if estimate.detail else ""

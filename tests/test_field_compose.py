@@ -9,6 +9,7 @@ series written out below.
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -167,3 +168,37 @@ def test_composed_demo_matches_its_monolithic_field():
     assert abs(d_r) < 3e-3
     assert max(abs(d) for d in d_p) < 0.01
     assert composed.decomposition.distinct <= 6
+
+
+def test_build_composes_the_field_that_would_not_fit(tmp_path, monkeypatch):
+    """``--field`` on a chip whose whole field needs more memory than the process may use:
+    composed from its pieces, reported apart from ``field``, and the same numbers as the
+    library's composition at the operating point."""
+    from click.testing import CliRunner
+
+    import chipflow.resources as resources
+    from chipflow.cli import main
+    from chipflow.report.console import totals_and_checks
+
+    # the whole field does not fit (everything else does)
+    monkeypatch.setattr(resources, "fits_memory", lambda e, memory=None: "field" not in e.what)
+    source = small_demo(tmp_path)
+    build = build_design(source, field=True)
+    assert build.results["field"] is None
+    composed = build.results["composed_field"]
+    assert composed["kinds"] <= composed["pieces"] and composed["bodies"] >= 8
+    assert any("composed from its pieces" in w for w in build.results["warnings"])
+    # at the pump's flow: the chip's flow is the network's, its pressure its own
+    q = composed["flow"]
+    inlet = next(g for g in build.results["generations"] if g["generation"] == 0)
+    assert q == pytest.approx(inlet["flow_total"], rel=1e-9)
+    assert composed["resistance"] == pytest.approx(composed["network_resistance"], rel=0.05)
+    split = composed["bed_split"]
+    assert split["field_cv"] < 0.05 and split["max_deviation"] < 0.05
+    assert "field composed from" in totals_and_checks(build.results)
+    out = tmp_path / "out"
+    done = CliRunner().invoke(main, ["build", source, "-o", str(out), "--field"])
+    assert done.exit_code in (0, 1), done.output
+    saved = json.loads((out / "results.json").read_text())
+    assert saved["composed_field"]["pieces"] == composed["pieces"]
+    assert "composed from the chip's pieces" in (out / "report.html").read_text()

@@ -12,8 +12,8 @@ the same up to a shift, a quarter turn or a mirror share one solve.
   port: 1 Pa at that port, 0 Pa at the others (one factorisation). Its conductance matrix
   ``G`` gives the flows into it for any port pressures. Pieces are kept in the field cache.
 - Each body has developed flow: its resistance per length and its floor shear across the
-  width come from a straight tile of the same width and depth (32 widths long, so that its
-  mesh lies as a long channel's does) solved like a piece.
+  width come from a straight tile of the same width and depth (32 widths or 128 depths
+  long, so that its mesh lies as a long channel's does) solved like a piece.
 - A small nodal problem joins them: the pieces' conductance matrices and the bodies'
   conductances between the cuts, with the chip's ports at their pressures. Its cut pressures
   weight each piece's unit solutions; its flows scale the bodies.
@@ -83,7 +83,8 @@ SAME_WITHIN = 1.0
 MIN_BODY_WIDTHS = 0.25
 #: The cut strips reach this far past the channel's walls [channel widths].
 _CUT_MARGIN = 0.1
-#: Length of the straight tile solved for the bodies of one width and depth [widths].
+#: Length of the straight tile solved for the bodies of one width and depth [widths] (at
+#: most four times as many depths: a wide shallow channel's mesh is set by its depth).
 _TILE_WIDTHS = 32.0
 _CHUNK = 2_000_000  # floor-shear values formed at once
 
@@ -714,7 +715,9 @@ def _tile(width: float, depth: float, across: float, solver: str, scale: float) 
     """A straight tile of developed flow: resistance per length ``r`` [Pa s/m^4 per Pa s],
     and per triangle the floor shear per unit flow and viscosity ``s`` [1/m^3] and area per
     length of body ``a`` [m]."""
-    length = _TILE_WIDTHS * width
+    # long enough that its mesh lies as a long channel's does (a wide shallow channel's
+    # triangles are set by its depth: 64 of its depths)
+    length = max(2.0 * width, min(_TILE_WIDTHS * width, 4.0 * _TILE_WIDTHS * depth))
     box = shapely.box(0.0, 0.0, length, width)
     ports = [
         shapely.LineString([(0, 0), (0, width)]),

@@ -317,6 +317,19 @@ def totals_and_checks(results: Mapping[str, Any]) -> str:
             f"network, {display.fraction(field['area_outside_window'])} of the seeded floor "
             f"outside the shear window ({field['mesh_triangles']} triangles)"
         )
+    composed = results.get("composed_field")
+    if composed:
+        ratio = composed["resistance"] / composed["network_resistance"] - 1.0
+        shear = " / ".join(
+            display.quantity(composed["floor_shear"][q], "shear", 3) for q in ("p05", "p50", "p95")
+        )
+        outside = display.fraction(composed["area_outside_window"])
+        lines.append(
+            f"field composed from {composed['pieces']} pieces ({composed['kinds']} solved) and "
+            f"{composed['bodies']} straight bodies: chip resistance "
+            f"{display.fraction(ratio, 2, signed=True)} against the network, floor shear "
+            f"{shear} (p05 / median / p95), {outside} of the floor outside the shear window"
+        )
     lines += region_lines(results)
     lines += transport_lines(results)
     for warning in results.get("warnings") or []:

@@ -565,6 +565,27 @@ def _junctions(results: Mapping[str, Any]) -> str:
             "<p>This network is not drawn (its nodes have no positions), so it has no 2D "
             "field to solve.</p>"
         )
+    composed = results.get("composed_field")
+    if not field and composed:
+        ratio = composed["resistance"] / composed["network_resistance"] - 1.0
+        shear, split = composed["floor_shear"], composed["bed_split"]
+        return (
+            "<p>The whole chip's 2D field would not fit in this machine's memory, so it was "
+            f"composed from the chip's pieces: {composed['pieces']} junctions, bends, bed ends "
+            f"and ports, of which {composed['kinds']} distinct ones were solved "
+            f"({composed['triangles']:,} triangles), joined by {composed['bodies']} straight "
+            "channel bodies of developed flow. Chip resistance: "
+            f"{_quantity(composed['resistance'], 'resistance')} against "
+            f"{_quantity(composed['network_resistance'], 'resistance')} in the network "
+            f"({display.fraction(ratio, 2, signed=True)}). Floor shear over the whole floor: "
+            f"5 % of the area below {_num(shear['p05'])} Pa, median {_num(shear['p50'])} Pa, "
+            f"5 % above {_num(shear['p95'])} Pa; "
+            f"{display.fraction(composed['area_outside_window'])} of it outside the shear "
+            "window (not graded: it is the whole floor, not the seeded one). Bed flow split: "
+            f"coefficient of variation {display.fraction(split['field_cv'])} "
+            f"({display.fraction(split['network_cv'])} in the network). The composition has no "
+            "map; <code>--field --allow-large</code> solves the whole chip.</p>"
+        )
     if not field:
         return (
             "<p>The 2D field was not solved for this build (large chips only with "
