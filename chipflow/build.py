@@ -596,6 +596,7 @@ def _field(
     estimate = field_estimate(estimate_triangles(layout), "the field solve of the drawing")
     if limit is None and not allow_large and not fits_memory(estimate):
         # asked for, but the whole chip would not fit: composed from its pieces instead
+        from chipflow.errors import FieldError
         from chipflow.field.run import run_composed_field
 
         progress("field, composed from its pieces")
@@ -604,7 +605,11 @@ def _field(
             f"about {size_text(estimate.memory)}, more than this process may use; pass "
             "--allow-large to solve it whole"
         )
-        return run_composed_field(layout, solution, viscosity, window, flow_driven)
+        try:
+            return run_composed_field(layout, solution, viscosity, window, flow_driven)
+        except FieldError as exc:  # the field is an addition: the build stands without it
+            warnings.append(f"field not composed: {exc}")
+            return None
     estimate = check_memory(estimate, allow_large=allow_large, advice="build without --field")
     progress(f"field ({estimate.detail}, about {time_text(estimate.seconds)})")
     try:

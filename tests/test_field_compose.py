@@ -202,3 +202,17 @@ def test_build_composes_the_field_that_would_not_fit(tmp_path, monkeypatch):
     saved = json.loads((out / "results.json").read_text())
     assert saved["composed_field"]["pieces"] == composed["pieces"]
     assert "composed from the chip's pieces" in (out / "report.html").read_text()
+
+
+def test_a_field_that_cannot_be_composed_leaves_the_build_standing(tmp_path, monkeypatch):
+    import chipflow.field.run as run
+    import chipflow.resources as resources
+
+    def refuse(*args, **kwargs):
+        raise FieldError("the chip could not be cut into pieces cleanly")
+
+    monkeypatch.setattr(resources, "fits_memory", lambda e, memory=None: "field" not in e.what)
+    monkeypatch.setattr(run, "run_composed_field", refuse)
+    build = build_design(small_demo(tmp_path), field=True)
+    assert build.results["field"] is None and build.results["composed_field"] is None
+    assert any(w.startswith("field not composed: the chip") for w in build.results["warnings"])

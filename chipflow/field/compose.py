@@ -798,7 +798,9 @@ def compose_field(
     t1 = time.perf_counter()
     # the pieces are snapped, sampled and told apart from their ports at the chip's scale,
     # as the monolithic solve of the chip is
-    x0, y0, x1, y1 = shapely.union_all([layer.geometry for layer in layout.layers]).bounds
+    box = shapely.bounds([layer.geometry for layer in layout.layers])  # no union: large
+    x0, y0 = box[:, :2].min(axis=0)
+    x1, y1 = box[:, 2:].max(axis=0)
     scale = float(np.hypot(x1 - x0, y1 - y0))
     settings = {"across": across, "samples": SAMPLE_LEVEL, "scale": scale}
     units = [
