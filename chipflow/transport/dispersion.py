@@ -263,7 +263,11 @@ def _node_moments(ch: ChannelSet, active, tau, var):
     mean = spsolve(system, b1)
     with np.errstate(over="ignore"):  # a near-stagnant channel's transit: infinite spread
         spread = var[active] + (mean[up] + tau[active] - mean[down]) ** 2
-    b2 = np.bincount(down, weights=weight * spread, minlength=n)
+    # a side stream left out (weight 0) adds nothing, even where its spread is infinite
+    term = np.zeros_like(weight)
+    kept = weight > 0
+    term[kept] = weight[kept] * spread[kept]
+    b2 = np.bincount(down, weights=term, minlength=n)
     variance = spsolve(system, b2)
     scale = max(float(np.abs(b1).max(initial=0.0)), 1e-300)
     residual = max(
