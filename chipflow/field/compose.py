@@ -95,8 +95,9 @@ class Decomposition:
 
     Attributes
     ----------
-    pieces : numpy.ndarray of shapely.Polygon
-        Every piece in the chip's frame [m].
+    pieces : numpy.ndarray of shapely geometry
+        Every piece in the chip's frame [m]: a polygon, or the polygons of its parts in
+        several mask layers (which overlap where the layers do).
     kind : numpy.ndarray of int
         Index of each piece's distinct geometry.
     slots : list of numpy.ndarray
@@ -104,8 +105,8 @@ class Decomposition:
         geometry's own port order.
     instances : list of numpy.ndarray
         Per distinct geometry, the pieces that are it.
-    frames : list of shapely.Polygon
-        Per distinct geometry, the piece in its own frame (what is solved) [m].
+    frames : list of shapely geometry
+        Per distinct geometry, its first piece moved to its centroid [m].
     frame_ports : list of list of shapely.Geometry
         Per distinct geometry, its ports in its own frame: cut lines, or port holes [m].
     body_nodes : numpy.ndarray
@@ -118,6 +119,9 @@ class Decomposition:
         Per node the chip port it is ("" for a cut).
     cut_lines : numpy.ndarray of shapely.LineString
         Per node that is a cut, the cut across the channel [m] (None for a chip port).
+    frame_depths : list of list of (shapely.Polygon, float)
+        Per distinct geometry, its parts in its own frame [m] with their depths [m]: what is
+        meshed and solved.
     """
 
     pieces: np.ndarray
@@ -474,7 +478,7 @@ def decompose(
     tol = same_within * layout.grid
     areas = np.zeros((len(pieces), len(layers)))
     np.add.at(areas, (part_piece, part_layer), shapely.area(parts))
-    kind, slot_order, turn = _kinds(pieces, areas, marks, is_hole, starts, tol)
+    kind, slot_order = _kinds(pieces, areas, marks, is_hole, starts, tol)
     instances, slots, frames, frame_ports, frame_depths = [], [], [], [], []
     for k in range(int(kind.max(initial=-1)) + 1):
         inst = np.nonzero(kind == k)[0]
@@ -514,8 +518,8 @@ def _kinds(pieces, layers: np.ndarray, marks, is_hole, starts, tol: float):
     """Sort the pieces into kinds: the same outline, ports and depths up to a shift, a
     quarter turn or a mirror, every vertex within ``tol`` [m].
 
-    Returns each piece's kind, the order of its ports that matches its kind's first piece,
-    and the quarter turn or mirror (an index of ``_D4``) that takes that piece onto it.
+    Returns each piece's kind and the order of its ports that matches its kind's first
+    piece's.
     """
     from scipy.spatial import cKDTree
 
@@ -527,7 +531,6 @@ def _kinds(pieces, layers: np.ndarray, marks, is_hole, starts, tol: float):
     slack = shapely.length(pieces) * tol + 1e-12 * area
     kind = np.full(len(pieces), -1)
     slot_order: list = [None] * len(pieces)
-    turn = np.zeros(len(pieces), int)
     reps: dict = {}  # (vertices, ports, holes) -> [(kind, trees, port marks, piece)]
     for i in range(len(pieces)):
         own = xy[first[i] : first[i + 1]] - centre[i]
@@ -542,7 +545,7 @@ def _kinds(pieces, layers: np.ndarray, marks, is_hole, starts, tol: float):
                     # the rep's ports, turned: which of this piece's is each
                     d, near = cKDTree(pm).query(rep_marks @ _D4[t].T.astype(float))
                     if d.max() <= tol * 1.01 + 1e-15 and len(set(near)) == len(near):
-                        kind[i], slot_order[i], turn[i] = k, near, t
+                        kind[i], slot_order[i] = k, near
                         break
             if kind[i] >= 0:
                 break
@@ -551,7 +554,7 @@ def _kinds(pieces, layers: np.ndarray, marks, is_hole, starts, tol: float):
             kind[i], slot_order[i] = k, np.arange(len(pm))
             trees = [cKDTree(own @ m.T.astype(float)) for m in _D4]
             group.append((k, trees, pm, i))
-    return kind, slot_order, turn
+    return kind, slot_order
 
 
 #: A layer is cut into tiles of about this many vertices for local overlays.
