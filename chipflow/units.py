@@ -426,6 +426,11 @@ RESULT_UNITS: dict[str, str] = {
     "field_cv": "1",
     "network_cv": "1",
     "area": "m^2",
+    # composed field (results["composed_field"]): counts
+    "pieces": "1",
+    "kinds": "1",
+    "bodies": "1",
+    "triangles": "1",
     # chambers (results["chambers"])
     "corner_radius": "m",
     "taper": "m",
