@@ -201,6 +201,9 @@ def test_build_composes_the_field_that_would_not_fit(tmp_path, monkeypatch):
     assert done.exit_code in (0, 1), done.output
     saved = json.loads((out / "results.json").read_text())
     assert saved["composed_field"]["pieces"] == composed["pieces"]
+    leaves = {k for k, v in composed.items() if not isinstance(v, dict)}
+    leaves |= {k for v in composed.values() if isinstance(v, dict) for k in v}
+    assert leaves <= set(saved["units"])  # every number has its unit
     assert "composed from the chip's pieces" in (out / "report.html").read_text()
 
 
