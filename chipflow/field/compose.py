@@ -164,8 +164,8 @@ class ComposedField:
     decomposition : Decomposition
     stats : dict
         ``pieces``, ``distinct``, ``bodies``, ``triangles`` (meshed and solved),
-        ``represented`` (triangles the floor statistics stand for), ``body_area`` (the
-        bodies' share of the floor), timings [s].
+        ``body_area`` (the bodies' share of the floor), timings ``cut_seconds``,
+        ``solve_seconds``, ``join_seconds``, ``shear_seconds`` [s].
     """
 
     port_pressures: dict[str, float]
@@ -240,8 +240,7 @@ def _strip(a: np.ndarray, b: np.ndarray, half: np.ndarray) -> np.ndarray:
 
 
 def _bodies(layout: Layout, layers: list, stub: float, close: float | None):
-    """The straight bodies: cut points ``a``, ``b`` [m], channel, width [m] and the clean
-    straight channel kept on each side [m] of each."""
+    """The straight bodies: cut points ``a``, ``b`` [m], channel and width [m] of each."""
     ch = layout.channels
     start, end, c, at_start, at_end = _runs(layout)
     w = ch.width[c]
@@ -260,20 +259,20 @@ def _bodies(layout: Layout, layers: list, stub: float, close: float | None):
     grid = layout.grid
     along = np.abs(u) > 0.5  # the run's own axis: cuts on the mask grid along it
     found = np.zeros(len(c), bool)
-    a, b, keep = np.zeros((len(c), 2)), np.zeros((len(c), 2)), np.zeros(len(c))
+    a, b = np.zeros((len(c), 2)), np.zeros((len(c), 2))
     todo = np.ones(len(c), bool)
     for _ in range(2):  # the second round moves the stretches off the depth steps found
         a_, b_, keep_, ok = _place(start, end, u, w, s0, s1, along, grid, stub, close)
         idx = np.nonzero(ok & todo)[0]
         # the drawn outline's straight edges may start a grid step or two past the
         # centreline's (the snapped polygon of a bend): whole up to two steps short
-        good, _, f_body, f_span = _clean(
+        good, f_body, f_span = _clean(
             layers, a_[idx], b_[idx], u[idx], w[idx], keep_[idx],
             np.minimum(2 * grid, keep_[idx]), ch.layer[c[idx]],
         )  # fmt: skip
         take = idx[good]
         found[take] = True
-        a[take], b[take], keep[take] = a_[take], b_[take], keep_[take]
+        a[take], b[take] = a_[take], b_[take]
         # a run refused for another depth in its stretch: the stretch ends where that begins
         runs = idx[f_body]
         offset = np.einsum("ij,ij->i", a_[runs] - start[runs], u[runs])
@@ -286,7 +285,7 @@ def _bodies(layout: Layout, layers: list, stub: float, close: float | None):
         todo &= ~found
         if not todo.any():
             break
-    return a[found], b[found], c[found], w[found], keep[found]
+    return a[found], b[found], c[found], w[found]
 
 
 def _place(start, end, u, w, s0, s1, along, grid, stub, close):
@@ -314,14 +313,17 @@ def _place(start, end, u, w, s0, s1, along, grid, stub, close):
     return a, b, keep, ok & (keep >= 0)
 
 
-def _clean(layers, a, b, u, w, keep, slack, own) -> np.ndarray:
+def _clean(layers, a, b, u, w, keep, slack, own):
     """Which bodies see nothing of the mask but their channel's strip in its own layer
     ``own`` (an index into ``layers``, the mask layers less the port holes): across the cut
     strip (which reaches past the walls) and along the clean channel ``keep`` [m] beyond each
     cut, the channel whole there up to ``slack`` [m] from the ends. Anything else (a fillet,
-    a branch, a neighbour too near, a hole, another depth) and the run is left whole."""
+    a branch, a neighbour too near, a hole, another depth) and the run is left whole.
+
+    Returns which are clean, and for the parts of other depths met: the body of each and
+    where it lies along the body's run from ``a`` (nearest, furthest) [m]."""
     if not len(a):
-        return np.zeros(0, bool), np.zeros(0, bool), np.zeros(0, int), np.zeros((0, 2))
+        return np.zeros(0, bool), np.zeros(0, int), np.zeros((0, 2))
     tip = keep[:, None] * u
     shapes = shapely.union(
         _strip(a, b, (0.5 + _CUT_MARGIN) * w), _strip(a - tip, b + tip, 0.5 * w * (1 + 1e-3))
@@ -372,7 +374,7 @@ def _clean(layers, a, b, u, w, keep, slack, own) -> np.ndarray:
         axis=1,
     )
     span = np.sort(ends, axis=1)
-    return alone & ~foreign & extra & full, foreign, fb, span
+    return alone & ~foreign & extra & full, fb, span
 
 
 # -- sameness ----------------------------------------------------------------------------------
@@ -430,9 +432,13 @@ def decompose(
         else layer.geometry
         for layer in layout.layers
     ]
-    a, b, c, w, _ = _bodies(layout, layers, stub, close)
+    a, b, c, w = _bodies(layout, layers, stub, close)
+    strips = _strip(a, b, (0.5 + _CUT_MARGIN) * w)
+    i, j = shapely.STRtree(strips).query(strips, predicate="intersects")
+    apart = np.bincount(i[i != j], minlength=len(c)) == 0  # cuts moved in a second round
+    a, b, c, w, strips = a[apart], b[apart], c[apart], w[apart], strips[apart]
     n_body = len(c)
-    cuts = shapely.multipolygons(_strip(a, b, (0.5 + _CUT_MARGIN) * w))  # disjoint
+    cuts = shapely.multipolygons(strips)  # disjoint: a valid multipolygon without a union
     parts, part_layer = [], []
     for k, layer in enumerate(layers):
         got = np.asarray(shapely.get_parts(layer.difference(cuts) if n_body else layer))
@@ -491,7 +497,7 @@ def decompose(
             for j in port_node[starts[first] + slot_order[first]]
         ]
         own = part_piece == first
-        depths = [float(layout.layers[k].depth) for k in part_layer[own]]
+        depths = [float(layout.layers[layer].depth) for layer in part_layer[own]]
         frame, ports, depths = _frame(pieces[first], parts[own], depths, geoms)
         frames.append(frame)
         frame_ports.append(ports)
@@ -745,6 +751,42 @@ def _tile(width: float, depth: float, across: float, solver: str, scale: float) 
     )
 
 
+def _floor(dec, units, tiles, p, body_flow, viscosity, window, piece_args):
+    """The floor shear of the pieces (each instance at its ports' pressures ``p`` [Pa]) and
+    of the bodies (their tile at their flow [m^3/s]), and the bodies' floor area [m^2]."""
+    hist = ShearHistogram()
+    for kind, (unit, slot) in enumerate(zip(units, dec.slots, strict=True)):
+        factor, area = unit["factor"], unit["area"]
+        nt = area.size
+        step = max(1, _CHUNK // nt)
+        if "velocity" in unit:
+            flat = unit["velocity"].reshape(len(unit["g"]), -1)
+            speeds = (
+                (p[slot[s : s + step]] @ flat).reshape(-1, nt, 2) for s in range(0, len(slot), step)
+            )
+        else:  # a large piece: solved again at its instances' port pressures
+            piece = _PieceSystem(dec.frame_depths[kind], dec.frame_ports[kind], *piece_args)
+            step = min(step, _COLUMNS)
+            speeds = (
+                piece.velocity(piece.solve(p[slot[s : s + step]].T))
+                for s in range(0, len(slot), step)
+            )
+        for v in speeds:
+            hist.add(factor * np.hypot(v[..., 0], v[..., 1]), np.broadcast_to(area, v.shape[:2]))
+    body_area = 0.0
+    for pair, tile in tiles.items():
+        mine = np.nonzero((dec.body_width == pair[0]) & (dec.body_depth == pair[1]))[0]
+        step = max(1, _CHUNK // len(tile["s"]))
+        for s in range(0, len(mine), step):
+            j = mine[s : s + step]
+            hist.add(
+                np.abs(body_flow[j])[:, None] * viscosity * tile["s"],
+                dec.body_length[j][:, None] * tile["a"],
+            )
+        body_area += float(dec.body_length[mine].sum() * tile["a"].sum())
+    return hist.stats(window), body_area
+
+
 def compose_field(
     layout: Layout,
     pressures: dict[str, float],
@@ -757,6 +799,7 @@ def compose_field(
     close: float | None = CLOSE_WIDTHS,
     same_within: float = SAME_WITHIN,
     decomposition: Decomposition | None = None,
+    with_floor: bool = True,
 ) -> ComposedField:
     """The chip's field at the given port pressures, composed from its pieces.
 
@@ -777,6 +820,8 @@ def compose_field(
         As :func:`decompose`.
     decomposition : Decomposition, optional
         The chip already cut (:func:`decompose`).
+    with_floor : bool
+        Gather the floor shear; without it ``floor`` is NaN (flows and pressures only).
 
     Raises
     ------
@@ -819,6 +864,7 @@ def compose_field(
         {(float(w), float(d)) for w, d in zip(dec.body_width, dec.body_depth, strict=True)}
     )
     tiles = {pair: _tile(*pair, across, solver, scale) for pair in pairs}
+    piece_args = (across, solver, scale)
     t2 = time.perf_counter()
 
     # the nodal problem: pieces' conductances and bodies' between cuts, ports held
@@ -861,39 +907,10 @@ def compose_field(
     body_flow = g_body * (p[na] - p[nb]) / viscosity
     t3 = time.perf_counter()
 
-    hist = ShearHistogram()
-    for kind, (unit, slot) in enumerate(zip(units, dec.slots, strict=True)):
-        factor, area = unit["factor"], unit["area"]
-        nt = area.size
-        step = max(1, _CHUNK // nt)
-        if "velocity" in unit:
-            flat = unit["velocity"].reshape(len(unit["g"]), -1)
-            speeds = (
-                (p[slot[s : s + step]] @ flat).reshape(-1, nt, 2) for s in range(0, len(slot), step)
-            )
-        else:  # a large piece: solved again at its instances' port pressures
-            piece = _PieceSystem(
-                dec.frame_depths[kind], dec.frame_ports[kind], across, solver, scale
-            )
-            step = min(step, _COLUMNS)
-            speeds = (
-                piece.velocity(piece.solve(p[slot[s : s + step]].T))
-                for s in range(0, len(slot), step)
-            )
-        for v in speeds:
-            hist.add(factor * np.hypot(v[..., 0], v[..., 1]), np.broadcast_to(area, v.shape[:2]))
-    body_area = 0.0
-    for pair, tile in tiles.items():
-        mine = np.nonzero((dec.body_width == pair[0]) & (dec.body_depth == pair[1]))[0]
-        step = max(1, _CHUNK // len(tile["s"]))
-        for s in range(0, len(mine), step):
-            j = mine[s : s + step]
-            hist.add(
-                np.abs(body_flow[j])[:, None] * viscosity * tile["s"],
-                dec.body_length[j][:, None] * tile["a"],
-            )
-        body_area += float(dec.body_length[mine].sum() * tile["a"].sum())
-    floor = hist.stats(window)
+    if with_floor:
+        floor, body_area = _floor(dec, units, tiles, p, body_flow, viscosity, window, piece_args)
+    else:
+        floor, body_area = ShearStats(np.nan, np.nan, np.nan, np.nan, np.nan, np.nan), np.nan
     t4 = time.perf_counter()
     stats = {
         "pieces": int(len(dec.pieces)),
@@ -903,7 +920,7 @@ def compose_field(
             sum(u["area"].size for u in units) + sum(t["s"].size for t in tiles.values())
         )
         // SAMPLE_LEVEL**2,
-        "body_area": body_area / floor.area if floor.area else 0.0,
+        "body_area": body_area / floor.area if floor.area else 0.0,  # nan without the floor
         "cut_seconds": t1 - t0,
         "solve_seconds": t2 - t1,
         "join_seconds": t3 - t2,

@@ -181,17 +181,18 @@ def run_composed_field(
 
     high, low, pressures, window = _ports_and_window(layout, network_solution, window)
     pieces = decompose(layout)
-    field = compose_field(layout, pressures, viscosity, window=window, decomposition=pieces)
+    field = compose_field(
+        layout, pressures, viscosity, decomposition=pieces, with_floor=False
+    )  # its flows and resistance: the operating point
     q_field = field.port_flows[high]
     resistance = field.resistance(high, low)
     q_op = _operating_flow(
         layout, network_solution, high, low, pressures, q_field, resistance, flow_driven
     )
-    scale = q_op / q_field
-    if scale != 1.0:  # linear: the same pieces at scaled pressures (cached: no new solve)
-        low_p = min(pressures.values())
-        scaled_p = {k: low_p + scale * (v - low_p) for k, v in pressures.items()}
-        field = compose_field(layout, scaled_p, viscosity, window=window, decomposition=pieces)
+    scale = q_op / q_field  # linear: the same pieces at scaled pressures (no new solve)
+    low_p = min(pressures.values())
+    scaled_p = {k: low_p + scale * (v - low_p) for k, v in pressures.items()}
+    field = compose_field(layout, scaled_p, viscosity, window=window, decomposition=pieces)
     split = {"max_deviation": float("nan"), "field_cv": float("nan"), "network_cv": float("nan")}
     n_ch = len(layout.channels.width)
     bed = layout.channels.role[pieces.body_channel] == "bed"
