@@ -290,7 +290,8 @@ def dosing(ch: ChannelSet, diffusivity: float) -> Dosing:
     area = np.where(ch.round, np.pi * ch.width**2 / 4.0, ch.width * ch.depth)
     active = ch.flow > 0
     u = np.where(active, ch.flow / area, 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    # a near-stagnant channel's transit and spread overflow to infinity: taken as such
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         tau = np.where(active, ch.length / np.where(active, u, 1.0), np.inf)
         k = dispersion_coefficient(u, ch.width, ch.depth, ch.round, diffusivity, tau)
         var = np.where(active, 2.0 * k * ch.length / np.where(active, u, 1.0) ** 3, np.inf)
